@@ -1,0 +1,216 @@
+"""The ``massfit`` command: a thin layer over the Python API.
+
+Exit status: 0 done and converged; 2 a problem with the input, the config or an option
+(one line on stderr, no traceback); 3 the fit finished but did not converge (the
+result is written and flagged); 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from .errors import ConfigError, MassfitError
+
+__all__ = ["main", "EXIT_OK", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED"]
+
+EXIT_OK = 0
+EXIT_USER_ERROR = 2
+EXIT_NOT_CONVERGED = 3
+EXIT_INTERRUPTED = 130
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="massfit",
+        description="Measure the mass of a central body from the orbits of its "
+                    "companions (relative astrometry), sampled with emcee.",
+        epilog="Exit status: 0 converged, 2 bad input or option, 3 not converged.")
+    from . import __version__
+
+    parser.add_argument("--version", action="version", version=f"massfit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    fit = sub.add_parser(
+        "fit", help="fit observation files or a TOML config",
+        description="Fit all companions with one shared central mass. Give a TOML config, "
+                    "or observation files (CSV/ECSV): every body in them becomes a "
+                    "companion of one primary, with default priors.")
+    fit.add_argument("inputs", nargs="+", metavar="CONFIG.toml | FILE",
+                     help="a TOML config, or one or more observation tables")
+    fit.add_argument("--out", metavar="DIR", help="output folder (required unless the "
+                     "config names one)")
+    fit.add_argument("--parallax", metavar="'VALUE UNIT'", help="system parallax, e.g. "
+                     "'48.2 mas'; fixed unless --parallax-err is given")
+    fit.add_argument("--parallax-err", metavar="'VALUE UNIT'",
+                     help="1-sigma error of the parallax (Gaussian prior)")
+    fit.add_argument("--distance", metavar="'VALUE UNIT'", help="fixed distance, e.g. "
+                     "'20.7 pc'")
+    fit.add_argument("--time-format", metavar="NAME", help="astropy Time format of a plain "
+                     "CSV 'time' column (jd, mjd, isot, jyear, ...)")
+    fit.add_argument("--time-scale", metavar="NAME", help="its time scale (utc, tt, tdb, ...)")
+    fit.add_argument("--units", metavar="COL=UNIT,...", help="units of plain CSV columns, "
+                     "e.g. 'east=mas,north=mas,east_err=mas,north_err=mas'")
+    fit.add_argument("--skip-bad-rows", action="store_true", help="reject unusable rows "
+                     "(listed in summary.json) instead of stopping at the first")
+    _sampler_options(fit)
+    fit.add_argument("--no-plots", action="store_true", help="skip the figures")
+    fit.add_argument("--force", action="store_true", help="replace an existing result")
+    fit.add_argument("--quiet", action="store_true", help="print only the result")
+
+    demo = sub.add_parser(
+        "demo", help="fit the bundled invented example and compare with its truth",
+        description="Fit the bundled example (four moons of an invented gas giant) and "
+                    "print the result beside the truth it was simulated from.")
+    demo.add_argument("--out", metavar="DIR", default="massfit-demo",
+                      help="output folder (default: %(default)s)")
+    _sampler_options(demo)
+    demo.add_argument("--no-plots", action="store_true", help="skip the figures")
+    demo.add_argument("--force", action="store_true", default=True, help=argparse.SUPPRESS)
+    demo.add_argument("--quiet", action="store_true", help="print only the result")
+    return parser
+
+
+def _sampler_options(parser):
+    parser.add_argument("--seed", type=int, metavar="N", help="random seed (repeats the run)")
+    parser.add_argument("--walkers", type=int, metavar="N", help="number of emcee walkers")
+    parser.add_argument("--max-steps", type=int, metavar="N", help="step cap (default 50000)")
+
+
+def main(argv=None) -> int:
+    """Entry point of the ``massfit`` command; returns the exit status."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_USER_ERROR
+    try:
+        if args.command == "fit":
+            return _cmd_fit(args)
+        return _cmd_demo(args)
+    except MassfitError as exc:
+        print(f"massfit: error: {exc}", file=sys.stderr)
+        return EXIT_USER_ERROR
+    except KeyboardInterrupt:
+        print("massfit: interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+def _units_option(text):
+    units = {}
+    for part in text.split(","):
+        if "=" not in part:
+            raise ConfigError(f"'{part}' is not COLUMN=UNIT", key="--units")
+        col, unit = part.split("=", 1)
+        units[col.strip()] = unit.strip()
+    return units
+
+
+def _setup_from_args(args):
+    from .config import FitSetup, load_config
+    from .model import SystemSpec
+    from .sample import SamplerSettings
+
+    inputs = [Path(p) for p in args.inputs]
+    if len(inputs) == 1 and inputs[0].suffix.lower() == ".toml":
+        setup = load_config(inputs[0])
+    else:
+        for p in inputs:
+            if p.suffix.lower() == ".toml":
+                raise ConfigError("give a config alone, or observation files without one",
+                                  key=str(p))
+        setup = FitSetup(files=inputs, system=SystemSpec(), sampler=SamplerSettings())
+    options = setup.read_options
+    for key in ("time_format", "time_scale"):
+        if getattr(args, key) is not None:
+            options[key] = getattr(args, key)
+    if args.units:
+        options["units"] = _units_option(args.units)
+    if args.skip_bad_rows:
+        options["skip_bad_rows"] = True
+    if args.out:
+        setup.output = Path(args.out)
+    if setup.output is None:
+        raise ConfigError("say where to write the result with --out DIR", key="--out")
+    return setup
+
+
+def _run(setup, args, *, record):
+    from dataclasses import replace
+
+    from .read import read_observations
+    from .run import distance_prior, fit
+
+    observations = read_observations(setup.files, **setup.read_options)
+    system = setup.system
+    plx = distance_prior(getattr(args, "parallax", None), getattr(args, "parallax_err", None),
+                         getattr(args, "distance", None))
+    if plx is not None:
+        system = replace(system, parallax=plx)
+    overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps")
+                 if getattr(args, k) is not None}
+    sampler = replace(setup.sampler, **overrides)
+    if not args.quiet:
+        print(f"massfit: read {observations.rows_used} rows of "
+              f"{len(observations.companions)} companion(s) from "
+              f"{len(observations.files)} file(s); finding a starting orbit...",
+              file=sys.stderr)
+    result = fit(observations, system, sampler=sampler, record=record)
+    result.save(setup.output, plots=setup.plots and not args.no_plots, force=args.force)
+    return result
+
+
+def _record(args, setup):
+    from .runrecord import run_record
+
+    return run_record(argv=sys.argv, config=setup.source, files=setup.files)
+
+
+def _finish(result, out):
+    print(result.report())
+    print(f"\nwritten to {out}/")
+    if not result.converged:
+        print("massfit: the fit did NOT converge; the numbers above are flagged in "
+              "summary.json (converged: false)", file=sys.stderr)
+        return EXIT_NOT_CONVERGED
+    return EXIT_OK
+
+
+def _cmd_fit(args):
+    setup = _setup_from_args(args)
+    if (Path(setup.output) / "summary.json").exists() and not args.force:
+        raise ConfigError(f"'{setup.output}' already holds a result; choose another folder "
+                          f"or pass --force", key="--out")
+    result = _run(setup, args, record=_record(args, setup))
+    return _finish(result, setup.output)
+
+
+def _cmd_demo(args):
+    from .config import FitSetup
+    from .scenarios import demo_setup
+
+    setup: FitSetup = demo_setup()
+    setup.output = Path(args.out)
+    result = _run(setup, argparse.Namespace(**vars(args), parallax=None, parallax_err=None,
+                                            distance=None), record=_record(args, setup))
+    status = _finish(result, setup.output)
+    truth = json.loads((Path(setup.files[0]).parent / "truth.json").read_text())
+    print("\n" + _compare_with_truth(result, truth))
+    return status
+
+
+def _compare_with_truth(result, truth):
+    s = result.summary
+    lines = ["Fit beside the truth the example was simulated from:"]
+    gm = s["central_gm"]
+    inside = gm["lower_95"] <= truth["central_gm_km3_s2"] <= gm["upper_95"]
+    lines.append(f"  GM  fitted {gm['median']:.6g} km^3/s^2, true "
+                 f"{truth['central_gm_km3_s2']:.6g}  "
+                 f"({'inside' if inside else 'OUTSIDE'} the 95% interval)")
+    for name, elements in truth["companions"].items():
+        period = s["companions"][name]["period"]
+        lines.append(f"  {name:<8} P fitted {period['median']:.6g} d, true "
+                     f"{elements['period']:.6g} d")
+    return "\n".join(lines)

@@ -1,0 +1,308 @@
+"""The result of a fit: numbers, text for a terminal or a notebook, and an output folder."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+from astropy.table import Table
+
+from .summarise import MASS_UNITS, derived_samples, interval
+
+__all__ = ["FitResult", "format_value", "best_mass_unit"]
+
+SUMMARY_FILE = "summary.json"
+SAMPLES_FILE = "samples.ecsv"
+
+
+def format_value(block, digits=2) -> str:
+    """``median +upper/-lower`` with as many decimals as the interval deserves.
+
+    The smaller of the two 68 % half-widths is shown to ``digits`` significant
+    figures, and the median to the same decimal place (common practice).
+    """
+    if block["median"] is None:
+        return "undetermined"
+    med = block["median"]
+    up = block["upper_68"] - med
+    down = med - block["lower_68"]
+    width = min(w for w in (up, down) if w > 0) if max(up, down) > 0 else abs(med) or 1.0
+    exponent = math.floor(math.log10(width)) - (digits - 1)
+    scale_exp = math.floor(math.log10(abs(med))) if med != 0 else 0
+    if abs(scale_exp) >= 5:
+        factor = 10.0 ** scale_exp
+        decimals = max(0, scale_exp - exponent)
+        return (f"({med / factor:.{decimals}f} +{up / factor:.{decimals}f} "
+                f"-{down / factor:.{decimals}f}) e{scale_exp:+d}")
+    decimals = max(0, -exponent)
+    return f"{med:.{decimals}f} +{up:.{decimals}f} -{down:.{decimals}f}"
+
+
+def best_mass_unit(mass_msun: float) -> str:
+    """The mass unit that reads best for a central mass in solar masses."""
+    if mass_msun >= 0.01:
+        return "Msun"
+    if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
+        return "Mjup"
+    return "Mearth"
+
+
+class FitResult:
+    """Everything a fit produced.
+
+    Attributes
+    ----------
+    model : OrbitModel
+    chain : Chain
+        The posterior samples and the sampler's diagnostics.
+    start : Start
+        The starting solution and any comparable modes.
+    samples : dict
+        Derived physical samples (see :func:`massfit.summarise.derived_samples`).
+    summary : dict
+        The content of ``summary.json``.
+    """
+
+    def __init__(self, model, chain, start, *, settings=None, warnings=None, record=None):
+        self.model = model
+        self.chain = chain
+        self.start = start
+        self.settings = settings
+        self.samples = derived_samples(model, chain.samples, seed=getattr(settings, "seed", None))
+        self.warnings = list(warnings or [])
+        self.record = dict(record or {})
+        self.summary = self._build_summary()
+
+    # ------------------------------------------------------------------ numbers
+    @property
+    def converged(self) -> bool:
+        return bool(self.chain.converged)
+
+    def _build_summary(self) -> dict:
+        s = self.samples
+        obs = self.model.observations
+        chain = self.chain
+        summary = {
+            "central_mass": interval(s["central_mass"], "kg"),
+            "central_gm": interval(s["central_gm"], "km3 / s2"),
+            "central_mass_solar": interval(s["central_mass_Msun"], "M_sun"),
+            "central_mass_jupiter": interval(s["central_mass_Mjup"], "M_jup"),
+            "central_mass_earth": interval(s["central_mass_Mearth"], "M_earth"),
+        }
+        if "parallax" in s:
+            summary["parallax"] = interval(s["parallax"], "mas")
+        summary["converged"] = self.converged
+        names = self.model.names
+        k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
+        summary["diagnostics"] = {
+            "walkers": int(chain.walkers),
+            "steps": int(chain.steps),
+            "max_autocorr_steps": float(np.max(chain.tau)),
+            "effective_samples": chain.effective_samples(k_mass),
+            "sampling_seconds": float(chain.seconds),
+            "acceptance_fraction": float(chain.acceptance_fraction),
+            "burn_in_steps": int(chain.burn_in),
+            "thin": int(chain.thin),
+            "required_autocorr_multiple": 50,
+            "autocorr_steps": {n: float(t) for n, t in zip(names, chain.tau)},
+        }
+        summary["companions"] = {}
+        for name, comp in s["companions"].items():
+            block = {
+                "period": interval(comp["period"], "d"),
+                "semi_major_axis": interval(comp["semi_major_axis"], "au"),
+                "semi_major_axis_km": interval(comp["semi_major_axis_km"], "km"),
+                "eccentricity": interval(comp["eccentricity"], ""),
+                "inclination": interval(comp["inclination"], "deg"),
+                "periapsis_argument": interval(comp["periapsis_argument"], "deg"),
+                "ascending_node": interval(comp["ascending_node"], "deg"),
+                "periapsis_time": interval(comp["periapsis_time"], "JD (TDB)"),
+            }
+            if "semi_major_axis_mas" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
+            if "mass" in comp:
+                block["mass"] = interval(comp["mass"], "M_sun")
+            block["node_ambiguity_deg"] = 180.0 if self.model.node_width[name] < 6 else 0.0
+            summary["companions"][name] = block
+        summary["modes"] = list(self.start.modes)
+        summary["warnings"] = list(self.warnings)
+        summary["inputs"] = {
+            "files": list(obs.files),
+            "rows_read": int(obs.rows_read),
+            "rows_used": int(obs.rows_used),
+            "rows_rejected": [r.as_dict() for r in obs.rejected],
+            "unused_columns": dict(obs.unused_columns),
+        }
+        return summary
+
+    # --------------------------------------------------------------------- text
+    def report(self) -> str:
+        """A plain-text summary for the terminal."""
+        s = self.summary
+        lines = []
+        if not self.converged:
+            lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times",
+                      "*** or their estimate has not settled; do not quote these numbers.", ""]
+        lines.append("Central body")
+        lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
+                     f"(95%: {s['central_gm']['lower_95']:.6g} .. "
+                     f"{s['central_gm']['upper_95']:.6g})")
+        lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
+                     f"(includes the uncertainty of G)")
+        unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
+        key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
+               "Mearth": "central_mass_earth"}[unit]
+        lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
+                     f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+        if "parallax" in s:
+            lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        for name, comp in s["companions"].items():
+            lines.append(f"Companion {name}")
+            lines.append(f"  P       = {format_value(comp['period'])} d")
+            a_line = (f"  a       = {format_value(comp['semi_major_axis'])} au"
+                      f" = {format_value(comp['semi_major_axis_km'])} km")
+            if "semi_major_axis_angle" in comp:
+                a_line += f" = {format_value(comp['semi_major_axis_angle'])} mas"
+            lines.append(a_line)
+            lines.append(f"  e       = {format_value(comp['eccentricity'])}")
+            lines.append(f"  i       = {format_value(comp['inclination'])} deg")
+            note = " (or +180 with node +180)" if comp["node_ambiguity_deg"] else ""
+            lines.append(f"  omega   = {format_value(comp['periapsis_argument'])} deg{note}")
+            lines.append(f"  Omega   = {format_value(comp['ascending_node'])} deg")
+            if "mass" in comp:
+                lines.append(f"  m       = {format_value(comp['mass'])} M_sun")
+        d = s["diagnostics"]
+        lines.append("Sampler")
+        lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
+                     f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
+                     f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
+                     f"acceptance {d['acceptance_fraction']:.2f}")
+        lines.append(f"  effective samples of the mass: {d['effective_samples']:.0f}; "
+                     f"sampling took {d['sampling_seconds']:.1f} s; "
+                     f"converged: {'yes' if self.converged else 'NO'}")
+        for mode in s["modes"]:
+            lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
+                         f"(best {mode['best_period']:.6g} d), central mass "
+                         f"{mode['central_mass']:.4g} M_sun, delta chi2 = "
+                         f"{mode['delta_chi2']:.1f}")
+        for text in s["warnings"]:
+            lines.append(f"  warning: {text}")
+        inputs = s["inputs"]
+        lines.append(f"Inputs: {inputs['rows_used']} of {inputs['rows_read']} rows used "
+                     f"from {len(inputs['files'])} file(s); "
+                     f"{len(inputs['rows_rejected'])} rejected")
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.report()
+
+    def __repr__(self) -> str:
+        m = self.summary["central_mass_solar"]
+        return (f"<FitResult central mass {m['median']:.6g} M_sun, "
+                f"{len(self.summary['companions'])} companion(s), "
+                f"converged={self.converged}>")
+
+    def _repr_html_(self) -> str:
+        from html import escape
+
+        return f"<pre>{escape(self.report())}</pre>"
+
+    # ----------------------------------------------------------------- samples
+    def samples_table(self) -> Table:
+        """Posterior samples (sampled coordinates and derived quantities) as a Table."""
+        table = Table()
+        for k, name in enumerate(self.model.names):
+            table[name] = self.chain.samples[:, k]
+        table["log_prob"] = self.chain.log_prob
+        units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
+        for key, values in self.samples.items():
+            if key == "companions":
+                continue
+            table[key] = values
+            if key in units:
+                table[key].unit = units[key]
+        comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
+                      "semi_major_axis_mas": "mas", "inclination": "deg",
+                      "periapsis_argument": "deg", "ascending_node": "deg",
+                      "mass": "solMass"}
+        for name, comp in self.samples["companions"].items():
+            for key, values in comp.items():
+                table[f"{name}.{key}"] = values
+                if key in comp_units:
+                    table[f"{name}.{key}"].unit = comp_units[key]
+        table.meta["converged"] = self.converged
+        return table
+
+    # -------------------------------------------------------------------- plots
+    def corner_plot(self, **kwargs):
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plots.corner_plot`."""
+        from .plots import corner_plot
+
+        return corner_plot(self, **kwargs)
+
+    def orbit_plot(self, **kwargs):
+        """Sky-plane orbits with the data; see :func:`massfit.plots.orbit_plot`."""
+        from .plots import orbit_plot
+
+        return orbit_plot(self, **kwargs)
+
+    # --------------------------------------------------------------------- save
+    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
+        """Write the output folder: summary.json, samples.ecsv and the figures.
+
+        The folder is written beside its final place and renamed into it at the end,
+        so a half-written folder never looks complete. An existing result is kept
+        unless ``force`` is true.
+        """
+        from .errors import ConfigError
+
+        out = Path(out_dir)
+        if (out / SUMMARY_FILE).exists() and not force:
+            raise ConfigError(f"'{out}' already holds a result; choose another folder or "
+                              f"pass --force (force=True) to replace it", key="--out")
+        out.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+        try:
+            self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
+            if self.record:
+                _write_json(tmp / "run.json", self.record)
+            if plots:
+                self._save_plots(tmp, formats)
+            _write_json(tmp / SUMMARY_FILE, self.summary)
+            if out.exists():
+                shutil.rmtree(out)
+            os.replace(tmp, out)
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        return out
+
+    def _save_plots(self, folder, formats):
+        import matplotlib.pyplot as plt
+
+        for stem, draw in (("corner", self.corner_plot), ("orbits", self.orbit_plot)):
+            fig = draw()
+            for ext in formats:
+                fig.savefig(folder / f"{stem}.{ext}", dpi=200 if ext == "png" else None)
+            plt.close(fig)
+
+
+def _write_json(path, data):
+    with open(path, "w") as handle:
+        json.dump(data, handle, indent=2, default=_json_default)
+        handle.write("\n")
+
+
+def _json_default(value):
+    if isinstance(value, (np.floating, np.integer)):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.bool_):
+        return bool(value)
+    return str(value)

@@ -1,0 +1,140 @@
+"""One fit, end to end: model, starting point, sampling, result."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import sys
+
+import numpy as np
+
+from .errors import ConfigError
+from .model import OrbitModel, SystemSpec
+from .observations import Observations
+from .priors import Fixed, Normal
+from .results import FitResult
+from .sample import SamplerSettings, run_sampler
+from .start import find_start
+
+__all__ = ["fit", "distance_prior"]
+
+
+def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefix="--"):
+    """The parallax prior (mas) from a parallax with its error, or a fixed distance.
+
+    Parameters
+    ----------
+    parallax, parallax_err, distance : str or Quantity, optional
+        ``"12.3 mas"``, ``"0.2 mas"``, ``"81 pc"``. A parallax without an error is
+        held fixed.
+
+    Returns
+    -------
+    Prior or None
+    """
+    import astropy.units as u
+
+    from .constants import parse_quantity
+
+    if distance is not None and parallax is not None:
+        raise ConfigError("give either a parallax or a distance, not both",
+                          key=f"{key_prefix}distance")
+    if distance is not None:
+        d = parse_quantity(distance, expect=u.pc, key=f"{key_prefix}distance")
+        if d.value <= 0:
+            raise ConfigError("the distance must be positive", key=f"{key_prefix}distance")
+        return Fixed(float(d.to_value(u.mas, equivalencies=u.parallax())))
+    if parallax is None:
+        if parallax_err is not None:
+            raise ConfigError("a parallax error needs a parallax",
+                              key=f"{key_prefix}parallax-err")
+        return None
+    plx = parse_quantity(parallax, expect=u.mas, key=f"{key_prefix}parallax")
+    value = float(plx.to_value(u.mas))
+    if value <= 0:
+        raise ConfigError("the parallax must be positive", key=f"{key_prefix}parallax")
+    if parallax_err is None:
+        return Fixed(value)
+    err = float(parse_quantity(parallax_err, expect=u.mas,
+                               key=f"{key_prefix}parallax-err").to_value(u.mas))
+    if err <= 0:
+        raise ConfigError("the parallax error must be positive",
+                          key=f"{key_prefix}parallax-err")
+    return Normal(value, err, low=0.0)
+
+
+def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
+        parallax=None, parallax_err=None, distance=None, seed=None, walkers=None,
+        max_steps=None, progress=None, record=None) -> FitResult:
+    """Fit every companion's orbit with one shared central mass and sample the posterior.
+
+    Parameters
+    ----------
+    observations : Observations or path or list of paths
+        What :func:`massfit.read_observations` returns, or files to read with its
+        defaults (ECSV that states its units and times).
+    system : SystemSpec, optional
+        Priors and assumptions; defaults for anything not stated.
+    sampler : SamplerSettings, optional
+        Walkers, step cap, seed and progress bar.
+    parallax, parallax_err, distance : str or Quantity, optional
+        Shortcuts for the system's parallax prior (``"12.3 mas"``, ``"81 pc"``).
+    seed, walkers, max_steps, progress : optional
+        Shortcuts that override ``sampler``.
+
+    Returns
+    -------
+    FitResult
+    """
+    from dataclasses import replace
+
+    if not isinstance(observations, Observations):
+        from .read import read_observations
+
+        observations = read_observations(observations)
+    spec = system if system is not None else SystemSpec()
+    plx = distance_prior(parallax, parallax_err, distance, key_prefix="")
+    if plx is not None:
+        spec = replace(spec, parallax=plx)
+    settings = sampler if sampler is not None else SamplerSettings()
+    overrides = {k: v for k, v in dict(seed=seed, walkers=walkers, max_steps=max_steps,
+                                       progress=progress).items() if v is not None}
+    settings = replace(settings, **overrides)
+    _check_settings(settings)
+    started = _dt.datetime.now(_dt.timezone.utc)
+    model = OrbitModel(observations, spec)
+    start = find_start(model)
+    rng = np.random.default_rng(settings.seed)
+    initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
+    chain = run_sampler(model.log_prob, initial, settings)
+    warnings = _warnings(chain, start)
+    run_record = {"started_utc": started.isoformat(),
+                  "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
+                  "seed": settings.seed, "python": sys.version.split()[0]}
+    run_record.update(record or {})
+    return FitResult(model, chain, start, settings=settings, warnings=warnings,
+                     record=run_record)
+
+
+def _check_settings(settings):
+    if settings.walkers is not None and (not isinstance(settings.walkers, int)
+                                         or settings.walkers < 4):
+        raise ConfigError("walkers must be a whole number of at least 4", key="walkers")
+    if not isinstance(settings.max_steps, int) or settings.max_steps < 100:
+        raise ConfigError("max_steps must be a whole number of at least 100",
+                          key="max_steps")
+    if not isinstance(settings.check_every, int) or settings.check_every < 50:
+        raise ConfigError("check_every must be a whole number of at least 50",
+                          key="check_every")
+
+
+def _warnings(chain, start):
+    out = []
+    if not chain.converged:
+        out.append(f"not converged after {chain.steps} steps: the chain is "
+                   f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "
+                   f"long (50 needed); raise max_steps")
+    for mode in start.modes:
+        out.append(f"another solution fits nearly as well: {mode['body']} with "
+                   f"P = {mode['period']:.6g} d (delta chi2 = {mode['delta_chi2']:.1f}); "
+                   f"the sampler explored only the best one")
+    return out
