@@ -216,7 +216,8 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
         ``tt``, ``tdb``, ...) of plain ``time`` columns. They are used where a file does
         not state its own (a native astropy Time column, or the ECSV table meta keys
         ``time_format`` and ``time_scale``); a file's own statement always wins. Where
-        neither states them the read is refused: massfit never guesses.
+        neither states them the read is refused: massfit never guesses. A native Time
+        column that the meta keys contradict is refused too.
     units : mapping of str to str or astropy unit, optional
         Units of columns, by column name, for files that do not carry them (plain CSV).
         Where an ECSV column has a unit in its header and ``units`` names the column
@@ -453,39 +454,52 @@ def _csv_names(file: str, line: str, number: int) -> list[str]:
 
 # ----------------------------------------------------------------------------- ECSV
 
-def _ecsv_parse(lines: list[str]):
-    """Parse ECSV lines with astropy; return the reader (for its header) and the table."""
+def _ecsv_parse(head: list[str], rows: list[tuple[int, str]]):
+    """Parse the header and data rows with astropy; return the reader and the table.
+
+    The table must have one row per data line, or the line numbers would be wrong.
+    """
     # The same reader settings as astropy.io.ascii.read without guessing; empty cells
     # become masked values.
     reader = ascii.get_reader(ascii.Ecsv, fill_values=[("", "0")])
     try:
-        return reader, reader.read(lines)
+        table = reader.read(head + [text for _, text in rows])
     except Exception as exc:  # astropy raises many types for malformed text
-        cause = exc.__cause__
-        detail = f"{exc}: {cause}" if cause is not None else str(exc)
-        raise _AstropyRefused(" ".join(detail.split())) from None
+        raise _AstropyRefused(_explained(exc)) from None
+    if len(table) != len(rows):
+        # An unclosed quote makes astropy join a line with the next ones.
+        raise _AstropyRefused("a quoted value runs past the end of its line")
+    return reader, table
+
+
+def _explained(exc: BaseException) -> str:
+    """One line from an exception and its causes (astropy wraps YAML errors, for one)."""
+    parts = []
+    while exc is not None and len(parts) < 3:
+        text = " ".join(str(exc).split())
+        if text:
+            parts.append(text)
+        exc = exc.__cause__
+    return ": ".join(parts) or "no reason given"
 
 
 def _ecsv_cells(file: str, lines: list[str], comments: list[int], names_at: int,
                 data: list[int]) -> _Cells:
     head = [lines[index] for index in comments] + [lines[names_at]]
     try:
-        reader, empty = _ecsv_parse(head)
+        reader, empty = _ecsv_parse(head, [])
     except _AstropyRefused as exc:
         raise InputError(f"has a malformed ECSV header: {exc}", file=file) from None
     _require_rows(file, data)
     rows = [(index + 1, lines[index]) for index in data]
     table, good, unreadable = _ecsv_rows(file, head, rows, reader, empty)
-    if len(table) != len(good):
-        raise InputError("could not be matched row by row to its lines; check that no "
-                         "quoted value spans several lines", file=file)
     return _table_cells(file, table, [line for line, _ in good], len(rows), unreadable)
 
 
 def _ecsv_rows(file: str, head: list[str], rows: list[tuple[int, str]], reader, empty):
     """The table of the readable data rows, those rows, and issues for the others."""
     try:
-        return _ecsv_parse(head + [text for _, text in rows])[1], rows, []
+        return _ecsv_parse(head, rows)[1], rows, []
     except _AstropyRefused:
         pass
     good, bad = _readable(head, rows)
@@ -494,7 +508,7 @@ def _ecsv_rows(file: str, head: list[str], rows: list[tuple[int, str]], reader, 
     if not good:
         return empty, good, unreadable
     try:
-        return _ecsv_parse(head + [text for _, text in good])[1], good, unreadable
+        return _ecsv_parse(head, good)[1], good, unreadable
     except _AstropyRefused as exc:
         raise InputError(f"cannot be read as ECSV: {exc}", file=file) from None
 
@@ -506,7 +520,7 @@ def _readable(head: list[str], rows: list[tuple[int, str]]):
     instead of one parse per row.
     """
     try:
-        _ecsv_parse(head + [text for _, text in rows])
+        _ecsv_parse(head, rows)
         return rows, []
     except _AstropyRefused as exc:
         if len(rows) == 1:
@@ -820,7 +834,7 @@ def _stated(cells: _Cells, key: str, fallback: str | None, accepted: tuple[str, 
     if key in cells.meta:
         problem = _name_problem(cells.meta[key], accepted)
         if problem:
-            raise InputError(f"the table meta key `{key}` is {problem}", file=cells.file,
+            raise InputError(f"the table meta key `{key}`: {problem}", file=cells.file,
                              column="time")
         return cells.meta[key]
     if fallback is not None:
