@@ -112,7 +112,15 @@ def load_config(path) -> FitSetup:
 
 def parse_config(raw: dict, *, base=".", file=None) -> FitSetup:
     """Check a config dictionary (as TOML gives it) and resolve it."""
-    base = Path(base)
+    try:
+        return _parse(raw, Path(base), file)
+    except ConfigError as exc:
+        if exc.file is None and file is not None:
+            raise ConfigError(exc.reason, key=exc.key, file=file) from None
+        raise
+
+
+def _parse(raw, base, file):
     _check_keys(raw, _SCHEMA, "", file)
     data = raw.get("data", {})
     if "files" not in data or not data["files"]:
