@@ -17,6 +17,8 @@ import numpy as np
 __all__ = [
     "solve_kepler",
     "solve_kepler_numpy",
+    "kepler_cs",
+    "sky_offsets",
     "thiele_innes",
     "relative_orbit",
     "radial_velocity_amplitude",
@@ -74,33 +76,65 @@ def solve_kepler_numpy(mean_anomaly, ecc):
     return big_e + turns * TWO_PI
 
 
+def _kepler_cs_numpy(mean_anomaly, ecc):
+    """E, cos E and sin E with numpy only (the Halley loop above, fused)."""
+    m, turns = _reduce(np.asarray(mean_anomaly, dtype=float))
+    e = np.broadcast_to(np.asarray(ecc, dtype=float), m.shape)
+    big_e = _starting_guess(m, e)
+    for _ in range(_MAX_ITER):
+        sin_e = np.sin(big_e)
+        cos_e = np.cos(big_e)
+        f = big_e - e * sin_e - m
+        if np.all(np.abs(f) <= _TOL):
+            break
+        fp = 1.0 - e * cos_e
+        big_e = big_e - f / (fp - 0.5 * f * e * sin_e / fp)
+    else:  # pragma: no cover - only for e >= 1 or non-finite input
+        sin_e, cos_e = np.sin(big_e), np.cos(big_e)
+    return big_e + turns * TWO_PI, cos_e, sin_e
+
+
 try:  # numba is optional: the numpy path above gives the same numbers.
     import numba as _numba
-
-    @_numba.njit(cache=True, fastmath=False)
-    def _solve_scalar(m, e):  # pragma: no cover - compiled
-        turns = np.floor((m + np.pi) / TWO_PI)
-        m = m - turns * TWO_PI
-        s = np.sin(m)
-        big_e = m + 0.85 * e * (1.0 if s > 0 else (-1.0 if s < 0 else 0.0))
-        for _ in range(_MAX_ITER):
-            sin_e = np.sin(big_e)
-            cos_e = np.cos(big_e)
-            f = big_e - e * sin_e - m
-            if abs(f) <= _TOL:
-                break
-            fp = 1.0 - e * cos_e
-            big_e = big_e - f / (fp - 0.5 * f * e * sin_e / fp)
-        return big_e + turns * TWO_PI
-
-    @_numba.vectorize(["float64(float64, float64)"], cache=True)
-    def _solve_ufunc(m, e):  # pragma: no cover - compiled
-        return _solve_scalar(m, e)
-
-    HAVE_NUMBA = True
 except ImportError:  # pragma: no cover - exercised where numba is absent
-    _solve_ufunc = None
-    HAVE_NUMBA = False
+    _numba = None
+
+HAVE_NUMBA = _numba is not None
+
+if HAVE_NUMBA:
+    from . import _kepler_numba as _fast
+else:  # pragma: no cover
+    _fast = None
+
+
+def kepler_cs(mean_anomaly, ecc):
+    """Eccentric anomaly with its cosine and sine, in one pass.
+
+    Callers that go on to the orbit need cos E and sin E; the compiled kernel has
+    them at no extra cost, which saves two trigonometric calls per point.
+
+    Parameters
+    ----------
+    mean_anomaly : array_like
+        Mean anomaly M in radians.
+    ecc : array_like
+        Eccentricity, broadcast against ``mean_anomaly``.
+
+    Returns
+    -------
+    E, cos_E, sin_E : ndarray
+        Broadcast shape of the inputs.
+    """
+    if _fast is None:
+        return _kepler_cs_numpy(mean_anomaly, ecc)
+    m, e = np.broadcast_arrays(np.asarray(mean_anomaly, dtype=float),
+                               np.asarray(ecc, dtype=float))
+    shape = m.shape
+    m = np.ascontiguousarray(m).ravel()
+    e = np.ascontiguousarray(e).ravel()
+    big_e, cos_e, sin_e = np.empty_like(m), np.empty_like(m), np.empty_like(m)
+    _fast.solve(m, e, big_e, cos_e, sin_e)
+    return big_e.reshape(shape), cos_e.reshape(shape), sin_e.reshape(shape)
 
 
 def solve_kepler(mean_anomaly, ecc):
@@ -121,10 +155,59 @@ def solve_kepler(mean_anomaly, ecc):
     ndarray
         Eccentric anomaly in radians.
     """
-    if _solve_ufunc is not None:
-        return _solve_ufunc(np.asarray(mean_anomaly, dtype=float),
-                            np.asarray(ecc, dtype=float))
-    return solve_kepler_numpy(mean_anomaly, ecc)
+    if _fast is None:
+        return solve_kepler_numpy(mean_anomaly, ecc)
+    return kepler_cs(mean_anomaly, ecc)[0]
+
+
+def sky_offsets(t, period, ecc, mean_anomaly_ref, a, inc, omega, node, *, t_ref=0.0,
+                compiled=None):
+    """East and north offsets of companions, one row per orbit, one column per time.
+
+    The likelihood's hot path: it solves Kepler's equation and projects with the
+    Thiele-Innes constants in one pass, without the line-of-sight coordinate.
+
+    Parameters
+    ----------
+    t : array_like, shape (n_times,)
+        Times, days (same origin as ``t_ref``).
+    period, ecc, mean_anomaly_ref, a, inc, omega, node : array_like, shape (n_orbits,)
+        Elements as in :func:`relative_orbit` (days, au, radians).
+    t_ref : float
+        Reference epoch of ``mean_anomaly_ref``, days.
+    compiled : bool or None
+        Force (True) or avoid (False) the compiled kernel; None uses it when present.
+
+    Returns
+    -------
+    east, north : ndarray, shape (n_orbits, n_times)
+        au.
+    """
+    t = np.ascontiguousarray(t, dtype=float).ravel()
+    elements = [np.atleast_1d(np.asarray(v, dtype=float)).ravel()
+                for v in (period, ecc, mean_anomaly_ref, a, inc, omega, node)]
+    period, ecc, m0, a, inc, omega, node = np.broadcast_arrays(*elements)
+    big_a, big_b, big_f, big_g = thiele_innes(a, inc, omega, node)
+    root = np.sqrt(1.0 - ecc * ecc)
+    motion = TWO_PI / period
+    use_fast = _fast is not None if compiled is None else bool(compiled)
+    if use_fast:
+        if _fast is None:
+            raise RuntimeError("the compiled kernel needs numba, which is not installed")
+        east = np.empty((period.size, t.size))
+        north = np.empty_like(east)
+        # Whole turns taken off the phase here keep M small before it meets the kernel.
+        _fast.sky(t - t_ref, np.ascontiguousarray(motion), np.ascontiguousarray(m0),
+                  np.ascontiguousarray(ecc), np.ascontiguousarray(root),
+                  *(np.ascontiguousarray(c) for c in (big_a, big_b, big_f, big_g)),
+                  east, north)
+        return east, north
+    col = (lambda v: v[:, None])
+    _, cos_e, sin_e = _kepler_cs_numpy(col(m0) + col(motion) * (t[None, :] - t_ref),
+                                       col(ecc))
+    x = cos_e - col(ecc)
+    y = col(root) * sin_e
+    return col(big_b) * x + col(big_g) * y, col(big_a) * x + col(big_f) * y
 
 
 def true_anomaly(ecc_anomaly, ecc):
@@ -198,9 +281,7 @@ def relative_orbit(t, period, ecc, mean_anomaly_ref, a, inc, omega, node,
         receding.
     """
     mean_anomaly = mean_anomaly_ref + TWO_PI * (t - t_ref) / period
-    big_e = solve_kepler(mean_anomaly, ecc)
-    cos_e = np.cos(big_e)
-    sin_e = np.sin(big_e)
+    _, cos_e, sin_e = kepler_cs(mean_anomaly, ecc)
     root = np.sqrt(1.0 - ecc * ecc)
     x = cos_e - ecc
     y = root * sin_e

@@ -420,12 +420,12 @@ class OrbitModel:
 
     def _astrometry_residuals(self, rows, orbit, parallax, name):
         t_ref = self.reference_epoch(name)
-        column = {key: value[:, None] for key, value in orbit.items()}
         with np.errstate(invalid="ignore", divide="ignore"):
-            east, north, _ = kepler.relative_orbit(
-                rows.t[None, :], column["period"], column["ecc"],
-                column["mean_anomaly_ref"], column["semi_major_axis"], column["inc"],
-                column["omega"], column["node"], t_ref=t_ref)
+            # The fused kernel: Kepler's equation and the projection in one pass.
+            east, north = kepler.sky_offsets(
+                rows.t, orbit["period"], orbit["ecc"], orbit["mean_anomaly_ref"],
+                orbit["semi_major_axis"], orbit["inc"], orbit["omega"], orbit["node"],
+                t_ref=t_ref)
         scale = np.broadcast_to(rows.scale, east.shape)
         if parallax is not None and np.any(rows.uses_parallax):
             scale = scale * np.where(rows.uses_parallax, parallax[:, None] * 1e-3, 1.0)
