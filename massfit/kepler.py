@@ -60,24 +60,11 @@ def solve_kepler_numpy(mean_anomaly, ecc):
     ndarray
         E in radians, on the same turn as M.
     """
-    m, turns = _reduce(np.asarray(mean_anomaly, dtype=float))
-    e = np.broadcast_to(np.asarray(ecc, dtype=float), m.shape)
-    big_e = _starting_guess(m, e)
-    for _ in range(_MAX_ITER):
-        sin_e = np.sin(big_e)
-        cos_e = np.cos(big_e)
-        f = big_e - e * sin_e - m
-        if np.all(np.abs(f) <= _TOL):
-            break
-        fp = 1.0 - e * cos_e
-        fpp = e * sin_e
-        # Halley's step: cubic convergence, and safe because fp > 0 for e < 1.
-        big_e = big_e - f / (fp - 0.5 * f * fpp / fp)
-    return big_e + turns * TWO_PI
+    return _kepler_cs_numpy(mean_anomaly, ecc)[0]
 
 
 def _kepler_cs_numpy(mean_anomaly, ecc):
-    """E, cos E and sin E with numpy only (the Halley loop above, fused)."""
+    """E, cos E and sin E with numpy only: Halley's method from Danby's start."""
     m, turns = _reduce(np.asarray(mean_anomaly, dtype=float))
     e = np.broadcast_to(np.asarray(ecc, dtype=float), m.shape)
     big_e = _starting_guess(m, e)
