@@ -202,15 +202,21 @@ def _cmd_demo(args):
 
 
 def _compare_with_truth(result, truth):
+    from .results import format_value
+
     s = result.summary
-    lines = ["Fit beside the truth the example was simulated from:"]
-    gm = s["central_gm"]
-    inside = gm["lower_95"] <= truth["central_gm_km3_s2"] <= gm["upper_95"]
-    lines.append(f"  GM  fitted {gm['median']:.6g} km^3/s^2, true "
-                 f"{truth['central_gm_km3_s2']:.6g}  "
-                 f"({'inside' if inside else 'OUTSIDE'} the 95% interval)")
+    rows = [("GM [km^3/s^2]", s["central_gm"], truth["central_gm_km3_s2"]),
+            ("mass [M_jup]", s["central_mass_jupiter"], truth["central_mass_Mjup"])]
     for name, elements in truth["companions"].items():
-        period = s["companions"][name]["period"]
-        lines.append(f"  {name:<8} P fitted {period['median']:.6g} d, true "
-                     f"{elements['period']:.6g} d")
+        comp = s["companions"][name]
+        rows.append((f"{name} P [d]", comp["period"], elements["period"]))
+        rows.append((f"{name} e", comp["eccentricity"], elements["ecc"]))
+        rows.append((f"{name} i [deg]", comp["inclination"], elements["inc"]))
+    lines = ["Fit beside the truth the example was simulated from:"]
+    for label, block, true in rows:
+        inside = block["lower_95"] <= true <= block["upper_95"]
+        lines.append(f"  {label:<16} fitted {format_value(block):<34} true {true:<12.8g}"
+                     f" {'inside' if inside else 'OUTSIDE'} the 95% interval")
+    lines.append(f"  (of {len(rows)} quantities, about {0.0455 * len(rows):.1f} are expected "
+                 f"outside their 95% intervals by chance alone)")
     return "\n".join(lines)
