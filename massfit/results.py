@@ -161,13 +161,15 @@ class FitResult:
                      f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
-        for name, comp in s["companions"].items():
+        by_period = sorted(s["companions"].items(),
+                           key=lambda item: item[1]["period"]["median"] or 0.0)
+        for name, comp in by_period:
             lines.append(f"Companion {name}")
             lines.append(f"  P       = {format_value(comp['period'])} d")
             a_line = (f"  a       = {format_value(comp['semi_major_axis'])} au"
                       f" = {format_value(comp['semi_major_axis_km'])} km")
             if "semi_major_axis_angle" in comp:
-                a_line += f" = {format_value(comp['semi_major_axis_angle'])} mas"
+                a_line += " = " + _angle_text(comp["semi_major_axis_angle"])
             lines.append(a_line)
             lines.append(f"  e       = {format_value(comp['eccentricity'])}")
             lines.append(f"  i       = {format_value(comp['inclination'])} deg")
@@ -290,6 +292,14 @@ class FitResult:
             for ext in formats:
                 fig.savefig(folder / f"{stem}.{ext}", dpi=200 if ext == "png" else None)
             plt.close(fig)
+
+
+def _angle_text(block_mas):
+    """An angular interval block (mas) in mas or arcsec, whichever reads better."""
+    if block_mas["median"] is not None and block_mas["median"] >= 1e4:
+        scaled = {k: (v / 1e3 if isinstance(v, float) else v) for k, v in block_mas.items()}
+        return f"{format_value(scaled)} arcsec"
+    return f"{format_value(block_mas)} mas"
 
 
 def _write_json(path, data):
