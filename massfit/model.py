@@ -418,7 +418,26 @@ class OrbitModel:
                                                     phys["parallax"], name))
         return np.concatenate(parts, axis=1)
 
-    def _astrometry_residuals(self, rows, orbit, parallax, name):
+    def predicted_offsets(self, theta, name):
+        """Model east and north offsets of one companion at its data rows.
+
+        Parameters
+        ----------
+        theta : ndarray, shape (n, n_dim) or (n_dim,)
+        name : str
+            The companion.
+
+        Returns
+        -------
+        east, north : ndarray, shape (n, n_rows)
+            In each row's own units (arcsec, or au for length rows), rows in the order
+            of ``model._rows[name].index``.
+        """
+        phys = self.physical(np.atleast_2d(theta))
+        return self._offsets(self._rows[name], phys["companions"][name],
+                             phys["parallax"], name)
+
+    def _offsets(self, rows, orbit, parallax, name):
         t_ref = self.reference_epoch(name)
         with np.errstate(invalid="ignore", divide="ignore"):
             # The fused kernel: Kepler's equation and the projection in one pass.
@@ -429,8 +448,10 @@ class OrbitModel:
         scale = np.broadcast_to(rows.scale, east.shape)
         if parallax is not None and np.any(rows.uses_parallax):
             scale = scale * np.where(rows.uses_parallax, parallax[:, None] * 1e-3, 1.0)
-        east = east * scale
-        north = north * scale
+        return east * scale, north * scale
+
+    def _astrometry_residuals(self, rows, orbit, parallax, name):
+        east, north = self._offsets(rows, orbit, parallax, name)
         c, p = rows.cart, rows.polar
         r_east = (rows.east - east[:, c]) / rows.east_err
         r_north = ((rows.north - north[:, c]) / rows.north_err

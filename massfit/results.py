@@ -20,27 +20,14 @@ SUMMARY_FILE = "summary.json"
 SAMPLES_FILE = "samples.ecsv"
 
 
-def format_value(block, digits=2) -> str:
-    """``median +upper/-lower`` with as many decimals as the interval deserves.
+def format_value(block) -> str:
+    """``median +upper -lower`` (or ``median +/- error``) rounded by the interval.
 
-    The smaller of the two 68 % half-widths is shown to ``digits`` significant
-    figures, and the median to the same decimal place (common practice).
+    See :func:`massfit.tables.round_interval` for the rounding rule.
     """
-    if block["median"] is None:
-        return "undetermined"
-    med = block["median"]
-    up = block["upper_68"] - med
-    down = med - block["lower_68"]
-    width = min(w for w in (up, down) if w > 0) if max(up, down) > 0 else abs(med) or 1.0
-    exponent = math.floor(math.log10(width)) - (digits - 1)
-    scale_exp = math.floor(math.log10(abs(med))) if med != 0 else 0
-    if abs(scale_exp) >= 5:
-        factor = 10.0 ** scale_exp
-        decimals = max(0, scale_exp - exponent)
-        return (f"({med / factor:.{decimals}f} +{up / factor:.{decimals}f} "
-                f"-{down / factor:.{decimals}f}) e{scale_exp:+d}")
-    decimals = max(0, -exponent)
-    return f"{med:.{decimals}f} +{up:.{decimals}f} -{down:.{decimals}f}"
+    from .tables import format_interval
+
+    return format_interval(block)
 
 
 def best_mass_unit(mass_msun: float) -> str:
@@ -212,7 +199,45 @@ class FitResult:
     def _repr_html_(self) -> str:
         from html import escape
 
-        return f"<pre>{escape(self.report())}</pre>"
+        from .tables import html_table
+
+        s = self.summary
+        d = s["diagnostics"]
+        head = ("<p><b>massfit result</b> &mdash; "
+                + ("converged" if self.converged else
+                   "<span style='color:#b00'><b>NOT converged</b>: do not quote these "
+                   "numbers</span>")
+                + f"; {d['walkers']} walkers &times; {d['steps']} steps, "
+                  f"{d['steps'] / max(d['max_autocorr_steps'], 1):.0f} autocorrelation "
+                  f"times, {d['effective_samples']:.0f} effective samples of the mass</p>")
+        notes = "".join(f"<li>{escape(text)}</li>" for text in s["warnings"])
+        inputs = s["inputs"]
+        tail = (f"<p>{inputs['rows_used']} of {inputs['rows_read']} rows used from "
+                f"{len(inputs['files'])} file(s); {len(inputs['rows_rejected'])} rejected. "
+                f"Medians with 68.27 % and 95.45 % credible intervals.</p>")
+        return (head + html_table(s) + (f"<ul>{notes}</ul>" if notes else "") + tail)
+
+    def table(self, fmt: str = "markdown", *, mass_unit: str | None = None):
+        """The parameter summary as a table.
+
+        Parameters
+        ----------
+        fmt : {"latex", "markdown", "html", "ecsv"}
+            ``ecsv`` returns an astropy Table (write it with ``format="ascii.ecsv"``);
+            the others return text.
+        mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
+            The unit of the central mass beside kg.
+        """
+        from . import tables
+
+        makers = {"latex": tables.latex_table, "markdown": tables.markdown_table,
+                  "html": tables.html_table, "ecsv": tables.ecsv_table}
+        if fmt not in makers:
+            from .errors import ConfigError
+
+            raise ConfigError(f"unknown table format {fmt!r}; accepted: "
+                              f"{', '.join(makers)}", key="fmt")
+        return makers[fmt](self.summary, mass_unit=mass_unit)
 
     # ----------------------------------------------------------------- samples
     def samples_table(self) -> Table:
@@ -253,9 +278,72 @@ class FitResult:
 
         return orbit_plot(self, **kwargs)
 
+    def residual_plot(self, **kwargs):
+        """Normalised residuals against time; see :func:`massfit.plots.residual_plot`."""
+        from .plots import residual_plot
+
+        return residual_plot(self, **kwargs)
+
+    def periodogram_plot(self, **kwargs):
+        """Periodograms of the residuals; see :func:`massfit.plots.periodogram_plot`."""
+        from .plots import periodogram_plot
+
+        return periodogram_plot(self, **kwargs)
+
+    def leftover_signals(self, **kwargs) -> list:
+        """Companions whose residuals keep a periodic signal; see :mod:`massfit.diagnostics`."""
+        from .diagnostics import leftover_signals
+
+        return leftover_signals(self, **kwargs)
+
+    def write_figures(self, folder, *, figures=None, formats=("png", "pdf")) -> list:
+        """Draw figures and write them into ``folder``; returns the paths written.
+
+        Parameters
+        ----------
+        figures : list of str, optional
+            Stems of :data:`massfit.plots.FIGURES` (all by default).
+        formats : sequence of str
+            File types matplotlib can write (``png``, ``pdf``, ``svg``, ``eps``...).
+        """
+        import matplotlib.pyplot as plt
+
+        from .plots import FIGURES, save_figure
+
+        chosen = list(FIGURES) if figures is None else list(figures)
+        unknown = [f for f in chosen if f not in FIGURES]
+        if unknown:
+            from .errors import ConfigError
+
+            raise ConfigError(f"unknown figure {', '.join(unknown)}; accepted: "
+                              f"{', '.join(FIGURES)}", key="figures")
+        paths = []
+        for stem in chosen:
+            fig = FIGURES[stem](self)
+            try:
+                paths += save_figure(fig, Path(folder) / stem, formats)
+            finally:
+                plt.close(fig)
+        return paths
+
+    def write_tables(self, folder) -> list:
+        """Write the parameter summary as LaTeX, Markdown and ECSV into ``folder``."""
+        from .tables import TABLE_FORMATS
+
+        paths = []
+        for fmt, name in TABLE_FORMATS.items():
+            path = Path(folder) / name
+            table = self.table(fmt)
+            if fmt == "ecsv":
+                table.write(path, format="ascii.ecsv", overwrite=True)
+            else:
+                path.write_text(table)
+            paths.append(path)
+        return paths
+
     # --------------------------------------------------------------------- save
     def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
-        """Write the output folder: summary.json, samples.ecsv and the figures.
+        """Write the output folder: summary.json, samples.ecsv, the tables and figures.
 
         The folder is written beside its final place and renamed into it at the end,
         so a half-written folder never looks complete. An existing result is kept
@@ -273,8 +361,9 @@ class FitResult:
             self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
             if self.record:
                 _write_json(tmp / "run.json", self.record)
+            self.write_tables(tmp)
             if plots:
-                self._save_plots(tmp, formats)
+                self.write_figures(tmp, formats=formats)
             _write_json(tmp / SUMMARY_FILE, self.summary)
             if out.exists():
                 shutil.rmtree(out)
@@ -283,15 +372,6 @@ class FitResult:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
         return out
-
-    def _save_plots(self, folder, formats):
-        import matplotlib.pyplot as plt
-
-        for stem, draw in (("corner", self.corner_plot), ("orbits", self.orbit_plot)):
-            fig = draw()
-            for ext in formats:
-                fig.savefig(folder / f"{stem}.{ext}", dpi=200 if ext == "png" else None)
-            plt.close(fig)
 
 
 def _angle_text(block_mas):

@@ -90,7 +90,10 @@ def _mass_kg(gm_km3_s2, g_draws):
 
 def _companion_samples(model, name, orbit, parallax):
     width = model.node_width[name]
-    node, turns = _shift_into(_unwrap(orbit["node"], width), width)
+    node, _ = _shift_into(_unwrap(orbit["node"], width), width)
+    # Each sample's node moved by whole windows (the unwrapping and the shift both
+    # move it); with a window of pi every such step carries omega by pi as well.
+    turns = np.round((node - orbit["node"]) / width)
     omega = orbit["omega"] + (np.pi * turns if width < 2 * np.pi else 0.0)
     omega, _ = _shift_into(_unwrap(omega, 2 * np.pi), 2 * np.pi)
     # Moving (omega, node) by pi together leaves the mean anomaly as it is.

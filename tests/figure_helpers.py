@@ -1,0 +1,73 @@
+"""A small fitted system shared by the figure, table and reload tests (cached per run).
+
+Two invented companions of a 1.2 M_sun star at 25 mas: *Aster* given as east/north
+with correlated errors, *Brel* given as separation and position angle. The sampler is
+stopped early (the figures need samples, not convergence).
+"""
+
+from __future__ import annotations
+
+import functools
+
+import astropy.units as u
+import numpy as np
+from astropy.table import Table
+from astropy.time import Time
+
+from massfit.simulate import Elements, simulate_astrometry
+
+TRUTH_MASS_MSUN = 1.2
+PARALLAX_MAS = 25.0
+ELEMENTS = {
+    "Aster": Elements(period=420.0, ecc=0.3, inc=55.0, omega=70.0, node=130.0,
+                      periapsis_time=2460300.0),
+    "Brel": Elements(period=1500.0, ecc=0.1, inc=120.0, omega=200.0, node=40.0,
+                     periapsis_time=2460900.0),
+}
+
+
+def write_system(folder):
+    """Write the two tables (ECSV) into ``folder``; returns their paths."""
+    rng = np.random.default_rng(11)
+    times = {name: Time(2460000.5 + np.sort(rng.uniform(0, 1800, 24)), format="jd",
+                        scale="tdb") for name in ELEMENTS}
+    table = simulate_astrometry(times, ELEMENTS, TRUTH_MASS_MSUN,
+                                parallax=PARALLAX_MAS * u.mas, error=0.3 * u.mas,
+                                corr=0.4, seed=5)
+    paths = []
+    aster = table[table["body"] == "Aster"]
+    out = Table()
+    out["time"] = aster["time"].jd
+    out["body"] = aster["body"]
+    for col in ("east", "north", "east_err", "north_err"):
+        out[col] = aster[col].to(u.mas)
+    out["corr"] = aster["corr"]
+    out.meta.update(time_format="jd", time_scale="tdb")
+    paths.append(folder / "aster.ecsv")
+    out.write(paths[-1], format="ascii.ecsv", overwrite=True)
+    brel = table[table["body"] == "Brel"]
+    east, north = brel["east"].to_value(u.mas), brel["north"].to_value(u.mas)
+    polar = Table()
+    polar["time"] = brel["time"].jd
+    polar["body"] = brel["body"]
+    polar["sep"] = np.hypot(east, north) * u.mas
+    polar["pa"] = np.degrees(np.arctan2(east, north)) % 360 * u.deg
+    polar["sep_err"] = np.full(len(brel), 0.3) * u.mas
+    polar["pa_err"] = np.degrees(0.3 / np.hypot(east, north)) * u.deg
+    polar.meta.update(time_format="jd", time_scale="tdb")
+    paths.append(folder / "brel.ecsv")
+    polar.write(paths[-1], format="ascii.ecsv", overwrite=True)
+    return paths
+
+
+@functools.lru_cache(maxsize=None)
+def small_result(folder):
+    """A FitResult of the two-companion system (data written into ``folder``)."""
+    import massfit
+    from pathlib import Path
+
+    paths = write_system(Path(folder))
+    setup_record = None
+    return massfit.fit([str(p) for p in paths], parallax=f"{PARALLAX_MAS} mas",
+                       parallax_err="0.2 mas", seed=2, max_steps=400, walkers=40,
+                       progress=False, record=setup_record)

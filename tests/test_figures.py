@@ -1,0 +1,173 @@
+"""The figures: content, not only files (labels and units, orientation, tracks, panels)."""
+
+import astropy.units as u
+import matplotlib
+import numpy as np
+import pytest
+from astropy.time import Time
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+
+from massfit import plots  # noqa: E402
+from massfit.diagnostics import Residuals, residual_periodogram  # noqa: E402
+from massfit.errors import ConfigError  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def result(tmp_path_factory):
+    from figure_helpers import small_result
+
+    return small_result(str(tmp_path_factory.mktemp("figures")))
+
+
+@pytest.fixture(autouse=True)
+def close_figures():
+    yield
+    plt.close("all")
+
+
+def sky_axes(fig):
+    return [ax for ax in fig.axes if ax.get_xlabel().startswith(r"$\Delta\alpha")]
+
+
+def test_orbit_plot_orientation_units_and_tracks(result):
+    fig = plots.orbit_plot(result, n_tracks=12, seed=3)
+    skies = sky_axes(fig)
+    assert len(skies) == 2  # one panel per companion
+    for ax in skies:
+        assert ax.xaxis_inverted()  # east to the left
+        assert not ax.yaxis_inverted()  # north up
+        assert ax.get_xlabel().endswith("[mas]") and ax.get_ylabel().endswith("[mas]")
+        assert "(east)" in ax.get_xlabel() and "(north)" in ax.get_ylabel()
+        tracks = [line for line in ax.lines if line.get_gid() == "posterior-track"]
+        assert len(tracks) == 12
+        assert len([line for line in ax.lines if line.get_gid() == "best-orbit"]) == 1
+        primary = [line for line in ax.lines if line.get_gid() == "primary"][0]
+        assert tuple(primary.get_xydata()[0]) == (0.0, 0.0)
+    names = {t.get_text() for ax in skies for t in ax.texts if t.get_gid() == "companion-name"}
+    assert names == {"Aster", "Brel"}
+    # Two residual panels (east, north) under each sky panel, in a finer unit.
+    residual_labels = [ax.get_ylabel() for ax in fig.axes if ax.get_ylabel().startswith("O$-$C")]
+    assert len(residual_labels) == 4 and all(r"$\mu$as" in lab for lab in residual_labels)
+    assert any(ax.get_label() == "<colorbar>" for ax in fig.axes)
+
+
+def test_orbit_plot_data_points_follow_the_table(result):
+    # Brel was given as separation and position angle: the dots must sit at
+    # east = sep sin(pa), north = sep cos(pa) (the conventions), in mas.
+    fig = plots.orbit_plot(result, companions=["Brel"], n_tracks=0)
+    ax = sky_axes(fig)[0]
+    dots = [c for c in ax.collections if c.get_gid() == "data"][0].get_offsets()
+    data = result.model.observations.astrometry
+    rows = data.body == "Brel"
+    expected = np.column_stack([data.sep[rows] * np.sin(data.pa[rows]),
+                                data.sep[rows] * np.cos(data.pa[rows])]) * 1e3
+    assert np.allclose(np.asarray(dots), expected, rtol=1e-9)
+    ellipses = [c for c in ax.collections if c.get_gid() == "error-ellipses"][0]
+    assert len(ellipses.get_paths()) == rows.sum()
+
+
+def test_error_ellipse_carries_the_correlation():
+    # A 1-sigma ellipse is the set of points at Mahalanobis distance 1.
+    cov = np.array([[[4.0, 1.2], [1.2, 1.0]]])  # rho = 0.6 between east and north
+    patch = plots.error_ellipses(np.array([10.0]), np.array([-5.0]), cov)[0]
+    angle = np.linspace(0, 2 * np.pi, 50)
+    # The patch maps the unit circle onto the ellipse: take points on that circle.
+    points = patch.get_patch_transform().transform(np.column_stack([np.cos(angle),
+                                                                    np.sin(angle)]))
+    d = points - np.array([10.0, -5.0])
+    mahalanobis = np.einsum("ni,ij,nj->n", d, np.linalg.inv(cov[0]), d)
+    assert np.allclose(mahalanobis, 1.0, atol=1e-6)
+    # Negative control: the same ellipse without the correlation is not it.
+    d0 = np.einsum("ni,ij,nj->n", d, np.diag(1 / np.diag(cov[0])), d)
+    assert not np.allclose(d0, 1.0, atol=0.1)
+
+
+@pytest.mark.parametrize("size, angle, unit", [
+    (12.0, True, "arcsec"), (0.05, True, "mas"), (2e-5, True, r"$\mu$as"),
+    (3.0, False, "au"), (0.004, False, r"$10^{3}$ km"), (0.01, False, r"$10^{6}$ km"),
+])
+def test_display_units_read_well(size, angle, unit):
+    factor, label = plots._SkyFrame.display(size, angle)
+    assert label == unit
+    assert 0.5 <= size * factor < 1000.0 * 1.5
+
+
+def test_corner_plot_labels_units_and_truths(result):
+    params = ["mass", "parallax", "Aster.period", "Aster.eccentricity"]
+    fig = plots.corner_plot(result, parameters=params, mass_unit="Msun",
+                            truths={"mass": 1.2 * u.M_sun, "Aster.period": 420.0})
+    axes = np.array(fig.axes).reshape(4, 4)
+    assert axes[-1, 0].get_xlabel() == r"$M$ [$M_\odot$]"
+    assert axes[-1, 1].get_xlabel() == r"$\varpi$ [$\mathrm{mas}$]"
+    assert axes[-1, 2].get_xlabel() == r"$P_\mathrm{Aster}$ [$\mathrm{d}$]"
+    assert axes[-1, 3].get_xlabel() == r"$e_\mathrm{Aster}$"
+    # Titles carry the rounded value with its unit, never "0.00 +0.00 -0.00".
+    title = axes[2, 2].get_title()
+    assert title.startswith(r"$P_\mathrm{Aster} = ") and r"\mathrm{d}" in title
+    assert "0.00^{+0.00}" not in "".join(ax.get_title() for ax in axes.flat)
+    # Truth lines at the given values: 1.2 M_sun and 420 d.
+    vlines = [line.get_xdata()[0] for line in axes[0, 0].lines if line.get_color() == "C3"]
+    assert vlines and vlines[0] == pytest.approx(1.2)
+    vlines = [line.get_xdata()[0] for line in axes[2, 2].lines if line.get_color() == "C3"]
+    assert vlines[0] == pytest.approx(420.0)
+    assert fig.get_size_inches()[0] == pytest.approx(plots.PAGE_WIDTH)
+
+
+def test_corner_plot_default_parameters_and_offsets(result):
+    fig = plots.corner_plot(result, mass_unit="Mjup")
+    assert fig.massfit_parameters[:3] == ["mass", "gm", "parallax"]
+    assert len(fig.massfit_parameters) == 3 + 2 * 4
+    k = len(fig.massfit_parameters)
+    axes = np.array(fig.axes).reshape(k, k)
+    labels = [ax.get_xlabel() for ax in axes[-1]]
+    assert labels[0].startswith("$M$") and r"M_\mathrm{J}" in labels[0]
+    assert r"\mathrm{km^3\,s^{-2}}" in labels[1]
+    # No tick label of any panel uses an offset ("+4.115e2" in a corner).
+    fig.canvas.draw()
+    assert all(ax.xaxis.get_major_formatter().get_offset() == "" for ax in axes[-1])
+    # The values are listed in the empty upper triangle.
+    assert any(r"P_\mathrm{Brel} =" in t.get_text() for t in fig.texts)
+
+
+def test_corner_plot_refuses_unknown_parameters(result):
+    with pytest.raises(ConfigError, match="Zed.period"):
+        plots.corner_plot(result, parameters=["mass", "Zed.period"])
+    with pytest.raises(ConfigError, match="mass unit"):
+        plots.corner_plot(result, mass_unit="stone")
+
+
+def test_residual_and_periodogram_panels(result):
+    fig = plots.residual_plot(result)
+    assert len(fig.axes) == 2
+    kinds = {c.get_gid() for ax in fig.axes for c in ax.collections}
+    assert {"residuals-east", "residuals-north", "residuals-sep", "residuals-pa"} <= kinds
+    assert all(ax.get_ylabel() == r"(O$-$C)/$\sigma$" for ax in fig.axes)
+    fig = plots.periodogram_plot(result)
+    assert len(fig.axes) == 2 and set(fig.massfit_flags) == {"Aster", "Brel"}
+    assert fig.axes[-1].get_xlabel() == "period of the residual signal [d]"
+
+
+def test_periodogram_flags_a_leftover_signal():
+    rng = np.random.default_rng(4)
+    t = Time(2460000.0 + np.sort(rng.uniform(0, 600, 80)), format="jd", scale="tdb")
+    comp = np.array(["east", "north"] * 40)
+    row = np.arange(80)
+    noise = rng.standard_normal(80)
+    quiet = Residuals(time=t, component=comp, row=row, normalised=noise)
+    signal = noise + 1.5 * np.sin(2 * np.pi * t.jd / 37.0)
+    loud = Residuals(time=t, component=comp, row=row, normalised=signal)
+    found = residual_periodogram(loud, orbital_period=100.0)
+    assert found["fap"] < 1e-4
+    assert found["best_period"] == pytest.approx(37.0, rel=0.02)
+    # Negative control: the same epochs with noise alone raise no flag.
+    assert residual_periodogram(quiet, orbital_period=100.0)["fap"] > 0.01
+
+
+def test_saved_figures_are_vector_pdf_and_png(result, tmp_path):
+    fig = plots.residual_plot(result)
+    paths = plots.save_figure(fig, tmp_path / "res", ("png", "pdf"))
+    assert [p.suffix for p in paths] == [".png", ".pdf"]
+    assert paths[1].read_bytes()[:5] == b"%PDF-"
+    assert paths[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
