@@ -70,6 +70,29 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--no-plots", action="store_true", help="skip the figures")
     demo.add_argument("--force", action="store_true", default=True, help=argparse.SUPPRESS)
     demo.add_argument("--quiet", action="store_true", help="print only the result")
+
+    batch = sub.add_parser(
+        "batch", help="fit many systems and gather one results table",
+        description="Fit every system of a folder of TOML configs, or of a table (CSV/"
+                    "ECSV) with columns system, files (';'-separated) and optionally "
+                    "config, parallax, parallax_err, distance, seed. Writes "
+                    "OUT/results.ecsv and OUT/systems/<system>/; systems already "
+                    "finished are read back, not fitted again.",
+        epilog="Exit status: 0 every system converged, 2 bad input or option, 3 some "
+               "system failed or did not converge (see results.ecsv).")
+    batch.add_argument("source", metavar="FOLDER | TABLE",
+                       help="a folder of *.toml configs, or a table of systems")
+    batch.add_argument("--out", metavar="DIR", required=True, help="output folder")
+    where = batch.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=int, metavar="N",
+                       help="local worker processes (default: one per CPU)")
+    where.add_argument("--scheduler", metavar="ADDRESS",
+                       help="run on an existing dask.distributed cluster, e.g. "
+                            "tcp://10.0.0.5:8786")
+    _sampler_options(batch)
+    batch.add_argument("--plots", action="store_true", help="write each system's figures")
+    batch.add_argument("--rerun", action="store_true",
+                       help="fit again the systems that already have a result")
     return parser
 
 
@@ -89,6 +112,8 @@ def main(argv=None) -> int:
     try:
         if args.command == "fit":
             return _cmd_fit(args)
+        if args.command == "batch":
+            return _cmd_batch(args)
         return _cmd_demo(args)
     except MassfitError as exc:
         print(f"massfit: error: {exc}", file=sys.stderr)
@@ -220,3 +245,23 @@ def _compare_with_truth(result, truth):
     lines.append(f"  (of {len(rows)} quantities, about {0.0455 * len(rows):.1f} are expected "
                  f"outside their 95% intervals by chance alone)")
     return "\n".join(lines)
+
+
+def _cmd_batch(args):
+    from .batch import collect_jobs, run_batch
+
+    overrides = {k: getattr(args, k) for k in ("walkers", "max_steps")
+                 if getattr(args, k) is not None}
+    jobs = collect_jobs(args.source, args.out, seed=args.seed, sampler=overrides,
+                        plots=args.plots)
+    table = run_batch(jobs, args.out, workers=args.workers, scheduler=args.scheduler,
+                      rerun=args.rerun)
+    counts = {status: int(sum(table["status"] == status))
+              for status in ("converged", "not converged", "failed")}
+    print(f"massfit batch: {len(table)} system(s): {counts['converged']} converged, "
+          f"{counts['not converged']} not converged, {counts['failed']} failed; "
+          f"table in {Path(args.out) / 'results.ecsv'}")
+    for row in table:
+        if row["status"] == "failed":
+            print(f"  {row['system']}: {row['failure']}", file=sys.stderr)
+    return EXIT_OK if counts["converged"] == len(table) else EXIT_NOT_CONVERGED

@@ -1,0 +1,143 @@
+"""Batch fits: a local pool and a Dask cluster give the numbers of fitting each system alone.
+
+The systems are tiny (one companion, a short chain) so the whole file stays quick; the
+numbers only need to be *the same* as a single fit with the same seed, not converged.
+"""
+
+import json
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.table import Table
+from astropy.time import Time
+
+import massfit
+from massfit import batch
+from massfit.cli import main
+from massfit.simulate import Elements, simulate_astrometry, write_scenario
+
+SAMPLER = "[sampler]\nwalkers = 16\nmax_steps = 200\ncheck_every = 100\n"
+
+
+def _system(folder, name, mass, period, seed):
+    rng = np.random.default_rng(seed)
+    elements = {"Quill": Elements(period=period, ecc=0.2, inc=50.0, omega=30.0, node=70.0,
+                                  periapsis_time=2460000.0)}
+    times = {"Quill": Time(2460000.0 + np.sort(rng.uniform(0, 2 * period, 14)),
+                           format="jd", scale="tdb")}
+    table = simulate_astrometry(times, elements, mass, error=0.002 * u.au, seed=seed)
+    write_scenario(folder / name, table, {"central_mass_Msun": mass},
+                   name=f"{name}.ecsv")
+    return folder / name / f"{name}.ecsv"
+
+
+@pytest.fixture(scope="module")
+def systems(tmp_path_factory):
+    """Two invented systems with configs, and one whose data file is missing."""
+    root = tmp_path_factory.mktemp("batch")
+    configs = root / "configs"
+    configs.mkdir()
+    for k, (name, mass, period) in enumerate((("Arlo", 0.8, 40.0), ("Brisk", 1.6, 25.0))):
+        data = _system(root, name, mass, period, seed=20 + k)
+        (configs / f"{name}.toml").write_text(
+            f'[data]\nfiles = ["{data}"]\n{SAMPLER}seed = {5 + k}\n')
+    (configs / "Cinder.toml").write_text(
+        f'[data]\nfiles = ["{root / "nowhere.ecsv"}"]\n{SAMPLER}seed = 9\n')
+    return root, configs
+
+
+def _alone(config):
+    setup = massfit.load_config(config)
+    obs = massfit.read_observations(setup.files, **setup.read_options)
+    result = massfit.fit(obs, setup.system, sampler=setup.sampler, progress=False)
+    return result.summary
+
+
+@pytest.fixture(scope="module")
+def alone(systems):
+    _, configs = systems
+    return {name: _alone(configs / f"{name}.toml") for name in ("Arlo", "Brisk")}
+
+
+def _check_same_numbers(table, alone):
+    rows = {row["system"]: row for row in table}
+    assert set(rows) == {"Arlo", "Brisk", "Cinder"}
+    for name, summary in alone.items():
+        row = rows[name]
+        assert row["status"] in ("converged", "not converged")
+        for part in ("median", "lower_68", "upper_68", "lower_95", "upper_95"):
+            assert row[f"mass_{part}"] == summary["central_mass"][part]
+            assert row[f"gm_{part}"] == summary["central_gm"][part]
+        assert bool(row["converged"]) == summary["converged"]
+        assert row["steps"] == summary["diagnostics"]["steps"]
+    # The broken system fails alone, with its reason, and the others still ran.
+    assert rows["Cinder"]["status"] == "failed"
+    assert "nowhere.ecsv" in rows["Cinder"]["failure"]
+    assert np.isnan(rows["Cinder"]["mass_median"])
+
+
+def test_dask_cluster_batch_matches_single_fits(systems, alone, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    _, configs = systems
+    jobs = batch.collect_jobs(configs, tmp_path)
+    # In-process cluster: inproc transport, no network, no dashboard.
+    with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=2,
+                                  dashboard_address=None) as cluster:
+        table = batch.run_batch(jobs, tmp_path, scheduler=cluster.scheduler_address,
+                                progress=False)
+    _check_same_numbers(table, alone)
+    on_disk = Table.read(tmp_path / batch.RESULTS_FILE, format="ascii.ecsv")
+    assert list(on_disk["system"]) == ["Arlo", "Brisk", "Cinder"]
+    assert on_disk["mass_median"].unit == u.kg
+    summary = json.loads((tmp_path / "systems" / "Arlo" / "summary.json").read_text())
+    assert summary["central_mass"]["median"] == alone["Arlo"]["central_mass"]["median"]
+
+
+def test_local_pool_batch_matches_and_rerun_skips_finished(systems, alone, tmp_path,
+                                                           monkeypatch):
+    _, configs = systems
+    jobs = batch.collect_jobs(configs, tmp_path)
+    table = batch.run_batch(jobs, tmp_path, workers=2, progress=False)
+    _check_same_numbers(table, alone)
+    stamp = (tmp_path / "systems" / "Arlo" / "summary.json").stat().st_mtime_ns
+    # A rerun reads the finished systems back and tries only the failed one again
+    # (run in this process here: the pool itself was exercised just above).
+    calls = []
+
+    def in_process(todo, workers, scheduler):
+        calls.extend(job.system for job in todo)
+        return ((job, batch.fit_job(job)) for job in todo)
+
+    monkeypatch.setattr(batch, "_execute", in_process)
+    again = batch.run_batch(jobs, tmp_path, workers=1, progress=False)
+    assert calls == ["Cinder"]
+    assert (tmp_path / "systems" / "Arlo" / "summary.json").stat().st_mtime_ns == stamp
+    assert list(again["mass_median"][:2]) == list(table["mass_median"][:2])
+
+
+def test_table_of_systems_and_cli(systems, tmp_path, monkeypatch):
+    root, _ = systems
+    monkeypatch.setattr(batch, "_execute",
+                        lambda todo, w, s: ((job, batch.fit_job(job)) for job in todo))
+    listing = tmp_path / "systems.csv"
+    listing.write_text("system,files,seed\n"
+                       f"Arlo,{root / 'Arlo' / 'Arlo.ecsv'},5\n")
+    out = tmp_path / "out"
+    status = main(["batch", str(listing), "--out", str(out), "--walkers", "16",
+                   "--max-steps", "200"])
+    table = Table.read(out / batch.RESULTS_FILE, format="ascii.ecsv")
+    single = massfit.fit(massfit.read_observations(root / "Arlo" / "Arlo.ecsv"), seed=5,
+                         walkers=16, max_steps=200, progress=False).summary
+    assert table["system"][0] == "Arlo"
+    assert table["mass_median"][0] == single["central_mass"]["median"]
+    assert status == (0 if single["converged"] else 3)
+
+
+def test_bad_batch_input_is_a_user_error(tmp_path, capsys):
+    listing = tmp_path / "systems.csv"
+    listing.write_text("name,files\nA,a.ecsv\n")
+    assert main(["batch", str(listing), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "systems.csv" in err and "'system' column" in err
+    assert main(["batch", str(tmp_path / "missing"), "--out", str(tmp_path / "o")]) == 2
