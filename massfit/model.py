@@ -36,21 +36,48 @@ Jacobian of the change of coordinates is added here.
     (log10 for a log-uniform prior), nominal solar masses.
 
 Semi-major axes are derived, never sampled: a^3 = G (M1 + m2) P^2 / (4 pi^2).
+
+Radial velocities
+-----------------
+Where velocities are given, each instrument adds ``rv.<label>.offset`` (km/s, the
+systemic velocity on that instrument's zero point; flat prior unless one is given) and
+``rv.<label>.jitter`` (km/s, added in quadrature to the errors; uniform from 0 to the
+spread of that instrument's velocities unless a prior is given, ``log10_jitter`` for a
+log-uniform prior). Rows without an instrument label are grouped by file. An optional
+trend common to all velocities adds ``rv.trend.slope`` (km/s/day) and
+``rv.trend.curvature`` (km/s/day^2) about the middle of the velocity data.
+
+Velocities follow the conventions: with v_rel = dz/dt of the relative orbit,
+v_primary = gamma - sum_k m_k / (M1 + m_k) v_rel,k and a companion's own velocity is
+v_primary + v_rel,j (for one companion, gamma + M1 / (M1 + m2) v_rel). Velocities of
+the primary need each companion's mass: unless it is stated, it gets the prior
+:data:`DEFAULT_REFLEX_MASS_PRIOR`. Velocities of a companion together with angular
+astrometry fix the distance: without a stated parallax it is sampled with
+:data:`DEFAULT_FREE_PARALLAX_PRIOR`.
+
+Velocities alone (no astrometry) fix neither the inclination nor the node, so the
+model then samples, per companion, ``log10_period``, the eccentricity coordinates,
+``phase`` and the semi-amplitudes ``k_primary`` (the primary's reflex, where the
+primary has velocities) and ``k_companion`` (where the companion has its own), km/s.
+No central mass is sampled: the summary derives the mass function, minimum masses
+and, given an inclination prior, the masses.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from pathlib import Path
 
 import numpy as np
 
 from . import kepler
-from .constants import GM_SUN, LIGHT_DAYS_PER_PC
-from .errors import ModelError
+from .constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
+from .errors import ConfigError, InputError, ModelError
 from .observations import Observations
 from .priors import Fixed, LogUniform, Normal, Prior, Uniform
 
-__all__ = ["CompanionSpec", "SystemSpec", "OrbitModel", "DEFAULT_CENTRAL_MASS_PRIOR"]
+__all__ = ["CompanionSpec", "SystemSpec", "InstrumentSpec", "OrbitModel",
+           "DEFAULT_CENTRAL_MASS_PRIOR", "TRENDS"]
 
 LN10 = np.log(10.0)
 TWO_PI = 2.0 * np.pi
@@ -63,6 +90,19 @@ DEFAULT_PERIOD_PRIOR = LogUniform(1e-2, 1e9)
 #: Default eccentricity prior: uniform below 0.99 (above it the orbit is a near-parabola
 #: that relative astrometry of bound companions almost never needs).
 DEFAULT_ECCENTRICITY_PRIOR = Uniform(0.0, 0.99)
+
+#: Default prior on a companion's mass where the primary's velocities need it (nominal
+#: solar masses): log-uniform from 1e-8 (about 0.003 Earth masses) to 1000; wide on
+#: purpose, scale-free.
+DEFAULT_REFLEX_MASS_PRIOR = LogUniform(1e-8, 1e3)
+#: Default prior on the parallax (mas) where velocities of a companion fix the distance
+#: and no parallax is stated: log-uniform from 1e-3 mas (1 Mpc) to 1e4 mas (0.1 pc).
+DEFAULT_FREE_PARALLAX_PRIOR = LogUniform(1e-3, 1e4)
+#: Default prior on a semi-amplitude in a velocity-only fit (km/s): uniform from 0 to a
+#: tenth of the speed of light.
+DEFAULT_SEMI_AMPLITUDE_PRIOR = Uniform(0.0, 3e4)
+#: Accepted values of ``SystemSpec.trend``.
+TRENDS = ("none", "linear", "quadratic")
 
 # Rows of walkers times rows of data evaluated in one piece; bounds memory for big sets.
 _CHUNK_ELEMENTS = 2_000_000
@@ -82,16 +122,39 @@ class CompanionSpec:
         Prior on e.
     inclination : Prior or None
         Prior on i in radians; None means isotropic (uniform in cos i).
-    mass : Prior
-        The companion's own mass in nominal solar masses; fixed at 0 (a test particle)
-        unless stated.
+    mass : Prior or None
+        The companion's own mass in nominal solar masses. None (the default) means
+        fixed at 0 (a test particle), or :data:`DEFAULT_REFLEX_MASS_PRIOR` where the
+        primary's own velocities need it.
+    semi_amplitude : Prior or None
+        Prior on each semi-amplitude (km/s) of a velocity-only fit; None gives
+        :data:`DEFAULT_SEMI_AMPLITUDE_PRIOR`.
     """
 
     name: str
     period: Prior = field(default_factory=lambda: DEFAULT_PERIOD_PRIOR)
     eccentricity: Prior = field(default_factory=lambda: DEFAULT_ECCENTRICITY_PRIOR)
     inclination: Prior | None = None
-    mass: Prior = field(default_factory=lambda: Fixed(0.0))
+    mass: Prior | None = None
+    semi_amplitude: Prior | None = None
+
+
+@dataclass
+class InstrumentSpec:
+    """Priors of one instrument's velocity zero point and jitter (km/s).
+
+    Parameters
+    ----------
+    offset : Prior or None
+        Prior on the offset (the systemic velocity on this instrument's zero point);
+        None is flat.
+    jitter : Prior or None
+        Prior on the extra scatter added in quadrature to the errors; None takes the
+        system's default (uniform from 0 to the spread of the instrument's velocities).
+    """
+
+    offset: Prior | None = None
+    jitter: Prior | None = None
 
 
 @dataclass
@@ -114,6 +177,14 @@ class SystemSpec:
         Evaluate the orbit at t - d/c for rows with a per-row distance.
     strict_companions : bool
         Refuse data of bodies that are not listed in ``companions``.
+    trend : {"none", "linear", "quadratic"}
+        A polynomial in time added to every velocity (an unseen outer body).
+    slope, curvature : Prior or None
+        Priors on the trend's coefficients (km/s/day, km/s/day^2); None is flat.
+    jitter : Prior or None
+        Jitter prior (km/s) of every instrument without its own.
+    instruments : dict
+        label -> InstrumentSpec. Each label must have velocity rows.
     """
 
     primary: str = "primary"
@@ -122,6 +193,11 @@ class SystemSpec:
     companions: dict = field(default_factory=dict)
     light_time: bool = True
     strict_companions: bool = False
+    trend: str = "none"
+    slope: Prior | None = None
+    curvature: Prior | None = None
+    jitter: Prior | None = None
+    instruments: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -129,9 +205,25 @@ class _Parameter:
     name: str
     label: str
     prior: Prior
-    transform: str  # "identity", "log10", "cos" or "none" (window/disc coordinates)
+    transform: str  # "identity", "log10", "cos", "flat", or window/disc coordinates
     low: float = -np.inf
     high: float = np.inf
+    target: tuple | None = None  # for velocity terms: (kind, instrument label or None)
+
+
+@dataclass
+class _VelocityRows:
+    """All radial velocities, ready for the kernel."""
+
+    t: np.ndarray  # days since the model's epoch
+    rv: np.ndarray  # km/s
+    err2: np.ndarray  # squared errors, (km/s)^2
+    instrument: np.ndarray  # index into ``labels`` per row
+    owner: np.ndarray  # index of the companion whose velocity it is; -1 for the primary
+    labels: list  # instrument labels
+    t_trend: float  # reference epoch of the trend, days since the model's epoch
+    offsets: list  # per instrument: prior or None (flat)
+    jitters: list  # per instrument: prior
 
 
 @dataclass
@@ -175,49 +267,155 @@ class OrbitModel:
     def __init__(self, observations: Observations, spec: SystemSpec | None = None):
         self.observations = observations
         self.spec = spec if spec is not None else SystemSpec()
+        if self.spec.trend not in TRENDS:
+            raise ConfigError(f"unknown trend {self.spec.trend!r}; accepted: "
+                              f"{', '.join(TRENDS)}", key="velocities.trend")
         astrometry = observations.astrometry
-        if astrometry is None or len(astrometry) == 0:
-            raise ModelError("no astrometry rows to fit; give at least one file of "
-                             "east/north or sep/pa offsets")
-        self.epoch_jd = float(np.mean(astrometry.time.tdb.jd))
+        velocities = observations.velocities
+        has_astrometry = astrometry is not None and len(astrometry) > 0
+        self.has_velocities = velocities is not None and len(velocities) > 0
+        if not has_astrometry and not self.has_velocities:
+            raise ModelError("no rows to fit; give at least one file of east/north or "
+                             "sep/pa offsets, or of radial velocities")
+        #: True where there is no astrometry: the velocity-only parametrisation.
+        self.velocity_only = not has_astrometry
+        times = astrometry.time if has_astrometry else velocities.time
+        self.epoch_jd = float(np.mean(times.tdb.jd))
         self.companions = self._companion_specs(observations)
-        self.needs_parallax = bool(np.any(~astrometry.length & ~np.isfinite(astrometry.distance)))
+        self._vel = self._prepare_velocities() if self.has_velocities else None
+        self.needs_parallax = has_astrometry and bool(
+            np.any(~astrometry.length & ~np.isfinite(astrometry.distance)))
+        #: True where the parallax is sampled only because companion velocities fix it.
+        self.parallax_from_velocities = False
         if self.needs_parallax and self.spec.parallax is None:
-            raise ModelError(
-                "angular offsets without a distance: give the parallax (with its "
-                "error) or a fixed distance, add a 'distance' column, or give the "
-                "offsets in a length unit (km, au)")
-        self._rows = {name: self._prepare_rows(name) for name in self.companions}
-        self.node_width = {name: np.pi for name in self.companions}
+            if self._vel is not None and np.any(self._vel.owner >= 0):
+                self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
+                self.parallax_from_velocities = True
+            else:
+                raise ModelError(
+                    "angular offsets without a distance: give the parallax (with its "
+                    "error) or a fixed distance, add a 'distance' column, give the "
+                    "offsets in a length unit (km, au), or add a companion's radial "
+                    "velocities (they fix the distance)")
+        self._rows = ({} if self.velocity_only else
+                      {name: self._prepare_rows(name) for name in self.companions})
+        self.node_width = {name: TWO_PI if self._has_velocity_of(name) else np.pi
+                           for name in self.companions}
         self.centres = {name: {"node": 0.5 * np.pi, "phase": np.pi} for name in self.companions}
         self.parameters = self._layout()
         self.n_dim = len(self.parameters)
         self._index = {p.name: k for k, p in enumerate(self.parameters)}
         self._log_norm = self._gaussian_normalisation()
+        n_velocities = len(velocities) if self.has_velocities else 0
+        if self.velocity_only and n_velocities <= self.n_dim:
+            raise ModelError(f"{n_velocities} radial velocities cannot fix the "
+                             f"{self.n_dim} parameters of this model; more epochs are "
+                             f"needed")
 
     # ----------------------------------------------------------------- set-up
+    @property
+    def primary_has_velocities(self) -> bool:
+        """True where the primary's own velocities are among the data."""
+        return self._vel is not None and bool(np.any(self._vel.owner < 0))
+
+    def _has_velocity_of(self, name) -> bool:
+        # The primary's reflex carries every companion's signal; a companion's own
+        # velocities carry its own.
+        if self._vel is None:
+            return False
+        k = list(self.companions).index(name)
+        return bool(np.any(self._vel.owner == k) or np.any(self._vel.owner < 0))
+
     def _companion_specs(self, observations):
-        names = list(dict.fromkeys(observations.astrometry.body.tolist()))
+        primary = observations.primary
+        velocities = observations.velocities
+        astrometric = ([] if self.velocity_only else
+                       list(dict.fromkeys(observations.astrometry.body.tolist())))
+        spectroscopic = []
+        if velocities is not None:
+            spectroscopic = [b for b in dict.fromkeys(velocities.body.tolist())
+                             if b != primary]
+        for name in spectroscopic:
+            if self.velocity_only or name in astrometric:
+                continue
+            row = int(np.flatnonzero(velocities.body == name)[0])
+            raise InputError(
+                f"radial velocities of body '{name}', which has no astrometry; a joint "
+                f"fit needs every companion's positions (or is '{name}' the primary? "
+                f"its rows are named '{primary}')", file=velocities.file[row],
+                line=int(velocities.line[row]), column="body")
+        names = astrometric or spectroscopic
+        if self.velocity_only and not names:
+            # Only the primary's velocities: the companions are those listed, or one.
+            names = list(self.spec.companions) or ["companion"]
+        primary_rv = velocities is not None and bool(np.any(velocities.body == primary))
         specs = {}
         for name in names:
             if name in self.spec.companions:
-                specs[name] = self.spec.companions[name]
+                comp = self.spec.companions[name]
             elif self.spec.strict_companions:
-                raise ModelError(f"the data have a body '{name}' that the model does not "
-                                 f"list; add it under [companions] or remove its rows")
+                raise self._unlisted_body(observations, name)
             else:
-                specs[name] = CompanionSpec(name)
+                comp = CompanionSpec(name)
+            if comp.mass is None:
+                reflex = primary_rv and not self.velocity_only
+                comp = replace(comp, mass=DEFAULT_REFLEX_MASS_PRIOR if reflex
+                               else Fixed(0.0))
+            specs[name] = comp
         for name in self.spec.companions:
             if name not in specs:
                 raise ModelError(f"companion '{name}' is in the model but has no rows in "
                                  f"the data")
-        for name in specs:
+        for name in astrometric:
             n_rows = int(np.sum(observations.astrometry.body == name))
-            if 2 * n_rows < 7:
+            if 2 * n_rows < 7 and not primary_rv and name not in spectroscopic:
                 raise ModelError(
                     f"companion '{name}' has {n_rows} astrometric epoch(s); an orbit "
                     f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
         return specs
+
+    def _unlisted_body(self, observations, name):
+        message = (f"the data have a body '{name}' that the model does not list; add "
+                   f"it under [companions] or remove its rows")
+        for data in (observations.astrometry, observations.velocities):
+            if data is not None and np.any(data.body == name):
+                row = int(np.flatnonzero(data.body == name)[0])
+                return InputError(message, file=data.file[row], line=int(data.line[row]),
+                                  column="body")
+        return ModelError(message)
+
+    def _prepare_velocities(self) -> _VelocityRows:
+        data = self.observations.velocities
+        labels = np.where(data.instrument == "",
+                          [f"{_file_stem(f)}" for f in data.file], data.instrument)
+        names = list(dict.fromkeys(labels.tolist()))
+        for label in self.spec.instruments:
+            if label not in names:
+                raise self._missing_instrument(label)
+        index = np.array([names.index(x) for x in labels], dtype=int)
+        companions = list(self.companions)
+        owner = np.array([-1 if b == self.observations.primary else companions.index(b)
+                          for b in data.body], dtype=int)
+        t = data.time.tdb.jd - self.epoch_jd
+        offsets, jitters = [], []
+        for j, label in enumerate(names):
+            own = self.spec.instruments.get(label, InstrumentSpec())
+            rv = data.rv[index == j]
+            err = data.rv_err[index == j]
+            spread = max(float(np.ptp(rv)), 10.0 * float(np.median(err)))
+            offsets.append(own.offset)
+            jitters.append(own.jitter or self.spec.jitter or Uniform(0.0, spread))
+        return _VelocityRows(t=t, rv=data.rv.astype(float), err2=data.rv_err ** 2,
+                             instrument=index, owner=owner, labels=names,
+                             t_trend=float(np.mean(t)), offsets=offsets, jitters=jitters)
+
+    def _missing_instrument(self, label):
+        rejected = [r for r in self.observations.rejected]
+        where = "; ".join(f"{r.file} line {r.line}: {r.reason}" for r in rejected[:5])
+        more = f" (rows rejected: {where})" if where else ""
+        return ConfigError(f"instrument '{label}' has no usable radial velocities{more}; "
+                           f"remove its entry or fix its rows",
+                           key=f"velocities.instruments.{label}")
 
     def _prepare_rows(self, name) -> _AstrometryRows:
         data = self.observations.astrometry
@@ -245,18 +443,20 @@ class OrbitModel:
 
     def reference_epoch(self, name) -> float:
         """Reference epoch of a companion's phase, days since :attr:`epoch_jd`."""
+        if self.velocity_only:
+            return float(self._vel.t_trend)
         return float(np.mean(self._rows[name].t))
 
     def _layout(self):
         spec = self.spec
         params = []
-        if not spec.central_mass.is_fixed:
+        if not self.velocity_only and not spec.central_mass.is_fixed:
             params.append(_Parameter("central.log10_mass", r"$\log_{10} M/M_\odot$",
                                      spec.central_mass, "log10"))
         if self.needs_parallax and not spec.parallax.is_fixed:
             params.append(_Parameter("parallax", r"$\varpi$ [mas]", spec.parallax,
                                      "identity", 0.0, np.inf))
-        for name, comp in self.companions.items():
+        for k, (name, comp) in enumerate(self.companions.items()):
             params.append(_Parameter(f"{name}.log10_period", rf"$\log_{{10}} P_{{{name}}}$",
                                      comp.period, "log10"))
             if not comp.eccentricity.is_fixed:
@@ -267,6 +467,15 @@ class OrbitModel:
             elif comp.eccentricity.value > 0:
                 params.append(_Parameter(f"{name}.omega", "", Uniform(-np.inf, np.inf),
                                          "window"))
+            if self.velocity_only:
+                params.append(_Parameter(f"{name}.phase", "", Uniform(-np.inf, np.inf),
+                                         "window"))
+                prior = comp.semi_amplitude or DEFAULT_SEMI_AMPLITUDE_PRIOR
+                if self.primary_has_velocities:
+                    params.append(_scale_parameter(f"{name}.k_primary", prior))
+                if np.any(self._vel.owner == k):
+                    params.append(_scale_parameter(f"{name}.k_companion", prior))
+                continue
             if not (comp.inclination is not None and comp.inclination.is_fixed):
                 params.append(_Parameter(f"{name}.cos_inc", "", comp.inclination or
                                          Uniform(0.0, np.pi), "cos", -1.0, 1.0))
@@ -277,6 +486,33 @@ class OrbitModel:
                 prefix = "log10_" if transform == "log10" else ""
                 params.append(_Parameter(f"{name}.{prefix}mass", "", comp.mass, transform,
                                          0.0 if transform == "identity" else -np.inf))
+        if self._vel is not None:
+            params.extend(self._velocity_layout())
+        return params
+
+    def _velocity_layout(self):
+        vel = self._vel
+        params = []
+        for label, offset, jitter in zip(vel.labels, vel.offsets, vel.jitters):
+            if offset is None:
+                params.append(_Parameter(f"rv.{label}.offset", "", Uniform(-np.inf, np.inf),
+                                         "flat", target=("offset", label)))
+            elif not offset.is_fixed:
+                params.append(_Parameter(f"rv.{label}.offset", "", offset, "identity",
+                                         target=("offset", label)))
+            if not jitter.is_fixed:
+                param = _scale_parameter(f"rv.{label}.jitter", jitter)
+                param.target = ("jitter", label)
+                params.append(param)
+        terms = {"none": (), "linear": ("slope",), "quadratic": ("slope", "curvature")}
+        for term in terms[self.spec.trend]:
+            prior = getattr(self.spec, term)
+            if prior is None:
+                params.append(_Parameter(f"rv.trend.{term}", "", Uniform(-np.inf, np.inf),
+                                         "flat", target=(term, None)))
+            elif not prior.is_fixed:
+                params.append(_Parameter(f"rv.trend.{term}", "", prior, "identity",
+                                         target=(term, None)))
         return params
 
     def _gaussian_normalisation(self) -> float:
@@ -284,6 +520,9 @@ class OrbitModel:
         for rows in self._rows.values():
             total -= np.sum(np.log(TWO_PI * rows.east_err * rows.north_err / rows.corr_factor))
             total -= np.sum(np.log(TWO_PI * rows.sep_err * rows.pa_err))
+        if self._vel is not None:
+            # The jitter's share of the normalisation is in the residuals (see there).
+            total -= 0.5 * np.sum(np.log(TWO_PI * self._vel.err2))
         return float(total)
 
     # ------------------------------------------------------------- coordinates
@@ -313,14 +552,21 @@ class OrbitModel:
             ``central_mass`` (nominal M_sun), ``parallax`` (mas, or None) and, per
             companion, a dict with ``period`` (d), ``ecc``, ``omega``, ``inc``,
             ``node``, ``mean_anomaly_ref`` (rad), ``mass`` (M_sun) and
-            ``semi_major_axis`` (au). Arrays of shape (n,).
+            ``semi_major_axis`` (au), and where there are velocities the primary's and
+            the companion's semi-amplitudes ``k_primary`` and ``k_companion`` (km/s).
+            A velocity-only model has no ``central_mass`` (None), ``inc``, ``node``,
+            ``mass`` or ``semi_major_axis``. With velocities, ``rv`` holds
+            ``offset`` and ``jitter`` (shape (n, n_instruments), km/s), ``slope`` and
+            ``curvature``. Arrays of shape (n,).
         """
         theta = np.atleast_2d(theta)
         n = theta.shape[0]
         col = self._column(theta)
         spec = self.spec
-        central = (np.full(n, spec.central_mass.value) if spec.central_mass.is_fixed
-                   else 10.0 ** col("central.log10_mass"))
+        central = None
+        if not self.velocity_only:
+            central = (np.full(n, spec.central_mass.value) if spec.central_mass.is_fixed
+                       else 10.0 ** col("central.log10_mass"))
         parallax = None
         if self.needs_parallax:
             parallax = (np.full(n, spec.parallax.value) if spec.parallax.is_fixed
@@ -337,28 +583,74 @@ class OrbitModel:
                 omega = np.arctan2(k, h)
                 if lenient:
                     ecc = np.minimum(ecc, 0.999)
+            orbit = {"period": period, "ecc": ecc, "omega": omega,
+                     "mean_anomaly_ref": col(f"{name}.phase") - omega}
+            if self.velocity_only:
+                for kind in ("k_primary", "k_companion"):
+                    if self._has_name(f"{name}.{kind}", f"{name}.log10_{kind}"):
+                        orbit[kind] = self._scale_value(
+                            col, f"{name}.{kind}",
+                            comp.semi_amplitude or DEFAULT_SEMI_AMPLITUDE_PRIOR, n)
+                out["companions"][name] = orbit
+                continue
             if comp.inclination is not None and comp.inclination.is_fixed:
                 inc = np.full(n, comp.inclination.value)
             else:
                 inc = np.arccos(np.clip(col(f"{name}.cos_inc"), -1.0, 1.0))
-            mass = self._companion_mass(comp, col, name, n)
+            mass = self._scale_value(col, f"{name}.mass", comp.mass, n)
             gm = GM_SUN * (central + mass)
             with np.errstate(invalid="ignore"):
                 a = np.cbrt(gm * period ** 2 / (4.0 * np.pi ** 2))
-            out["companions"][name] = {
-                "period": period, "ecc": ecc, "omega": omega, "inc": inc,
-                "node": col(f"{name}.node"),
-                "mean_anomaly_ref": col(f"{name}.phase") - omega,
-                "mass": mass, "semi_major_axis": a,
-            }
+            orbit.update(inc=inc, node=col(f"{name}.node"), mass=mass, semi_major_axis=a)
+            if self._vel is not None:
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    k_rel = KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
+                        a, period, ecc, inc)
+                    share = mass / (central + mass)
+                orbit["k_primary"] = share * k_rel
+                orbit["k_companion"] = (1.0 - share) * k_rel
+            out["companions"][name] = orbit
+        if self._vel is not None:
+            out["rv"] = self._velocity_physical(col, n)
         return out
 
-    def _companion_mass(self, comp, col, name, n):
-        if comp.mass.is_fixed:
-            return np.full(n, comp.mass.value)
-        if isinstance(comp.mass, LogUniform):
-            return 10.0 ** col(f"{name}.log10_mass")
-        return col(f"{name}.mass")
+    def _velocity_physical(self, col, n):
+        vel = self._vel
+        n_inst = len(vel.labels)
+        offset = np.zeros((n, n_inst))
+        jitter = np.zeros((n, n_inst))
+        for j, label in enumerate(vel.labels):
+            prior = vel.offsets[j]
+            if prior is not None and prior.is_fixed:
+                offset[:, j] = prior.value
+            else:
+                offset[:, j] = col(f"rv.{label}.offset")
+            jitter[:, j] = self._scale_value(col, f"rv.{label}.jitter", vel.jitters[j], n)
+        out = {"offset": offset, "jitter": jitter}
+        for term in ("slope", "curvature"):
+            if f"rv.trend.{term}" in self._index:
+                out[term] = col(f"rv.trend.{term}")
+            else:
+                prior = getattr(self.spec, term)
+                used = self._trend_has(term) and prior is not None
+                out[term] = np.full(n, prior.value if used else 0.0)
+        return out
+
+    def _trend_has(self, term) -> bool:
+        return (term == "slope" and self.spec.trend != "none"
+                or term == "curvature" and self.spec.trend == "quadratic")
+
+    def _has_name(self, *names) -> bool:
+        return any(name in self._index for name in names)
+
+    def _scale_value(self, col, name, prior, n):
+        """A positive quantity sampled directly, as log10, or fixed."""
+        if prior.is_fixed:
+            return np.full(n, prior.value)
+        if isinstance(prior, LogUniform):
+            body, kind = name.rsplit(".", 1)
+            return 10.0 ** col(f"{body}.log10_{kind}")
+        return col(name)
 
     def _column(self, theta):
         def col(name):
@@ -383,6 +675,8 @@ class OrbitModel:
             value = param.prior.log_pdf(x) + np.log(x * LN10)
         elif param.transform == "identity":
             value = param.prior.log_pdf(u)
+        elif param.transform == "flat":  # an improper flat prior (offsets, trends)
+            value = np.zeros_like(u)
         elif param.transform == "cos":
             inc = np.arccos(np.clip(u, -1.0, 1.0))
             # Uniform in cos i is isotropic; any other prior on i needs 1/sin i.
@@ -409,14 +703,75 @@ class OrbitModel:
 
     # ------------------------------------------------------------- likelihood
     def residuals(self, theta, *, lenient=False):
-        """Whitened residuals, shape (n, n_residuals): their squares sum to chi^2."""
+        """Whitened residuals, shape (n, n_residuals): their squares sum to chi^2.
+
+        With radial velocities each velocity adds its residual over
+        sqrt(err^2 + jitter^2) and one more term, sqrt(ln(1 + jitter^2 / err^2)), so
+        that the sum of squares stays -2 ln L up to a constant while the jitter varies
+        (which lets least squares fit the jitter too).
+        """
         theta = np.atleast_2d(theta)
         phys = self.physical(theta, lenient=lenient)
         parts = []
         for name, rows in self._rows.items():
             parts.append(self._astrometry_residuals(rows, phys["companions"][name],
                                                     phys["parallax"], name))
+        if self._vel is not None:
+            parts.append(self._velocity_residuals(phys))
         return np.concatenate(parts, axis=1)
+
+    def velocity_parts(self, phys) -> dict:
+        """The modelled velocities, split into their parts (km/s, shape (n, n_rows)).
+
+        Parameters
+        ----------
+        phys : dict
+            What :meth:`physical` returns.
+
+        Returns
+        -------
+        dict
+            ``systemic`` (instrument offset plus trend), ``companions`` (name -> that
+            companion's share: its reflex on the primary's rows, its own motion on its
+            rows) and ``total``.
+        """
+        vel = self._vel
+        rv = phys["rv"]
+        dt = vel.t[None, :] - vel.t_trend
+        systemic = (rv["offset"][:, vel.instrument] + rv["slope"][:, None] * dt
+                    + rv["curvature"][:, None] * dt * dt)
+        total = systemic.copy()
+        shares = {}
+        for k, (name, orbit) in enumerate(phys["companions"].items()):
+            shape = self._velocity_shape(name, orbit)
+            k_primary = orbit.get("k_primary", np.zeros(shape.shape[0]))[:, None]
+            k_companion = orbit.get("k_companion", np.zeros(shape.shape[0]))[:, None]
+            # v_primary = gamma - K1 f; a companion's own = v_primary + (K1 + K2) f.
+            share = -k_primary * shape
+            own = vel.owner == k
+            share[:, own] += ((k_primary + k_companion) * shape)[:, own]
+            shares[name] = share
+            total += share
+        return {"systemic": systemic, "companions": shares, "total": total}
+
+    def _velocity_shape(self, name, orbit, t=None):
+        """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
+        column = {key: value[:, None] for key, value in orbit.items()}
+        t = self._vel.t if t is None else t
+        mean = column["mean_anomaly_ref"] + TWO_PI * (
+            t[None, :] - self.reference_epoch(name)) / column["period"]
+        with np.errstate(invalid="ignore"):
+            nu = kepler.true_anomaly(kepler.solve_kepler(mean, column["ecc"]), column["ecc"])
+        return np.cos(nu + column["omega"]) + column["ecc"] * np.cos(column["omega"])
+
+    def _velocity_residuals(self, phys):
+        vel = self._vel
+        model = self.velocity_parts(phys)["total"]
+        jitter2 = phys["rv"]["jitter"][:, vel.instrument] ** 2
+        with np.errstate(invalid="ignore", divide="ignore"):
+            whitened = (vel.rv - model) / np.sqrt(vel.err2 + jitter2)
+            extra = np.sqrt(np.log1p(jitter2 / vel.err2))
+        return np.concatenate([whitened, extra], axis=1)
 
     def predicted_offsets(self, theta, name):
         """Model east and north offsets of one companion at its data rows.
@@ -474,7 +829,7 @@ class OrbitModel:
         lp = self.log_prior(theta)
         good = np.flatnonzero(np.isfinite(lp))
         if good.size:
-            n_rows = len(self.observations.astrometry)
+            n_rows = self.observations.rows_used
             step = max(1, _CHUNK_ELEMENTS // max(n_rows, 1))
             for start in range(0, good.size, step):
                 chunk = good[start:start + step]
@@ -487,12 +842,15 @@ class OrbitModel:
 
         ``values`` has ``central_mass`` (M_sun), optional ``parallax`` (mas), and per
         companion name a dict with ``period``, ``ecc``, ``omega``, ``inc``, ``node``,
-        ``mean_anomaly_ref`` and optional ``mass``. Angles are wrapped into the current
-        windows.
+        ``mean_anomaly_ref``, optional ``mass`` and (velocity-only) ``k_primary``,
+        ``k_companion``. With velocities, ``rv`` holds ``offset`` and ``jitter``
+        (dicts by instrument label, km/s), ``slope`` and ``curvature``. Angles are
+        wrapped into the current windows.
         """
         values = dict(values)
         for name in self.companions:
-            values[name] = self._fold_node(name, dict(values[name]))
+            if not self.velocity_only:
+                values[name] = self._fold_node(name, dict(values[name]))
         theta = np.empty(self.n_dim)
         for k, param in enumerate(self.parameters):
             theta[k] = self._coordinate(param, values)
@@ -510,6 +868,10 @@ class OrbitModel:
 
     def _coordinate(self, param, values):
         name = param.name
+        if param.target is not None:
+            kind, label = param.target
+            value = values["rv"][kind] if label is None else values["rv"][kind][label]
+            return float(np.log10(value) if param.transform == "log10" else value)
         if name == "central.log10_mass":
             return np.log10(values["central_mass"])
         if name == "parallax":
@@ -525,6 +887,9 @@ class OrbitModel:
             "log10_mass": lambda: np.log10(orbit["mass"]),
             "mass": lambda: orbit["mass"],
         }
+        for amplitude in ("k_primary", "k_companion"):
+            simple[amplitude] = lambda key=amplitude: orbit[key]
+            simple[f"log10_{amplitude}"] = lambda key=amplitude: np.log10(orbit[key])
         if kind in simple:
             return float(simple[kind]())
         if kind == "node":
@@ -536,11 +901,25 @@ class OrbitModel:
     def recentre(self, theta):
         """Centre the node and phase windows on ``theta`` (1-D) and return it."""
         theta = np.array(theta, dtype=float)
+        kinds = ("phase",) if self.velocity_only else ("node", "phase")
         for name in self.companions:
-            for kind in ("node", "phase"):
+            for kind in kinds:
                 k = self._index[f"{name}.{kind}"]
                 self.centres[name][kind] = float(theta[k])
         return theta
+
+
+def _scale_parameter(name, prior) -> _Parameter:
+    """A positive scale (semi-amplitude, jitter): log10 for a log-uniform prior."""
+    if isinstance(prior, LogUniform):
+        body, kind = name.rsplit(".", 1)
+        return _Parameter(f"{body}.log10_{kind}", "", prior, "log10")
+    return _Parameter(name, "", prior, "identity", 0.0, np.inf)
+
+
+def _file_stem(path) -> str:
+    """Instrument label of rows that have none: the name of their file."""
+    return Path(str(path)).stem
 
 
 def _wrap(angle):

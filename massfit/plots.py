@@ -6,8 +6,8 @@ of 7-8 pt, vector output when saved as PDF. Sky plots show north up and east to 
 left, as the sky is seen, with the data's own kind of unit (an angle, or a length where
 each row carries its distance).
 
-Figures: :func:`corner_plot`, :func:`orbit_plot`, :func:`residual_plot` and
-:func:`periodogram_plot`; :data:`FIGURES` maps the file stems used in an output folder
+Figures: :func:`corner_plot`, :func:`orbit_plot`, :func:`residual_plot`,
+:func:`periodogram_plot` and :func:`velocity_plot` (radial velocities against phase); :data:`FIGURES` maps the file stems used in an output folder
 to them, and :func:`save_figure` writes one figure in several formats.
 """
 
@@ -26,7 +26,7 @@ from .errors import ConfigError
 from .summarise import MASS_UNIT_LABELS, interval
 from .tables import round_interval
 
-__all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot",
+__all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
            "save_figure", "FIGURES", "COLUMN_WIDTH", "PAGE_WIDTH", "STYLE"]
 
 #: Width of one column of a two-column journal page, inches (ApJ, A&A and MNRAS all
@@ -61,6 +61,10 @@ _COMPANION_QUANTITIES = {
     "periapsis_argument": (r"\omega", r"^\circ", u.deg),
     "ascending_node": (r"\Omega", r"^\circ", u.deg),
     "mass": ("m", r"M_\odot", u.M_sun),
+    "rv_semi_amplitude": ("K^{(1)}", r"\mathrm{km\,s^{-1}}", u.km / u.s),
+    "rv_semi_amplitude_companion": ("K^{(2)}", r"\mathrm{km\,s^{-1}}", u.km / u.s),
+    "mass_function": ("f", r"M_\odot", u.M_sun),
+    "minimum_mass": (r"m_\mathrm{min}", r"M_\odot", u.M_sun),
 }
 DEFAULT_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "inclination")
 
@@ -187,12 +191,18 @@ def _corner_columns(result, parameters, mass_unit):
 def default_corner_parameters(result, companions=None, quantities=None) -> list:
     """The corner plot's default parameters: mass, GM, parallax, then per companion."""
     names = list(result.samples["companions"]) if companions is None else list(companions)
-    if quantities is None:
+    if quantities is None and result.model.velocity_only:
+        quantities = ("period", "eccentricity", "rv_semi_amplitude",
+                      "rv_semi_amplitude_companion")
+    elif quantities is None:
         # Beyond two companions P, a, e and i of each no longer fit on a page.
         quantities = DEFAULT_COMPANION_QUANTITIES if len(names) <= 2 else (
             "period", "semi_major_axis")
-    out = ["mass", "gm"] + (["parallax"] if "parallax" in result.samples else [])
-    return out + [f"{name}.{q}" for name in names for q in quantities]
+    # Velocities alone may leave the central mass undetermined: no column for it.
+    out = ["mass", "gm"] if "central_mass_Msun" in result.samples else []
+    out += ["parallax"] if "parallax" in result.samples else []
+    comps = result.samples["companions"]
+    return out + [f"{name}.{q}" for name in names for q in quantities if q in comps[name]]
 
 
 def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
@@ -242,7 +252,8 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     from .results import best_mass_unit
 
     if mass_unit is None:
-        mass_unit = best_mass_unit(float(np.median(result.samples["central_mass_Msun"])))
+        mass_unit = (best_mass_unit(float(np.median(result.samples["central_mass_Msun"])))
+                     if "central_mass_Msun" in result.samples else "Msun")
     if mass_unit not in _MASS_SAMPLES:
         raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
                           f"{', '.join(_MASS_SAMPLES)}", key="mass_unit")
@@ -676,4 +687,96 @@ def periodogram_plot(result, *, companions=None, width=None):
 
 #: File stem in an output folder -> figure function.
 FIGURES = {"corner": corner_plot, "orbits": orbit_plot, "residuals": residual_plot,
-           "periodogram": periodogram_plot}
+           "periodogram": periodogram_plot, "rv": None}
+
+#: Figures that need relative astrometry.
+_SKY_FIGURES = ("orbits", "residuals", "periodogram")
+
+
+def applicable_figures(result) -> list:
+    """Stems of :data:`FIGURES` that this fit's data can fill, in order."""
+    model = result.model
+    return [stem for stem in FIGURES
+            if not (stem in _SKY_FIGURES and model.velocity_only)
+            and not (stem == "rv" and not model.has_velocities)]
+
+
+def velocity_plot(result, *, figsize=None):
+    """Radial velocities against orbital phase, one column per companion.
+
+    Each column shows the velocities with everything but that companion's signal
+    (instrument offsets, trend, the other companions) taken off, the best model's
+    curves for the primary and the companion, and below them the residuals of the
+    full model. Error bars include the fitted jitter. Phase 0 is periapsis.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    import matplotlib.pyplot as plt
+
+    model = result.model
+    vel = model._vel
+    names = list(model.companions)
+    best = result.chain.samples[np.argmax(result.chain.log_prob)]
+    phys = model.physical(best[None, :])
+    parts = model.velocity_parts(phys)
+    sigma = np.sqrt(vel.err2 + phys["rv"]["jitter"][0, vel.instrument] ** 2)
+    residual = vel.rv - parts["total"][0]
+    fig, axes = plt.subplots(2, len(names), figsize=figsize or (4.2 * len(names), 4.6),
+                             squeeze=False, sharex="col", constrained_layout=True,
+                             gridspec_kw={"height_ratios": [3, 1]})
+    markers = {-1: "o"}
+    for k, name in enumerate(names):
+        top, bottom = axes[0, k], axes[1, k]
+        orbit = {key: v[0] for key, v in phys["companions"][name].items()}
+        own_signal = vel.rv - (parts["total"][0] - parts["companions"][name][0])
+        phase = _orbital_phase(model, name, orbit, vel.t)
+        for owner in np.unique(vel.owner):
+            who = vel.owner == owner
+            body = "primary" if owner < 0 else names[owner]
+            for j, label in enumerate(vel.labels):
+                rows = who & (vel.instrument == j)
+                if not np.any(rows):
+                    continue
+                tag = f"{body}, {label}" if len(vel.labels) > 1 else body
+                kw = dict(fmt=markers.get(owner, "s"), ms=3, lw=0.7, color=f"C{j}",
+                          mfc="white" if owner >= 0 else f"C{j}")
+                top.errorbar(phase[rows], own_signal[rows], sigma[rows], label=tag, **kw)
+                bottom.errorbar(phase[rows], residual[rows], sigma[rows], **kw)
+        grid = np.linspace(0.0, 1.0, 400)
+        curve = _phase_curve(model, name, orbit, grid)
+        if np.any(vel.owner < 0):
+            top.plot(grid, -orbit["k_primary"] * curve, color="k", lw=1.0,
+                     label="model, primary")
+        if np.any(vel.owner == k):
+            top.plot(grid, orbit["k_companion"] * curve, color="k", lw=1.0, ls="--",
+                     label=f"model, {name}")
+        bottom.axhline(0.0, color="k", lw=0.8)
+        top.set_title(f"{name}: P = {orbit['period']:.6g} d", fontsize=10)
+        top.set_ylabel("radial velocity [km/s]")
+        bottom.set_ylabel("O - C [km/s]")
+        bottom.set_xlabel("orbital phase (0 = periapsis)")
+        bottom.set_xlim(0.0, 1.0)
+        top.legend(fontsize=7, loc="best")
+    return fig
+
+
+def _orbital_phase(model, name, orbit, t):
+    """Fraction of the period since periapsis, in [0, 1)."""
+    mean = orbit["mean_anomaly_ref"] + 2 * np.pi * (t - model.reference_epoch(name)) \
+        / orbit["period"]
+    return np.mod(mean / (2 * np.pi), 1.0)
+
+
+def _phase_curve(model, name, orbit, phase):
+    """v / K over one orbit at the given phases (periapsis at 0)."""
+    fake = {key: np.atleast_1d(v) for key, v in orbit.items()}
+    period = orbit["period"]
+    # Times whose mean anomaly runs from 0 to 2 pi.
+    t = model.reference_epoch(name) + (2 * np.pi * phase - orbit["mean_anomaly_ref"]) \
+        * period / (2 * np.pi)
+    return model._velocity_shape(name, fake, t)[0]
+
+
+FIGURES["rv"] = velocity_plot

@@ -20,6 +20,63 @@ SUMMARY_FILE = "summary.json"
 SAMPLES_FILE = "samples.ecsv"
 
 
+_CENTRAL_BLOCKS = (
+    ("central_mass", "central_mass", "kg"),
+    ("central_gm", "central_gm", "km3 / s2"),
+    ("central_mass_solar", "central_mass_Msun", "M_sun"),
+    ("central_mass_jupiter", "central_mass_Mjup", "M_jup"),
+    ("central_mass_earth", "central_mass_Mearth", "M_earth"),
+)
+#: Companion quantities of the summary, in order, with their units.
+_COMPANION_BLOCKS = (
+    ("period", "d"), ("semi_major_axis", "au"), ("semi_major_axis_km", "km"),
+    ("eccentricity", ""), ("inclination", "deg"), ("periapsis_argument", "deg"),
+    ("ascending_node", "deg"), ("periapsis_time", "JD (TDB)"), ("mass", "M_sun"),
+    ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
+    ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
+    ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
+    ("mass_ratio", ""),
+)
+
+
+#: Terminal lines of a companion: (summary key, label, unit).
+_COMPANION_LINES = (
+    ("period", "P", "d"), ("eccentricity", "e", ""), ("inclination", "i", "deg"),
+    ("periapsis_argument", "omega", "deg"), ("ascending_node", "Omega", "deg"),
+    ("mass", "m", "M_sun"), ("rv_semi_amplitude", "K1", "km/s (primary)"),
+    ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
+    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (i = 90 deg)"),
+    ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
+)
+
+
+def _companion_lines(comp) -> list:
+    lines = []
+    for key, label, unit in _COMPANION_LINES:
+        if key not in comp:
+            continue
+        note = ""
+        if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
+            note = " (or +180 with node +180)"
+        lines.append(f"  {label:<8}= {format_value(comp[key])} {unit}{note}".rstrip())
+        if key == "period" and "semi_major_axis" in comp:
+            a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
+                      f" = {format_value(comp['semi_major_axis_km'])} km")
+            if "semi_major_axis_angle" in comp:
+                a_line += " = " + _angle_text(comp["semi_major_axis_angle"])
+            lines.append(a_line)
+    return lines
+
+
+def _velocity_summary(rv) -> dict:
+    out = {"offset": {lab: interval(v, "km / s") for lab, v in rv["offset"].items()},
+           "jitter": {lab: interval(v, "km / s") for lab, v in rv["jitter"].items()}}
+    for term, unit in (("slope", "km / s / d"), ("curvature", "km / s / d2")):
+        if term in rv:
+            out[f"trend_{term}"] = interval(rv[term], unit)
+    return out
+
+
 def format_value(block) -> str:
     """``median +upper -lower`` (or ``median +/- error``) rounded by the interval.
 
@@ -74,15 +131,19 @@ class FitResult:
         s = self.samples
         obs = self.model.observations
         chain = self.chain
-        summary = {
-            "central_mass": interval(s["central_mass"], "kg"),
-            "central_gm": interval(s["central_gm"], "km3 / s2"),
-            "central_mass_solar": interval(s["central_mass_Msun"], "M_sun"),
-            "central_mass_jupiter": interval(s["central_mass_Mjup"], "M_jup"),
-            "central_mass_earth": interval(s["central_mass_Mearth"], "M_earth"),
-        }
+        summary = {}
+        for key, sample_key, unit in _CENTRAL_BLOCKS:
+            # Velocities alone may leave the central mass open: null, never a number.
+            summary[key] = interval(s[sample_key], unit) if sample_key in s else None
+        if "central_mass_note" in s:
+            summary["central_mass_note"] = s["central_mass_note"]
         if "parallax" in s:
             summary["parallax"] = interval(s["parallax"], "mas")
+            if self.model.parallax_from_velocities:
+                summary["parallax_note"] = (
+                    "no parallax was given: sampled with a "
+                    f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
+                    "companion's radial velocities with its relative astrometry")
         summary["converged"] = self.converged
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
@@ -100,22 +161,16 @@ class FitResult:
         }
         summary["companions"] = {}
         for name, comp in s["companions"].items():
-            block = {
-                "period": interval(comp["period"], "d"),
-                "semi_major_axis": interval(comp["semi_major_axis"], "au"),
-                "semi_major_axis_km": interval(comp["semi_major_axis_km"], "km"),
-                "eccentricity": interval(comp["eccentricity"], ""),
-                "inclination": interval(comp["inclination"], "deg"),
-                "periapsis_argument": interval(comp["periapsis_argument"], "deg"),
-                "ascending_node": interval(comp["ascending_node"], "deg"),
-                "periapsis_time": interval(comp["periapsis_time"], "JD (TDB)"),
-            }
+            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
+                     if key in comp}
             if "semi_major_axis_mas" in comp:
                 block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
-            if "mass" in comp:
-                block["mass"] = interval(comp["mass"], "M_sun")
-            block["node_ambiguity_deg"] = 180.0 if self.model.node_width[name] < 6 else 0.0
+            if "ascending_node" in comp:
+                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
+                                               else 0.0)
             summary["companions"][name] = block
+        if "rv" in s:
+            summary["velocities"] = _velocity_summary(s["rv"])
         summary["modes"] = list(self.start.modes)
         summary["warnings"] = list(self.warnings)
         summary["inputs"] = {
@@ -136,35 +191,28 @@ class FitResult:
             lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times",
                       "*** or their estimate has not settled; do not quote these numbers.", ""]
         lines.append("Central body")
-        lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
-                     f"(95%: {s['central_gm']['lower_95']:.6g} .. "
-                     f"{s['central_gm']['upper_95']:.6g})")
-        lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
-                     f"(includes the uncertainty of G)")
-        unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
-        key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
-               "Mearth": "central_mass_earth"}[unit]
-        lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
-                     f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+        if s["central_gm"] is None:
+            lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
+        else:
+            lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
+                         f"(95%: {s['central_gm']['lower_95']:.6g} .. "
+                         f"{s['central_gm']['upper_95']:.6g})")
+            lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
+                         f"(includes the uncertainty of G)")
+            unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
+            key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
+                   "Mearth": "central_mass_earth"}[unit]
+            lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
+                         f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+            if "central_mass_note" in s:
+                lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
         by_period = sorted(s["companions"].items(),
                            key=lambda item: item[1]["period"]["median"] or 0.0)
         for name, comp in by_period:
             lines.append(f"Companion {name}")
-            lines.append(f"  P       = {format_value(comp['period'])} d")
-            a_line = (f"  a       = {format_value(comp['semi_major_axis'])} au"
-                      f" = {format_value(comp['semi_major_axis_km'])} km")
-            if "semi_major_axis_angle" in comp:
-                a_line += " = " + _angle_text(comp["semi_major_axis_angle"])
-            lines.append(a_line)
-            lines.append(f"  e       = {format_value(comp['eccentricity'])}")
-            lines.append(f"  i       = {format_value(comp['inclination'])} deg")
-            note = " (or +180 with node +180)" if comp["node_ambiguity_deg"] else ""
-            lines.append(f"  omega   = {format_value(comp['periapsis_argument'])} deg{note}")
-            lines.append(f"  Omega   = {format_value(comp['ascending_node'])} deg")
-            if "mass" in comp:
-                lines.append(f"  m       = {format_value(comp['mass'])} M_sun")
+            lines.extend(_companion_lines(comp))
         d = s["diagnostics"]
         lines.append("Sampler")
         lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
@@ -175,9 +223,10 @@ class FitResult:
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
         for mode in s["modes"]:
+            mass = ("" if mode["central_mass"] is None
+                    else f", central mass {mode['central_mass']:.4g} M_sun")
             lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
-                         f"(best {mode['best_period']:.6g} d), central mass "
-                         f"{mode['central_mass']:.4g} M_sun, delta chi2 = "
+                         f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
                          f"{mode['delta_chi2']:.1f}")
         for text in s["warnings"]:
             lines.append(f"  warning: {text}")
@@ -192,7 +241,8 @@ class FitResult:
 
     def __repr__(self) -> str:
         m = self.summary["central_mass_solar"]
-        return (f"<FitResult central mass {m['median']:.6g} M_sun, "
+        mass = "not determined" if m is None else f"{m['median']:.6g} M_sun"
+        return (f"<FitResult central mass {mass}, "
                 f"{len(self.summary['companions'])} companion(s), "
                 f"converged={self.converged}>")
 
@@ -248,15 +298,18 @@ class FitResult:
         table["log_prob"] = self.chain.log_prob
         units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
         for key, values in self.samples.items():
-            if key == "companions":
-                continue
+            if key in ("companions", "rv") or not isinstance(values, np.ndarray):
+                continue  # velocity terms are sampled columns already; notes are text
             table[key] = values
             if key in units:
                 table[key].unit = units[key]
         comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
                       "semi_major_axis_mas": "mas", "inclination": "deg",
                       "periapsis_argument": "deg", "ascending_node": "deg",
-                      "mass": "solMass"}
+                      "rv_semi_amplitude": "km / s", "rv_semi_amplitude_companion": "km / s"}
+        for key in ("mass", "mass_function", "mass_function_companion", "minimum_mass",
+                    "mass_sin3i", "primary_mass_sin3i"):
+            comp_units[key] = "solMass"
         for name, comp in self.samples["companions"].items():
             for key, values in comp.items():
                 table[f"{name}.{key}"] = values
@@ -271,6 +324,12 @@ class FitResult:
         from .plots import corner_plot
 
         return corner_plot(self, **kwargs)
+
+    def velocity_plot(self, **kwargs):
+        """Radial velocities against phase, with residuals; see :func:`massfit.plots.velocity_plot`."""
+        from .plots import velocity_plot
+
+        return velocity_plot(self, **kwargs)
 
     def orbit_plot(self, **kwargs):
         """Sky-plane orbits with the data; see :func:`massfit.plots.orbit_plot`."""
@@ -308,9 +367,9 @@ class FitResult:
         """
         import matplotlib.pyplot as plt
 
-        from .plots import FIGURES, save_figure
+        from .plots import FIGURES, applicable_figures, save_figure
 
-        chosen = list(FIGURES) if figures is None else list(figures)
+        chosen = applicable_figures(self) if figures is None else list(figures)
         unknown = [f for f in chosen if f not in FIGURES]
         if unknown:
             from .errors import ConfigError

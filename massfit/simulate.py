@@ -16,9 +16,9 @@ from astropy.table import QTable
 from astropy.time import Time
 
 from . import kepler
-from .constants import GM_SUN, LIGHT_DAYS_PER_PC
+from .constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
 
-__all__ = ["Elements", "simulate_astrometry", "write_scenario"]
+__all__ = ["Elements", "simulate_astrometry", "simulate_velocities", "write_scenario"]
 
 
 class Elements(dict):
@@ -106,6 +106,70 @@ def simulate_astrometry(times, elements, central_mass, *, parallax=None, distanc
     return _stack(rows)
 
 
+def simulate_velocities(times, elements, central_mass, *, primary="primary",
+                        gamma=0.0 * u.km / u.s, error=10.0 * u.m / u.s,
+                        jitter=0.0 * u.m / u.s, slope=0.0 * u.km / u.s / u.day,
+                        instrument=None, seed=None):
+    """Noisy barycentric radial velocities of the primary and of companions.
+
+    Parameters
+    ----------
+    times : dict
+        body name -> astropy Time of its velocities; the name ``primary`` stands for
+        the primary's own velocities (the reflex of every companion).
+    elements : dict
+        companion name -> :class:`Elements` (``mass`` is the companion's mass).
+    central_mass : float
+        Mass of the primary, nominal solar masses.
+    primary : str
+        The primary's name in ``times`` and in the table.
+    gamma : Quantity
+        Systemic velocity.
+    error, jitter : Quantity
+        The stated 1-sigma error of each velocity, and extra scatter added in
+        quadrature to the noise but not to the stated error.
+    slope : Quantity
+        A linear trend (velocity per time) about the mean of all the times.
+    instrument : str, optional
+        An ``instrument`` column with this label.
+    seed : int, optional
+        Seed of the noise.
+
+    Returns
+    -------
+    astropy.table.QTable
+        Columns ``time`` (TDB), ``body``, ``rv``, ``rv_err`` (km/s) and, where asked,
+        ``instrument``.
+
+    Notes
+    -----
+    The velocities follow the conventions: v_primary = gamma - sum_k m_k/(M1 + m_k)
+    v_rel,k and a companion's own velocity is v_primary + v_rel (v_rel = dz/dt).
+    """
+    rng = np.random.default_rng(seed)
+    err = error.to_value(u.km / u.s)
+    scatter = np.hypot(err, jitter.to_value(u.km / u.s))
+    all_jd = np.concatenate([t.tdb.jd for t in times.values()])
+    t_mid = float(np.mean(all_jd))
+    rows = []
+    for name, t in times.items():
+        t_jd = t.tdb.jd
+        v = gamma.to_value(u.km / u.s) + slope.to_value(u.km / u.s / u.day) * (t_jd - t_mid)
+        for other, el in elements.items():
+            vz = _orbit_au(el, t_jd, central_mass)[3] * KM_S_PER_AU_DAY
+            mass = el.get("mass", 0.0)
+            v = v - mass / (central_mass + mass) * vz
+            if other == name:
+                v = v + vz
+        block = {"time": t.tdb, "body": np.full(len(t_jd), name),
+                 "rv": (v + scatter * rng.standard_normal(len(t_jd))) * u.km / u.s,
+                 "rv_err": np.full(len(t_jd), err) * u.km / u.s}
+        if instrument is not None:
+            block["instrument"] = np.full(len(t_jd), instrument)
+        rows.append(block)
+    return _stack(rows)
+
+
 def _stack(blocks):
     table = QTable()
     for key in blocks[0]:
@@ -131,12 +195,14 @@ def write_scenario(folder, table, truth, *, name="astrometry.ecsv", description=
     t = table["time"]
     out["time"] = Time(getattr(t, t.scale).isot, format="isot", scale=t.scale)
     out["body"] = table["body"]
-    for col in ("east", "north", "east_err", "north_err"):
+    for col in ("east", "north", "east_err", "north_err", "rv", "rv_err"):
+        if col not in table.colnames:
+            continue
         values = table[col]
         if values.unit.physical_type == "angle":
             values = values.to(u.mas)
         out[col] = values
-        out[col].info.format = ".4f"
+        out[col].info.format = ".6f" if col.startswith("rv") else ".4f"
     for col in table.colnames:
         if col not in out.colnames:
             out[col] = table[col]
@@ -146,5 +212,6 @@ def write_scenario(folder, table, truth, *, name="astrometry.ecsv", description=
         out["distance"].info.format = ".7f"
     out.meta["description"] = description
     out.write(folder / name, format="ascii.ecsv", overwrite=True)
-    with open(folder / "truth.json", "w") as handle:
-        json.dump(truth, handle, indent=2)
+    if truth is not None:
+        with open(folder / "truth.json", "w") as handle:
+            json.dump(truth, handle, indent=2)

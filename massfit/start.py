@@ -25,8 +25,8 @@ from astropy.timeseries import LombScargle
 from scipy.optimize import least_squares
 
 from . import kepler
-from .constants import GM_SUN
-from .model import OrbitModel, SystemSpec
+from .constants import GM_SUN, KM_S_PER_AU_DAY
+from .model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel, SystemSpec
 from .priors import Fixed, Normal
 
 __all__ = ["Start", "find_start"]
@@ -103,6 +103,8 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     -------
     Start
     """
+    if model.velocity_only:
+        return _velocity_only_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best = {name: modes[0] for name, modes in singles.items()}
     joint = _joint_fit(model, best)
@@ -142,7 +144,8 @@ def _single_companion_modes(model, name):
     sub = _sub_model(model, name)
     t, east, north, sig_e, sig_n = _offsets_au(sub, name)
     candidates = []
-    for period in _candidate_periods(t, east, north, sig_e, sig_n, model.companions[name]):
+    series = [(east, sig_e), (north, sig_n)]
+    for period in _candidate_periods(t, series, model.companions[name]):
         candidates.extend(_linear_scan(t, east, north, sig_e, sig_n, period))
     candidates.sort(key=lambda c: c[0])
     solutions = []
@@ -168,6 +171,10 @@ def _sub_model(model, name):
     if parallax is not None and not parallax.is_fixed:
         parallax = Fixed(_parallax_guess(parallax))
     comp = model.companions[name]
+    if not comp.mass.is_fixed and model.primary_has_velocities:
+        # Astrometry alone cannot part the companion's mass from the central one;
+        # the joint step sets it from the primary's reflex.
+        comp = replace(comp, mass=Fixed(0.0))
     sub_spec = replace(spec, parallax=parallax, companions={name: comp})
     return OrbitModel(sub_obs, sub_spec)
 
@@ -201,7 +208,11 @@ def _offsets_au(sub, name):
     return rows.t, east / scale, north / scale, sig_e / scale, sig_n / scale
 
 
-def _candidate_periods(t, east, north, sig_e, sig_n, comp):
+def _candidate_periods(t, series, comp):
+    """Periods worth a closer look: periodogram peaks of the series, and long ones.
+
+    ``series`` is a list of (values, errors) sampled at the times ``t``.
+    """
     span = float(np.ptp(t))
     low_p, high_p = comp.period.low, comp.period.high
     if comp.period.is_fixed:
@@ -219,8 +230,7 @@ def _candidate_periods(t, east, north, sig_e, sig_n, comp):
         freq = np.linspace(f_min, f_max, n_freq)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            power = (LombScargle(t, east, sig_e).power(freq)
-                     + LombScargle(t, north, sig_n).power(freq))
+            power = sum(LombScargle(t, values, sig).power(freq) for values, sig in series)
         peaks = np.flatnonzero((power[1:-1] > power[:-2]) & (power[1:-1] >= power[2:])) + 1
         peaks = peaks[np.argsort(power[peaks])[::-1]][:_MAX_PEAKS]
         for k in peaks:
@@ -378,18 +388,27 @@ def _centre_guess(model, values):
     theta = np.zeros(model.n_dim)
     for name in model.companions:
         orbit = values[name]
-        theta[model._index[f"{name}.node"]] = orbit["node"]
+        if not model.velocity_only:
+            theta[model._index[f"{name}.node"]] = orbit["node"]
         theta[model._index[f"{name}.phase"]] = orbit["mean_anomaly_ref"] + orbit["omega"]
     return theta
 
 
 def _values_from_theta(model, theta):
     phys = model.physical(theta[None, :], lenient=True)
-    values = {"central_mass": float(phys["central_mass"][0]),
+    values = {"central_mass": None if phys["central_mass"] is None
+              else float(phys["central_mass"][0]),
               "parallax": None if phys["parallax"] is None else float(phys["parallax"][0])}
     for name in model.companions:
         values[name] = _orbit_dict(phys, name)
         values[name]["ecc"] = min(values[name]["ecc"], 0.98)
+    if "rv" in phys:
+        rv = phys["rv"]
+        labels = model._vel.labels
+        values["rv"] = {"offset": dict(zip(labels, rv["offset"][0])),
+                        "jitter": dict(zip(labels, rv["jitter"][0])),
+                        "slope": float(rv["slope"][0]),
+                        "curvature": float(rv["curvature"][0])}
     return values
 
 
@@ -405,6 +424,8 @@ def _joint_polish(model, chosen):
         values["parallax"] = _parallax_guess(model.spec.parallax)
     for name, sol in chosen.items():
         values[name] = dict(sol["orbit"])
+    if model._vel is not None:
+        values = _with_velocities(model, values)
     theta = _least_squares(model, values, rounds=3)
     if theta is None:
         return None, np.inf, None
@@ -440,3 +461,236 @@ def _covariance(model, theta):
     except np.linalg.LinAlgError:
         cov = np.diag(np.full(theta.size, 1e-6))
     return 0.5 * (cov + cov.T)
+
+
+# ------------------------------------------------------------ radial velocities
+def _velocity_fit(model, bases):
+    """Weighted linear least squares of the velocities on given time functions.
+
+    ``bases`` maps each companion to a list of functions of time (arrays over all
+    velocity rows). Each function enters with a free amplitude on the primary's rows
+    (with the reflex's minus sign) and another on the companion's own rows; the
+    instrument offsets and trend terms are free too. Returns (chi2, coefficients,
+    fitted velocities); coefficients are keyed ("offset", label), ("slope", None),
+    ("curvature", None) and (name, "primary" or "own", index of the function).
+    """
+    vel = model._vel
+    sigma = np.sqrt(vel.err2)
+    cols, keys = [], []
+    for j, label in enumerate(vel.labels):
+        cols.append((vel.instrument == j).astype(float))
+        keys.append(("offset", label))
+    dt = vel.t - vel.t_trend
+    for term, power in (("slope", 1), ("curvature", 2)):
+        if model._trend_has(term):
+            cols.append(dt ** power)
+            keys.append((term, None))
+    primary = vel.owner < 0
+    for k, (name, funcs) in enumerate(bases.items()):
+        own = vel.owner == k
+        for b, func in enumerate(funcs):
+            if np.any(primary):
+                cols.append(-func * primary)
+                keys.append((name, "primary", b))
+            if np.any(own):
+                cols.append(func * own)
+                keys.append((name, "own", b))
+    design = np.column_stack(cols)
+    coef, *_ = np.linalg.lstsq(design / sigma[:, None], vel.rv / sigma, rcond=None)
+    fitted = design @ coef
+    chi2 = float(np.sum(((vel.rv - fitted) / sigma) ** 2))
+    return chi2, dict(zip(keys, coef)), fitted
+
+
+def _inside(prior, value):
+    """``value`` moved just inside the support of ``prior``."""
+    if prior.is_fixed:
+        return prior.value
+    low, high = prior.low, prior.high
+    width = high - low if np.isfinite(high - low) else max(abs(value), 1.0)
+    return float(np.clip(value, low + 1e-3 * width, high - 1e-3 * width))
+
+
+def _velocity_nuisance(model, coef, fitted):
+    """Starting offsets, trend and jitters from a linear fit."""
+    vel = model._vel
+    rv = {"offset": {}, "jitter": {}, "slope": coef.get(("slope", None), 0.0),
+          "curvature": coef.get(("curvature", None), 0.0)}
+    for j, label in enumerate(vel.labels):
+        rows = vel.instrument == j
+        excess = np.mean((vel.rv[rows] - fitted[rows]) ** 2) - np.mean(vel.err2[rows])
+        guess = max(np.sqrt(max(excess, 0.0)), 0.1 * np.sqrt(np.median(vel.err2[rows])))
+        rv["jitter"][label] = _inside(vel.jitters[j], guess)
+        offset = coef[("offset", label)]
+        rv["offset"][label] = offset if vel.offsets[j] is None else _inside(vel.offsets[j],
+                                                                            offset)
+    return rv
+
+
+def _one(orbit):
+    return {key: np.atleast_1d(np.asarray(value, dtype=float)) for key, value in orbit.items()
+            if np.isscalar(value) or np.ndim(value) == 0}
+
+
+def _velocity_only_start(model):
+    """Companion by companion: periodogram, linear scan over (P, e, phase), polish."""
+    names = list(model.companions)
+    found = {}
+    for count, name in enumerate(names):
+        sub = model if len(names) == 1 else _velocity_sub_model(model, names[:count + 1])
+        solutions = _velocity_candidates(sub, name, found)
+        if not solutions:
+            raise RuntimeError(f"no starting orbit found for '{name}'")
+        best = solutions[0]
+        found = {n: best["values"][n] for n in names[:count + 1]}
+    theta, chi2 = best["theta"], best["chi2"]
+    model.recentre(theta)
+    modes = []
+    for alt in solutions[1:3]:
+        delta = alt["chi2"] - chi2
+        if delta < COMPARABLE_DELTA_CHI2:
+            modes.append({"body": names[-1], "period": alt["period"], "central_mass": None,
+                          "delta_chi2": float(delta), "best_period": best["period"]})
+    per = {name: {"period": float(found[name]["period"]), "central_mass": None,
+                  "chi2": chi2} for name in names}
+    return Start(theta=theta, chi2=chi2, covariance=_covariance(model, theta), modes=modes,
+                 per_companion=per)
+
+
+def _velocity_sub_model(model, names):
+    obs = model.observations
+    vel = obs.velocities
+    keep = (vel.body == obs.primary) | np.isin(vel.body, names)
+    sub_obs = replace(obs, velocities=vel.select(keep))
+    sub_spec = replace(model.spec, companions={n: model.companions[n] for n in names},
+                       strict_companions=True)
+    return OrbitModel(sub_obs, sub_spec)
+
+
+def _velocity_candidates(sub, name, found):
+    """Polished solutions for ``name`` with the companions in ``found`` kept in."""
+    vel = sub._vel
+    fixed = {n: [sub._velocity_shape(n, _one(orbit))[0]] for n, orbit in found.items()}
+    _, coef, fitted = _velocity_fit(sub, fixed)
+    rows = vel.owner < 0 if np.any(vel.owner < 0) else vel.owner == list(sub.companions).index(name)
+    series = [((vel.rv - fitted)[rows], np.sqrt(vel.err2[rows]))]
+    t = vel.t - sub.reference_epoch(name)
+    comp = sub.companions[name]
+    candidates = []
+    for period in _candidate_periods(t[rows], series, comp):
+        for ecc in _ECC_GRID:
+            if comp.eccentricity.is_fixed:
+                ecc = comp.eccentricity.value
+            for m0 in np.linspace(0.0, 2 * np.pi, _PHASE_GRID, endpoint=False):
+                nu = kepler.true_anomaly(kepler.solve_kepler(m0 + 2 * np.pi * t / period,
+                                                             ecc), ecc)
+                bases = dict(fixed, **{name: [np.cos(nu), np.sin(nu)]})
+                chi2, coef, fitted = _velocity_fit(sub, bases)
+                candidates.append((chi2, period, ecc, m0, coef, fitted))
+    candidates.sort(key=lambda c: c[0])
+    solutions = []
+    for chi2, period, ecc, m0, coef, fitted in candidates[:_POLISH * 3]:
+        if len(solutions) >= _POLISH:
+            break
+        values = {"central_mass": None, "parallax": None,
+                  "rv": _velocity_nuisance(sub, coef, fitted)}
+        values.update({n: dict(orbit) for n, orbit in found.items()})
+        for n in found:
+            for kind in ("primary", "own"):
+                if (n, kind, 0) in coef:
+                    values[n][f"k_{'primary' if kind == 'primary' else 'companion'}"] = \
+                        _inside(sub.companions[n].semi_amplitude
+                                or DEFAULT_SEMI_AMPLITUDE_PRIOR, abs(coef[(n, kind, 0)]))
+        values[name] = _scan_orbit(sub, name, coef, period, ecc, m0)
+        theta = _least_squares(sub, values)
+        if theta is None:
+            continue
+        phys = sub.physical(theta)
+        solutions.append({"chi2": _chi2(sub, theta), "theta": theta,
+                          "period": float(phys["companions"][name]["period"][0]),
+                          "values": _values_from_theta(sub, theta)})
+    solutions.sort(key=lambda s: s["chi2"])
+    return _distinct(solutions)
+
+
+def _scan_orbit(sub, name, coef, period, ecc, m0):
+    """Elements of a scanned orbit from its cos(nu), sin(nu) amplitudes."""
+    prior = sub.companions[name].semi_amplitude or DEFAULT_SEMI_AMPLITUDE_PRIOR
+    orbit = {"period": period, "ecc": max(ecc, 1e-3), "mean_anomaly_ref": m0}
+    best = 0.0
+    for kind, key in (("primary", "k_primary"), ("own", "k_companion")):
+        if (name, kind, 0) not in coef:
+            continue
+        # -K1 f on the primary's rows, +K2 f on the companion's: the same omega.
+        c_a, c_b = coef[(name, kind, 0)], coef[(name, kind, 1)]
+        amplitude = float(np.hypot(c_a, c_b))
+        orbit[key] = _inside(prior, amplitude)
+        if amplitude >= best:
+            best = amplitude
+            orbit["omega"] = float(np.arctan2(-c_b, c_a))
+    return orbit
+
+
+def _with_velocities(model, values):
+    """Joint start: signs, distance and reflex masses from the velocities' amplitudes.
+
+    Astrometry leaves (omega, node) and (omega + pi, node + pi) alike; the sign of
+    each companion's velocity amplitude picks one. A companion's own amplitude sets
+    the length scale (so the parallax) where the parallax is free, and the primary's
+    reflex sets each companion's mass.
+    """
+    vel = model._vel
+    values = dict(values)
+    shapes = {n: [model._velocity_shape(n, _one(values[n]))[0]] for n in model.companions}
+    _, coef, fitted = _velocity_fit(model, shapes)
+    amplitude = {}
+    for k, name in enumerate(model.companions):
+        orbit = dict(values[name])
+        c1 = coef.get((name, "primary", 0), 0.0)
+        c2 = coef.get((name, "own", 0), 0.0)
+        if (c2 < 0) if np.any(vel.owner == k) else (c1 < 0):
+            orbit["omega"] += np.pi
+            orbit["node"] += np.pi
+        amplitude[name] = (abs(c1), abs(c2))
+        values[name] = orbit
+    if model.parallax_from_velocities:
+        _scale_from_velocities(model, values, amplitude)
+    for name, (k1, _) in amplitude.items():
+        comp = model.companions[name]
+        if comp.mass.is_fixed or not model.primary_has_velocities:
+            continue
+        orbit = values[name]
+        total = values["central_mass"] + orbit.get("mass", 0.0)
+        k_rel = _relative_amplitude(orbit, total)
+        share = float(np.clip(k1 / k_rel, 1e-9, 0.9)) if k_rel > 0 else 1e-6
+        orbit["mass"] = _inside(comp.mass, share * total)
+        values["central_mass"] = max(total - orbit["mass"], 1e-30)
+    values["rv"] = _velocity_nuisance(model, coef, fitted)
+    return values
+
+
+def _relative_amplitude(orbit, total_mass):
+    """K of the relative orbit (km/s) from its elements and total mass (M_sun)."""
+    a = np.cbrt(GM_SUN * total_mass * orbit["period"] ** 2 / (4 * np.pi ** 2))
+    return float(KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
+        a, orbit["period"], orbit["ecc"], orbit["inc"]))
+
+
+def _scale_from_velocities(model, values, amplitude):
+    """Rescale lengths (parallax and masses) so a companion's own K is matched."""
+    vel = model._vel
+    for k, name in enumerate(model.companions):
+        k1, k2 = amplitude[name]
+        if not np.any(vel.owner == k) or k2 <= 0:
+            continue
+        orbit = values[name]
+        total = values["central_mass"] + orbit.get("mass", 0.0)
+        k_now = _relative_amplitude(orbit, total)
+        k_seen = k1 + k2 if model.primary_has_velocities else k2
+        ratio = k_seen / k_now  # lengths scale as K, masses as K^3, parallax as 1/K
+        values["parallax"] = _inside(model.spec.parallax, values["parallax"] / ratio)
+        values["central_mass"] *= ratio ** 3
+        for other in model.companions:
+            if "mass" in values[other]:
+                values[other]["mass"] *= ratio ** 3
+        return

@@ -156,6 +156,8 @@ def _pick_mass_unit(summary, mass_unit):
         return mass_unit
     from .results import best_mass_unit
 
+    if summary["central_mass_solar"] is None:  # velocities alone: not determined
+        return "Msun"
     return best_mass_unit(summary["central_mass_solar"]["median"] or 1.0)
 
 
@@ -179,7 +181,9 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
                  r"$\mathrm{km^{3}\,s^{-2}}$", "km3 / s2", summary["central_gm"]),
             _Row("", "central_mass", "central mass", r"M", "kg", "kg",
                  summary["central_mass"])]
-    if unit != "kg":
+    if summary["central_gm"] is None:  # not fixed by the data (velocities alone)
+        rows = []
+    elif unit != "kg":
         rows.append(_Row("", _MASS_KEYS[unit], "central mass", r"M",
                          rf"${MASS_UNIT_LABELS[unit]}$", _MASS_TEXT[unit],
                          summary[_MASS_KEYS[unit]]))
@@ -194,7 +198,18 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
             ("periapsis_argument", "argument of periapsis", r"\omega", r"$^\circ$", "deg"),
             ("ascending_node", "position angle of the node", r"\Omega", r"$^\circ$", "deg"),
             ("periapsis_time", "time of periapsis", r"t_\mathrm{p}", "JD (TDB)", "JD (TDB)"),
-            ("mass", "companion mass", r"m", r"$M_\odot$", "M_sun")]
+            ("mass", "companion mass", r"m", r"$M_\odot$", "M_sun"),
+            ("rv_semi_amplitude", "velocity semi-amplitude of the primary", r"K_1",
+             r"$\mathrm{km\,s^{-1}}$", "km / s"),
+            ("rv_semi_amplitude_companion", "velocity semi-amplitude of the companion",
+             r"K_2", r"$\mathrm{km\,s^{-1}}$", "km / s"),
+            ("mass_function", "mass function", r"f(m)", r"$M_\odot$", "M_sun"),
+            ("minimum_mass", "minimum mass (i = 90 deg)", r"m_\mathrm{min}", r"$M_\odot$",
+             "M_sun"),
+            ("mass_sin3i", "companion mass times sin^3 i", r"m \sin^3 i", r"$M_\odot$",
+             "M_sun"),
+            ("primary_mass_sin3i", "primary mass times sin^3 i", r"M \sin^3 i",
+             r"$M_\odot$", "M_sun")]
     for name, comp in summary["companions"].items():
         for key, words, symbol, unit_latex, unit_text in spec:
             if key in comp:
