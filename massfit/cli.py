@@ -26,7 +26,8 @@ def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="massfit",
         description="Measure the mass of a central body from the orbits of its "
-                    "companions (relative astrometry), sampled with emcee.",
+                    "companions (relative astrometry and radial velocities), sampled "
+                    "with emcee.",
         epilog="Exit status: 0 converged, 2 bad input or option, 3 not converged.")
     from . import __version__
 
@@ -55,6 +56,11 @@ def _parser() -> argparse.ArgumentParser:
                      "e.g. 'east=mas,north=mas,east_err=mas,north_err=mas'")
     fit.add_argument("--skip-bad-rows", action="store_true", help="reject unusable rows "
                      "(listed in summary.json) instead of stopping at the first")
+    fit.add_argument("--primary", metavar="NAME", help="the body name of the primary's own "
+                     "radial velocities (default: primary)")
+    fit.add_argument("--trend", choices=("none", "linear", "quadratic"),
+                     help="a polynomial trend in every radial velocity (an unseen outer "
+                          "body)")
     _sampler_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
     fit.add_argument("--force", action="store_true", help="replace an existing result")
@@ -155,6 +161,11 @@ def _setup_from_args(args):
         options["units"] = _units_option(args.units)
     if args.skip_bad_rows:
         options["skip_bad_rows"] = True
+    if args.primary:
+        options["primary"] = args.primary
+        setup.system.primary = args.primary
+    if args.trend:
+        setup.system.trend = args.trend
     if args.out:
         setup.output = Path(args.out)
     if setup.output is None:

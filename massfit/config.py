@@ -23,6 +23,17 @@ Layout (every key optional except ``data.files``)::
     inclination_prior = {kind = "normal", mean = "88 deg", sd = "1 deg"}
     mass = "1e-4 Msun"                # a fixed companion mass, or
     mass_prior = {kind = "normal", mean = "1e-4 Msun", sd = "2e-5 Msun"}
+    semi_amplitude_prior = {kind = "uniform", low = "0 m/s", high = "500 m/s"}  # RV only
+
+    [velocities]                      # radial velocities (any table with an rv column)
+    trend = "linear"                  # "none" (default), "linear" or "quadratic"
+    slope_prior = {kind = "normal", mean = "0 m / (s d)", sd = "1 m / (s d)"}  # default flat
+    curvature_prior = {kind = "normal", mean = "0 m / (s d2)", sd = "0.01 m / (s d2)"}
+    jitter_prior = {kind = "log-uniform", low = "0.1 m/s", high = "100 m/s"}
+
+    [velocities.instruments.Halden]   # one instrument label of the velocity files
+    offset_prior = {kind = "normal", mean = "-12.4 km/s", sd = "1 km/s"}  # default flat
+    jitter_prior = {kind = "fixed", value = "0 m/s"}
 
     [sampler]
     walkers = 64
@@ -61,11 +72,16 @@ _SCHEMA = {
     "system": {"primary": str, "parallax": str, "parallax_err": str, "distance": str,
                "light_time": bool, "central_mass_prior": dict},
     "companions": dict,
+    "velocities": {"trend": str, "slope_prior": dict, "curvature_prior": dict,
+                   "jitter_prior": dict, "instruments": dict},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
     "output": {"folder": str, "plots": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,
-                   "inclination_prior": dict, "mass": str, "mass_prior": dict}
+                   "inclination_prior": dict, "mass": str, "mass_prior": dict,
+                   "semi_amplitude_prior": dict}
+_INSTRUMENT_KEYS = {"offset_prior": dict, "jitter_prior": dict}
+_KM_S = u.km / u.s
 
 
 @dataclass
@@ -138,6 +154,7 @@ def _parse(raw, base, file):
             raise ConfigError("a unit is a string such as \"mas\"",
                               key=f"data.units.{col}", file=file)
     system = _system(raw.get("system", {}), raw.get("companions"), file)
+    _velocities(system, raw.get("velocities", {}), file)
     read_options["primary"] = system.primary
     sampler = SamplerSettings(**raw.get("sampler", {}))
     out = raw.get("output", {})
@@ -190,6 +207,46 @@ def _system(table, companions, file):
     return spec
 
 
+def _velocities(system, table, file):
+    from .model import TRENDS, InstrumentSpec
+
+    trend = table.get("trend", "none")
+    if trend not in TRENDS:
+        raise ConfigError(f"unknown trend {trend!r}; accepted: {', '.join(TRENDS)}",
+                          key="velocities.trend", file=file)
+    system.trend = trend
+    for term, unit in (("slope", _KM_S / u.day), ("curvature", _KM_S / u.day ** 2)):
+        key = f"{term}_prior"
+        if key in table:
+            if term == "curvature" and trend != "quadratic" or trend == "none":
+                raise ConfigError(f"a {term} prior needs trend = \"quadratic\""
+                                  if term == "curvature" else
+                                  "a slope prior needs trend = \"linear\" or "
+                                  "\"quadratic\"", key=f"velocities.{key}", file=file)
+            setattr(system, term, prior_from_spec(table[key], unit=unit,
+                                                  key=f"velocities.{key}", file=file))
+    if "jitter_prior" in table:
+        system.jitter = _jitter_prior(table["jitter_prior"], "velocities.jitter_prior", file)
+    for label, body in table.get("instruments", {}).items():
+        key = f"velocities.instruments.{label}"
+        _check_keys(body, _INSTRUMENT_KEYS, f"{key}.", file)
+        spec = InstrumentSpec()
+        if "offset_prior" in body:
+            spec.offset = prior_from_spec(body["offset_prior"], unit=_KM_S,
+                                          key=f"{key}.offset_prior", file=file)
+        if "jitter_prior" in body:
+            spec.jitter = _jitter_prior(body["jitter_prior"], f"{key}.jitter_prior", file)
+        system.instruments[label] = spec
+
+
+def _jitter_prior(spec, key, file):
+    prior = prior_from_spec(spec, unit=_KM_S, key=key, file=file)
+    low = prior.value if prior.is_fixed else prior.low
+    if low < 0:
+        raise ConfigError("a jitter cannot be negative", key=key, file=file)
+    return prior
+
+
 def _mass_prior(spec, key, file):
     return prior_from_spec(spec, unit=u.M_sun, key=key, file=file)
 
@@ -218,6 +275,14 @@ def _companion(name, body, file):
                                     key=f"{key}.mass", file=file)
     if "mass_prior" in body:
         comp.mass = _mass_prior(body["mass_prior"], f"{key}.mass_prior", file)
+    if "semi_amplitude_prior" in body:
+        comp.semi_amplitude = prior_from_spec(body["semi_amplitude_prior"], unit=_KM_S,
+                                              key=f"{key}.semi_amplitude_prior", file=file)
+        low = comp.semi_amplitude.value if comp.semi_amplitude.is_fixed else \
+            comp.semi_amplitude.low
+        if low < 0:
+            raise ConfigError("a semi-amplitude cannot be negative",
+                              key=f"{key}.semi_amplitude_prior", file=file)
     if isinstance(comp.mass, Fixed) and comp.mass.value < 0:
         raise ConfigError("a mass cannot be negative", key=f"{key}.mass", file=file)
     return comp

@@ -106,7 +106,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     rng = np.random.default_rng(settings.seed)
     initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
     chain = run_sampler(model.log_prob, initial, settings)
-    warnings = _warnings(chain, start)
+    warnings = _warnings(chain, start) + _velocity_warnings(model)
     run_record = {"started_utc": started.isoformat(),
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
                   "seed": settings.seed, "python": sys.version.split()[0]}
@@ -125,6 +125,16 @@ def _check_settings(settings):
     if not isinstance(settings.check_every, int) or settings.check_every < 50:
         raise ConfigError("check_every must be a whole number of at least 50",
                           key="check_every")
+
+
+def _velocity_warnings(model):
+    out = []
+    if model.velocity_only and not model.primary_has_velocities:
+        names = ", ".join(f"'{n}'" for n in model.companions)
+        out.append(f"no radial velocities of the primary '{model.observations.primary}': "
+                   f"the rows of {names} are read as a companion's own velocities; if "
+                   f"one of them is the primary, name it (system.primary or --primary)")
+    return out
 
 
 def _warnings(chain, start):
