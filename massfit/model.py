@@ -760,9 +760,15 @@ class OrbitModel:
         t = self._vel.t if t is None else t
         mean = column["mean_anomaly_ref"] + TWO_PI * (
             t[None, :] - self.reference_epoch(name)) / column["period"]
+        ecc = column["ecc"]
         with np.errstate(invalid="ignore"):
-            nu = kepler.true_anomaly(kepler.solve_kepler(mean, column["ecc"]), column["ecc"])
-        return np.cos(nu + column["omega"]) + column["ecc"] * np.cos(column["omega"])
+            _, cos_e, sin_e = kepler.kepler_cs(mean, ecc)
+            # cos nu and sin nu straight from E: no arctan, no further trigonometry.
+            denominator = 1.0 - ecc * cos_e
+            cos_nu = (cos_e - ecc) / denominator
+            sin_nu = np.sqrt(1.0 - ecc * ecc) * sin_e / denominator
+        cos_w, sin_w = np.cos(column["omega"]), np.sin(column["omega"])
+        return cos_w * (cos_nu + ecc) - sin_w * sin_nu
 
     def _velocity_residuals(self, phys):
         vel = self._vel
