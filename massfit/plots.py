@@ -701,13 +701,19 @@ def applicable_figures(result) -> list:
             and not (stem == "rv" and not model.has_velocities)]
 
 
-def velocity_plot(result, *, figsize=None):
+def velocity_plot(result, *, width=None):
     """Radial velocities against orbital phase, one column per companion.
 
     Each column shows the velocities with everything but that companion's signal
     (instrument offsets, trend, the other companions) taken off, the best model's
     curves for the primary and the companion, and below them the residuals of the
     full model. Error bars include the fitted jitter. Phase 0 is periapsis.
+
+    Parameters
+    ----------
+    result : FitResult
+    width : float, optional
+        Figure width in inches; one journal column per companion up to the page width.
 
     Returns
     -------
@@ -723,9 +729,18 @@ def velocity_plot(result, *, figsize=None):
     parts = model.velocity_parts(phys)
     sigma = np.sqrt(vel.err2 + phys["rv"]["jitter"][0, vel.instrument] ** 2)
     residual = vel.rv - parts["total"][0]
-    fig, axes = plt.subplots(2, len(names), figsize=figsize or (4.2 * len(names), 4.6),
-                             squeeze=False, sharex="col", constrained_layout=True,
-                             gridspec_kw={"height_ratios": [3, 1]})
+    if width is None:
+        width = min(COLUMN_WIDTH * len(names), PAGE_WIDTH)
+    with style():
+        fig, axes = plt.subplots(2, len(names), figsize=(width, 0.95 * COLUMN_WIDTH + 0.4),
+                                 squeeze=False, sharex="col", constrained_layout=True,
+                                 gridspec_kw={"height_ratios": [3, 1]})
+        _draw_velocities(axes, model, names, phys, parts, sigma, residual)
+    return fig
+
+
+def _draw_velocities(axes, model, names, phys, parts, sigma, residual):
+    vel = model._vel
     markers = {-1: "o"}
     for k, name in enumerate(names):
         top, bottom = axes[0, k], axes[1, k]
@@ -740,7 +755,7 @@ def velocity_plot(result, *, figsize=None):
                 if not np.any(rows):
                     continue
                 tag = f"{body}, {label}" if len(vel.labels) > 1 else body
-                kw = dict(fmt=markers.get(owner, "s"), ms=3, lw=0.7, color=f"C{j}",
+                kw = dict(fmt=markers.get(owner, "s"), ms=2.5, lw=0.6, color=f"C{j}",
                           mfc="white" if owner >= 0 else f"C{j}")
                 top.errorbar(phase[rows], own_signal[rows], sigma[rows], label=tag, **kw)
                 bottom.errorbar(phase[rows], residual[rows], sigma[rows], **kw)
@@ -753,13 +768,12 @@ def velocity_plot(result, *, figsize=None):
             top.plot(grid, orbit["k_companion"] * curve, color="k", lw=1.0, ls="--",
                      label=f"model, {name}")
         bottom.axhline(0.0, color="k", lw=0.8)
-        top.set_title(f"{name}: P = {orbit['period']:.6g} d", fontsize=10)
+        top.set_title(f"{name}: P = {orbit['period']:.6g} d")
         top.set_ylabel("radial velocity [km/s]")
         bottom.set_ylabel("O - C [km/s]")
         bottom.set_xlabel("orbital phase (0 = periapsis)")
         bottom.set_xlim(0.0, 1.0)
-        top.legend(fontsize=7, loc="best")
-    return fig
+        top.legend(loc="best")
 
 
 def _orbital_phase(model, name, orbit, t):
