@@ -16,6 +16,7 @@ from importlib import metadata as _metadata
 from .config import load_config
 from .errors import ConfigError, InputError, MassfitError, ModelError
 from .model import CompanionSpec, SystemSpec
+from .plan import AssumedSystem, Schedule, forecast_precision, plan_observations
 from .priors import Fixed, LogUniform, Normal, Uniform
 from .read import read_observations
 from .results import FitResult
@@ -31,4 +32,5 @@ __all__ = [
     "read_observations", "fit", "load_config", "FitResult", "SystemSpec",
     "CompanionSpec", "SamplerSettings", "Uniform", "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
+    "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",
 ]

@@ -113,6 +113,12 @@ class FitSetup:
 def load_config(path) -> FitSetup:
     """Read and check a TOML config; paths in it are relative to the file."""
     path = Path(path)
+    return parse_config(read_toml(path), base=path.parent, file=str(path))
+
+
+def read_toml(path) -> dict:
+    """The TOML file at ``path`` as a dict; a ConfigError naming the file if unreadable."""
+    path = Path(path)
     try:
         text = path.read_bytes()
     except OSError as exc:
@@ -123,7 +129,7 @@ def load_config(path) -> FitSetup:
         raise ConfigError("the config is not UTF-8 text", file=path) from None
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML: {exc}", file=path) from None
-    return parse_config(raw, base=path.parent, file=str(path))
+    return raw
 
 
 def parse_config(raw: dict, *, base=".", file=None) -> FitSetup:
