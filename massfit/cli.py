@@ -122,6 +122,8 @@ def _plan_parser(sub):
     plan.add_argument("--error", metavar="'VALUE UNIT'", help="expected 1-sigma error of "
                       "each of east and north, e.g. '0.5 mas' (for the range, or a file "
                       "without an error column)")
+    plan.add_argument("--error-unit", metavar="UNIT", help="unit of a plain CSV's error "
+                      "column, e.g. 'mas'")
     plan.add_argument("--observed", metavar="FILE", help="epochs already in hand (an "
                       "assumed system only)")
     plan.add_argument("--next", type=int, metavar="N", dest="n_next",
@@ -283,7 +285,8 @@ def _cmd_plan(args):
     from .planconfig import plan_setup
 
     options = {k: getattr(args, k) for k in (
-        "candidates", "start", "stop", "every", "error", "observed", "n_next", "check",
+        "candidates", "start", "stop", "every", "error", "error_unit", "observed", "n_next",
+        "check",
         "check_steps", "seed", "time_format", "time_scale", "out")}
     setup = plan_setup(args.source, **options)
     out = Path(setup.output)

@@ -88,18 +88,32 @@ class AssumedSystem:
         """Central mass in nominal solar masses."""
         return _to_msun(self.central_mass, "assumed.central_mass")
 
-    def spec(self) -> SystemSpec:
-        """The model's assumptions: default priors, the parallax, fixed companion masses."""
+    def spec(self, *, measured_parallax=None) -> SystemSpec:
+        """The model's assumptions: default priors, the parallax, fixed companion masses.
+
+        ``measured_parallax`` (mas) replaces the centre of the parallax's Gaussian
+        prior: a simulated fit draws it about the true value, as a real measurement
+        of the parallax would scatter.
+        """
         from .model import CompanionSpec
 
         plx = None
         if self.parallax is not None:
             value = float(self.parallax.to_value(u.mas))
+            if measured_parallax is not None and self.parallax_err is not None:
+                value = float(measured_parallax)
             plx = (Fixed(value) if self.parallax_err is None else
                    Normal(value, float(self.parallax_err.to_value(u.mas)), low=0.0))
         comps = {name: CompanionSpec(name, mass=Fixed(self._companion_mass(name)))
                  for name in self.companions}
         return SystemSpec(parallax=plx, companions=comps, strict_companions=True)
+
+    def draw_parallax(self, rng) -> float | None:
+        """A simulated measurement of the parallax (mas), or None where it is fixed."""
+        if self.parallax is None or self.parallax_err is None:
+            return None
+        return float(rng.normal(self.parallax.to_value(u.mas),
+                                self.parallax_err.to_value(u.mas)))
 
     def _companion_mass(self, name) -> float:
         mass = self.companions[name].get("mass")
@@ -266,7 +280,8 @@ class Schedule:
         """The epochs at ``index`` (in that order)."""
         index = np.asarray(index, dtype=int)
         return Schedule(self.time[index], self.error[index],
-                        bodies=None if self.bodies is None else [self.bodies[k] for k in index],
+                        bodies=(None if self.bodies is None
+                                else [self.bodies[k] for k in index]),
                         distance=None if self.distance is None else self.distance[index],
                         source=self.source, lines=self.lines[index])
 
@@ -282,7 +297,8 @@ class Schedule:
                               key=other.source)
         bodies = None
         if self.bodies is not None or other.bodies is not None:
-            bodies = (self.bodies or [None] * len(self)) + (other.bodies or [None] * len(other))
+            bodies = ((self.bodies or [None] * len(self))
+                      + (other.bodies or [None] * len(other)))
         distance = None
         if self.distance is not None or other.distance is not None:
             distance = np.concatenate([_distance_pc(s) for s in (self, other)]) * u.pc
@@ -554,7 +570,7 @@ class _FisherInformation:
         self.k_mass = self.model.names.index("central.log10_mass")
         jac = _jacobian(self.model, self.theta)
         epoch, _ = _rows(system.companions, schedule)
-        owner = epoch[_residual_rows(self.model)]
+        owner = epoch[_residual_rows(self.model, jac.shape[0])]
         n_dim = self.model.n_dim
         self.blocks = np.zeros((len(schedule), n_dim, n_dim))
         for k in range(len(schedule)):
@@ -611,29 +627,18 @@ def _jacobian(model, theta):
     return jac.T
 
 
-def _residual_rows(model):
-    """Observation row of each whitened residual column (the model's layout)."""
+def _residual_rows(model, width):
+    """Observation row of each of the ``width`` whitened residual columns."""
     parts = []
     for rows in model._rows.values():
         cart = rows.index[rows.cart]
         polar = rows.index[rows.polar]
         parts.extend([cart, cart, polar, polar])
     owner = np.concatenate(parts)
-    width = model.residuals(model.recentre(model.from_physical(
-        _any_values(model)))[None, :]).shape[1]
     if owner.size != width:
         raise RuntimeError("the model's residual layout is not the one the planner knows "
                            f"({width} residuals for {owner.size} astrometric columns)")
     return owner
-
-
-def _any_values(model):
-    # Any valid point will do to learn the width of the residual vector.
-    values = {"central_mass": 1.0, "parallax": 10.0}
-    for name in model.companions:
-        values[name] = {"period": 10.0, "ecc": 0.1, "omega": 0.0, "inc": 1.0,
-                        "node": 1.0, "mean_anomaly_ref": 0.0, "mass": 0.0}
-    return values
 
 
 def _prior_information(model, theta):
@@ -924,6 +929,10 @@ def _evenly_spaced(times_jd, n):
     return sorted(chosen)
 
 
+_METHOD_TEXT = {"fisher": "Fisher matrix at the assumed elements",
+                "posterior": "linear update of the posterior samples"}
+
+
 @dataclass
 class PlanResult:
     """What the planner found.
@@ -966,7 +975,7 @@ class PlanResult:
         unit = _mass_unit(self.central_mass)
         mass = self.central_mass.to_value(unit)
         lines = [f"Planning for a central mass of {mass:.6g} {unit} "
-                 f"({'Fisher matrix at the assumed elements' if self.method == 'fisher' else 'linear update of the posterior samples'})"]
+                 f"({_METHOD_TEXT[self.method]})"]
         lines.append(f"  now ({self.inputs.get('now', '')}): "
                      f"{_percent(self.current['gm_relative_sigma'])} of GM")
         lines.append(f"  with all {self.all_candidates['epochs'] - self.current['epochs']} "
@@ -994,11 +1003,13 @@ class PlanResult:
             lines.append("")
             lines.append("Check: simulated at the assumed elements and fitted (short chains):")
             for c in self.checks:
-                lines.append(f"  {c['schedule']:<26} forecast {_percent(c['forecast_gm_rel_sigma'])}"
+                lines.append(f"  {c['schedule']:<26} forecast "
+                             f"{_percent(c['forecast_gm_rel_sigma'])}"
                              f", fit {_percent(c['fit_gm_rel_sigma'])} (ratio "
                              f"{c['ratio']:.2f}); true GM "
                              f"{'inside' if c['truth_inside_95'] else 'OUTSIDE'} the 95% "
-                             f"interval; chain {'converged' if c['converged'] else 'NOT converged'}")
+                             f"interval; chain "
+                             f"{'converged' if c['converged'] else 'NOT converged'}")
         lines.append("")
         lines.append(self.paragraph())
         wide = [row["n_epochs"] for row in self.curve
@@ -1037,7 +1048,8 @@ class PlanResult:
                         f"{_percent(best['even_gm_rel_sigma'])} for the same number evenly "
                         f"spaced")
         text.append(f"; all {self.all_candidates['epochs'] - self.current['epochs']} "
-                    f"candidate epochs give {_percent(self.all_candidates['gm_relative_sigma'])}.")
+                    f"candidate epochs give "
+                    f"{_percent(self.all_candidates['gm_relative_sigma'])}.")
         if self.checks:
             ratios = [c["ratio"] for c in self.checks]
             text.append(f" Simulated fits of {len(self.checks)} schedule(s) gave posterior "
@@ -1249,7 +1261,11 @@ def plan_observations(source, candidates: Schedule, *, observed: Schedule | None
         if observed is not None and len(observed):
             raise ConfigError("a fit's posterior already holds its observations; give "
                               "no observed epochs with it", key="--observed")
-        return _plan_posterior(source, candidates, n_next, seed)
+        result = _plan_posterior(source, candidates, n_next, seed)
+        if check:
+            result.notes.append("no simulated check was run: checks need an assumed "
+                                "system (a fit's posterior has no truth to simulate from)")
+        return result
     if not isinstance(source, AssumedSystem):
         raise ConfigError("plan from an AssumedSystem, a Posterior or a fit's output folder",
                           key="source")
@@ -1459,11 +1475,13 @@ def _check_schedule(system, schedule, label, n_added, forecast, steps, seed):
     from .sample import SamplerSettings
 
     obs = simulated_observations(system, schedule, seed=seed)
+    measured = system.draw_parallax(np.random.default_rng([seed, 1]))
+    spec = system.spec(measured_parallax=measured)
     settings = SamplerSettings(max_steps=max(int(steps), 100),
                                check_every=max(50, min(500, int(steps) // 4)),
                                seed=seed, progress=False)
     try:
-        result = fit(obs, system.spec(), sampler=settings)
+        result = fit(obs, spec, sampler=settings)
     except (ModelError, RuntimeError) as exc:
         return {"schedule": label, "n_added": n_added, "forecast_gm_rel_sigma": forecast,
                 "fit_gm_rel_sigma": math.nan, "ratio": math.nan, "truth_inside_95": False,
@@ -1480,3 +1498,37 @@ def _check_schedule(system, schedule, label, n_added, forecast, steps, seed):
             "truth_inside_95": bool(block["lower_95"] <= truth <= block["upper_95"]),
             "converged": result.converged, "steps": int(result.chain.steps),
             "seed": seed}
+
+
+def fit_scatter(system: AssumedSystem, schedule: Schedule, *, realisations: int = 50,
+                seed: int = 0) -> dict:
+    """The frequentist sigma of ln GM: least-squares fits of many simulated noise draws.
+
+    Each draw simulates the schedule at the assumed elements, fits it by least squares
+    (from the assumed elements, so that no period alias is picked up: this measures
+    the precision, not the start search) and keeps the fitted GM.
+
+    Returns
+    -------
+    dict
+        ``gm_relative_sigma`` (sample standard deviation of ln GM), ``its_error``
+        (its own standard error, sigma / sqrt(2 (n - 1))), ``fits`` and ``failed``.
+    """
+    from .start import _least_squares
+
+    masses = []
+    failed = 0
+    for k in range(realisations):
+        spec = system.spec(measured_parallax=system.draw_parallax(
+            np.random.default_rng([seed + k, 1])))
+        model = OrbitModel(simulated_observations(system, schedule, seed=seed + k), spec)
+        theta = _least_squares(model, system.physical(model))
+        if theta is None:
+            failed += 1
+            continue
+        masses.append(float(model.physical(theta)["central_mass"][0]))
+    values = np.log(masses)
+    sigma = float(np.std(values, ddof=1)) if values.size > 2 else math.nan
+    return {"gm_relative_sigma": sigma,
+            "its_error": sigma / math.sqrt(2 * max(values.size - 1, 1)),
+            "fits": int(values.size), "failed": failed}

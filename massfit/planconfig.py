@@ -26,6 +26,7 @@ Layout (``[assumed]`` or ``fit_folder``, and ``[epochs].candidates``, are requir
                 every = "110 d", error = "0.5 mas"}
     candidates = "nights.ecsv"
     error = "0.5 mas"                 # for files without an error column
+    error_unit = "mas"                # for a plain CSV error column
     next = 6                          # how many next epochs to choose
 
     [check]                           # simulate and fit to test the forecast
@@ -57,7 +58,8 @@ _SCHEMA = {
     "time_scale": str, "time_format": str, "fit_folder": str,
     "assumed": {"central_mass": str, "parallax": str, "parallax_err": str,
                 "companions": dict},
-    "epochs": {"observed": object, "candidates": object, "error": str, "next": int},
+    "epochs": {"observed": object, "candidates": object, "error": str, "error_unit": str,
+               "next": int},
     "check": {"schedules": int, "max_steps": int, "seed": int},
     "output": {"folder": str, "plots": bool},
 }
@@ -115,14 +117,15 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
         source = (base / raw["fit_folder"]).resolve()
     epochs = raw.get("epochs", {})
     error = epochs.get("error")
+    unit = epochs.get("error_unit")
     candidates = None
     if "candidates" in epochs:
         candidates = schedule_from_spec(epochs["candidates"], "epochs.candidates", base,
-                                        times, error, file)
+                                        times, error, file, unit)
     observed = None
     if "observed" in epochs:
         observed = schedule_from_spec(epochs["observed"], "epochs.observed", base, times,
-                                      error, file)
+                                      error, file, unit)
     check = raw.get("check", {})
     out = raw.get("output", {})
     return PlanSetup(source=source, candidates=candidates, observed=observed,
@@ -132,13 +135,14 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
                      plots=out.get("plots", True), raw=raw)
 
 
-def schedule_from_spec(spec, key, base, times, error, file=None) -> Schedule:
+def schedule_from_spec(spec, key, base, times, error, file=None,
+                       error_unit=None) -> Schedule:
     """A schedule from a file name or a ``{start, stop, every, error}`` table."""
     if isinstance(spec, str):
         path = Path(spec)
         path = path if path.is_absolute() else Path(base) / path
         return Schedule.read(path, error=error, time_format=times.get("time_format"),
-                             time_scale=times.get("time_scale"))
+                             time_scale=times.get("time_scale"), error_unit=error_unit)
     if not isinstance(spec, dict):
         raise ConfigError("give a schedule file name, or a table {start, stop, every, "
                           "error}", key=key, file=file)
@@ -236,8 +240,8 @@ def _companion(name, body, times, file):
 
 
 def plan_setup(source, *, candidates=None, start=None, stop=None, every=None, error=None,
-               observed=None, n_next=None, check=None, check_steps=None, seed=None,
-               time_format=None, time_scale=None, out=None) -> PlanSetup:
+               error_unit=None, observed=None, n_next=None, check=None, check_steps=None,
+               seed=None, time_format=None, time_scale=None, out=None) -> PlanSetup:
     """The set-up of ``massfit plan``: a config or a fit folder, then the options.
 
     Options given here override the config's ``[epochs]``, ``[check]`` and
@@ -255,12 +259,14 @@ def plan_setup(source, *, candidates=None, start=None, stop=None, every=None, er
     times = {"time_scale": time_scale or setup.raw.get("time_scale"),
              "time_format": time_format or setup.raw.get("time_format")}
     error = error if error is not None else setup.raw.get("epochs", {}).get("error")
+    error_unit = error_unit or setup.raw.get("epochs", {}).get("error_unit")
     ranged = [start, stop, every]
     if candidates is not None and any(v is not None for v in ranged):
         raise ConfigError("give candidate epochs as a file or as a range, not both",
                           key="--candidates")
     if candidates is not None:
-        setup.candidates = schedule_from_spec(candidates, "--candidates", ".", times, error)
+        setup.candidates = schedule_from_spec(candidates, "--candidates", ".", times, error,
+                                              error_unit=error_unit)
     elif any(v is not None for v in ranged):
         if not all(v is not None for v in ranged):
             raise ConfigError("a range of candidate epochs needs --start, --stop and --every",
@@ -273,7 +279,8 @@ def plan_setup(source, *, candidates=None, start=None, stop=None, every=None, er
         raise ConfigError("say which epochs could be observed: --candidates FILE, or "
                           "--start, --stop, --every and --error", key="--candidates")
     if observed is not None:
-        setup.observed = schedule_from_spec(observed, "--observed", ".", times, error)
+        setup.observed = schedule_from_spec(observed, "--observed", ".", times, error,
+                                            error_unit=error_unit)
     for name, value in (("n_next", n_next), ("check", check), ("check_steps", check_steps),
                         ("seed", seed)):
         if value is not None:
