@@ -193,8 +193,7 @@ periapsis_argument = "75 deg"
 ascending_node = "140 deg"
 periapsis_time = "2027-02-01T00:00:00"
 [epochs]
-observed = {start = "2025-01-01T00:00:00", stop = "2026-06-01T00:00:00", every = "90 d",
-            error = "0.4 mas"}
+observed = {start = "2025-01-01", stop = "2026-06-01", every = "90 d", error = "0.4 mas"}
 next = 3
 """
 
