@@ -662,10 +662,10 @@ class OrbitModel:
         """Log prior density of the sampled coordinates, shape (n,)."""
         theta = np.atleast_2d(theta)
         lp = np.zeros(theta.shape[0])
-        for k, param in enumerate(self.parameters):
-            u = theta[:, k]
-            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-                lp += self._log_prior_one(param, u, theta)
+        # One errstate for the whole loop: entering it costs as much as a small prior.
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            for k, param in enumerate(self.parameters):
+                lp += self._log_prior_one(param, theta[:, k], theta)
         return np.where(np.isnan(lp), -np.inf, lp)
 
     def _log_prior_one(self, param, u, theta):
@@ -814,8 +814,10 @@ class OrbitModel:
     def _astrometry_residuals(self, rows, orbit, parallax, name):
         east, north = self._offsets(rows, orbit, parallax, name)
         c, p = rows.cart, rows.polar
-        r_east = (rows.east - east[:, c]) / rows.east_err
-        r_north = ((rows.north - north[:, c]) / rows.north_err
+        # Where every row is east/north, take the arrays as they are (no gather copy).
+        east_c, north_c = (east, north) if p.size == 0 else (east[:, c], north[:, c])
+        r_east = (rows.east - east_c) / rows.east_err
+        r_north = ((rows.north - north_c) / rows.north_err
                    - rows.corr * r_east) * rows.corr_factor
         sep = np.hypot(east[:, p], north[:, p])
         pa = np.arctan2(east[:, p], north[:, p])

@@ -244,25 +244,33 @@ def _candidate_periods(t, series, comp):
 
 
 def _linear_scan(t, east, north, sig_e, sig_n, period):
-    """Grid over (e, periapsis time) with Thiele-Innes constants solved linearly."""
-    out = []
-    for ecc in _ECC_GRID:
-        for m0 in np.linspace(0.0, 2 * np.pi, _PHASE_GRID, endpoint=False):
-            big_e = kepler.solve_kepler(m0 + 2 * np.pi * t / period, ecc)
-            x = np.cos(big_e) - ecc
-            y = np.sqrt(1 - ecc * ecc) * np.sin(big_e)
-            design = np.column_stack([x, y])
-            chi2 = 0.0
-            consts = []
-            for values, sig in ((north, sig_n), (east, sig_e)):
-                w = design / sig[:, None]
-                coef, *_ = np.linalg.lstsq(w, values / sig, rcond=None)
-                chi2 += float(np.sum((w @ coef - values / sig) ** 2))
-                consts.append(coef)
-            (big_a, big_f), (big_b, big_g) = consts
-            out.append((chi2, {"period": period, "ecc": ecc, "m0": m0, "A": big_a,
-                               "B": big_b, "F": big_f, "G": big_g}))
-    return out
+    """Grid over (e, periapsis time) with Thiele-Innes constants solved linearly.
+
+    All grid points at once: one kernel call for every (e, phase) pair, and the
+    2 x 2 weighted normal equations of each solved as a stack (the pseudo-inverse
+    gives lstsq's minimum-norm answer where the design is degenerate).
+    """
+    ecc = np.repeat(np.asarray(_ECC_GRID, dtype=float), _PHASE_GRID)
+    m0 = np.tile(np.linspace(0.0, 2 * np.pi, _PHASE_GRID, endpoint=False), len(_ECC_GRID))
+    _, cos_e, sin_e = kepler.kepler_cs(m0[:, None] + 2 * np.pi * t[None, :] / period,
+                                       ecc[:, None])
+    design = np.stack([cos_e - ecc[:, None],
+                       np.sqrt(1 - ecc * ecc)[:, None] * sin_e], axis=-1)  # (grid, n, 2)
+    chi2 = np.zeros(len(ecc))
+    consts = []
+    for values, sig in ((north, sig_n), (east, sig_e)):
+        w = design / sig[None, :, None]
+        target = values / sig
+        normal = np.einsum("gni,gnj->gij", w, w)
+        coef = np.einsum("gij,gj->gi", np.linalg.pinv(normal),
+                         np.einsum("gni,n->gi", w, target))
+        chi2 += np.sum((np.einsum("gni,gi->gn", w, coef) - target) ** 2, axis=1)
+        consts.append(coef)
+    (north_c, east_c) = consts
+    return [(float(chi2[k]), {"period": period, "ecc": float(ecc[k]), "m0": float(m0[k]),
+                              "A": float(north_c[k, 0]), "B": float(east_c[k, 0]),
+                              "F": float(north_c[k, 1]), "G": float(east_c[k, 1])})
+            for k in range(len(ecc))]
 
 
 def elements_from_thiele_innes(big_a, big_b, big_f, big_g):
@@ -357,10 +365,33 @@ def _prior_residuals(model, theta):
 
 def _residual_function(model):
     def fun(theta):
-        res = model.residuals(theta[None, :], lenient=True)[0]
-        res = np.concatenate([res, _prior_residuals(model, theta)])
-        return np.where(np.isfinite(res), res, 1e6)
+        return _batch_residuals(model, theta[None, :])[0]
     return fun
+
+
+def _batch_residuals(model, thetas):
+    res = model.residuals(thetas, lenient=True)
+    prior = np.array([_prior_residuals(model, theta) for theta in thetas])
+    res = np.concatenate([res, prior.reshape(len(thetas), -1)], axis=1)
+    return np.where(np.isfinite(res), res, 1e6)
+
+
+def _jacobian_function(model, low=None, high=None, rel_step=None):
+    """Forward-difference Jacobian with every shifted point in ONE vectorised call.
+
+    The step defaults to scipy's for '2-point' (sqrt(eps) max(1, |x|)), taken
+    backwards where a forward step would leave the bounds.
+    """
+    rel = np.sqrt(np.finfo(float).eps) if rel_step is None else rel_step
+
+    def jac(theta):
+        step = rel * np.maximum(1.0, np.abs(theta))
+        if high is not None:
+            step = np.where(theta + step > high, -step, step)
+        points = np.vstack([theta, theta + np.diag(step)])
+        res = _batch_residuals(model, points)
+        return ((res[1:] - res[0]) / step[:, None]).T
+    return jac
 
 
 def _least_squares(model, values, *, rounds=2):
@@ -373,8 +404,9 @@ def _least_squares(model, values, *, rounds=2):
         width = np.where(np.isfinite(high - low), high - low, 1.0)
         theta = np.clip(theta, low + 1e-9 * width, high - 1e-9 * width)
         try:
-            fit = least_squares(fun, theta, bounds=(low, high), method="trf",
-                                x_scale="jac", max_nfev=400 * model.n_dim)
+            fit = least_squares(fun, theta, jac=_jacobian_function(model, low, high),
+                                bounds=(low, high), method="trf", x_scale="jac",
+                                max_nfev=400 * model.n_dim)
         except (ValueError, np.linalg.LinAlgError):
             return None
         theta = model.recentre(fit.x)
@@ -448,14 +480,7 @@ def _joint_mass(model, chosen):
 
 
 def _covariance(model, theta):
-    fun = _residual_function(model)
-    step = 1e-6 * np.maximum(1.0, np.abs(theta))
-    base = fun(theta)
-    jac = np.empty((base.size, theta.size))
-    for k in range(theta.size):
-        shifted = theta.copy()
-        shifted[k] += step[k]
-        jac[:, k] = (fun(shifted) - base) / step[k]
+    jac = _jacobian_function(model, rel_step=1e-6)(theta)
     try:
         cov = np.linalg.pinv(jac.T @ jac)
     except np.linalg.LinAlgError:
