@@ -171,9 +171,11 @@ def sky_offsets(t, period, ecc, mean_anomaly_ref, a, inc, omega, node, *, t_ref=
         au.
     """
     t = np.ascontiguousarray(t, dtype=float).ravel()
-    elements = [np.atleast_1d(np.asarray(v, dtype=float)).ravel()
+    elements = [np.ascontiguousarray(v, dtype=float).ravel()
                 for v in (period, ecc, mean_anomaly_ref, a, inc, omega, node)]
-    period, ecc, m0, a, inc, omega, node = np.broadcast_arrays(*elements)
+    if len({v.size for v in elements}) > 1:
+        elements = [np.ascontiguousarray(v) for v in np.broadcast_arrays(*elements)]
+    period, ecc, m0, a, inc, omega, node = elements
     big_a, big_b, big_f, big_g = thiele_innes(a, inc, omega, node)
     root = np.sqrt(1.0 - ecc * ecc)
     motion = TWO_PI / period
@@ -183,11 +185,7 @@ def sky_offsets(t, period, ecc, mean_anomaly_ref, a, inc, omega, node, *, t_ref=
             raise RuntimeError("the compiled kernel needs numba, which is not installed")
         east = np.empty((period.size, t.size))
         north = np.empty_like(east)
-        # Whole turns taken off the phase here keep M small before it meets the kernel.
-        _fast.sky(t - t_ref, np.ascontiguousarray(motion), np.ascontiguousarray(m0),
-                  np.ascontiguousarray(ecc), np.ascontiguousarray(root),
-                  *(np.ascontiguousarray(c) for c in (big_a, big_b, big_f, big_g)),
-                  east, north)
+        _fast.sky(t - t_ref, motion, m0, ecc, root, big_a, big_b, big_f, big_g, east, north)
         return east, north
     col = (lambda v: v[:, None])
     _, cos_e, sin_e = _kepler_cs_numpy(col(m0) + col(motion) * (t[None, :] - t_ref),

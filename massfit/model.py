@@ -665,8 +665,26 @@ class OrbitModel:
         # One errstate for the whole loop: entering it costs as much as a small prior.
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             for k, param in enumerate(self.parameters):
-                lp += self._log_prior_one(param, theta[:, k], theta)
+                if param.transform != "window":  # the windows go in one piece below
+                    lp += self._log_prior_one(param, theta[:, k], theta)
+            lp += self._log_prior_windows(theta)
         return np.where(np.isnan(lp), -np.inf, lp)
+
+    def _log_prior_windows(self, theta):
+        # Angle windows are flat: only "inside all of them" matters, so one comparison
+        # of every window column replaces a pass per angle (the same numbers).
+        cols, lows, highs = [], [], []
+        for k, param in enumerate(self.parameters):
+            if param.transform != "window" or param.name.endswith(".omega"):
+                continue
+            low, high = self.window(*param.name.rsplit(".", 1))
+            cols.append(k)
+            lows.append(low)
+            highs.append(high)
+        if not cols:
+            return 0.0
+        u = theta[:, cols]
+        return np.where(np.all((u >= lows) & (u < highs), axis=1), 0.0, -np.inf)
 
     def _log_prior_one(self, param, u, theta):
         inside = (u >= param.low) & (u <= param.high)
