@@ -21,6 +21,7 @@ from .priors import Fixed, LogUniform, Normal, Uniform
 from .read import read_observations
 from .results import FitResult
 from .run import fit
+from .saved import load_result
 from .sample import SamplerSettings
 
 try:
@@ -29,7 +30,7 @@ except _metadata.PackageNotFoundError:  # pragma: no cover - running from a chec
     __version__ = "0.1.0"
 
 __all__ = [
-    "read_observations", "fit", "load_config", "FitResult", "SystemSpec",
+    "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",
     "CompanionSpec", "SamplerSettings", "Uniform", "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
     "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",

@@ -402,7 +402,10 @@ class FitResult:
 
     # --------------------------------------------------------------------- save
     def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
-        """Write the output folder: summary.json, samples.ecsv, the tables and figures.
+        """Write the output folder: summary, samples, observations, tables and figures.
+
+        ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
+        command line).
 
         The folder is written beside its final place and renamed into it at the end,
         so a half-written folder never looks complete. An existing result is kept
@@ -417,9 +420,12 @@ class FitResult:
         out.parent.mkdir(parents=True, exist_ok=True)
         tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
         try:
+            from .saved import RUN_FILE, model_state, write_observations
+
             self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
-            if self.record:
-                _write_json(tmp / "run.json", self.record)
+            # What massfit.load_result needs to rebuild the model and redraw.
+            write_observations(self.model.observations, tmp)
+            _write_json(tmp / RUN_FILE, {**self.record, "model": model_state(self.model)})
             self.write_tables(tmp)
             if plots:
                 self.write_figures(tmp, formats=formats)

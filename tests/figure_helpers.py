@@ -61,13 +61,14 @@ def write_system(folder):
 
 
 @functools.lru_cache(maxsize=None)
-def small_result(folder):
-    """A FitResult of the two-companion system (data written into ``folder``)."""
-    import massfit
+def small_result():
+    """A FitResult of the two-companion system, fitted once per test run."""
+    import tempfile
     from pathlib import Path
 
-    paths = write_system(Path(folder))
-    setup_record = None
+    import massfit
+
+    paths = write_system(Path(tempfile.mkdtemp(prefix="massfit-figures-")))
     return massfit.fit([str(p) for p in paths], parallax=f"{PARALLAX_MAS} mas",
                        parallax_err="0.2 mas", seed=2, max_steps=400, walkers=40,
-                       progress=False, record=setup_record)
+                       progress=False)

@@ -15,10 +15,10 @@ from massfit.errors import ConfigError  # noqa: E402
 
 
 @pytest.fixture(scope="module")
-def result(tmp_path_factory):
+def result():
     from figure_helpers import small_result
 
-    return small_result(str(tmp_path_factory.mktemp("figures")))
+    return small_result()
 
 
 @pytest.fixture(autouse=True)
@@ -116,19 +116,37 @@ def test_corner_plot_labels_units_and_truths(result):
 
 
 def test_corner_plot_default_parameters_and_offsets(result):
-    fig = plots.corner_plot(result, mass_unit="Mjup")
-    assert fig.massfit_parameters[:3] == ["mass", "gm", "parallax"]
-    assert len(fig.massfit_parameters) == 3 + 2 * 4
-    k = len(fig.massfit_parameters)
-    axes = np.array(fig.axes).reshape(k, k)
+    assert plots.default_corner_parameters(result) == [
+        "mass", "gm", "parallax", "Aster.period", "Aster.semi_major_axis",
+        "Aster.eccentricity", "Aster.inclination", "Brel.period",
+        "Brel.semi_major_axis", "Brel.eccentricity", "Brel.inclination"]
+    fig = plots.corner_plot(result, parameters=["mass", "gm", "Aster.period"],
+                            mass_unit="Mjup", titles=False)
+    axes = np.array(fig.axes).reshape(3, 3)
     labels = [ax.get_xlabel() for ax in axes[-1]]
-    assert labels[0].startswith("$M$") and r"M_\mathrm{J}" in labels[0]
-    assert r"\mathrm{km^3\,s^{-2}}" in labels[1]
-    # No tick label of any panel uses an offset ("+4.115e2" in a corner).
+    assert labels[0] == r"$M$ [$M_\mathrm{J}$]"
+    # GM ~ 1.6e11 km^3/s^2 reads in units of 10^11.
+    assert labels[1] == r"$GM$ [$10^{11}\,\mathrm{km^3\,s^{-2}}$]"
+    assert labels[2] == r"$P_\mathrm{Aster}$ [$\mathrm{d}$]"
+    # No tick label of any panel uses an offset of its own.
     fig.canvas.draw()
     assert all(ax.xaxis.get_major_formatter().get_offset() == "" for ax in axes[-1])
-    # The values are listed in the empty upper triangle.
-    assert any(r"P_\mathrm{Brel} =" in t.get_text() for t in fig.texts)
+    # The values are listed in the empty upper triangle, with what Delta means.
+    listing = "".join(t.get_text() for t in fig.texts)
+    assert r"P_\mathrm{Aster} =" in listing
+
+
+def test_narrow_posteriors_are_drawn_as_offsets():
+    # P = 4.1152998 +/- 0.0000005 d: the axis shows P minus the printed median in
+    # units of 10^-6 d, and the truth moves with it.
+    rng = np.random.default_rng(1)
+    column = plots._Column("Ymra.period", 4.1152998 + 5e-7 * rng.standard_normal(4000),
+                           r"P_\mathrm{Ymra}", r"\mathrm{d}", u.day)
+    assert column.label() == r"$\Delta P_\mathrm{Ymra}$ [$10^{-6}\,\mathrm{d}$]"
+    assert column.reference == float(column.rounded.median)
+    assert column.truth(4.1153003 * u.day) == pytest.approx(
+        (4.1153003 - column.reference) * 1e6)
+    assert np.all(np.abs(column.plotted(column.values)) < 5)
 
 
 def test_corner_plot_refuses_unknown_parameters(result):

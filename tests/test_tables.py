@@ -61,10 +61,10 @@ def test_undetermined_block():
 
 
 @pytest.fixture(scope="module")
-def summary(tmp_path_factory):
+def summary():
     from figure_helpers import small_result
 
-    return small_result(str(tmp_path_factory.mktemp("tables"))).summary
+    return small_result().summary
 
 
 def test_rows_cover_the_central_body_and_each_companion(summary):
