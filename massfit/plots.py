@@ -72,10 +72,17 @@ DEFAULT_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "in
 @contextmanager
 def style():
     """Matplotlib settings of massfit's figures, for a ``with`` block."""
-    import matplotlib.pyplot as plt
+    import matplotlib as mpl
 
-    with plt.rc_context(STYLE):
+    # Only massfit's own keys are set and restored: plt.rc_context would also restore
+    # 'interactive', which a notebook's inline backend sets on first use, and every
+    # later figure would then stay hidden.
+    saved = {key: mpl.rcParams[key] for key in STYLE}
+    mpl.rcParams.update(STYLE)
+    try:
         yield
+    finally:
+        mpl.rcParams.update(saved)
 
 
 def save_figure(fig, stem, formats=("png", "pdf")) -> list:
@@ -184,8 +191,14 @@ def _corner_columns(result, parameters, mass_unit):
                     f"one of {', '.join(_COMPANION_QUANTITIES)}", key="parameters")
             symbol, unit, unit_astropy = _COMPANION_QUANTITIES[quantity]
             columns.append(_Column(key, comps[body][quantity],
-                                   rf"{symbol}_\mathrm{{{body}}}", unit, unit_astropy))
+                                   rf"{symbol}_{{{math_name(body)}}}", unit, unit_astropy))
     return columns
+
+
+def math_name(name: str) -> str:
+    """A body name as upright text inside math text (``Mirren-b`` keeps its hyphen)."""
+    special = {c: "\\" + c for c in "_$^{}#%&"}
+    return r"\text{" + "".join(special.get(c, c) for c in name) + "}"
 
 
 def default_corner_parameters(result, companions=None, quantities=None) -> list:

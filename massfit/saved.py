@@ -26,7 +26,7 @@ from astropy.time import Time
 
 from . import priors as _priors
 from .errors import InputError
-from .model import CompanionSpec, OrbitModel, SystemSpec
+from .model import OrbitModel, SystemSpec
 from .observations import AstrometryData, Observations, Rejection, VelocityData
 
 __all__ = ["load_result", "model_state", "write_observations", "STATE_VERSION"]
@@ -108,8 +108,13 @@ def _decode(value):
             if cls is None:
                 raise InputError(f"unknown prior {value['prior']!r} in the saved model")
             return cls(**{k: v for k, v in value.items() if k != "prior"})
-        if value.get("dataclass") == "CompanionSpec":
-            return _build(CompanionSpec, value)
+        if "dataclass" in value:
+            from . import model as _model
+
+            cls = getattr(_model, str(value["dataclass"]), None)
+            if not (isinstance(cls, type) and dataclasses.is_dataclass(cls)):
+                raise InputError(f"unknown part {value['dataclass']!r} in the saved model")
+            return _build(cls, value)
         return {k: _decode(v) for k, v in value.items()}
     if isinstance(value, list):
         return [_decode(v) for v in value]
@@ -233,7 +238,9 @@ def load_result(folder):
 def _derived_from_table(table, model):
     out = {"companions": {name: {} for name in model.companions}}
     for col in table.colnames:
-        if col in model.names or col == "log_prob":
+        # Sampled coordinates are not derived quantities, except the parallax, which
+        # is both (and was written once).
+        if (col in model.names and col != "parallax") or col == "log_prob":
             continue
         body, _, key = col.partition(".")
         values = np.asarray(table[col], dtype=float)

@@ -8,6 +8,13 @@ The demo scenario, *Orvane*: a gas giant of 0.83 Jupiter masses in an invented p
 system, with four moons (Pell, Ymra, Doss, Tirrin). The observer lives on an inner
 planet on a circular 1 au orbit, so the distance to Orvane changes from night to night
 (4.3 to 6.3 au) and each row carries it; the light time is in the simulated positions.
+
+*Mirren*: an invented K dwarf of 0.78 solar masses at 41.3 mas, with a directly imaged
+companion, Mirren-b, of 14 Jupiter masses on a 41-year orbit. Two invented imaging
+campaigns cover 12 years, a third of the orbit including its periastron: one reports
+separation and position angle, the other east/north offsets with correlated errors.
+The parallax is known to 0.05 mas; the companion's mass is known roughly from its
+brightness (a prior), so the relative orbit gives the star's own mass.
 """
 
 from __future__ import annotations
@@ -21,9 +28,11 @@ from astropy.time import Time
 from .constants import GM_SUN_KM3_S2, MASS_UNITS
 from .simulate import Elements, simulate_astrometry, write_scenario
 
-__all__ = ["orvane", "demo_setup", "write_all", "DEMO_DIR"]
+__all__ = ["orvane", "mirren", "demo_setup", "write_all", "DEMO_DIR", "PACKAGE_DATA",
+           "SCENARIOS"]
 
-DEMO_DIR = Path(__file__).parent / "data" / "orvane"
+PACKAGE_DATA = Path(__file__).parent / "data"
+DEMO_DIR = PACKAGE_DATA / "orvane"
 
 
 def _observer_distance(t_jd):
@@ -86,15 +95,174 @@ def demo_setup():
                     sampler=SamplerSettings(seed=7), source={"demo": "orvane"})
 
 
-def write_all(root="example_obs"):
-    """Write every scenario into ``root`` and the demo's copy into the package."""
+def mirren(seed=20261202):
+    """The Mirren system: ({file name: table}, truth)."""
+    from astropy.table import Table
+
+    mjup_in_msun = MASS_UNITS["Mjup"] / MASS_UNITS["Msun"]
+    host = 0.78
+    companion = 14.0 * mjup_in_msun
+    parallax = 41.3 * u.mas
+    elements = {"Mirren-b": Elements(period=41.0 * 365.25, ecc=0.52, inc=63.0,
+                                     omega=212.0, node=118.0,
+                                     periapsis_time=2462100.0, mass=companion)}
+    rng = np.random.default_rng(seed)
+    # Campaign A (separation, position angle): 11 epochs over 12 years, once or twice
+    # a season; campaign B (east, north): 7 epochs in the later years.
+    t_a = 2460200.5 + np.sort(rng.uniform(0, 12 * 365.25, 11))
+    t_b = 2461300.5 + np.sort(rng.uniform(0, 8 * 365.25, 7))
+    exact = simulate_astrometry(
+        {"Mirren-b": Time(t_a, format="jd", scale="tdb")}, elements, host,
+        parallax=parallax, error=1e-9 * u.mas, seed=seed)
+    east = exact["east"].to_value(u.mas)
+    north = exact["north"].to_value(u.mas)
+    sep_err, pa_err = 1.8, 0.25  # mas, deg
+    polar = Table()
+    polar["time"] = Time(exact["time"].tdb.jd, format="jd", scale="tdb").tt.isot
+    polar["body"] = exact["body"]
+    polar["sep"] = np.round(np.hypot(east, north) + sep_err * rng.standard_normal(len(t_a)),
+                            2) * u.mas
+    polar["pa"] = np.round(np.mod(np.degrees(np.arctan2(east, north))
+                                  + pa_err * rng.standard_normal(len(t_a)), 360), 3) * u.deg
+    polar["sep_err"] = np.full(len(t_a), sep_err) * u.mas
+    polar["pa_err"] = np.full(len(t_a), pa_err) * u.deg
+    polar.meta.update(time_format="isot", time_scale="tt", description=(
+        "Invented example: campaign A's separations and position angles of Mirren-b. "
+        "Made by massfit.scenarios.mirren()."))
+    offsets = simulate_astrometry(
+        {"Mirren-b": Time(t_b, format="jd", scale="tdb")}, elements, host,
+        parallax=parallax, error=1.2 * u.mas, corr=-0.35, seed=seed + 1)
+    cartesian = Table()
+    cartesian["time"] = offsets["time"].tdb.jd
+    cartesian["body"] = offsets["body"]
+    for col in ("east", "north", "east_err", "north_err"):
+        cartesian[col] = np.round(offsets[col].to_value(u.mas), 3) * u.mas
+    cartesian["corr"] = offsets["corr"]
+    cartesian.meta.update(time_format="jd", time_scale="tdb", description=(
+        "Invented example: campaign B's east/north offsets of Mirren-b with correlated "
+        "errors. Made by massfit.scenarios.mirren()."))
+    truth = {
+        "scenario": "Mirren: an invented K dwarf with an imaged companion on a partial orbit",
+        "central_mass_Msun": host,
+        "central_gm_km3_s2": host * GM_SUN_KM3_S2,
+        "parallax_mas": parallax.to_value(u.mas),
+        "parallax_err_mas": 0.05,
+        "companions": {name: dict(el) for name, el in elements.items()},
+        "companion_mass_prior_Msun": {"mean": companion, "sd": 3.0 * mjup_in_msun},
+        "campaign_a_errors": {"sep_mas": sep_err, "pa_deg": pa_err},
+        "campaign_b_errors": {"east_north_mas": 1.2, "east_north_correlation": -0.35},
+        "seed": seed,
+    }
+    return {"campaign_a_polar.ecsv": polar, "campaign_b_offsets.ecsv": cartesian}, truth
+
+
+_README = {
+    "orvane": """# Orvane: four moons of an invented gas giant
+
+Invented for massfit's demo; no real object is described.
+
+- **Truth**: Orvane has {central_mass_Mjup} Jupiter masses (GM = {central_gm_km3_s2:.6g}
+  km^3/s^2). Its moons Pell, Ymra, Doss and Tirrin have periods of {periods} days on
+  nearly circular orbits close to edge-on ({inclinations} deg); every element is in
+  `truth.json`.
+- **How it was made**: `massfit.scenarios.orvane()` (seed {seed}). The observer sits
+  on a circular 1 au orbit, Orvane on a 5.3 au one, so the distance changes from night
+  to night; each row carries it (`distance`, au), and the positions include the light
+  time. Some 70 nights over two seasons, each moon missed on ~12 % of them; errors of
+  {astrometric_error_arcsec} arcsec in east and north with a correlation of
+  {east_north_correlation}.
+- **Files**: `moons.ecsv` (time UTC, body, east, north, errors, corr, distance).
+- **Fit**: `massfit demo`, or `massfit fit moons.ecsv --out fit-out`.
+""",
+    "mirren": """# Mirren: a host star's mass from a partial orbit and a parallax
+
+Invented for massfit's examples; no real object is described.
+
+- **Truth**: the K dwarf Mirren has {central_mass_Msun} solar masses (GM =
+  {central_gm_km3_s2:.6g} km^3/s^2) at a parallax of {parallax_mas} mas. Its companion
+  Mirren-b has 14 Jupiter masses ({b_mass:.5f} M_sun) on an orbit of {b_period:.1f} d
+  ({b_years:.0f} yr), e = {b_ecc}, i = {b_inc} deg, omega = {b_omega} deg, Omega =
+  {b_node} deg, periastron at JD {b_tp}; all in `truth.json`.
+- **How it was made**: `massfit.scenarios.mirren()` (seed {seed}). Two invented imaging
+  campaigns over 12 years (a third of the orbit, periastron included):
+  `campaign_a_polar.ecsv`, 11 epochs of separation and position angle (errors
+  {sep_err} mas and {pa_err} deg), and `campaign_b_offsets.ecsv`, 7 epochs of east/north
+  offsets (errors {en_err} mas, east-north correlation {en_corr}).
+- **Fit**: the parallax is known as {parallax_mas} +/- {parallax_err_mas} mas; the
+  companion's mass from its brightness, as a normal prior of 14 +/- 3 Jupiter masses
+  (`config.toml` says both). `massfit fit config.toml`.
+""",
+}
+
+_MIRREN_CONFIG = """# Mirren: fit the host star's mass from the companion's partial orbit.
+[data]
+files = ["campaign_a_polar.ecsv", "campaign_b_offsets.ecsv"]
+
+[system]
+primary = "Mirren"
+parallax = "41.3 mas"
+parallax_err = "0.05 mas"
+central_mass_prior = {kind = "log-uniform", low = "0.01 Msun", high = "10 Msun"}
+
+[companions.Mirren-b]
+mass_prior = {kind = "normal", mean = "0.01336 Msun", sd = "0.00286 Msun", low = "0 Msun"}
+
+[sampler]
+seed = 5
+
+[output]
+folder = "fit-out"
+"""
+
+
+def _readme(name, truth):
+    if name == "orvane":
+        comps = truth["companions"].values()
+        return _README[name].format(
+            periods=", ".join(f"{c['period']:g}" for c in comps),
+            inclinations=", ".join(f"{c['inc']:g}" for c in comps), **truth)
+    b = truth["companions"]["Mirren-b"]
+    return _README[name].format(
+        b_mass=b["mass"], b_period=b["period"], b_years=b["period"] / 365.25,
+        b_ecc=b["ecc"], b_inc=b["inc"], b_omega=b["omega"], b_node=b["node"],
+        b_tp=b["periapsis_time"], sep_err=truth["campaign_a_errors"]["sep_mas"],
+        pa_err=truth["campaign_a_errors"]["pa_deg"],
+        en_err=truth["campaign_b_errors"]["east_north_mas"],
+        en_corr=truth["campaign_b_errors"]["east_north_correlation"], **truth)
+
+
+def _write_mirren(folder):
+    import json
+
+    tables, truth = mirren()
+    folder.mkdir(parents=True, exist_ok=True)
+    for file_name, table in tables.items():
+        table.write(folder / file_name, format="ascii.ecsv", overwrite=True)
+    with open(folder / "truth.json", "w") as handle:
+        json.dump(truth, handle, indent=2)
+    (folder / "config.toml").write_text(_MIRREN_CONFIG)
+    return truth
+
+
+def _write_orvane(folder):
     table, truth = orvane()
     description = ("Invented example: relative astrometry of the four moons of the gas "
                    "giant Orvane, with the observer-planet distance of each night. "
                    "Made by massfit.scenarios.orvane().")
-    for folder in (Path(root) / "orvane", DEMO_DIR):
-        write_scenario(folder, table.copy(), truth, name="moons.ecsv",
-                       description=description)
+    write_scenario(folder, table, truth, name="moons.ecsv", description=description)
+    return truth
+
+
+#: Scenario name -> writer of its folder (returns the truth).
+SCENARIOS = {"orvane": _write_orvane, "mirren": _write_mirren}
+
+
+def write_all(root="example_obs"):
+    """Write every scenario into ``root`` and its copy into the package's data."""
+    for name, writer in SCENARIOS.items():
+        for folder in (Path(root) / name, PACKAGE_DATA / name):
+            truth = writer(Path(folder))
+            (Path(folder) / "README.md").write_text(_readme(name, truth))
 
 
 if __name__ == "__main__":

@@ -101,11 +101,11 @@ def test_corner_plot_labels_units_and_truths(result):
     axes = np.array(fig.axes).reshape(4, 4)
     assert axes[-1, 0].get_xlabel() == r"$M$ [$M_\odot$]"
     assert axes[-1, 1].get_xlabel() == r"$\varpi$ [$\mathrm{mas}$]"
-    assert axes[-1, 2].get_xlabel() == r"$P_\mathrm{Aster}$ [$\mathrm{d}$]"
-    assert axes[-1, 3].get_xlabel() == r"$e_\mathrm{Aster}$"
+    assert axes[-1, 2].get_xlabel() == r"$P_{\text{Aster}}$ [$\mathrm{d}$]"
+    assert axes[-1, 3].get_xlabel() == r"$e_{\text{Aster}}$"
     # Titles carry the rounded value with its unit, never "0.00 +0.00 -0.00".
     title = axes[2, 2].get_title()
-    assert title.startswith(r"$P_\mathrm{Aster} = ") and r"\mathrm{d}" in title
+    assert title.startswith(r"$P_{\text{Aster}} = ") and r"\mathrm{d}" in title
     assert "0.00^{+0.00}" not in "".join(ax.get_title() for ax in axes.flat)
     # Truth lines at the given values: 1.2 M_sun and 420 d.
     vlines = [line.get_xdata()[0] for line in axes[0, 0].lines if line.get_color() == "C3"]
@@ -127,13 +127,13 @@ def test_corner_plot_default_parameters_and_offsets(result):
     assert labels[0] == r"$M$ [$M_\mathrm{J}$]"
     # GM ~ 1.6e11 km^3/s^2 reads in units of 10^11.
     assert labels[1] == r"$GM$ [$10^{11}\,\mathrm{km^3\,s^{-2}}$]"
-    assert labels[2] == r"$P_\mathrm{Aster}$ [$\mathrm{d}$]"
+    assert labels[2] == r"$P_{\text{Aster}}$ [$\mathrm{d}$]"
     # No tick label of any panel uses an offset of its own.
     fig.canvas.draw()
     assert all(ax.xaxis.get_major_formatter().get_offset() == "" for ax in axes[-1])
     # The values are listed in the empty upper triangle, with what Delta means.
     listing = "".join(t.get_text() for t in fig.texts)
-    assert r"P_\mathrm{Aster} =" in listing
+    assert r"P_{\text{Aster}} =" in listing
 
 
 def test_narrow_posteriors_are_drawn_as_offsets():

@@ -33,7 +33,9 @@ def test_load_result_rebuilds_the_model_and_keeps_the_numbers(saved):
     for name in ("Aster", "Brel"):
         for key, values in original.samples["companions"][name].items():
             assert np.array_equal(back.samples["companions"][name][key], values)
-    assert np.array_equal(back.samples["central_mass"], original.samples["central_mass"])
+    for key in ("central_mass", "central_gm", "parallax"):
+        assert np.array_equal(back.samples[key], original.samples[key])
+    assert set(back.samples) == set(original.samples)
     assert back.report() == original.report()
 
 
