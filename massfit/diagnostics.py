@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Residuals", "astrometric_residuals", "residual_periodogram",
+__all__ = ["Residuals", "astrometric_residuals", "velocity_residuals", "residual_periodogram",
            "leftover_signals", "FAP_THRESHOLD"]
 
 #: A periodogram peak with a false-alarm probability below this is flagged as leftover
@@ -96,6 +96,27 @@ def astrometric_residuals(result, theta=None) -> dict:
     return out
 
 
+def velocity_residuals(result, theta=None) -> Residuals:
+    """Normalised residuals of the radial velocities (the jitter in the error).
+
+    The component of each residual is its instrument's label, so that a periodogram
+    centres each instrument on its own mean.
+    """
+    model = result.model
+    vel = model._vel
+    theta = best_sample(result) if theta is None else np.asarray(theta)
+    phys = model.physical(np.atleast_2d(theta))
+    total = model.velocity_parts(phys)["total"][0]
+    sigma = np.sqrt(vel.err2 + phys["rv"]["jitter"][0, vel.instrument] ** 2)
+    from astropy.time import Time
+
+    order = np.argsort(vel.t, kind="stable")
+    labels = np.asarray(vel.labels, dtype=object)[vel.instrument].astype(str)
+    return Residuals(time=Time(model.epoch_jd + vel.t[order], format="jd", scale="tdb"),
+                     component=labels[order], row=order,
+                     normalised=((vel.rv - total) / sigma)[order])
+
+
 def residual_periodogram(residuals: Residuals, *, orbital_period=None,
                          samples_per_peak=10, max_points=20000) -> dict:
     """Lomb-Scargle periodogram of one companion's normalised residuals.
@@ -157,7 +178,10 @@ def leftover_signals(result, *, threshold: float = FAP_THRESHOLD) -> list:
     out = []
     periods = {name: comp["period"]["median"]
                for name, comp in result.summary["companions"].items()}
-    for name, res in astrometric_residuals(result).items():
+    panels = dict(astrometric_residuals(result))
+    if result.model.has_velocities:
+        panels["radial velocities"] = velocity_residuals(result)
+    for name, res in panels.items():
         pgram = residual_periodogram(res, orbital_period=periods.get(name))
         if pgram is not None and pgram["fap"] < threshold:
             out.append({"body": name, "period": float(pgram["best_period"]),

@@ -7,8 +7,9 @@ left, as the sky is seen, with the data's own kind of unit (an angle, or a lengt
 each row carries its distance).
 
 Figures: :func:`corner_plot`, :func:`orbit_plot`, :func:`residual_plot`,
-:func:`periodogram_plot` and :func:`velocity_plot` (radial velocities against phase); :data:`FIGURES` maps the file stems used in an output folder
-to them, and :func:`save_figure` writes one figure in several formats.
+:func:`periodogram_plot`, :func:`velocity_plot` (radial velocities against phase) and
+:func:`velocity_time_plot` (against time); :data:`FIGURES` maps the file stems used in
+an output folder to them, and :func:`save_figure` writes one figure in several formats.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ from .summarise import MASS_UNIT_LABELS, interval
 from .tables import round_interval
 
 __all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
+           "velocity_time_plot",
            "save_figure", "FIGURES", "COLUMN_WIDTH", "PAGE_WIDTH", "STYLE"]
 
 #: Width of one column of a two-column journal page, inches (ApJ, A&A and MNRAS all
@@ -209,7 +211,8 @@ def default_corner_parameters(result, companions=None, quantities=None) -> list:
                       "rv_semi_amplitude_companion")
     elif quantities is None:
         # Beyond two companions P, a, e and i of each no longer fit on a page.
-        quantities = DEFAULT_COMPANION_QUANTITIES if len(names) <= 2 else (
+        # A companion mass that was sampled (a double-lined binary) is shown too.
+        quantities = DEFAULT_COMPANION_QUANTITIES + ("mass",) if len(names) <= 2 else (
             "period", "semi_major_axis")
     # Velocities alone may leave the central mass undetermined: no column for it.
     out = ["mass", "gm"] if "central_mass_Msun" in result.samples else []
@@ -603,7 +606,7 @@ def residual_plot(result, *, companions=None, width=None):
     """
     import matplotlib.pyplot as plt
 
-    residuals = _chosen(astrometric_residuals(result), companions)
+    residuals = _all_residuals(result, companions)
     width = width or COLUMN_WIDTH
     with style():
         fig, axes = plt.subplots(len(residuals), 1, sharex=True, squeeze=False,
@@ -611,8 +614,9 @@ def residual_plot(result, *, companions=None, width=None):
                                  layout="constrained")
         for ax, (name, res) in zip(axes[:, 0], residuals.items()):
             years = res.time.jyear
-            for comp in np.unique(res.component):
-                marker, colour, word = _COMPONENT_STYLE[comp]
+            for j, comp in enumerate(np.unique(res.component)):
+                marker, colour, word = _COMPONENT_STYLE.get(
+                    comp, (_INSTRUMENT_MARKERS[j % 10], "C4", comp or "velocity"))
                 pick = res.component == comp
                 ax.scatter(years[pick], res.normalised[pick], s=6, marker=marker,
                            color=colour, linewidths=0, label=word, gid=f"residuals-{comp}")
@@ -625,10 +629,25 @@ def residual_plot(result, *, companions=None, width=None):
                     ha="left", va="top", fontsize=7)
             lim = max(4.0, 1.1 * float(np.max(np.abs(res.normalised))))
             ax.set_ylim(-lim, lim)
-        axes[0, 0].legend(loc="upper right", ncol=4, frameon=False, fontsize=6,
-                          handletextpad=0.2, columnspacing=0.8)
+        for ax in axes[:, 0]:
+            ax.legend(loc="upper right", ncol=4, frameon=False, fontsize=6,
+                      handletextpad=0.2, columnspacing=0.8)
         axes[-1, 0].set_xlabel("epoch [Julian year, TDB]")
     return fig
+
+
+#: Panel name of the radial velocities in the residual figures.
+VELOCITY_PANEL = "radial velocities"
+
+
+def _all_residuals(result, companions):
+    """Astrometric residuals per companion, then the velocities' (where any)."""
+    from .diagnostics import velocity_residuals
+
+    out = _chosen(astrometric_residuals(result), companions)
+    if result.model.has_velocities:
+        out[VELOCITY_PANEL] = velocity_residuals(result)
+    return out
 
 
 def _chosen(per_companion, companions):
@@ -654,7 +673,7 @@ def periodogram_plot(result, *, companions=None, width=None):
     """
     import matplotlib.pyplot as plt
 
-    residuals = _chosen(astrometric_residuals(result), companions)
+    residuals = _all_residuals(result, companions)
     periods = {name: comp["period"]["median"]
                for name, comp in result.summary["companions"].items()}
     width = width or COLUMN_WIDTH
@@ -690,6 +709,7 @@ def periodogram_plot(result, *, companions=None, width=None):
                 ax.plot([pgram["best_period"]], [pgram["best_power"]], marker="v",
                         color="C3", ms=5, ls="none", gid="flagged-peak")
             ax.set_xscale("log")
+            _plain_log_ticks(ax.xaxis)
             ax.set_ylim(0, max(1.15 * pgram["best_power"],
                                1.3 * pgram["levels"][0.1 * FAP_THRESHOLD]))
             ax.set_xlim(period_axis.min(), period_axis.max())
@@ -698,12 +718,23 @@ def periodogram_plot(result, *, companions=None, width=None):
     return fig
 
 
+def _plain_log_ticks(axis):
+    """Ticks at 1, 2, 5 x 10^k written as plain numbers (``200``, not ``2 x 10^2``)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+    axis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
+    axis.set_minor_formatter(NullFormatter())
+
+
 #: File stem in an output folder -> figure function.
 FIGURES = {"corner": corner_plot, "orbits": orbit_plot, "residuals": residual_plot,
-           "periodogram": periodogram_plot, "rv": None}
+           "periodogram": periodogram_plot, "rv": None, "rv_time": None}
 
 #: Figures that need relative astrometry.
-_SKY_FIGURES = ("orbits", "residuals", "periodogram")
+_SKY_FIGURES = ("orbits",)
+#: Figures that need radial velocities.
+_VELOCITY_FIGURES = ("rv", "rv_time")
 
 
 def applicable_figures(result) -> list:
@@ -711,16 +742,141 @@ def applicable_figures(result) -> list:
     model = result.model
     return [stem for stem in FIGURES
             if not (stem in _SKY_FIGURES and model.velocity_only)
-            and not (stem == "rv" and not model.has_velocities)]
+            and not (stem in _VELOCITY_FIGURES and not model.has_velocities)]
+
+
+_INSTRUMENT_MARKERS = ("o", "s", "D", "^", "v", "P", "X", "<", ">", "h")
+
+
+class _VelocityView:
+    """The best posterior sample's velocities, split for drawing.
+
+    Data are put on the zero point of the first instrument (each instrument's fitted
+    offset minus the first one's is taken off), so that every spectrograph shares one
+    velocity scale; error bars include each instrument's fitted jitter.
+    """
+
+    def __init__(self, result):
+        model = result.model
+        if not model.has_velocities:
+            raise ConfigError("this fit has no radial velocities to plot", key="figures")
+        self.model = model
+        self.vel = vel = model._vel
+        self.names = list(model.companions)
+        self.phys = model.physical(best_sample(result)[None, :])
+        self.parts = model.velocity_parts(self.phys)
+        rv = self.phys["rv"]
+        self.offsets = rv["offset"][0]
+        self.reference = float(self.offsets[0])
+        self.sigma = np.sqrt(vel.err2 + rv["jitter"][0, vel.instrument] ** 2)
+        self.residual = vel.rv - self.parts["total"][0]
+        self.on_scale = vel.rv - (self.offsets[vel.instrument] - self.reference)
+        self.years = _jyear(model.epoch_jd + vel.t)
+
+    def groups(self):
+        """(rows, body name, colour, marker, instrument label) for each data group."""
+        vel = self.vel
+        for owner in np.unique(vel.owner):
+            body = self.model.spec.primary if owner < 0 else self.names[owner]
+            colour = "C0" if owner < 0 else f"C{1 + int(owner)}"
+            for j, label in enumerate(vel.labels):
+                rows = (vel.owner == owner) & (vel.instrument == j)
+                if np.any(rows):
+                    yield rows, body, colour, _INSTRUMENT_MARKERS[j % 10], label
+
+    def curves(self, t):
+        """Model velocity of the primary and of each companion with velocities at ``t``."""
+        model, vel, rv = self.model, self.vel, self.phys["rv"]
+        dt = t - vel.t_trend
+        base = self.reference + rv["slope"][0] * dt + rv["curvature"][0] * dt * dt
+        reflex, own = np.zeros_like(t), {}
+        for name, orbit in self.phys["companions"].items():
+            shape = model._velocity_shape(name, orbit, t)[0]
+            k1 = float(orbit.get("k_primary", np.zeros(1))[0])
+            k2 = float(orbit.get("k_companion", np.zeros(1))[0])
+            reflex -= k1 * shape
+            own[name] = (k1 + k2) * shape
+        out = {self.model.spec.primary: base + reflex}
+        for k, name in enumerate(self.names):
+            if np.any(vel.owner == k):
+                out[name] = base + reflex + own[name]
+        return out
+
+
+def _jyear(jd):
+    """Julian years (TDB) of TDB Julian dates."""
+    return 2000.0 + (np.asarray(jd) - 2451545.0) / 365.25
+
+
+def _velocity_legend(ax, view):
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=colour, lw=1.0, label=body)
+               for body, colour in dict((b, c) for _, b, c, _, _ in view.groups()).items()]
+    if len(view.vel.labels) > 1 or view.vel.labels[0]:
+        handles += [Line2D([], [], color="0.3", marker=m, ls="none", ms=3, label=label)
+                    for label, m in dict((lab, m) for _, _, _, m, lab in view.groups()).items()]
+    ax.legend(handles=handles, loc="best", frameon=False, fontsize=6, ncol=2,
+              handlelength=1.5, columnspacing=0.8)
+
+
+def _errorbars(ax, x, y, err, colour, marker, gid):
+    ax.errorbar(x, y, err, fmt=marker, ms=2.5, mew=0.5, lw=0.5, color=colour,
+                mfc=colour, mec="k" if marker != "o" else colour, capsize=0, gid=gid)
+
+
+def velocity_time_plot(result, *, width=None):
+    """Radial velocities against time with the best model, and the residuals below.
+
+    Every instrument is put on the first one's zero point; markers tell the
+    instruments apart and colours the bodies (the primary, and each companion whose
+    own velocities were measured). Error bars include the fitted jitter.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    import matplotlib.pyplot as plt
+
+    view = _VelocityView(result)
+    vel = view.vel
+    span = float(np.ptp(vel.t)) or 1.0
+    shortest = min(float(o["period"][0]) for o in view.phys["companions"].values())
+    n = int(min(20000, max(2000, 60 * span / shortest)))
+    t = np.linspace(vel.t.min() - 0.03 * span, vel.t.max() + 0.03 * span, n)
+    years = _jyear(view.model.epoch_jd + t)
+    width = width or PAGE_WIDTH
+    with style():
+        fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(width, 3.6),
+                                          layout="constrained",
+                                          gridspec_kw={"height_ratios": [3, 1]})
+        for body, curve in view.curves(t).items():
+            colour = next(c for _, b, c, _, _ in view.groups() if b == body) \
+                if any(b == body for _, b, _, _, _ in view.groups()) else "C0"
+            top.plot(years, curve, color=colour, lw=0.7, zorder=1, gid="rv-model")
+        for rows, body, colour, marker, label in view.groups():
+            _errorbars(top, view.years[rows], view.on_scale[rows], view.sigma[rows],
+                       colour, marker, "rv-data")
+            _errorbars(bottom, view.years[rows], view.residual[rows], view.sigma[rows],
+                       colour, marker, "rv-residuals")
+        bottom.axhline(0.0, color="k", lw=0.5)
+        label = vel.labels[0]
+        top.set_ylabel("radial velocity [km s$^{-1}$]"
+                       + (f"\n(zero point of {label})" if len(vel.labels) > 1 else ""))
+        bottom.set_ylabel("O$-$C [km s$^{-1}$]")
+        bottom.set_xlabel("epoch [Julian year, TDB]")
+        _velocity_legend(top, view)
+    return fig
 
 
 def velocity_plot(result, *, width=None):
-    """Radial velocities against orbital phase, one column per companion.
+    """Radial velocities folded on each companion's period, with residuals below.
 
     Each column shows the velocities with everything but that companion's signal
-    (instrument offsets, trend, the other companions) taken off, the best model's
-    curves for the primary and the companion, and below them the residuals of the
-    full model. Error bars include the fitted jitter. Phase 0 is periapsis.
+    (instrument offsets, trend, the other companions) taken off and the systemic
+    velocity of the first instrument put back; the best model's curves for the
+    primary and the companion, a dotted line at the systemic velocity, and below the
+    residuals of the full model. Phase 0 is periapsis.
 
     Parameters
     ----------
@@ -734,59 +890,47 @@ def velocity_plot(result, *, width=None):
     """
     import matplotlib.pyplot as plt
 
-    model = result.model
-    vel = model._vel
-    names = list(model.companions)
-    best = result.chain.samples[np.argmax(result.chain.log_prob)]
-    phys = model.physical(best[None, :])
-    parts = model.velocity_parts(phys)
-    sigma = np.sqrt(vel.err2 + phys["rv"]["jitter"][0, vel.instrument] ** 2)
-    residual = vel.rv - parts["total"][0]
+    view = _VelocityView(result)
+    names = view.names
     if width is None:
         width = min(COLUMN_WIDTH * len(names), PAGE_WIDTH)
     with style():
         fig, axes = plt.subplots(2, len(names), figsize=(width, 0.95 * COLUMN_WIDTH + 0.4),
-                                 squeeze=False, sharex="col", constrained_layout=True,
+                                 squeeze=False, sharex="col", layout="constrained",
                                  gridspec_kw={"height_ratios": [3, 1]})
-        _draw_velocities(axes, model, names, phys, parts, sigma, residual)
+        for k, name in enumerate(names):
+            _draw_phase_column(axes[0, k], axes[1, k], view, k, name)
     return fig
 
 
-def _draw_velocities(axes, model, names, phys, parts, sigma, residual):
-    vel = model._vel
-    markers = {-1: "o"}
-    for k, name in enumerate(names):
-        top, bottom = axes[0, k], axes[1, k]
-        orbit = {key: v[0] for key, v in phys["companions"][name].items()}
-        own_signal = vel.rv - (parts["total"][0] - parts["companions"][name][0])
-        phase = _orbital_phase(model, name, orbit, vel.t)
-        for owner in np.unique(vel.owner):
-            who = vel.owner == owner
-            body = "primary" if owner < 0 else names[owner]
-            for j, label in enumerate(vel.labels):
-                rows = who & (vel.instrument == j)
-                if not np.any(rows):
-                    continue
-                tag = f"{body}, {label}" if len(vel.labels) > 1 else body
-                kw = dict(fmt=markers.get(owner, "s"), ms=2.5, lw=0.6, color=f"C{j}",
-                          mfc="white" if owner >= 0 else f"C{j}")
-                top.errorbar(phase[rows], own_signal[rows], sigma[rows], label=tag, **kw)
-                bottom.errorbar(phase[rows], residual[rows], sigma[rows], **kw)
-        grid = np.linspace(0.0, 1.0, 400)
-        curve = _phase_curve(model, name, orbit, grid)
-        if np.any(vel.owner < 0):
-            top.plot(grid, -orbit["k_primary"] * curve, color="k", lw=1.0,
-                     label="model, primary")
-        if np.any(vel.owner == k):
-            top.plot(grid, orbit["k_companion"] * curve, color="k", lw=1.0, ls="--",
-                     label=f"model, {name}")
-        bottom.axhline(0.0, color="k", lw=0.8)
-        top.set_title(f"{name}: P = {orbit['period']:.6g} d")
-        top.set_ylabel("radial velocity [km/s]")
-        bottom.set_ylabel("O - C [km/s]")
-        bottom.set_xlabel("orbital phase (0 = periapsis)")
-        bottom.set_xlim(0.0, 1.0)
-        top.legend(loc="best")
+def _draw_phase_column(top, bottom, view, k, name):
+    model, vel = view.model, view.vel
+    orbit = {key: v[0] for key, v in view.phys["companions"][name].items()}
+    total = view.parts["total"][0]
+    own_signal = vel.rv - (total - view.parts["companions"][name][0]) + view.reference
+    phase = _orbital_phase(model, name, orbit, vel.t)
+    for rows, body, colour, marker, label in view.groups():
+        _errorbars(top, phase[rows], own_signal[rows], view.sigma[rows], colour, marker,
+                   "rv-data")
+        _errorbars(bottom, phase[rows], view.residual[rows], view.sigma[rows], colour,
+                   marker, "rv-residuals")
+    grid = np.linspace(0.0, 1.0, 400)
+    curve = _phase_curve(model, name, orbit, grid)
+    if np.any(vel.owner < 0):
+        top.plot(grid, view.reference - orbit["k_primary"] * curve, color="C0", lw=0.8,
+                 gid="rv-model")
+    if np.any(vel.owner == k):
+        top.plot(grid, view.reference + orbit["k_companion"] * curve, color=f"C{1 + k}",
+                 lw=0.8, gid="rv-model")
+    top.axhline(view.reference, color="0.5", lw=0.5, ls=":")
+    bottom.axhline(0.0, color="k", lw=0.5)
+    top.set_title(f"{name}: P = {orbit['period']:.6g} d", fontsize=8)
+    if k == 0:
+        top.set_ylabel("radial velocity [km s$^{-1}$]")
+        bottom.set_ylabel("O$-$C [km s$^{-1}$]")
+    bottom.set_xlabel("orbital phase (0 = periapsis)")
+    bottom.set_xlim(0.0, 1.0)
+    _velocity_legend(top, view)
 
 
 def _orbital_phase(model, name, orbit, t):
@@ -807,3 +951,4 @@ def _phase_curve(model, name, orbit, phase):
 
 
 FIGURES["rv"] = velocity_plot
+FIGURES["rv_time"] = velocity_time_plot

@@ -331,6 +331,12 @@ class FitResult:
 
         return velocity_plot(self, **kwargs)
 
+    def velocity_time_plot(self, **kwargs):
+        """Radial velocities against time, with residuals; see :func:`massfit.plots.velocity_time_plot`."""
+        from .plots import velocity_time_plot
+
+        return velocity_time_plot(self, **kwargs)
+
     def orbit_plot(self, **kwargs):
         """Sky-plane orbits with the data; see :func:`massfit.plots.orbit_plot`."""
         from .plots import orbit_plot

@@ -15,6 +15,12 @@ campaigns cover 12 years, a third of the orbit including its periastron: one rep
 separation and position angle, the other east/north offsets with correlated errors.
 The parallax is known to 0.05 mas; the companion's mass is known roughly from its
 brightness (a prior), so the relative orbit gives the star's own mass.
+
+*Sorrel*: an invented double-lined binary, Sorrel-A (1.15 M_sun) and Sorrel-B
+(0.82 M_sun) on a 2.9-year orbit, with a visual orbit from invented interferometry and
+the velocities of both stars from two invented spectrographs (Halden and Quillon, whose
+zero points differ by 0.9 km/s). No parallax is given: the visual orbit in mas and the
+velocity orbit in km/s give the distance, and both masses follow.
 """
 
 from __future__ import annotations
@@ -28,7 +34,7 @@ from astropy.time import Time
 from .constants import GM_SUN_KM3_S2, MASS_UNITS
 from .simulate import Elements, simulate_astrometry, write_scenario
 
-__all__ = ["orvane", "mirren", "demo_setup", "write_all", "DEMO_DIR", "PACKAGE_DATA",
+__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "DEMO_DIR", "PACKAGE_DATA",
            "SCENARIOS"]
 
 PACKAGE_DATA = Path(__file__).parent / "data"
@@ -95,6 +101,20 @@ def demo_setup():
                     sampler=SamplerSettings(seed=7), source={"demo": "orvane"})
 
 
+def _offsets_table(simulated, decimals, description):
+    """East/north offsets (mas, rounded) with JD TDB times, ready to write as ECSV."""
+    from astropy.table import Table
+
+    table = Table()
+    table["time"] = simulated["time"].tdb.jd
+    table["body"] = simulated["body"]
+    for col in ("east", "north", "east_err", "north_err"):
+        table[col] = np.round(simulated[col].to_value(u.mas), decimals) * u.mas
+    table["corr"] = simulated["corr"]
+    table.meta.update(time_format="jd", time_scale="tdb", description=description)
+    return table
+
+
 def mirren(seed=20261202):
     """The Mirren system: ({file name: table}, truth)."""
     from astropy.table import Table
@@ -132,13 +152,7 @@ def mirren(seed=20261202):
     offsets = simulate_astrometry(
         {"Mirren-b": Time(t_b, format="jd", scale="tdb")}, elements, host,
         parallax=parallax, error=1.2 * u.mas, corr=-0.35, seed=seed + 1)
-    cartesian = Table()
-    cartesian["time"] = offsets["time"].tdb.jd
-    cartesian["body"] = offsets["body"]
-    for col in ("east", "north", "east_err", "north_err"):
-        cartesian[col] = np.round(offsets[col].to_value(u.mas), 3) * u.mas
-    cartesian["corr"] = offsets["corr"]
-    cartesian.meta.update(time_format="jd", time_scale="tdb", description=(
+    cartesian = _offsets_table(offsets, 3, (
         "Invented example: campaign B's east/north offsets of Mirren-b with correlated "
         "errors. Made by massfit.scenarios.mirren()."))
     truth = {
@@ -154,6 +168,65 @@ def mirren(seed=20261202):
         "seed": seed,
     }
     return {"campaign_a_polar.ecsv": polar, "campaign_b_offsets.ecsv": cartesian}, truth
+
+
+def sorrel(seed=20261203):
+    """The Sorrel binary: ({file name: table}, truth)."""
+    from astropy.table import Table
+
+    from .simulate import simulate_velocities
+
+    primary_mass, companion_mass = 1.15, 0.82
+    parallax = 22.4 * u.mas
+    elements = {"Sorrel-B": Elements(period=1060.0, ecc=0.38, inc=71.0, omega=48.0,
+                                     node=152.0, periapsis_time=2460420.0,
+                                     mass=companion_mass)}
+    rng = np.random.default_rng(seed)
+    t_ast = Time(2460000.5 + np.sort(rng.uniform(0, 6 * 365.25, 14)), format="jd",
+                 scale="tdb")
+    ast = simulate_astrometry({"Sorrel-B": t_ast}, elements, primary_mass,
+                              parallax=parallax, error=0.15 * u.mas, corr=0.25,
+                              seed=seed + 1)
+    astrometry = _offsets_table(ast, 4, (
+        "Invented example: interferometric east/north offsets of Sorrel-B from "
+        "Sorrel-A. Made by massfit.scenarios.sorrel()."))
+    gamma = -12.4
+    blocks = []
+    for label, start, years, n, err, zero_point, k in (
+            ("Halden", 2459900.5, 3.5, 18, 0.25, 0.0, 2),
+            ("Quillon", 2461000.5, 3.5, 12, 0.40, 0.9, 3)):
+        t = Time(start + np.sort(rng.uniform(0, years * 365.25, n)), format="jd",
+                 scale="tdb")
+        blocks.append(simulate_velocities(
+            {"Sorrel-A": t, "Sorrel-B": t}, elements, primary_mass, primary="Sorrel-A",
+            gamma=(gamma + zero_point) * u.km / u.s, error=err * u.km / u.s,
+            instrument=label, seed=seed + k))
+    velocities = Table()
+    velocities["time"] = np.concatenate([b["time"].tdb.jd for b in blocks])
+    velocities["body"] = np.concatenate([np.asarray(b["body"]) for b in blocks])
+    velocities["rv"] = np.round(np.concatenate([b["rv"].to_value(u.km / u.s)
+                                                for b in blocks]), 3) * u.km / u.s
+    velocities["rv_err"] = np.concatenate([b["rv_err"].to_value(u.km / u.s)
+                                           for b in blocks]) * u.km / u.s
+    velocities["instrument"] = np.concatenate([np.asarray(b["instrument"]) for b in blocks])
+    velocities.sort("time")
+    velocities.meta.update(time_format="jd", time_scale="tdb", description=(
+        "Invented example: radial velocities of both stars of Sorrel from two "
+        "spectrographs. Made by massfit.scenarios.sorrel()."))
+    truth = {
+        "scenario": "Sorrel: an invented double-lined binary with a visual orbit",
+        "central_mass_Msun": primary_mass,
+        "central_gm_km3_s2": primary_mass * GM_SUN_KM3_S2,
+        "companion_mass_Msun": companion_mass,
+        "parallax_mas": parallax.to_value(u.mas),
+        "systemic_velocity_km_s": gamma,
+        "instrument_zero_points_km_s": {"Halden": 0.0, "Quillon": 0.9},
+        "companions": {name: dict(el) for name, el in elements.items()},
+        "astrometric_error_mas": 0.15, "east_north_correlation": 0.25,
+        "velocity_errors_km_s": {"Halden": 0.25, "Quillon": 0.40},
+        "seed": seed,
+    }
+    return {"visual_orbit.ecsv": astrometry, "velocities.ecsv": velocities}, truth
 
 
 _README = {
@@ -192,7 +265,42 @@ Invented for massfit's examples; no real object is described.
   companion's mass from its brightness, as a normal prior of 14 +/- 3 Jupiter masses
   (`config.toml` says both). `massfit fit config.toml`.
 """,
+    "sorrel": """# Sorrel: a double-lined binary with a visual orbit
+
+Invented for massfit's examples; no real object is described.
+
+- **Truth**: Sorrel-A has {central_mass_Msun} and Sorrel-B {companion_mass_Msun} solar
+  masses, at a parallax of {parallax_mas} mas; systemic velocity {systemic_velocity_km_s}
+  km/s. The orbit: P = {b_period} d, e = {b_ecc}, i = {b_inc} deg, omega = {b_omega} deg
+  (of Sorrel-B about Sorrel-A), Omega = {b_node} deg (the node where Sorrel-B recedes),
+  periastron at JD {b_tp}; all in `truth.json`.
+- **How it was made**: `massfit.scenarios.sorrel()` (seed {seed}).
+  `visual_orbit.ecsv`: 14 epochs of east/north offsets of Sorrel-B over 6 years
+  (errors {astrometric_error_mas} mas, correlation {east_north_correlation}).
+  `velocities.ecsv`: both stars' velocities from the spectrographs Halden (18 epochs,
+  0.25 km/s) and Quillon (12 epochs, 0.40 km/s; its zero point is 0.9 km/s higher).
+- **Fit**: `massfit fit config.toml`. No parallax is given: the fit measures it (an
+  orbital parallax), and the two stars' velocities give the mass ratio, so both masses
+  follow; the velocities also tell the ascending node from the descending one.
+""",
 }
+
+_SORREL_CONFIG = """# Sorrel: both masses and the distance from a visual orbit and two stars' velocities.
+[data]
+files = ["visual_orbit.ecsv", "velocities.ecsv"]
+
+[system]
+primary = "Sorrel-A"
+
+[companions.Sorrel-B]
+mass_prior = {kind = "log-uniform", low = "0.01 Msun", high = "10 Msun"}
+
+[sampler]
+seed = 3
+
+[output]
+folder = "fit-out"
+"""
 
 _MIRREN_CONFIG = """# Mirren: fit the host star's mass from the companion's partial orbit.
 [data]
@@ -221,26 +329,28 @@ def _readme(name, truth):
         return _README[name].format(
             periods=", ".join(f"{c['period']:g}" for c in comps),
             inclinations=", ".join(f"{c['inc']:g}" for c in comps), **truth)
-    b = truth["companions"]["Mirren-b"]
-    return _README[name].format(
-        b_mass=b["mass"], b_period=b["period"], b_years=b["period"] / 365.25,
-        b_ecc=b["ecc"], b_inc=b["inc"], b_omega=b["omega"], b_node=b["node"],
-        b_tp=b["periapsis_time"], sep_err=truth["campaign_a_errors"]["sep_mas"],
-        pa_err=truth["campaign_a_errors"]["pa_deg"],
-        en_err=truth["campaign_b_errors"]["east_north_mas"],
-        en_corr=truth["campaign_b_errors"]["east_north_correlation"], **truth)
+    b = next(iter(truth["companions"].values()))
+    fields = dict(b_mass=b["mass"], b_period=b["period"], b_years=b["period"] / 365.25,
+                  b_ecc=b["ecc"], b_inc=b["inc"], b_omega=b["omega"], b_node=b["node"],
+                  b_tp=b["periapsis_time"])
+    if name == "mirren":
+        fields.update(sep_err=truth["campaign_a_errors"]["sep_mas"],
+                      pa_err=truth["campaign_a_errors"]["pa_deg"],
+                      en_err=truth["campaign_b_errors"]["east_north_mas"],
+                      en_corr=truth["campaign_b_errors"]["east_north_correlation"])
+    return _README[name].format(**fields, **truth)
 
 
-def _write_mirren(folder):
+def _write_tables(folder, make, config):
     import json
 
-    tables, truth = mirren()
+    tables, truth = make()
     folder.mkdir(parents=True, exist_ok=True)
     for file_name, table in tables.items():
         table.write(folder / file_name, format="ascii.ecsv", overwrite=True)
     with open(folder / "truth.json", "w") as handle:
         json.dump(truth, handle, indent=2)
-    (folder / "config.toml").write_text(_MIRREN_CONFIG)
+    (folder / "config.toml").write_text(config)
     return truth
 
 
@@ -254,7 +364,9 @@ def _write_orvane(folder):
 
 
 #: Scenario name -> writer of its folder (returns the truth).
-SCENARIOS = {"orvane": _write_orvane, "mirren": _write_mirren}
+SCENARIOS = {"orvane": _write_orvane,
+             "mirren": lambda folder: _write_tables(folder, mirren, _MIRREN_CONFIG),
+             "sorrel": lambda folder: _write_tables(folder, sorrel, _SORREL_CONFIG)}
 
 
 def write_all(root="example_obs"):

@@ -72,3 +72,19 @@ def small_result():
     return massfit.fit([str(p) for p in paths], parallax=f"{PARALLAX_MAS} mas",
                        parallax_err="0.2 mas", seed=2, max_steps=400, walkers=40,
                        progress=False)
+
+
+@functools.lru_cache(maxsize=None)
+def sorrel_result():
+    """A short fit of the Sorrel double-lined binary (example_obs), once per run."""
+    import warnings
+    from pathlib import Path
+
+    import massfit
+
+    folder = Path(__file__).resolve().parents[1] / "example_obs" / "sorrel"
+    setup = massfit.load_config(folder / "config.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        obs = massfit.read_observations(setup.files, **setup.read_options)
+    return massfit.fit(obs, setup.system, seed=3, max_steps=150, progress=False)
