@@ -264,9 +264,9 @@ def result_row(job: BatchJob, summary: dict, seconds: float) -> dict:
     row["converged"] = bool(summary["converged"])
     for prefix, key in (("mass", "central_mass"), ("mass_msun", "central_mass_solar"),
                         ("gm", "central_gm")):
-        block = summary[key]
+        block = summary[key]  # None where velocities alone leave the mass open
         for part in _INTERVAL_KEYS:
-            value = block[part]
+            value = None if block is None else block[part]
             row[f"{prefix}_{part}"] = np.nan if value is None else float(value)
     diag = summary["diagnostics"]
     row["steps"] = int(diag["steps"])

@@ -285,8 +285,10 @@ def _run(setup, args, *, record):
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
     if not args.quiet:
-        print(f"massfit: read {observations.rows_used} rows of "
-              f"{len(observations.companions)} companion(s) from "
+        velocities = observations.velocities
+        n_rv = 0 if velocities is None else len(velocities)
+        print(f"massfit: read {observations.rows_used} rows ({n_rv} radial velocities) "
+              f"of {len(observations.companions)} companion(s) from "
               f"{len(observations.files)} file(s); finding a starting orbit...",
               file=sys.stderr)
     result = fit(observations, system, sampler=sampler, record=record)

@@ -119,6 +119,7 @@ def test_companion_at_its_ascending_node_is_receding(node_passage):
 # --------------------------------------------------------------- single-lined (SB1)
 SB1_TRUTH = dict(period=37.4, ecc=0.28, inc=55.0, omega=120.0, node=0.0,
                  periapsis_time=2459021.3, mass=0.08)
+SB1_SLOPE = 2.5e-3  # km/s per day: an unseen outer body
 
 
 @pytest.fixture(scope="module")
@@ -127,11 +128,13 @@ def sb1_fit(tmp_path_factory):
     rng = np.random.default_rng(21)
     table = simulate_velocities({"Aubel": _times(rng, 45)}, {"b": Elements(**SB1_TRUTH)},
                                 0.95, primary="Aubel", gamma=-31.2 * u.km / u.s,
-                                error=0.15 * u.km / u.s, jitter=0.1 * u.km / u.s, seed=22)
+                                error=0.15 * u.km / u.s, jitter=0.1 * u.km / u.s,
+                                slope=SB1_SLOPE * u.km / u.s / u.day, seed=22)
     write_scenario(folder, table, None, name="aubel.ecsv")
     obs = massfit.read_observations(folder / "aubel.ecsv", primary="Aubel")
     system = SystemSpec(primary="Aubel", central_mass=massfit.Normal(0.95, 0.05, low=0.0),
-                        companions={"b": massfit.CompanionSpec("b")}, strict_companions=True)
+                        companions={"b": massfit.CompanionSpec("b")}, strict_companions=True,
+                        trend="linear")
     result = massfit.fit(obs, system, **QUICK)
     return result, folder
 
@@ -168,7 +171,12 @@ def test_sb1_states_that_the_central_mass_is_not_fixed(sb1_fit):
     assert "not determined" in result.report()
     assert (out / "rv.png").exists() and (out / "rv.pdf").exists()
     assert not (out / "orbits.png").exists()  # no sky orbit without astrometry
-    assert "jitter" in summary["velocities"]
+    # The nuisance terms: offset (gamma), jitter (0.1 km/s) and the linear trend.
+    velocities = summary["velocities"]
+    assert _inside_95(velocities["offset"]["aubel"], -31.2)
+    assert _inside_95(velocities["jitter"]["aubel"], 0.1)
+    assert _inside_95(velocities["trend_slope"], SB1_SLOPE)
+    assert not _inside_95(velocities["trend_slope"], 0.0)  # the trend is detected
 
 
 # --------------------------------------------------------------- double-lined (SB2)
@@ -338,3 +346,30 @@ def test_config_velocity_keys(tmp_path):
     with pytest.raises(ConfigError, match="jitter cannot be negative"):
         parse_config({"data": {"files": ["v.csv"]}, "velocities": {"jitter_prior": {
             "kind": "uniform", "low": "-1 m/s", "high": "1 m/s"}}}, base=tmp_path)
+
+
+def test_primary_reflex_with_astrometry_separates_the_two_masses(tmp_path):
+    # A single-lined binary with a visual orbit and a known parallax: astrometry fixes
+    # M1 + m2, the primary's reflex fixes m2 / (M1 + m2).
+    el = {"Quill": Elements(period=1500.0, ecc=0.2, inc=48.0, omega=300.0, node=110.0,
+                            periapsis_time=2459300.0, mass=0.25)}
+    rng = np.random.default_rng(41)
+    ta = Time(2458800.0 + np.sort(rng.uniform(0, 1800, 14)), format="jd", scale="tdb")
+    tv = Time(2458800.0 + np.sort(rng.uniform(0, 1800, 16)), format="jd", scale="tdb")
+    ast = simulate_astrometry({"Quill": ta}, el, 0.9, parallax=55 * u.mas,
+                              error=0.3 * u.mas, seed=42)
+    vel = simulate_velocities({"primary": tv}, el, 0.9, gamma=3 * u.km / u.s,
+                              error=0.05 * u.km / u.s, seed=43)
+    write_scenario(tmp_path, ast, None, name="ast.ecsv")
+    write_scenario(tmp_path, vel, None, name="rv.ecsv")
+    obs = massfit.read_observations([tmp_path / "ast.ecsv", tmp_path / "rv.ecsv"])
+    result = massfit.fit(obs, parallax="55 mas", parallax_err="0.3 mas", **QUICK)
+    s = result.summary
+    assert s["converged"] is True
+    assert _inside_95(s["central_mass_solar"], 0.9)
+    quill = s["companions"]["Quill"]
+    assert _inside_95(quill["mass"], 0.25)
+    assert quill["node_ambiguity_deg"] == 0.0
+    assert _inside_95(quill["ascending_node"], 110.0)
+    # Negative control: a companion of half the mass is excluded.
+    assert not _inside_95(quill["mass"], 0.125)
