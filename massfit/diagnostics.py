@@ -151,7 +151,7 @@ def residual_periodogram(residuals: Residuals, *, orbital_period=None,
         f_max = max(f_max, 5.0 / orbital_period)
     f_min = 1.0 / span
     n = int(min(max_points, samples_per_peak * span * (f_max - f_min) + 1))
-    frequency = np.linspace(f_min, f_max, max(n, 100))
+    frequency = np.linspace(f_min, f_max, max(n, 2000))  # smooth to the eye as well
     ls = LombScargle(t, y, dy=np.ones_like(y), normalization="standard")
     power = ls.power(frequency)
     k = int(np.argmax(power))

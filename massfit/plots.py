@@ -628,9 +628,10 @@ def residual_plot(result, *, companions=None, width=None):
             ax.text(0.01, 0.95, rf"{name}: $\chi^2/N = {chi2:.2f}$", transform=ax.transAxes,
                     ha="left", va="top", fontsize=7)
             lim = max(4.0, 1.1 * float(np.max(np.abs(res.normalised))))
-            ax.set_ylim(-lim, lim)
+            # Headroom above the points for the label and the legend.
+            ax.set_ylim(-lim, 1.8 * lim)
         for ax in axes[:, 0]:
-            ax.legend(loc="upper right", ncol=4, frameon=False, fontsize=6,
+            ax.legend(loc="upper right", ncol=2, frameon=False, fontsize=6,
                       handletextpad=0.2, columnspacing=0.8)
         axes[-1, 0].set_xlabel("epoch [Julian year, TDB]")
     return fig
@@ -694,7 +695,7 @@ def periodogram_plot(result, *, companions=None, width=None):
             for fap, style_ in ((FAP_THRESHOLD, "--"), (0.1 * FAP_THRESHOLD, ":")):
                 ax.axhline(pgram["levels"][fap], color="0.4", lw=0.6, ls=style_,
                            label=f"FAP {100 * fap:g} %")
-            if periods.get(name):
+            if periods.get(name) and period_axis.min() <= periods[name] <= period_axis.max():
                 ax.axvline(periods[name], color="C0", lw=0.6, ls=":",
                            label="orbital period")
             flagged = pgram["fap"] < FAP_THRESHOLD
@@ -710,10 +711,18 @@ def periodogram_plot(result, *, companions=None, width=None):
                         color="C3", ms=5, ls="none", gid="flagged-peak")
             ax.set_xscale("log")
             _plain_log_ticks(ax.xaxis)
-            ax.set_ylim(0, max(1.15 * pgram["best_power"],
-                               1.3 * pgram["levels"][0.1 * FAP_THRESHOLD]))
+            # Headroom above the false-alarm lines for the label and the legend.
+            ax.set_ylim(0, 1.6 * max(pgram["best_power"],
+                                     pgram["levels"][0.1 * FAP_THRESHOLD]))
             ax.set_xlim(period_axis.min(), period_axis.max())
-        axes[0, 0].legend(loc="upper right", frameon=False, fontsize=6)
+        # One legend for all panels, above them, clear of each panel's label.
+        entries = {}
+        for ax in axes[:, 0]:
+            for handle, label in zip(*ax.get_legend_handles_labels()):
+                entries.setdefault(label, handle)
+        if entries:
+            fig.legend(list(entries.values()), list(entries), loc="outside upper center",
+                       ncol=len(entries), frameon=False, fontsize=6, handlelength=1.5)
         axes[-1, 0].set_xlabel("period of the residual signal [d]")
     return fig
 

@@ -272,6 +272,12 @@ def markdown_table(summary: dict, *, mass_unit: str | None = None) -> str:
     return "\n".join(lines) + "\n"
 
 
+_HTML_UNITS = {"km3 / s2": "km<sup>3</sup>&thinsp;s<sup>&minus;2</sup>",
+               "km / s": "km&thinsp;s<sup>&minus;1</sup>", "deg": "&deg;",
+               "M_sun": "M<sub>&#9737;</sub>", "M_jup": "M<sub>J</sub>",
+               "M_earth": "M<sub>&#8853;</sub>"}
+
+
 def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
     """The parameter summary as an HTML table (for notebooks)."""
     from html import escape
@@ -288,9 +294,10 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
         value = "undetermined" if rounded is None else rounded.html()
         wide = ("" if row.block.get("lower_95") is None else
                 f"{row.block['lower_95']:.6g} &ndash; {row.block['upper_95']:.6g}")
+        unit = _HTML_UNITS.get(row.unit_text, escape(row.unit_text))
         out.append(f"<tr><td style='text-align:left'>{escape(row.name)}</td>"
                    f"<td style='text-align:right'>{value}</td>"
-                   f"<td style='text-align:left'>{escape(row.unit_text)}</td>"
+                   f"<td style='text-align:left'>{unit}</td>"
                    f"<td style='text-align:right'>{wide}</td></tr>")
     out += ["</tbody>", "</table>"]
     return "\n".join(out)
