@@ -134,6 +134,10 @@ def _velocity_warnings(model):
         out.append(f"no radial velocities of the primary '{model.observations.primary}': "
                    f"the rows of {names} are read as a companion's own velocities; if "
                    f"one of them is the primary, name it (system.primary or --primary)")
+    if model.velocity_only and len(model.companions) > 1:
+        out.append("velocities alone: the companions' names were given to the signals in "
+                   "the order found (strongest first); give each a period prior to pin "
+                   "which is which")
     return out
 
 

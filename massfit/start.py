@@ -532,8 +532,11 @@ def _inside(prior, value):
     if prior.is_fixed:
         return prior.value
     low, high = prior.low, prior.high
+    if low < value < high:
+        return float(value)
+    # Outside (or on the edge): just inside, by a step small against any sensible scale.
     width = high - low if np.isfinite(high - low) else max(abs(value), 1.0)
-    return float(np.clip(value, low + 1e-3 * width, high - 1e-3 * width))
+    return float(np.clip(value, low + 1e-9 * width, high - 1e-9 * width))
 
 
 def _velocity_nuisance(model, coef, fitted):
