@@ -152,6 +152,8 @@ class FitResult:
             "steps": int(chain.steps),
             "max_autocorr_steps": float(np.max(chain.tau)),
             "effective_samples": chain.effective_samples(k_mass),
+            # Of the central mass where it is sampled, else of the first coordinate.
+            "effective_samples_of": names[k_mass] if names else None,
             "sampling_seconds": float(chain.seconds),
             "acceptance_fraction": float(chain.acceptance_fraction),
             "burn_in_steps": int(chain.burn_in),
@@ -219,7 +221,9 @@ class FitResult:
                      f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
                      f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
                      f"acceptance {d['acceptance_fraction']:.2f}")
-        lines.append(f"  effective samples of the mass: {d['effective_samples']:.0f}; "
+        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
+        of = "the mass" if of == "central.log10_mass" else of
+        lines.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
         for mode in s["modes"]:

@@ -169,6 +169,8 @@ def test_sb1_states_that_the_central_mass_is_not_fixed(sb1_fit):
     assert summary["central_gm"] is None
     assert "do not fix the central mass" in summary["central_mass_note"]
     assert "not determined" in result.report()
+    # No central mass is sampled: the effective sample count says what it is of.
+    assert summary["diagnostics"]["effective_samples_of"] == "b.log10_period"
     assert (out / "rv.png").exists() and (out / "rv.pdf").exists()
     assert not (out / "orbits.png").exists()  # no sky orbit without astrometry
     # The nuisance terms: offset (gamma), jitter (0.1 km/s) and the linear trend.
