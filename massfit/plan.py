@@ -108,12 +108,15 @@ class AssumedSystem:
                  for name in self.companions}
         return SystemSpec(parallax=plx, companions=comps, strict_companions=True)
 
-    def draw_parallax(self, rng) -> float | None:
-        """A simulated measurement of the parallax (mas), or None where it is fixed."""
+    def simulated_spec(self, seed) -> SystemSpec:
+        """The assumptions of a simulated fit: the parallax prior is centred on a
+        measurement drawn about the true parallax (seeded), not on the truth itself,
+        as a real measurement would scatter."""
         if self.parallax is None or self.parallax_err is None:
-            return None
-        return float(rng.normal(self.parallax.to_value(u.mas),
-                                self.parallax_err.to_value(u.mas)))
+            return self.spec()
+        rng = np.random.default_rng([seed, 1])
+        return self.spec(measured_parallax=float(rng.normal(
+            self.parallax.to_value(u.mas), self.parallax_err.to_value(u.mas))))
 
     def _companion_mass(self, name) -> float:
         mass = self.companions[name].get("mass")
@@ -1010,6 +1013,10 @@ class PlanResult:
                              f"{'inside' if c['truth_inside_95'] else 'OUTSIDE'} the 95% "
                              f"interval; chain "
                              f"{'converged' if c['converged'] else 'NOT converged'}")
+                if c.get("fit_chi2", 0) > 3 * c.get("values", np.inf):
+                    lines.append(f"    the fit has chi2 = {c['fit_chi2']:.4g} for "
+                                 f"{c['values']} values: it found another solution "
+                                 f"(an alias?), so this schedule may not fix the orbit")
         lines.append("")
         lines.append(self.paragraph())
         wide = [row["n_epochs"] for row in self.curve
@@ -1475,8 +1482,7 @@ def _check_schedule(system, schedule, label, n_added, forecast, steps, seed):
     from .sample import SamplerSettings
 
     obs = simulated_observations(system, schedule, seed=seed)
-    measured = system.draw_parallax(np.random.default_rng([seed, 1]))
-    spec = system.spec(measured_parallax=measured)
+    spec = system.simulated_spec(seed)
     settings = SamplerSettings(max_steps=max(int(steps), 100),
                                check_every=max(50, min(500, int(steps) // 4)),
                                seed=seed, progress=False)
@@ -1497,6 +1503,10 @@ def _check_schedule(system, schedule, label, n_added, forecast, steps, seed):
             "fit_gm_median": block["median"], "true_gm": float(truth),
             "truth_inside_95": bool(block["lower_95"] <= truth <= block["upper_95"]),
             "converged": result.converged, "steps": int(result.chain.steps),
+            # A chi^2 far above the number of values means the fit found another
+            # solution (a period alias, most often), not the assumed orbit.
+            "fit_chi2": float(result.start.chi2),
+            "values": int(2 * len(obs.astrometry)),
             "seed": seed}
 
 
@@ -1519,8 +1529,7 @@ def fit_scatter(system: AssumedSystem, schedule: Schedule, *, realisations: int 
     masses = []
     failed = 0
     for k in range(realisations):
-        spec = system.spec(measured_parallax=system.draw_parallax(
-            np.random.default_rng([seed + k, 1])))
+        spec = system.simulated_spec(seed + k)
         model = OrbitModel(simulated_observations(system, schedule, seed=seed + k), spec)
         theta = _least_squares(model, system.physical(model))
         if theta is None:

@@ -34,7 +34,7 @@ from astropy.time import Time
 from .constants import GM_SUN_KM3_S2, MASS_UNITS
 from .simulate import Elements, simulate_astrometry, write_scenario
 
-__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "DEMO_DIR", "PACKAGE_DATA",
+__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "planning_system", "DEMO_DIR", "PACKAGE_DATA",
            "SCENARIOS"]
 
 PACKAGE_DATA = Path(__file__).parent / "data"
@@ -99,6 +99,50 @@ def demo_setup():
     return FitSetup(files=[DEMO_DIR / "moons.ecsv"], read_options={},
                     system=SystemSpec(primary="Orvane"),
                     sampler=SamplerSettings(seed=7), source={"demo": "orvane"})
+
+
+def planning_system(name, **elements):
+    """An invented system for the observation planner's validation and benchmark.
+
+    ``name`` is ``"Wren"`` (a 0.74 M_sun star at 24 mas with an 11.8-year companion,
+    the system of ``example_obs/plan_wren``), ``"Pipit"`` (a 0.21 M_sun dwarf at
+    85 mas, fixed parallax, with a 612-day companion) or ``"Eld+Fenn"`` (a giant
+    planet of 1.6 M_jup with two moons, offsets in km). Keyword arguments replace
+    the (single) companion's elements, e.g. ``ecc=0.55``.
+    """
+    import astropy.units as u
+
+    from .plan import AssumedSystem
+
+    def tdb(text):
+        return Time(text, scale="tdb")
+
+    if name == "Wren":
+        system = AssumedSystem(
+            central_mass=0.74 * u.M_sun, parallax=24.0 * u.mas, parallax_err=0.05 * u.mas,
+            companions={"Wren": dict(period=4310.0, ecc=0.42, inc=58.0, omega=212.0,
+                                     node=104.0, periapsis_time=tdb("2029-05-14T00:00:00"))})
+    elif name == "Pipit":
+        system = AssumedSystem(
+            central_mass=0.21 * u.M_sun, parallax=85.0 * u.mas,
+            companions={"Pipit": dict(period=612.0, ecc=0.08, inc=121.0, omega=30.0,
+                                      node=250.0, periapsis_time=tdb("2026-08-01T00:00:00"),
+                                      mass=0.02 * u.M_sun)})
+    elif name == "Eld+Fenn":
+        system = AssumedSystem(
+            central_mass=1.6 * u.M_jup,
+            companions={"Eld": dict(period=3.71, ecc=0.01, inc=87.0, omega=10.0, node=33.0,
+                                    periapsis_time=tdb("2027-01-02T00:00:00")),
+                        "Fenn": dict(period=11.9, ecc=0.05, inc=86.0, omega=200.0,
+                                     node=34.0, periapsis_time=tdb("2027-01-05T00:00:00"))})
+    else:
+        raise ValueError(f"no planning system called {name!r}")
+    if elements:
+        (body,) = system.companions
+        system.companions[body] = {k: v for k, v in dict(system.companions[body],
+                                                         **elements).items()
+                                   if v is not None}
+    return system
 
 
 def _offsets_table(simulated, decimals, description):

@@ -149,7 +149,7 @@ def test_check_fit_agrees_with_forecast():
     past = schedule("2025-01-01T00:00:00", "2027-01-01T00:00:00", "60 d")
     cand = schedule("2027-03-01T00:00:00", "2030-01-01T00:00:00", "60 d")
     result = plan_observations(system, cand, observed=past, n_next=3, check=1,
-                               check_steps=1500, seed=2)
+                               check_steps=1000, seed=2)
     check = result.checks[0]
     assert check["schedule"] == "planned"
     assert 0.7 < check["ratio"] < 1.3, check
@@ -240,7 +240,7 @@ def test_cli_plan_from_a_fit_folder(tmp_path, capsys):
     system = calder()
     past = schedule("2025-01-01T00:00:00", "2028-06-01T00:00:00", "60 d", "0.3 mas")
     obs = simulated_observations(system, past, seed=5)
-    result = massfit.fit(obs, system.spec(), seed=1, max_steps=1500, progress=False)
+    result = massfit.fit(obs, system.spec(), seed=1, max_steps=1000, progress=False)
     folder = result.save(tmp_path / "fit", plots=False)
     status = main(["plan", str(folder), "--start", "2028-09-01T00:00:00", "--stop",
                    "2031-01-01T00:00:00", "--every", "30 d", "--error", "0.3 mas",
