@@ -728,6 +728,8 @@ class Posterior:
     source : str
     converged : bool or None
         What the fit said about its own convergence.
+    dropped : int
+        Samples left out because some element was not finite.
     """
 
     gm: np.ndarray
@@ -735,6 +737,7 @@ class Posterior:
     companions: dict
     source: str = "<posterior>"
     converged: bool | None = None
+    dropped: int = 0
 
     def central_mass(self) -> u.Quantity:
         """Median central mass (nominal M_sun, i.e. GM / GM_sun)."""
@@ -845,14 +848,11 @@ def read_posterior(folder) -> Posterior:
     if good.sum() < 100:
         raise InputError(f"only {int(good.sum())} usable posterior samples; the planner "
                          f"needs at least 100", file=path)
-    if not good.all():
-        # Non-finite samples cannot be propagated; say how many were left out.
-        table.meta["planner_dropped"] = int((~good).sum())
     companions = {name: {k: v[good] for k, v in orbit.items()}
                   for name, orbit in companions.items()}
     return Posterior(gm=gm[good], parallax=None if parallax is None else parallax[good],
                      companions=companions, source=str(folder),
-                     converged=table.meta.get("converged"))
+                     converged=table.meta.get("converged"), dropped=int((~good).sum()))
 
 
 class _EnsembleInformation:
@@ -1462,6 +1462,9 @@ def _plan_posterior(posterior, candidates, n_next, seed):
     notes = ["the posterior is updated linearly (as a Gaussian would be); where it is far "
              "from Gaussian (several period modes, a short arc) the ranking is a guide, "
              "and a refit after each new epoch tells the truth"]
+    if posterior.dropped:
+        notes.append(f"{posterior.dropped} posterior sample(s) with a non-finite element "
+                     f"were left out")
     if posterior.converged is False:
         notes.append("the fit this plan starts from did NOT converge; its posterior, and "
                      "so this plan, may be too narrow or too wide")
