@@ -34,8 +34,8 @@ from astropy.time import Time
 from .constants import GM_SUN_KM3_S2, MASS_UNITS
 from .simulate import Elements, simulate_astrometry, write_scenario
 
-__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "planning_system", "DEMO_DIR", "PACKAGE_DATA",
-           "SCENARIOS"]
+__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "planning_system",
+           "DEMO_DIR", "PACKAGE_DATA", "SCENARIOS"]
 
 PACKAGE_DATA = Path(__file__).parent / "data"
 DEMO_DIR = PACKAGE_DATA / "orvane"
