@@ -62,6 +62,7 @@ def _parser() -> argparse.ArgumentParser:
                      help="a polynomial trend in every radial velocity (an unseen outer "
                           "body)")
     _sampler_options(fit)
+    _dynamics_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
     fit.add_argument("--force", action="store_true", help="replace an existing result")
     fit.add_argument("--quiet", action="store_true", help="print only the result")
@@ -194,6 +195,45 @@ def _cmd_redraw(args):
     return EXIT_OK
 
 
+def _dynamics_options(parser):
+    group = parser.add_argument_group("beyond two-body orbits (override the config)")
+    group.add_argument("--dynamics", choices=("keplerian", "oblate", "n-body"),
+                       help="how the companions move (default keplerian)")
+    group.add_argument("--j2", type=float, metavar="J2", help="oblate: the primary's J2")
+    group.add_argument("--equatorial-radius", metavar="'VALUE UNIT'",
+                       help="oblate: the reference radius of J2, e.g. '71492 km'")
+    group.add_argument("--equator-inclination", metavar="'VALUE UNIT'",
+                       help="oblate: the equator's inclination on the sky (with "
+                            "--equator-node; default: each orbit lies in the equator)")
+    group.add_argument("--equator-node", metavar="'VALUE UNIT'",
+                       help="oblate: position angle of the equator's ascending node")
+    group.add_argument("--romer-delay", action="store_true",
+                       help="delay each companion by the light time across the system")
+
+
+_DYNAMICS_OPTIONS = ("j2", "equatorial_radius", "equator_inclination", "equator_node")
+
+
+def _apply_dynamics_options(args, system):
+    """The config's dynamics, changed where the command line says so."""
+    from dataclasses import replace
+
+    from .dynamics import make_dynamics
+
+    given = {k: getattr(args, k, None) for k in _DYNAMICS_OPTIONS}
+    given = {k: v for k, v in given.items() if v is not None}
+    if getattr(args, "romer_delay", False):
+        system = replace(system, romer_delay=True)
+    if getattr(args, "dynamics", None) is None and not given:
+        return system
+    current = getattr(system.dynamics, "label", "keplerian")
+    model = args.dynamics or current
+    # Settings the command line leaves alone keep the config's values.
+    merged = dict(getattr(system.dynamics, "settings", {})) if model == current else {}
+    merged.update(given)
+    return replace(system, dynamics=make_dynamics(model, key_prefix="--", **merged))
+
+
 def _sampler_options(parser):
     parser.add_argument("--seed", type=int, metavar="N", help="random seed (repeats the run)")
     parser.add_argument("--walkers", type=int, metavar="N", help="number of emcee walkers")
@@ -266,6 +306,7 @@ def _setup_from_args(args):
         setup.output = Path(args.out)
     if setup.output is None:
         raise ConfigError("say where to write the result with --out DIR", key="--out")
+    setup.system = _apply_dynamics_options(args, setup.system)
     return setup
 
 

@@ -15,6 +15,7 @@ Layout (every key optional except ``data.files``)::
     parallax_err = "0.3 mas"
     distance = "20.7 pc"              # a fixed distance instead of a parallax
     light_time = true                 # with per-row distances, evaluate at t - d/c
+    romer_delay = false               # light time across the system (along z)
     central_mass_prior = {kind = "log-uniform", low = "1e-6 Msun", high = "1 Msun"}
 
     [companions.Tamsin]               # listing companions makes the list strict
@@ -34,6 +35,14 @@ Layout (every key optional except ``data.files``)::
     [velocities.instruments.Halden]   # one instrument label of the velocity files
     offset_prior = {kind = "normal", mean = "-12.4 km/s", sd = "1 km/s"}  # default flat
     jitter_prior = {kind = "fixed", value = "0 m/s"}
+
+    [dynamics]                        # how the companions move (default: keplerian)
+    model = "oblate"                  # "keplerian", "oblate" (J2) or "n-body"
+    j2 = 0.0147                       # oblate: the primary's J2 ...
+    equatorial_radius = "71492 km"    #   ... at this reference radius
+    equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
+    equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
+    compare_keplerian = true          # adequacy: also fit the two-body model
 
     [sampler]
     walkers = 64
@@ -70,10 +79,13 @@ _SCHEMA = {
     "data": {"files": list, "time_format": str, "time_scale": str, "units": dict,
              "skip_bad_rows": bool},
     "system": {"primary": str, "parallax": str, "parallax_err": str, "distance": str,
-               "light_time": bool, "central_mass_prior": dict},
+               "light_time": bool, "romer_delay": bool, "central_mass_prior": dict},
     "companions": dict,
     "velocities": {"trend": str, "slope_prior": dict, "curvature_prior": dict,
                    "jitter_prior": dict, "instruments": dict},
+    "dynamics": {"model": str, "j2": float, "equatorial_radius": str,
+                 "equator_inclination": str, "equator_node": str,
+                 "compare_keplerian": bool},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
     "output": {"folder": str, "plots": bool},
 }
@@ -161,6 +173,7 @@ def _parse(raw, base, file):
                               key=f"data.units.{col}", file=file)
     system = _system(raw.get("system", {}), raw.get("companions"), file)
     _velocities(system, raw.get("velocities", {}), file)
+    _dynamics(system, raw.get("dynamics", {}), file)
     read_options["primary"] = system.primary
     sampler = SamplerSettings(**raw.get("sampler", {}))
     out = raw.get("output", {})
@@ -188,12 +201,14 @@ def _check_keys(table, schema, prefix, file):
 def _is_type(value, expected):
     if expected is int:
         return isinstance(value, int) and not isinstance(value, bool)
+    if expected is float:
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
     return isinstance(value, expected)
 
 
 def _type_name(kind):
     return {list: "a list", dict: "a table", str: "a string", int: "a whole number",
-            bool: "true or false"}[kind]
+            float: "a number", bool: "true or false"}[kind]
 
 
 def _system(table, companions, file):
@@ -202,7 +217,8 @@ def _system(table, companions, file):
     plx = distance_prior(table.get("parallax"), table.get("parallax_err"),
                          table.get("distance"), key_prefix="system.")
     spec = SystemSpec(primary=table.get("primary", "primary"), parallax=plx,
-                      light_time=table.get("light_time", True))
+                      light_time=table.get("light_time", True),
+                      romer_delay=table.get("romer_delay", False))
     if "central_mass_prior" in table:
         spec.central_mass = _mass_prior(table["central_mass_prior"],
                                         "system.central_mass_prior", file)
@@ -251,6 +267,12 @@ def _jitter_prior(spec, key, file):
     if low < 0:
         raise ConfigError("a jitter cannot be negative", key=key, file=file)
     return prior
+def _dynamics(spec, table, file):
+    from .dynamics import make_dynamics
+
+    options = {k: v for k, v in table.items() if k not in ("model", "compare_keplerian")}
+    spec.dynamics = make_dynamics(table.get("model", "keplerian"), file=file, **options)
+    spec.compare_keplerian = table.get("compare_keplerian", True)
 
 
 def _mass_prior(spec, key, file):

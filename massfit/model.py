@@ -72,6 +72,7 @@ import numpy as np
 
 from . import kepler
 from .constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
+from .dynamics import Keplerian, observed_offsets
 from .errors import ConfigError, InputError, ModelError
 from .observations import Observations
 from .priors import Fixed, LogUniform, Normal, Prior, Uniform
@@ -175,6 +176,16 @@ class SystemSpec:
         unless ``strict_companions`` is set.
     light_time : bool
         Evaluate the orbit at t - d/c for rows with a per-row distance.
+    romer_delay : bool
+        Also delay each companion by the light time across the system (the Romer
+        delay along z, see :func:`massfit.dynamics.observed_offsets`); off by default.
+    dynamics : object or None
+        How the companions move: None or :class:`massfit.dynamics.Keplerian` for
+        two-body orbits, :class:`massfit.oblateness.Oblate` for a J2 primary,
+        :class:`massfit.nbody.NBody` for companions that perturb each other.
+    compare_keplerian : bool
+        With a perturbed ``dynamics``, the adequacy report also fits the two-body
+        model and compares the two (an extra least-squares fit).
     strict_companions : bool
         Refuse data of bodies that are not listed in ``companions``.
     trend : {"none", "linear", "quadratic"}
@@ -198,6 +209,9 @@ class SystemSpec:
     curvature: Prior | None = None
     jitter: Prior | None = None
     instruments: dict = field(default_factory=dict)
+    romer_delay: bool = False
+    dynamics: object | None = None
+    compare_keplerian: bool = True
 
 
 @dataclass
@@ -287,6 +301,11 @@ class OrbitModel:
             np.any(~astrometry.length & ~np.isfinite(astrometry.distance)))
         #: True where the parallax is sampled only because companion velocities fix it.
         self.parallax_from_velocities = False
+        self.dynamics = self.spec.dynamics if self.spec.dynamics is not None else Keplerian()
+        if type(self.dynamics) is not Keplerian and self.has_velocities:
+            raise ModelError(f"the {self.dynamics.label} model fits astrometry only; radial "
+                             f"velocities need the keplerian model for now")
+        self.dynamics.prepare(self)
         if self.needs_parallax and self.spec.parallax is None:
             if self._vel is not None and np.any(self._vel.owner >= 0):
                 self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
@@ -598,10 +617,10 @@ class OrbitModel:
             else:
                 inc = np.arccos(np.clip(col(f"{name}.cos_inc"), -1.0, 1.0))
             mass = self._scale_value(col, f"{name}.mass", comp.mass, n)
-            gm = GM_SUN * (central + mass)
-            with np.errstate(invalid="ignore"):
-                a = np.cbrt(gm * period ** 2 / (4.0 * np.pi ** 2))
-            orbit.update(inc=inc, node=col(f"{name}.node"), mass=mass, semi_major_axis=a)
+            orbit.update(inc=inc, node=col(f"{name}.node"), mass=mass)
+            # Kepler's third law, or its corrected form where the dynamics change it.
+            a = self.dynamics.semi_major_axis(GM_SUN * (central + mass), period, orbit)
+            orbit["semi_major_axis"] = a
             if self._vel is not None:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     k_rel = KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
@@ -730,10 +749,10 @@ class OrbitModel:
         """
         theta = np.atleast_2d(theta)
         phys = self.physical(theta, lenient=lenient)
+        offsets = observed_offsets(self, phys)
         parts = []
         for name, rows in self._rows.items():
-            parts.append(self._astrometry_residuals(rows, phys["companions"][name],
-                                                    phys["parallax"], name))
+            parts.append(self._astrometry_residuals(rows, offsets[name], phys["parallax"]))
         if self._vel is not None:
             parts.append(self._velocity_residuals(phys))
         return np.concatenate(parts, axis=1)
@@ -813,24 +832,17 @@ class OrbitModel:
             of ``model._rows[name].index``.
         """
         phys = self.physical(np.atleast_2d(theta))
-        return self._offsets(self._rows[name], phys["companions"][name],
-                             phys["parallax"], name)
+        east, north = observed_offsets(self, phys)[name]
+        return self._scaled(self._rows[name], east, north, phys["parallax"])
 
-    def _offsets(self, rows, orbit, parallax, name):
-        t_ref = self.reference_epoch(name)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            # The fused kernel: Kepler's equation and the projection in one pass.
-            east, north = kepler.sky_offsets(
-                rows.t, orbit["period"], orbit["ecc"], orbit["mean_anomaly_ref"],
-                orbit["semi_major_axis"], orbit["inc"], orbit["omega"], orbit["node"],
-                t_ref=t_ref)
+    def _scaled(self, rows, east, north, parallax):
         scale = np.broadcast_to(rows.scale, east.shape)
         if parallax is not None and np.any(rows.uses_parallax):
             scale = scale * np.where(rows.uses_parallax, parallax[:, None] * 1e-3, 1.0)
         return east * scale, north * scale
 
-    def _astrometry_residuals(self, rows, orbit, parallax, name):
-        east, north = self._offsets(rows, orbit, parallax, name)
+    def _astrometry_residuals(self, rows, offsets, parallax):
+        east, north = self._scaled(rows, *offsets, parallax)
         c, p = rows.cart, rows.polar
         # Where every row is east/north, take the arrays as they are (no gather copy).
         east_c, north_c = (east, north) if p.size == 0 else (east[:, c], north[:, c])

@@ -1,0 +1,57 @@
+"""The dynamics models from the config, the command line and the API."""
+
+import pytest
+
+import massfit
+from massfit.cli import main
+from massfit.config import parse_config
+from massfit.dynamics import Keplerian
+from massfit.errors import ConfigError
+from massfit.oblateness import Oblate
+
+
+def _config(**dynamics):
+    return {"data": {"files": ["x.ecsv"]}, "dynamics": dynamics}
+
+
+def test_config_builds_each_model():
+    assert isinstance(parse_config({"data": {"files": ["x.ecsv"]}}).system.dynamics,
+                      Keplerian)
+    setup = parse_config(_config(model="oblate", j2=0.016, equatorial_radius="60268 km",
+                                 equator_inclination="80 deg", equator_node="10 deg"))
+    dyn = setup.system.dynamics
+    assert isinstance(dyn, Oblate) and dyn.j2 == 0.016 and dyn.radius_km == 60268.0
+    assert dyn.pole is not None
+    assert setup.system.compare_keplerian is True
+    romer = parse_config({"data": {"files": ["x.ecsv"]}, "system": {"romer_delay": True}})
+    assert romer.system.romer_delay is True
+
+
+@pytest.mark.parametrize("dynamics, key", [
+    ({"model": "oblate", "j2": 0.01}, "dynamics.equatorial_radius"),
+    ({"model": "wobbly"}, "dynamics.model"),
+    ({"model": "keplerian", "j2": 0.01}, "dynamics.j2"),
+    ({"model": "oblate", "j2": "big", "equatorial_radius": "1 km"}, "dynamics.j2"),
+    ({"model": "oblate", "j2": 0.01, "equatorial_radius": "1 kg"},
+     "dynamics.equatorial_radius"),
+    ({"model": "oblate", "j2": 0.01, "equatorial_radius": "1 km", "pole": "up"},
+     "dynamics.pole"),
+])
+def test_config_errors_name_the_key(dynamics, key):
+    with pytest.raises(ConfigError) as info:
+        parse_config(_config(**dynamics), file="sys.toml")
+    assert info.value.key == key
+    assert "sys.toml" in str(info.value)
+
+
+def test_cli_reports_bad_dynamics_options_without_traceback(tmp_path, capsys):
+    status = main(["fit", str(tmp_path / "none.ecsv"), "--out", str(tmp_path / "o"),
+                   "--dynamics", "oblate", "--j2", "0.01"])
+    err = capsys.readouterr().err
+    assert status == 2
+    assert "--equatorial-radius" in err and "Traceback" not in err
+
+
+def test_api_names():
+    spec = massfit.SystemSpec(dynamics=massfit.Oblate(0.015, "70000 km"), romer_delay=True)
+    assert spec.dynamics.radius_km == 70000.0
