@@ -17,6 +17,7 @@ from .config import load_config
 from .dynamics import Keplerian
 from .errors import ConfigError, InputError, MassfitError, ModelError
 from .model import CompanionSpec, SystemSpec
+from .nbody import NBody
 from .oblateness import Oblate
 from .plan import AssumedSystem, Schedule, forecast_precision, plan_observations
 from .priors import Fixed, LogUniform, Normal, Uniform
@@ -33,8 +34,8 @@ except _metadata.PackageNotFoundError:  # pragma: no cover - running from a chec
 
 __all__ = [
     "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",
-    "CompanionSpec", "Keplerian", "Oblate", "SamplerSettings", "Uniform", "LogUniform",
-    "Normal", "Fixed",
+    "CompanionSpec", "Keplerian", "Oblate", "NBody", "SamplerSettings", "Uniform",
+    "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
     "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",
 ]

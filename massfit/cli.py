@@ -207,11 +207,14 @@ def _dynamics_options(parser):
                             "--equator-node; default: each orbit lies in the equator)")
     group.add_argument("--equator-node", metavar="'VALUE UNIT'",
                        help="oblate: position angle of the equator's ascending node")
+    group.add_argument("--rtol", type=float, metavar="TOL",
+                       help="n-body: relative tolerance of the integrator (default 1e-10)")
     group.add_argument("--romer-delay", action="store_true",
                        help="delay each companion by the light time across the system")
 
 
-_DYNAMICS_OPTIONS = ("j2", "equatorial_radius", "equator_inclination", "equator_node")
+_DYNAMICS_OPTIONS = ("j2", "equatorial_radius", "equator_inclination", "equator_node",
+                     "rtol")
 
 
 def _apply_dynamics_options(args, system):

@@ -42,6 +42,7 @@ Layout (every key optional except ``data.files``)::
     equatorial_radius = "71492 km"    #   ... at this reference radius
     equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
     equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
+    rtol = 1e-10                      # n-body: the integrator's relative tolerance
     compare_keplerian = true          # adequacy: also fit the two-body model
 
     [sampler]
@@ -84,7 +85,7 @@ _SCHEMA = {
     "velocities": {"trend": str, "slope_prior": dict, "curvature_prior": dict,
                    "jitter_prior": dict, "instruments": dict},
     "dynamics": {"model": str, "j2": float, "equatorial_radius": str,
-                 "equator_inclination": str, "equator_node": str,
+                 "equator_inclination": str, "equator_node": str, "rtol": float,
                  "compare_keplerian": bool},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
     "output": {"folder": str, "plots": bool},

@@ -176,6 +176,7 @@ def observed_offsets(model, phys) -> dict:
 MODEL_OPTIONS = {
     "keplerian": (),
     "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
+    "n-body": ("rtol",),
 }
 
 
@@ -223,7 +224,12 @@ def make_dynamics(model="keplerian", *, key_prefix="dynamics.", file=None, **opt
         except ConfigError as exc:
             raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix),
                               file=file) from None
-    raise AssertionError(model)  # pragma: no cover - MODEL_OPTIONS lists every branch
+    from .nbody import NBody
+
+    try:
+        return NBody(**options)
+    except ConfigError as exc:
+        raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix), file=file) from None
 
 
 def _renamed(key, prefix):

@@ -23,6 +23,8 @@ def test_config_builds_each_model():
     assert isinstance(dyn, Oblate) and dyn.j2 == 0.016 and dyn.radius_km == 60268.0
     assert dyn.pole is not None
     assert setup.system.compare_keplerian is True
+    nbody = parse_config(_config(model="n-body", rtol=1e-11)).system.dynamics
+    assert isinstance(nbody, massfit.NBody) and nbody.rtol == 1e-11
     romer = parse_config({"data": {"files": ["x.ecsv"]}, "system": {"romer_delay": True}})
     assert romer.system.romer_delay is True
 
@@ -36,6 +38,8 @@ def test_config_builds_each_model():
      "dynamics.equatorial_radius"),
     ({"model": "oblate", "j2": 0.01, "equatorial_radius": "1 km", "pole": "up"},
      "dynamics.pole"),
+    ({"model": "n-body", "rtol": 0.5}, "dynamics.rtol"),
+    ({"model": "n-body", "j2": 0.01}, "dynamics.j2"),
 ])
 def test_config_errors_name_the_key(dynamics, key):
     with pytest.raises(ConfigError) as info:

@@ -1,0 +1,106 @@
+"""N-body model: the two-body limit, energy conservation, and the model's hook."""
+
+import numpy as np
+import pytest
+
+from massfit.dynamics import Keplerian, orbit_state
+from massfit.errors import ConfigError
+from massfit.model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.nbody import NBody, integrate_system, total_energy
+from massfit.priors import Fixed, LogUniform
+from massfit.read import read_observations
+from massfit.scenarios import DEMO_DIR
+
+
+def _state(a, ecc, inc, omega, node, mean, period):
+    pos, vel = orbit_state(np.array(a), np.array(ecc), np.radians(inc), np.radians(omega),
+                           np.radians(node), np.array(mean), 2 * np.pi / np.array(period))
+    return np.stack(pos, axis=-1), np.stack(vel, axis=-1)
+
+
+def _invented_triple(scale_masses=1.0):
+    """A 1.1 M_sun star with two companions of 0.02 and 0.05 M_sun (invented)."""
+    from massfit.constants import GM_SUN
+
+    central = np.array([1.1])
+    masses = np.array([[0.02, 0.05]]) * scale_masses
+    periods = np.array([40.0, 130.0])
+    a = np.cbrt(GM_SUN * (central + masses[0]) * periods ** 2 / (4 * np.pi ** 2))
+    pos, vel = _state(a, [0.1, 0.2], [60.0, 70.0], [30.0, 200.0], [10.0, 25.0],
+                      [0.3, 2.0], periods)
+    return central, masses, pos[None], vel[None], periods, a
+
+
+def test_energy_is_conserved_to_1e10():
+    central, masses, pos, vel, periods, _ = _invented_triple()
+    t = np.linspace(-800.0, 1600.0, 31)  # about 60 inner orbits, both directions
+    # DOP853 does not conserve energy by construction: its drift follows the
+    # tolerance (over this span about 9e-9 at rtol 1e-10, the fitting default;
+    # 6e-11 at 1e-12; 6e-12 at 1e-13).
+    positions, velocities = integrate_system(t, central, masses, pos, vel, rtol=1e-13)
+    energy0 = total_energy(central, masses, pos, vel)
+    energy = total_energy(central[:, None], masses[:, None, :],
+                          positions.transpose(0, 2, 1, 3), velocities.transpose(0, 2, 1, 3))
+    assert np.all(np.isfinite(energy))
+    assert np.max(np.abs(energy / energy0[:, None] - 1)) <= 1e-10
+
+
+def test_massless_limit_is_keplerian():
+    central, masses, pos, vel, periods, a = _invented_triple(scale_masses=1e-12)
+    t = np.linspace(-600.0, 600.0, 41)
+    positions, _ = integrate_system(t, central, masses, pos, vel, rtol=1e-12)
+    for k, (ecc, inc, omega, node, mean) in enumerate([(0.1, 60, 30, 10, 0.3),
+                                                        (0.2, 70, 200, 25, 2.0)]):
+        kep, _ = _state(a[k], ecc, inc, omega, node, mean + 2 * np.pi * t / periods[k],
+                        periods[k])
+        assert np.max(np.abs(positions[0, k] - kep)) <= 1e-9 * a[k]
+
+
+def test_mutual_pull_moves_the_companions():
+    # Negative control for the limit above: with real masses the orbits differ.
+    central, masses, pos, vel, periods, a = _invented_triple()
+    t = np.array([600.0])
+    heavy, _ = integrate_system(t, central, masses, pos, vel)
+    light, _ = integrate_system(t, central, masses * 1e-12, pos, vel)
+    assert np.max(np.abs(heavy - light)) > 1e-4 * a[0]
+
+
+def test_model_with_nbody_matches_keplerian_for_tiny_masses():
+    obs = read_observations(DEMO_DIR / "moons.ecsv")
+    # Two moons keep the integration short in the default run.
+    keep = np.isin(obs.astrometry.body, ["Doss", "Tirrin"])
+    from dataclasses import replace
+    obs = replace(obs, astrometry=obs.astrometry.select(keep))
+    comps = {n: CompanionSpec(n, mass=Fixed(1e-16)) for n in ("Doss", "Tirrin")}
+    kep = OrbitModel(obs, SystemSpec(companions=comps))
+    nbd = OrbitModel(obs, SystemSpec(companions=comps, dynamics=NBody()))
+    assert kep.names == nbd.names
+    values = {"central_mass": 7.9e-4, "parallax": None,
+              "Doss": dict(period=8.7321, ecc=0.021, omega=4.3, inc=1.46, node=0.47,
+                           mean_anomaly_ref=1.0, mass=1e-16),
+              "Tirrin": dict(period=19.6014, ecc=0.035, omega=5.5, inc=1.49, node=0.5,
+                             mean_anomaly_ref=2.0, mass=1e-16)}
+    theta = kep.from_physical(values)
+    phys = kep.physical(theta[None])
+    a_states = Keplerian().states(kep, phys, want_velocity=True)
+    b_states = nbd.dynamics.states(nbd, phys, want_velocity=True)
+    # The default tolerance (1e-10) over 57 orbits of the inner moon: agreement to
+    # 1e-7 of the orbit's size, some thousand times below the data's precision.
+    a_au, v_au_d = 0.0132, 0.01
+    for name in comps:
+        np.testing.assert_allclose(np.array(b_states[name][0]), np.array(a_states[name][0]),
+                                   rtol=0, atol=1e-7 * a_au)
+        np.testing.assert_allclose(np.array(b_states[name][1]), np.array(a_states[name][1]),
+                                   rtol=0, atol=1e-7 * v_au_d)
+
+
+def test_nbody_gives_unstated_masses_a_prior():
+    obs = read_observations(DEMO_DIR / "moons.ecsv")
+    model = OrbitModel(obs, SystemSpec(dynamics=NBody()))
+    assert all(isinstance(c.mass, LogUniform) for c in model.companions.values())
+    assert "Pell.log10_mass" in model.names
+
+
+def test_bad_tolerance_is_a_config_error():
+    with pytest.raises(ConfigError, match="tolerance"):
+        NBody(rtol=0.1)
