@@ -173,6 +173,7 @@ class FitResult:
             summary["companions"][name] = block
         if "rv" in s:
             summary["velocities"] = _velocity_summary(s["rv"])
+        summary["adequacy"] = self._adequacy()
         summary["modes"] = list(self.start.modes)
         summary["warnings"] = list(self.warnings)
         summary["inputs"] = {
@@ -183,6 +184,15 @@ class FitResult:
             "unused_columns": dict(obs.unused_columns),
         }
         return summary
+
+    def _adequacy(self):
+        """Residual checks at the best sample, and the two-body comparison."""
+        from .adequacy import assess
+
+        if self.model.velocity_only:
+            return None
+        best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
+        return assess(self.model, best)
 
     # --------------------------------------------------------------------- text
     def report(self) -> str:
@@ -215,6 +225,10 @@ class FitResult:
         for name, comp in by_period:
             lines.append(f"Companion {name}")
             lines.extend(_companion_lines(comp))
+        if s.get("adequacy"):
+            from .adequacy import report_lines
+
+            lines.extend(report_lines(s["adequacy"]))
         d = s["diagnostics"]
         lines.append("Sampler")
         lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "

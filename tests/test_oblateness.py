@@ -4,16 +4,12 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 import pytest
-from astropy.table import Table
-from astropy.time import Time
 
 from massfit import read_observations
-from massfit.dynamics import _pq
 from massfit.errors import ConfigError
 from massfit.model import OrbitModel, SystemSpec
 from massfit.oblateness import (Oblate, integrate_oblate_orbit, mean_and_geometric_axis,
-                                oblate_gm)
-from massfit.start import find_start
+                                oblate_gm, simulate_equatorial_moons)
 
 DAY = 86400.0
 GM_JUP = const.GM_jup.to_value(u.km ** 3 / u.s ** 2)  # IAU 2015 B3 nominal, via astropy
@@ -56,64 +52,11 @@ def test_mean_and_geometric_axes_match_epicyclic_theory():
     assert kappa_true == pytest.approx(np.sqrt(gm / r ** 3 * (1 - 1.5 * q)), rel=3 * q ** 2)
 
 
-def _equator_frame(inc, node):
-    p_vec, q_vec = _pq(inc, 0.0, node)
-    return np.array(p_vec), np.array(q_vec)
-
-
-def _simulated_moons(tmp_path, *, seed=7):
-    """Invented planet 'Vessaline' with two inner moons in its equator, integrated in
-    the full J2 field; offsets in km (no distance needed). Returns the observations,
-    the truth and rough starting elements (what a periodogram would give)."""
-    rng = np.random.default_rng(seed)
-    gm = 1.05e8 * DAY ** 2  # km^3/day^2
-    j2, radius = 0.018, 64_000.0
-    inc, node = np.radians(63.0), np.radians(38.0)
-    p_vec, q_vec = _equator_frame(inc, node)
-    rows, guesses = [], {}
-    t0 = 2462000.0
-    for k, (r0, ecc, phase) in enumerate([(2.6 * radius, 0.012, 0.4),
-                                          (4.1 * radius, 0.006, 2.1)]):
-        q = j2 * (radius / r0) ** 2
-        v_circ = np.sqrt(gm / r0 * (1 + 1.5 * q))
-        pos0 = r0 * np.array([np.cos(phase), np.sin(phase), 0.0])
-        # A radial kick of e v makes the eccentricity e and leaves the size unchanged
-        # to first order (so the rates below stay good starting guesses).
-        vel0 = v_circ * np.array([-np.sin(phase) + ecc * np.cos(phase),
-                                  np.cos(phase) + ecc * np.sin(phase), 0.0])
-        t = np.sort(rng.uniform(-90.0, 90.0, 60))
-        dense = np.linspace(-90.0, 90.0, 4001)
-        # rtol 1e-9: tightening it to 1e-11 moves the fitted GM by 0.005 sigma.
-        eq_all = integrate_oblate_orbit(np.concatenate([t, dense]), gm, j2, radius,
-                                        pos0, vel0, rtol=1e-9)
-        eq = eq_all[:t.size]
-        # The mean longitude and its rate, read off the noise-free path (what a
-        # periodogram and a first fit would give), as starting guesses.
-        lam = np.unwrap(np.arctan2(eq_all[t.size:, 1], eq_all[t.size:, 0]))
-        rate, lam0 = np.polyfit(dense, lam, 1)
-        sky = eq[:, :1] * p_vec + eq[:, 1:2] * q_vec  # (north, east, z)
-        err = 60.0
-        name = f"moon{k + 1}"
-        rows.append({"t": t, "body": name,
-                     "north": sky[:, 0] + err * rng.standard_normal(t.size),
-                     "east": sky[:, 1] + err * rng.standard_normal(t.size), "err": err})
-        n0 = np.sqrt(gm / r0 ** 3)
-        # The kick puts periapsis a quarter turn behind the starting point; it then
-        # advances at (3/2) n q (first order, equatorial).
-        guesses[name] = {"ecc": ecc, "inc": inc, "node": node, "mass": 0.0,
-                         "rate": rate, "lambda0": lam0, "omega0": phase - np.pi / 2,
-                         "apsis_rate": 1.5 * n0 * q}
-    table = Table()
-    t_all = np.concatenate([r["t"] for r in rows])
-    table["time"] = Time(t0 + t_all, format="jd", scale="tdb")
-    table["body"] = np.concatenate([[r["body"]] * r["t"].size for r in rows])
-    for col in ("east", "north"):
-        table[col] = np.concatenate([r[col] for r in rows]) * u.km
-        table[f"{col}_err"] = np.concatenate([np.full(r["t"].size, r["err"])
-                                              for r in rows]) * u.km
-    path = tmp_path / "vessaline.ecsv"
-    table.write(path, format="ascii.ecsv")
-    return read_observations(path), gm / DAY ** 2, j2, radius, guesses, t0
+@pytest.fixture(scope="module")
+def moons(tmp_path_factory):
+    path, truth = simulate_equatorial_moons(tmp_path_factory.mktemp("j2") / "moons.ecsv")
+    return (read_observations(path), truth["gm_km3_s2"], truth["j2"], truth["radius_km"],
+            truth["moons"], truth["t0_jd"])
 
 
 def _fitted_gm(obs, dynamics, guesses, t0):
@@ -137,13 +80,13 @@ def _fitted_gm(obs, dynamics, guesses, t0):
     res = model.residuals(theta[None, :])[0]
     k = model.names.index("central.log10_mass")
     gm = 10 ** theta[k] * GM_SUN_KM3_S2
-    return gm, gm * np.log(10) * np.sqrt(cov[k, k]), float(res @ res)
+    return gm, gm * np.log(10) * np.sqrt(cov[k, k]), float(res @ res), model, theta
 
 
-def test_j2_model_recovers_gm_where_keplerian_is_biased(tmp_path):
-    obs, gm_true, j2, radius, guesses, t0 = _simulated_moons(tmp_path)
-    gm_j2, sd_j2, chi2_j2 = _fitted_gm(obs, Oblate(j2, f"{radius} km"), guesses, t0)
-    gm_kep, sd_kep, chi2_kep = _fitted_gm(obs, None, guesses, t0)
+def test_j2_model_recovers_gm_where_keplerian_is_biased(moons):
+    obs, gm_true, j2, radius, guesses, t0 = moons
+    gm_j2, sd_j2, chi2_j2, *_ = _fitted_gm(obs, Oblate(j2, f"{radius} km"), guesses, t0)
+    gm_kep, sd_kep, chi2_kep, *_ = _fitted_gm(obs, None, guesses, t0)
     n_values = 2 * len(obs.astrometry)
     print(f"true GM {gm_true:.6g}; J2 fit {gm_j2:.6g} +- {sd_j2:.2g} "
           f"(chi2 {chi2_j2:.0f}); Keplerian {gm_kep:.6g} +- {sd_kep:.2g} "
@@ -213,3 +156,25 @@ def test_bad_oblateness_settings_are_config_errors():
         Oblate(0.01, "-3 km")
     with pytest.raises(ConfigError, match="both"):
         Oblate(0.01, "60000 km", equator_inclination="10 deg")
+
+
+def test_adequacy_flags_the_two_body_fit_and_clears_the_j2_fit(moons):
+    from massfit.adequacy import assess, report_lines
+
+    obs, gm_true, j2, radius, guesses, t0 = moons
+    *_, kep_model, kep_theta = _fitted_gm(obs, None, guesses, t0)
+    *_, j2_model, j2_theta = _fitted_gm(obs, Oblate(j2, f"{radius} km"), guesses, t0)
+    kep = assess(kep_model, kep_theta)
+    j2_block = assess(j2_model, j2_theta)
+    inner_kep, inner_j2 = kep["companions"]["moon1"], j2_block["companions"]["moon1"]
+    print("\n".join(report_lines(kep) + report_lines(j2_block)))
+    # The two-body fit of a precessing orbit: chi2 far too large, residual peak.
+    assert inner_kep["reduced_chi2"] > 10
+    assert inner_kep["periodogram"]["false_alarm_probability"] < 1e-3
+    assert kep["comparison"] is None  # nothing perturbed to compare with
+    # The J2 fit: consistent with noise (negative control of the same checks).
+    assert inner_j2["reduced_chi2"] < 1.5 and inner_j2["p_value"] > 1e-3
+    assert inner_j2["periodogram"]["false_alarm_probability"] > 1e-3
+    comparison = j2_block["comparison"]
+    assert comparison["preferred"] == "perturbed" and comparison["delta_bic"] > 100
+    assert comparison["keplerian"]["n_parameters"] == comparison["perturbed"]["n_parameters"]
