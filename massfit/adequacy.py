@@ -153,7 +153,8 @@ def _compare(model, theta):
         chi2 = _least_squares_chi2(which, theta)
         k = which.n_dim
         rows[label] = {"model": which.dynamics.label, "chi2": chi2, "n_parameters": k,
-                       "aic": chi2 + 2 * k, "bic": chi2 + k * np.log(n_values)}
+                       "aic": float(chi2 + 2 * k),
+                       "bic": float(chi2 + k * np.log(n_values))}
     delta_bic = rows["keplerian"]["bic"] - rows["perturbed"]["bic"]
     rows["n_values"] = n_values
     rows["delta_chi2"] = rows["keplerian"]["chi2"] - rows["perturbed"]["chi2"]
