@@ -91,6 +91,8 @@ class Keplerian:
 
     #: Name used in the config (``[dynamics] model``), the summary and the report.
     label = "keplerian"
+    #: The settings as given, for the run record (``make_dynamics`` takes them back).
+    settings: dict = {}
 
     def describe(self) -> dict:
         """The settings of this model, for the summary."""

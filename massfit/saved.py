@@ -46,6 +46,8 @@ def _encode(value):
     if isinstance(value, _priors.Prior):
         body = {f.name: float(getattr(value, f.name)) for f in dataclasses.fields(value)}
         return {"prior": type(value).__name__, **body}
+    if hasattr(value, "label") and hasattr(value, "settings"):  # a dynamics model
+        return {"dynamics_model": value.label, **_encode(dict(value.settings))}
     if dataclasses.is_dataclass(value):
         return {"dataclass": type(value).__name__,
                 **{f.name: _encode(getattr(value, f.name))
@@ -108,6 +110,11 @@ def _decode(value):
             if cls is None:
                 raise InputError(f"unknown prior {value['prior']!r} in the saved model")
             return cls(**{k: v for k, v in value.items() if k != "prior"})
+        if "dynamics_model" in value:
+            from .dynamics import make_dynamics
+
+            return make_dynamics(value["dynamics_model"],
+                                 **{k: v for k, v in value.items() if k != "dynamics_model"})
         if "dataclass" in value:
             from . import model as _model
 

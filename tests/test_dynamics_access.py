@@ -59,3 +59,18 @@ def test_cli_reports_bad_dynamics_options_without_traceback(tmp_path, capsys):
 def test_api_names():
     spec = massfit.SystemSpec(dynamics=massfit.Oblate(0.015, "70000 km"), romer_delay=True)
     assert spec.dynamics.radius_km == 70000.0
+
+
+def test_saved_model_state_rebuilds_the_dynamics():
+    # A result folder keeps the assumptions in run.json; the dynamics must come back.
+    import json
+
+    from massfit.saved import _decode, _encode
+
+    for dynamics in (massfit.Oblate(0.015, "70000 km", "80 deg", "20 deg"),
+                     massfit.NBody(rtol=1e-11), Keplerian()):
+        spec = massfit.SystemSpec(dynamics=dynamics, romer_delay=True)
+        back = _decode(json.loads(json.dumps(_encode(spec))))
+        assert type(back.dynamics) is type(dynamics)
+        assert back.dynamics.describe() == dynamics.describe()
+        assert back.romer_delay is True
