@@ -30,7 +30,11 @@ class SamplerSettings:
     Parameters
     ----------
     walkers : int or None
-        Number of walkers; None gives max(32, 4 n_dim) rounded up to even.
+        Number of walkers; None gives max(32, 2 n_dim + 2) rounded up to even. The
+        autocorrelation time in steps hardly depends on the walkers once there are
+        more than twice the dimensions (measured for differential-evolution moves on
+        a 25-parameter model: tau ~100 steps with 52 and with 100 walkers), so more
+        walkers only make each step dearer.
     max_steps : int
         Step cap; a run that reaches it without converging says so.
     check_every : int
@@ -48,7 +52,7 @@ class SamplerSettings:
     progress: bool | None = None
 
     def n_walkers(self, n_dim: int) -> int:
-        n = self.walkers if self.walkers is not None else max(32, 4 * n_dim)
+        n = self.walkers if self.walkers is not None else max(32, 2 * n_dim + 2)
         return int(n + (n % 2))
 
 
