@@ -252,6 +252,20 @@ def _linear_scan(t, east, north, sig_e, sig_n, period):
     """
     ecc = np.repeat(np.asarray(_ECC_GRID, dtype=float), _PHASE_GRID)
     m0 = np.tile(np.linspace(0.0, 2 * np.pi, _PHASE_GRID, endpoint=False), len(_ECC_GRID))
+    step = max(1, _CHUNK_ELEMENTS // max(len(t), 1))
+    chi2 = np.zeros(len(ecc))
+    north_c, east_c = np.empty((len(ecc), 2)), np.empty((len(ecc), 2))
+    for k in range(0, len(ecc), step):
+        block = slice(k, k + step)
+        chi2[block], north_c[block], east_c[block] = _scan_block(
+            t, east, north, sig_e, sig_n, period, ecc[block], m0[block])
+    return [(float(chi2[k]), {"period": period, "ecc": float(ecc[k]), "m0": float(m0[k]),
+                              "A": float(north_c[k, 0]), "B": float(east_c[k, 0]),
+                              "F": float(north_c[k, 1]), "G": float(east_c[k, 1])})
+            for k in range(len(ecc))]
+
+
+def _scan_block(t, east, north, sig_e, sig_n, period, ecc, m0):
     _, cos_e, sin_e = kepler.kepler_cs(m0[:, None] + 2 * np.pi * t[None, :] / period,
                                        ecc[:, None])
     design = np.stack([cos_e - ecc[:, None],
@@ -266,11 +280,7 @@ def _linear_scan(t, east, north, sig_e, sig_n, period):
                          np.einsum("gni,n->gi", w, target))
         chi2 += np.sum((np.einsum("gni,gi->gn", w, coef) - target) ** 2, axis=1)
         consts.append(coef)
-    (north_c, east_c) = consts
-    return [(float(chi2[k]), {"period": period, "ecc": float(ecc[k]), "m0": float(m0[k]),
-                              "A": float(north_c[k, 0]), "B": float(east_c[k, 0]),
-                              "F": float(north_c[k, 1]), "G": float(east_c[k, 1])})
-            for k in range(len(ecc))]
+    return chi2, consts[0], consts[1]
 
 
 def elements_from_thiele_innes(big_a, big_b, big_f, big_g):
@@ -369,8 +379,14 @@ def _residual_function(model):
     return fun
 
 
+#: Parameter vectors times data rows evaluated in one piece (bounds memory on big sets).
+_CHUNK_ELEMENTS = 2_000_000
+
+
 def _batch_residuals(model, thetas):
-    res = model.residuals(thetas, lenient=True)
+    step = max(1, _CHUNK_ELEMENTS // max(len(model.observations.astrometry), 1))
+    res = np.concatenate([model.residuals(thetas[k:k + step], lenient=True)
+                          for k in range(0, len(thetas), step)])
     prior = np.array([_prior_residuals(model, theta) for theta in thetas])
     res = np.concatenate([res, prior.reshape(len(thetas), -1)], axis=1)
     return np.where(np.isfinite(res), res, 1e6)
