@@ -384,7 +384,9 @@ _CHUNK_ELEMENTS = 2_000_000
 
 
 def _batch_residuals(model, thetas):
-    step = max(1, _CHUNK_ELEMENTS // max(len(model.observations.astrometry), 1))
+    obs = model.observations
+    n_rows = sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
+    step = max(1, _CHUNK_ELEMENTS // max(n_rows, 1))
     res = np.concatenate([model.residuals(thetas[k:k + step], lenient=True)
                           for k in range(0, len(thetas), step)])
     prior = np.array([_prior_residuals(model, theta) for theta in thetas])
