@@ -17,6 +17,7 @@ least-squares covariance.
 
 from __future__ import annotations
 
+import itertools
 import warnings
 from dataclasses import dataclass, field, replace
 
@@ -36,8 +37,10 @@ __all__ = ["Start", "find_start"]
 COMPARABLE_DELTA_CHI2 = 25.0
 _ECC_GRID = (0.0, 0.25, 0.5, 0.75, 0.9)
 _PHASE_GRID = 12
-_MAX_PEAKS = 8
+_MAX_PEAKS = 12
 _POLISH = 6
+_COMBINE = 5
+_JOINT_TRIES = 4
 
 
 @dataclass
@@ -106,8 +109,7 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     if model.velocity_only:
         return _velocity_only_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
-    best = {name: modes[0] for name, modes in singles.items()}
-    joint = _joint_fit(model, best)
+    best, joint = _best_combination(model, singles)
     modes = []
     # Each companion's runner-up, swapped into the joint solution, is a candidate mode.
     for name, candidates in singles.items():
@@ -138,20 +140,52 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
                  per_companion=per)
 
 
+def _best_combination(model, singles):
+    """The joint start from the companions' single solutions that agree on the mass.
+
+    Sparse sampling leaves a companion with several aliases of nearly equal chi^2,
+    each implying its own central mass; only the shared mass tells them apart. The
+    combinations of comparable single solutions whose masses agree best are polished
+    jointly, and the lowest joint chi^2 wins.
+    """
+    comparable = {}
+    for name, modes in singles.items():
+        limit = modes[0]["chi2"] + max(COMPARABLE_DELTA_CHI2, 0.1 * modes[0]["chi2"])
+        comparable[name] = [m for m in modes if m["chi2"] <= limit][:_COMBINE]
+    combos = list(itertools.islice(itertools.product(*comparable.values()), 20_000))
+    spread = [np.var([np.log(max(m["central_mass"], 1e-300)) for m in combo])
+              for combo in combos]
+    order = np.argsort(spread, kind="stable")[:_JOINT_TRIES]
+    trials = [dict(zip(comparable, combos[k])) for k in order]
+    first = {name: modes[0] for name, modes in singles.items()}
+    if first not in trials:
+        trials.insert(0, first)
+    best, joint = None, (None, np.inf, None)
+    for chosen in trials:
+        result = _joint_polish(model, chosen)
+        if result[0] is not None and result[1] < joint[1]:
+            best, joint = chosen, result
+    if best is None:
+        raise RuntimeError("the joint least-squares fit failed from every start")
+    return best, joint
+
+
 # ------------------------------------------------------------------ one body alone
 def _single_companion_modes(model, name):
     """Distinct least-squares solutions for one companion, best first."""
     sub = _sub_model(model, name)
     t, east, north, sig_e, sig_n = _offsets_au(sub, name)
-    candidates = []
+    by_period = {}
     series = [(east, sig_e), (north, sig_n)]
     for period in _candidate_periods(t, series, model.companions[name]):
-        candidates.extend(_linear_scan(t, east, north, sig_e, sig_n, period))
-    candidates.sort(key=lambda c: c[0])
+        for chi2, values in _linear_scan(t, east, north, sig_e, sig_n, period):
+            if period not in by_period or chi2 < by_period[period][0]:
+                by_period[period] = (chi2, values)
+    # The best grid point of each candidate period, so that aliases of equal power
+    # each get polished instead of many grid points of one period.
+    candidates = sorted(by_period.values(), key=lambda c: c[0])
     solutions = []
-    for _, values in candidates[:_POLISH * 3]:
-        if len(solutions) >= _POLISH * 2:
-            break
+    for _, values in candidates[:_POLISH * 2]:
         values = _to_model_values(values, name)
         sol = _polish_single(sub, name, values)
         if sol is not None:
@@ -217,10 +251,11 @@ def _candidate_periods(t, series, comp):
     low_p, high_p = comp.period.low, comp.period.high
     if comp.period.is_fixed:
         return [comp.period.value]
-    dt = np.diff(np.unique(np.round(t, 6)))
-    # Resolve periods down to a few times the typical spacing of distinct nights or
-    # epochs; the fastest aliases beyond that are not constrained by the sampling.
-    min_period = max(low_p, 2.0 * np.min(dt[dt > 0]) if np.any(dt > 0) else low_p, 1e-3)
+    # Search down to the prior's shortest period, not just to the sampling interval:
+    # moons seen once every few nights often have periods shorter than the spacing,
+    # and only the least squares can choose among such aliases. The grid is capped
+    # at 2e5 frequencies (10 per peak width 1/span).
+    min_period = max(low_p, span / 2e4 if span > 0 else low_p, 1e-3)
     max_period = min(high_p, 20.0 * span)
     periods = []
     if span > 0 and min_period < span:
@@ -480,13 +515,6 @@ def _joint_polish(model, chosen):
     if theta is None:
         return None, np.inf, None
     return theta, _chi2(model, theta), _covariance(model, theta)
-
-
-def _joint_fit(model, chosen):
-    theta, chi2, cov = _joint_polish(model, chosen)
-    if theta is None:
-        raise RuntimeError("the joint least-squares fit failed from every start")
-    return theta, chi2, cov
 
 
 def _joint_mass(model, chosen):

@@ -116,3 +116,55 @@ def test_same_seed_repeats_the_run(binary_file):
     other = massfit.fit(obs, parallax="25 mas", parallax_err="0.25 mas", seed=10,
                         max_steps=1000, progress=False)
     assert not np.array_equal(runs[0].chain.samples, other.chain.samples)
+
+
+def _aliased_moons():
+    """Two invented moons seen once every 4 days: the inner one (3.71 d) is aliased."""
+    import os
+    import tempfile
+
+    from massfit.simulate import Elements, simulate_astrometry, write_scenario
+
+    rng = np.random.default_rng(2)
+    elements = {"Kiv": Elements(period=3.71, ecc=0.02, inc=70.0, omega=10.0, node=40.0,
+                                periapsis_time=2460001.3),
+                "Lume": Elements(period=11.3, ecc=0.05, inc=71.0, omega=100.0, node=41.0,
+                                 periapsis_time=2460003.1)}
+    t0 = 2460000.5 + np.arange(0, 100, 4.0) + 0.1 * rng.random(25)
+    times = {k: Time(t0 + 0.01 * i, format="jd", scale="tdb")
+             for i, k in enumerate(elements)}
+    table = simulate_astrometry(times, elements, 5e-4, error=200 * u.km, seed=3)
+    folder = tempfile.mkdtemp()
+    write_scenario(folder, table, {}, name="a.ecsv")
+    return massfit.read_observations(os.path.join(folder, "a.ecsv"))
+
+
+def test_shared_mass_picks_the_right_alias():
+    # Seen every 4 d, the 3.71 d moon fits equally well at its alias near 51 d; only
+    # the mass shared with the outer moon tells them apart.
+    from massfit.model import OrbitModel, SystemSpec
+    from massfit.start import find_start
+
+    model = OrbitModel(_aliased_moons(), SystemSpec())
+    start = find_start(model)
+    phys = model.physical(start.theta)
+    assert phys["companions"]["Kiv"]["period"][0] == pytest.approx(3.71, rel=1e-3)
+    assert phys["central_mass"][0] == pytest.approx(5e-4, rel=1e-2)
+    assert start.chi2 < 150  # 100 measured values
+
+
+def test_poor_fit_is_flagged():
+    # Negative control for the goodness-of-fit warning: errors stated 5x too small.
+    from massfit.model import OrbitModel, SystemSpec
+    from massfit.run import _fit_quality
+    from massfit.start import find_start
+
+    obs = _aliased_moons()
+    model = OrbitModel(obs, SystemSpec())
+    start = find_start(model)
+    assert _fit_quality(model, start) == []
+    obs.astrometry.east_err /= 5
+    obs.astrometry.north_err /= 5
+    tight = OrbitModel(obs, SystemSpec())
+    warnings = _fit_quality(tight, find_start(tight))
+    assert warnings and "poor" in warnings[0]
