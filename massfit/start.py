@@ -111,9 +111,10 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best, joint = _best_combination(model, singles)
     modes = []
-    # Each companion's runner-up, swapped into the joint solution, is a candidate mode.
+    # Each companion's comparable runner-ups, swapped into the joint solution, are
+    # candidate modes; clearly worse single solutions are not worth a joint polish.
     for name, candidates in singles.items():
-        for alt in candidates[1:3]:
+        for alt in _comparable(candidates)[1:3]:
             trial = dict(best, **{name: alt})
             theta, chi2, _ = _joint_polish(model, trial)
             if theta is None:
@@ -140,6 +141,12 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
                  per_companion=per)
 
 
+def _comparable(modes):
+    """Single solutions (best first) whose chi^2 is close enough to the best one's."""
+    limit = modes[0]["chi2"] + max(COMPARABLE_DELTA_CHI2, 0.1 * modes[0]["chi2"])
+    return [m for m in modes if m["chi2"] <= limit]
+
+
 def _best_combination(model, singles):
     """The joint start from the companions' single solutions that agree on the mass.
 
@@ -148,10 +155,7 @@ def _best_combination(model, singles):
     combinations of comparable single solutions whose masses agree best are polished
     jointly, and the lowest joint chi^2 wins.
     """
-    comparable = {}
-    for name, modes in singles.items():
-        limit = modes[0]["chi2"] + max(COMPARABLE_DELTA_CHI2, 0.1 * modes[0]["chi2"])
-        comparable[name] = [m for m in modes if m["chi2"] <= limit][:_COMBINE]
+    comparable = {name: _comparable(modes)[:_COMBINE] for name, modes in singles.items()}
     combos = list(itertools.islice(itertools.product(*comparable.values()), 20_000))
     spread = [np.var([np.log(max(m["central_mass"], 1e-300)) for m in combo])
               for combo in combos]
