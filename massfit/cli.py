@@ -2,7 +2,8 @@
 
 Exit status: 0 done and converged; 2 a problem with the input, the config or an option
 (one line on stderr, no traceback); 3 the fit finished but did not converge (the
-result is written and flagged); 130 interrupted.
+result is written and flagged); 130 interrupted (``fit`` keeps a checkpoint in the
+output folder's partial area, and ``--resume`` continues from it).
 """
 
 from __future__ import annotations
@@ -64,7 +65,11 @@ def _parser() -> argparse.ArgumentParser:
     _sampler_options(fit)
     _dynamics_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
-    fit.add_argument("--force", action="store_true", help="replace an existing result")
+    fit.add_argument("--force", action="store_true", help="replace an existing result "
+                     "(or the checkpoint of an interrupted run)")
+    fit.add_argument("--resume", action="store_true", help="continue an interrupted run "
+                     "from its checkpoint; same inputs and options give the same result "
+                     "as an uninterrupted run")
     fit.add_argument("--quiet", action="store_true", help="print only the result")
 
     demo = sub.add_parser(
@@ -241,6 +246,8 @@ def _sampler_options(parser):
     parser.add_argument("--seed", type=int, metavar="N", help="random seed (repeats the run)")
     parser.add_argument("--walkers", type=int, metavar="N", help="number of emcee walkers")
     parser.add_argument("--max-steps", type=int, metavar="N", help="step cap (default 50000)")
+    parser.add_argument("--check-every", type=int, metavar="N", help="steps between "
+                        "convergence checks (default 500)")
 
 
 def main(argv=None) -> int:
@@ -316,6 +323,7 @@ def _setup_from_args(args):
 def _run(setup, args, *, record):
     from dataclasses import replace
 
+    from .checkpoint import checkpoint_path, discard
     from .read import read_observations
     from .run import distance_prior, fit
 
@@ -325,7 +333,7 @@ def _run(setup, args, *, record):
                          getattr(args, "distance", None))
     if plx is not None:
         system = replace(system, parallax=plx)
-    overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps")
+    overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps", "check_every")
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
     if not args.quiet:
@@ -335,8 +343,11 @@ def _run(setup, args, *, record):
               f"of {len(observations.companions)} companion(s) from "
               f"{len(observations.files)} file(s); finding a starting orbit...",
               file=sys.stderr)
-    result = fit(observations, system, sampler=sampler, record=record)
+    result = fit(observations, system, sampler=sampler, record=record,
+                 checkpoint=checkpoint_path(setup.output),
+                 resume=getattr(args, "resume", False))
     result.save(setup.output, plots=setup.plots and not args.no_plots, force=args.force)
+    discard(setup.output)
     return result
 
 
@@ -357,11 +368,29 @@ def _finish(result, out):
 
 
 def _cmd_fit(args):
+    from .checkpoint import checkpoint_path, discard
+
     setup = _setup_from_args(args)
     if (Path(setup.output) / "summary.json").exists() and not args.force:
         raise ConfigError(f"'{setup.output}' already holds a result; choose another folder "
                           f"or pass --force", key="--out")
-    result = _run(setup, args, record=_record(args, setup))
+    saved = checkpoint_path(setup.output)
+    if args.resume and not saved.exists():
+        raise ConfigError(f"there is nothing to resume: no checkpoint at '{saved}'; run "
+                          f"without --resume to start the fit", key="--resume")
+    if not args.resume and saved.exists():
+        if not args.force:
+            raise ConfigError(f"an interrupted run left its checkpoint at '{saved}'; "
+                              f"continue it with --resume, or start afresh with --force",
+                              key="--resume")
+        discard(setup.output)
+    try:
+        result = _run(setup, args, record=_record(args, setup))
+    except KeyboardInterrupt:
+        if saved.exists():
+            print(f"massfit: interrupted; the progress is saved in '{saved}': run the "
+                  f"same command with --resume to continue", file=sys.stderr)
+        raise
     return _finish(result, setup.output)
 
 

@@ -446,6 +446,10 @@ class FitResult:
         try:
             from .saved import RUN_FILE, model_state, write_observations
 
+            # mkdtemp makes the folder private; the result gets the usual permissions.
+            umask = os.umask(0)
+            os.umask(umask)
+            os.chmod(tmp, 0o777 & ~umask)
             self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)

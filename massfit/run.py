@@ -64,7 +64,8 @@ def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefi
 
 def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
         parallax=None, parallax_err=None, distance=None, seed=None, walkers=None,
-        max_steps=None, progress=None, record=None) -> FitResult:
+        max_steps=None, check_every=None, progress=None, record=None, checkpoint=None,
+        resume=False) -> FitResult:
     """Fit every companion's orbit with one shared central mass and sample the posterior.
 
     Parameters
@@ -78,14 +79,21 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         Walkers, step cap, seed and progress bar.
     parallax, parallax_err, distance : str or Quantity, optional
         Shortcuts for the system's parallax prior (``"12.3 mas"``, ``"81 pc"``).
-    seed, walkers, max_steps, progress : optional
+    seed, walkers, max_steps, check_every, progress : optional
         Shortcuts that override ``sampler``.
+    record : dict, optional
+        Extra entries for the run record (run.json): command line, config, checksums.
+    checkpoint : path, optional
+        HDF5 file where the chain is saved step by step (see :mod:`massfit.checkpoint`).
+    resume : bool
+        Continue the interrupted run saved in ``checkpoint``; with the same data,
+        model and seed the result is the one an uninterrupted run gives.
 
     Returns
     -------
     FitResult
     """
-    from dataclasses import replace
+    from dataclasses import asdict, replace
 
     if not isinstance(observations, Observations):
         from .read import read_observations
@@ -97,19 +105,45 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         spec = replace(spec, parallax=plx)
     settings = sampler if sampler is not None else SamplerSettings()
     overrides = {k: v for k, v in dict(seed=seed, walkers=walkers, max_steps=max_steps,
+                                       check_every=check_every,
                                        progress=progress).items() if v is not None}
     settings = replace(settings, **overrides)
     _check_settings(settings)
-    started = _dt.datetime.now(_dt.timezone.utc)
+    if settings.seed is None and not resume:
+        # Draw the seed here so that the run record always holds one that repeats it.
+        settings = replace(settings, seed=int(np.random.SeedSequence().generate_state(1)[0]))
+    started = _dt.datetime.now(_dt.timezone.utc).isoformat()
     model = OrbitModel(observations, spec)
-    start = find_start(model)
-    rng = np.random.default_rng(settings.seed)
-    initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
-    chain = run_sampler(model.log_prob, initial, settings)
+    resumed = None
+    if resume:
+        if checkpoint is None:
+            raise ConfigError("resuming needs the checkpoint of the interrupted run",
+                              key="checkpoint")
+        from .checkpoint import read_meta
+
+        saved = read_meta(checkpoint, model=model, settings=settings)
+        settings = replace(settings, seed=saved["settings"]["seed"])
+        start, initial = saved["start"], saved["initial"]
+        resumed, started = started, saved["started_utc"]
+    else:
+        start = find_start(model)
+        rng = np.random.default_rng(settings.seed)
+        initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
+        if checkpoint is not None:
+            from .checkpoint import write_meta
+
+            write_meta(checkpoint, model=model, start=start, initial=initial,
+                       settings=settings, started_utc=started)
+    chain = run_sampler(model.log_prob, initial, settings, checkpoint=checkpoint,
+                        resume=resume)
     warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
-    run_record = {"started_utc": started.isoformat(),
+    run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
-                  "seed": settings.seed, "python": sys.version.split()[0]}
+                  "seed": settings.seed, "python": sys.version.split()[0],
+                  "sampler": {k: v for k, v in asdict(settings).items() if k != "progress"}}
+    if resumed is not None:
+        run_record["resumed_utc"] = resumed
+        run_record["resumed_from_step"] = chain.resumed_from
     run_record.update(record or {})
     return FitResult(model, chain, start, settings=settings, warnings=warnings,
                      record=run_record)

@@ -25,6 +25,10 @@ def _version(name):
     try:
         return metadata.version(name)
     except metadata.PackageNotFoundError:
+        if name == "massfit":  # running from a checkout that is not installed
+            from . import __version__
+
+            return __version__
         return None
 
 

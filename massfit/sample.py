@@ -77,6 +77,11 @@ class Chain:
     seconds : float
         Wall time of the sampling alone.
     tau_history : list of (steps, max tau)
+    resumed_from : int
+        Steps that were already in the checkpoint when this run began (0 if fresh).
+    walker_steps : ndarray, shape (n_kept, walkers, n_dim), optional
+        The kept steps walker by walker (``samples`` is this, flattened); used to see
+        whether walkers sit in separate modes.
     """
 
     samples: np.ndarray
@@ -90,6 +95,8 @@ class Chain:
     acceptance_fraction: float
     seconds: float
     tau_history: list
+    resumed_from: int = 0
+    walker_steps: np.ndarray | None = None
 
     def effective_samples(self, k: int = 0) -> float:
         """Effective number of independent samples of coordinate ``k``."""
@@ -106,9 +113,14 @@ def _moves():
     return [(emcee.moves.DEMove(), 1.0)]
 
 
-def run_sampler(log_prob, initial, settings: SamplerSettings, *, backend=None,
-                rng_state=None) -> Chain:
+def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
+                resume=False) -> Chain:
     """Run emcee from ``initial`` until converged or at the step cap.
+
+    Convergence is checked every ``settings.check_every`` steps, counted from the
+    first step, and each check looks only at the chain stored so far; so a run that
+    is resumed from a checkpoint checks at the same steps, sees the same numbers and
+    stops where an uninterrupted run would.
 
     Parameters
     ----------
@@ -117,37 +129,52 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, backend=None,
     initial : ndarray, shape (n_walkers, n_dim)
         Starting points.
     settings : SamplerSettings
-    backend : emcee.backends.Backend, optional
-        Where the chain is stored (memory by default; HDF5 for checkpoints).
+    checkpoint : path, optional
+        HDF5 file for emcee's HDF5 backend: every step and the random state after it
+        are saved there (see :mod:`massfit.checkpoint`). In memory when None.
+    resume : bool
+        Continue the chain stored in ``checkpoint`` instead of starting afresh.
 
     Returns
     -------
     Chain
     """
     n_walkers, n_dim = initial.shape
+    backend = None
+    if checkpoint is not None:
+        from .checkpoint import chain_backend
+
+        backend = chain_backend(checkpoint)
+        if not resume and backend.initialized:
+            backend.reset(n_walkers, n_dim)
     sampler = emcee.EnsembleSampler(n_walkers, n_dim, log_prob, vectorize=True,
                                     moves=_moves(), backend=backend)
-    sampler.random_state = np.random.RandomState(
-        np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state()
+    steps = resumed_from = int(sampler.iteration)
+    if steps > 0:
+        state = sampler.backend.get_last_sample()
+    else:
+        state = emcee.State(initial, random_state=np.random.RandomState(
+            np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state())
     show = settings.progress if settings.progress is not None else sys.stderr.isatty()
-    bar = _progress_bar(show, settings.max_steps)
+    bar = _progress_bar(show, settings.max_steps, steps)
     history = []
     tau_old = None
     converged = False
     started = time.perf_counter()
-    state = initial
-    steps = 0
-    while steps < settings.max_steps:
-        chunk = min(settings.check_every, settings.max_steps - steps)
-        state = sampler.run_mcmc(state, chunk, progress=False)
-        steps += chunk
-        tau = sampler.get_autocorr_time(tol=0, quiet=True)
-        history.append((steps, float(np.max(tau))))
+    checked = 0
+    while checked < settings.max_steps:
+        checked = min(checked + settings.check_every, settings.max_steps)
+        if checked > steps:
+            state = sampler.run_mcmc(state, checked - steps, progress=False)
+            if bar is not None:
+                bar.update(checked - steps)
+            steps = checked
+        tau = _autocorr(sampler.get_chain()[:checked])
+        history.append((checked, float(np.max(tau))))
         if bar is not None:
-            bar.update(chunk)
             bar.set_postfix_str(f"tau_max={np.max(tau):.0f}, need {TAU_MULTIPLE:.0f} tau")
         if (tau_old is not None and np.all(np.isfinite(tau))
-                and steps >= TAU_MULTIPLE * np.max(tau)
+                and checked >= TAU_MULTIPLE * np.max(tau)
                 and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau)):
             converged = True
             break
@@ -155,22 +182,36 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, backend=None,
     seconds = time.perf_counter() - started
     if bar is not None:
         bar.close()
-    tau = sampler.get_autocorr_time(tol=0, quiet=True)
+    # A checkpoint never holds more than the run would have taken, but the result is
+    # cut at the last check all the same, so it cannot depend on when it was stopped.
+    steps = checked
+    chain = sampler.get_chain()[:steps]
+    lnp = sampler.get_log_prob()[:steps]
+    tau = _autocorr(chain)
     tau_max = float(np.max(tau)) if np.all(np.isfinite(tau)) else float(steps)
     burn_in = min(int(np.ceil(2 * tau_max)), steps // 2)
     thin = max(1, int(tau_max // 2))
+    # The same slice as emcee's get_chain(discard=burn_in, thin=thin).
+    keep = slice(burn_in + thin - 1, steps, thin)
+    accepted = sampler.backend.accepted
     return Chain(
-        samples=sampler.get_chain(discard=burn_in, thin=thin, flat=True),
-        log_prob=sampler.get_log_prob(discard=burn_in, thin=thin, flat=True),
+        samples=chain[keep].reshape(-1, n_dim),
+        log_prob=lnp[keep].reshape(-1),
         steps=steps, walkers=n_walkers, tau=np.asarray(tau), converged=converged,
         burn_in=burn_in, thin=thin,
-        acceptance_fraction=float(np.mean(sampler.acceptance_fraction)),
-        seconds=seconds, tau_history=history)
+        acceptance_fraction=float(np.mean(accepted / max(sampler.iteration, 1))),
+        seconds=seconds, tau_history=history, resumed_from=resumed_from,
+        walker_steps=chain[keep])
 
 
-def _progress_bar(show, total):
+def _autocorr(chain):
+    """Integrated autocorrelation time of each coordinate of a (steps, walkers, dim) chain."""
+    return emcee.autocorr.integrated_time(chain, tol=0, quiet=True)
+
+
+def _progress_bar(show, total, done=0):
     if not show:
         return None
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, desc="sampling", unit="step", file=sys.stderr)
+    return tqdm(total=total, initial=done, desc="sampling", unit="step", file=sys.stderr)

@@ -31,3 +31,21 @@ def binary_file(tmp_path):
     table, truth = invented_binary()
     write_scenario(tmp_path, table, truth, name="wren.ecsv")
     return tmp_path / "wren.ecsv", truth
+
+
+def write_one_companion(folder, *, name="Quill", span=260.0, epochs=14, period=118.0,
+                        error=0.01, seed=4):
+    """One invented companion of a 0.9 M_sun primary, offsets in au; returns the path."""
+    times = {name: Time(2460100.0 + np.linspace(0.0, span, epochs), format="jd",
+                        scale="tdb")}
+    elements = {name: Elements(period=period, ecc=0.15, inc=55.0, omega=70.0, node=20.0,
+                               periapsis_time=2460130.0)}
+    table = simulate_astrometry(times, elements, 0.9, error=error * u.au, seed=seed)
+    write_scenario(folder, table, {"central_mass_Msun": 0.9}, name=f"{name.lower()}.ecsv")
+    return folder / f"{name.lower()}.ecsv"
+
+
+@pytest.fixture(scope="session")
+def small_data_file(tmp_path_factory):
+    """An ECSV file of one companion over about two orbits (14 epochs)."""
+    return write_one_companion(tmp_path_factory.mktemp("small-data"))
