@@ -112,7 +112,8 @@ class FitResult:
         The content of ``summary.json``.
     """
 
-    def __init__(self, model, chain, start, *, settings=None, warnings=None, record=None):
+    def __init__(self, model, chain, start, *, settings=None, warnings=None, record=None,
+                 checks=None):
         self.model = model
         self.chain = chain
         self.start = start
@@ -120,6 +121,8 @@ class FitResult:
         self.samples = derived_samples(model, chain.samples, seed=getattr(settings, "seed", None))
         self.warnings = list(warnings or [])
         self.record = dict(record or {})
+        # Posterior checks beyond the convergence test (massfit.diagnose).
+        self.checks = dict(checks or {})
         self.summary = self._build_summary()
 
     # ------------------------------------------------------------------ numbers
@@ -175,6 +178,8 @@ class FitResult:
             summary["velocities"] = _velocity_summary(s["rv"])
         summary["adequacy"] = self._adequacy()
         summary["modes"] = list(self.start.modes)
+        summary["posterior_modes"] = list(self.checks.get("posterior_modes", []))
+        summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
         summary["warnings"] = list(self.warnings)
         summary["inputs"] = {
             "files": list(obs.files),

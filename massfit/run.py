@@ -136,7 +136,6 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
                        settings=settings, started_utc=started)
     chain = run_sampler(model.log_prob, initial, settings, checkpoint=checkpoint,
                         resume=resume)
-    warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
                   "seed": settings.seed, "python": sys.version.split()[0],
@@ -145,8 +144,46 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         run_record["resumed_utc"] = resumed
         run_record["resumed_from_step"] = chain.resumed_from
     run_record.update(record or {})
+    return assemble_result(model, chain, start, settings, record=run_record)
+
+
+def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
+    """The FitResult of a finished chain, after the checks the 50-tau test cannot make.
+
+    Walkers that sit in separated modes without ever crossing between them leave the
+    modes' weights unmeasured: such a chain is marked not converged whatever its
+    autocorrelation time. A central mass that moves under a second vague prior is
+    flagged as prior-sensitive. Both go into the summary and its warnings.
+    """
+    from .diagnose import posterior_modes, prior_sensitivity
+
+    modes = posterior_modes(model, chain)
+    unmixed = [m for m in modes if not m["walkers_cross"]]
+    if unmixed:
+        chain.converged = False
+    sensitivity = prior_sensitivity(model, chain.samples)
+    warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
+    warnings += [_modes_warning(m) for m in modes]
+    if sensitivity is not None and sensitivity["sensitive"]:
+        warnings.append(
+            f"the central mass depends on the prior: with a second prior "
+            f"({sensitivity['alternative']}) its median moves by "
+            f"{sensitivity['median_shift']:+.2f} of its 68 % half-width and the width "
+            f"changes by a factor {sensitivity['width_ratio']:.2f}; quote it together "
+            f"with its prior, or add data that cover more of the orbit")
     return FitResult(model, chain, start, settings=settings, warnings=warnings,
-                     record=run_record)
+                     record=record, checks={"posterior_modes": modes,
+                                            "prior_sensitivity": sensitivity})
+
+
+def _modes_warning(found):
+    where = ", ".join(f"{m['median']:.6g} {found['unit']} ({100 * m['fraction']:.0f} %)"
+                      for m in found["modes"])
+    text = f"the posterior of {found['parameter']} has {len(found['modes'])} separated modes: {where}"
+    if not found["walkers_cross"]:
+        text += ("; no walker moves between them, so their relative weights are not "
+                 "measured and the chain is not converged")
+    return text
 
 
 def _check_settings(settings):

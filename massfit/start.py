@@ -27,6 +27,7 @@ from scipy.optimize import least_squares
 
 from . import kepler
 from .constants import GM_SUN, KM_S_PER_AU_DAY
+from .errors import ModelError
 from .model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel, SystemSpec
 from .priors import Fixed, Normal
 
@@ -89,7 +90,8 @@ class Start:
             filled += take
             if filled == n_walkers:
                 return points
-        raise RuntimeError("could not place the walkers inside the prior's support")
+        raise ModelError("could not place the walkers inside the prior's support: the "
+                         "best fit lies at the edge of a prior; widen that prior")
 
 
 def find_start(model: OrbitModel, *, rng=None) -> Start:
@@ -170,7 +172,8 @@ def _best_combination(model, singles):
         if result[0] is not None and result[1] < joint[1]:
             best, joint = chosen, result
     if best is None:
-        raise RuntimeError("the joint least-squares fit failed from every start")
+        raise ModelError("the joint fit of all companions failed from every starting "
+                         "orbit; fit the companions one by one to find the one at fault")
     return best, joint
 
 
@@ -195,7 +198,8 @@ def _single_companion_modes(model, name):
         if sol is not None:
             solutions.append(sol)
     if not solutions:
-        raise RuntimeError(f"no starting orbit found for '{name}'")
+        raise ModelError(f"no orbit of companion '{name}' fits its data within the "
+                         f"priors; check its rows, or widen its period_prior")
     solutions.sort(key=lambda s: s["chi2"])
     return _distinct(solutions)
 
@@ -618,7 +622,8 @@ def _velocity_only_start(model):
         sub = model if len(names) == 1 else _velocity_sub_model(model, names[:count + 1])
         solutions = _velocity_candidates(sub, name, found)
         if not solutions:
-            raise RuntimeError(f"no starting orbit found for '{name}'")
+            raise ModelError(f"no orbit of companion '{name}' fits its velocities within "
+                             f"the priors; check its rows, or widen its period_prior")
         best = solutions[0]
         found = {n: best["values"][n] for n in names[:count + 1]}
     theta, chi2 = best["theta"], best["chi2"]

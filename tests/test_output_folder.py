@@ -37,11 +37,11 @@ def test_existing_result_is_kept_without_force(small_result, tmp_path):
 
 def test_a_failed_write_leaves_no_folder_that_looks_complete(small_result, tmp_path,
                                                              monkeypatch):
-    def broken_plots(folder, formats):
-        (folder / "corner.png").write_bytes(b"half a figure")
+    def broken_figures(folder, **options):
+        (Path(folder) / "corner.png").write_bytes(b"half a figure")
         raise OSError("disc full")
 
-    monkeypatch.setattr(small_result, "_save_plots", broken_plots)
+    monkeypatch.setattr(small_result, "write_figures", broken_figures)
     with pytest.raises(OSError, match="disc full"):
         small_result.save(tmp_path / "out")
     assert list(tmp_path.iterdir()) == []  # neither the folder nor its temporary twin
