@@ -60,14 +60,16 @@ def fingerprint(model) -> str:
     digest = hashlib.sha256()
     digest.update(repr(model.spec).encode())
     digest.update(repr(model.names).encode())
-    data = model.observations.astrometry
-    for name in data.__dataclass_fields__:
-        value = getattr(data, name)
-        if name == "time":
-            value = value.tdb.jd
-        if name in ("file", "line"):
-            continue  # moving a file does not change the fit
-        digest.update(np.ascontiguousarray(value).tobytes())
+    for data in (model.observations.astrometry, model.observations.velocities):
+        if data is None:
+            continue
+        for name in data.__dataclass_fields__:
+            if name in ("file", "line"):
+                continue  # moving a file does not change the fit
+            value = getattr(data, name)
+            if name == "time":
+                value = value.tdb.jd
+            digest.update(np.ascontiguousarray(value).tobytes())
     return digest.hexdigest()
 
 

@@ -177,8 +177,8 @@ def prior_sensitivity(model, samples) -> dict | None:
         size of the weights over the number of samples) and ``sensitive``. None where
         every prior is informative (normal or fixed) and there is nothing to swap.
     """
-    if samples.shape[0] < 10:
-        return None
+    if samples.shape[0] < 10 or "central.log10_mass" not in model.names:
+        return None  # nothing sampled to be sensitive (fixed, or velocities alone)
     phys = model.physical(samples)
     log_w = np.zeros(samples.shape[0])
     changed = []
