@@ -311,7 +311,9 @@ class OrbitModel:
                 self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
                 self.parallax_from_velocities = True
             else:
+                angular = ~astrometry.length & ~np.isfinite(astrometry.distance)
                 raise ModelError(
+                    f"{_files(astrometry.file[angular])}: "
                     "angular offsets without a distance: give the parallax (with its "
                     "error) or a fixed distance, add a 'distance' column, give the "
                     "offsets in a length unit (km, au), or add a companion's radial "
@@ -388,7 +390,9 @@ class OrbitModel:
         for name in astrometric:
             n_rows = int(np.sum(observations.astrometry.body == name))
             if 2 * n_rows < 7 and not primary_rv and name not in spectroscopic:
+                rows = observations.astrometry.body == name
                 raise ModelError(
+                    f"{_files(observations.astrometry.file[rows])}: "
                     f"companion '{name}' has {n_rows} astrometric epoch(s); an orbit "
                     f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
         return specs
@@ -958,6 +962,11 @@ def _scale_parameter(name, prior) -> _Parameter:
 def _file_stem(path) -> str:
     """Instrument label of rows that have none: the name of their file."""
     return Path(str(path)).stem
+
+
+def _files(names) -> str:
+    """The distinct file names of some rows, for a message."""
+    return ", ".join(dict.fromkeys(str(n) for n in names))
 
 
 def _wrap(angle):

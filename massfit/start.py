@@ -494,7 +494,11 @@ def _values_from_theta(model, theta):
               "parallax": None if phys["parallax"] is None else float(phys["parallax"][0])}
     for name in model.companions:
         values[name] = _orbit_dict(phys, name)
-        values[name]["ecc"] = min(values[name]["ecc"], 0.98)
+        # Stay inside the eccentricity prior: the least-squares box on the disc
+        # coordinates allows e up to 0.99 whatever the prior's upper end.
+        ecc_prior = model.companions[name].eccentricity
+        top = 0.98 if ecc_prior.is_fixed else min(0.98, 0.999 * ecc_prior.high)
+        values[name]["ecc"] = min(values[name]["ecc"], top)
     if "rv" in phys:
         rv = phys["rv"]
         labels = model._vel.labels
