@@ -90,6 +90,21 @@ class Start:
             filled += take
             if filled == n_walkers:
                 return points
+        # The best fit can sit on the edge of several priors at once (short arcs run
+        # to the largest period, mass and eccentricity allowed), where a ball about it
+        # is mostly outside: fall back on a tiny box ball pulled inside the bounds.
+        low, high = _bounds(model)
+        width = np.where(np.isfinite(high - low), high - low, 1.0)
+        for _ in range(20):
+            trial = self.theta + 1e-6 * width * rng.standard_normal((4 * n_walkers,
+                                                                     model.n_dim))
+            trial = np.clip(trial, low + 1e-7 * width, high - 1e-7 * width)
+            good = trial[np.isfinite(model.log_prob(trial))]
+            take = min(len(good), n_walkers - filled)
+            points[filled:filled + take] = good[:take]
+            filled += take
+            if filled == n_walkers:
+                return points
         raise ModelError("could not place the walkers inside the prior's support: the "
                          "best fit lies at the edge of a prior; widen that prior")
 
