@@ -33,8 +33,13 @@ MIN_MODE_FRACTION = 0.01
 #: The mass is called prior-sensitive when a second prior moves its median by more
 #: than this fraction of its 68 % half-width...
 SHIFT_LIMIT = 0.5
-#: ...or changes the width of its 68 % interval by more than this factor.
+#: ...or changes the width of its 68 % interval by more than this factor...
 WIDTH_LIMIT = 1.5
+#: ...or more than EDGE_FRACTION of the samples lie within EDGE_WIDTH (a fraction of
+#: the prior's range, in log10 for a log-uniform prior) of one of its bounds: the
+#: posterior runs against the prior's edge, and the bound is doing the work.
+EDGE_WIDTH = 0.02
+EDGE_FRACTION = 0.05
 
 
 def split_modes(values, *, separation=SEPARATION, min_fraction=MIN_MODE_FRACTION):
@@ -212,9 +217,21 @@ def prior_sensitivity(model, samples) -> dict | None:
     shift = float((med2 - med1) / half)
     ratio = float((hi2 - lo2) / max(hi1 - lo1, 1e-300))
     effective = float(1.0 / np.sum(w * w) / w.size)
+    edge = _edge_fraction(spec.central_mass, phys["central_mass"])
     sensitive = bool(abs(shift) > SHIFT_LIMIT or not 1 / WIDTH_LIMIT < ratio < WIDTH_LIMIT
-                     or effective * w.size < 50)
+                     or effective * w.size < 50 or edge > EDGE_FRACTION)
     return {"alternative": "; ".join(changed), "median_shift": shift,
             "width_ratio": ratio, "effective_fraction": effective,
-            "shift_limit": SHIFT_LIMIT, "width_limit": WIDTH_LIMIT,
-            "sensitive": sensitive}
+            "at_prior_edge": edge, "shift_limit": SHIFT_LIMIT, "width_limit": WIDTH_LIMIT,
+            "edge_limit": EDGE_FRACTION, "sensitive": sensitive}
+
+
+def _edge_fraction(prior, values):
+    """Fraction of samples within EDGE_WIDTH of a finite bound of the prior."""
+    low, high = prior.low, prior.high
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return 0.0
+    if isinstance(prior, LogUniform):
+        values, low, high = np.log10(values), np.log10(low), np.log10(high)
+    margin = EDGE_WIDTH * (high - low)
+    return float(np.mean((values < low + margin) | (values > high - margin)))

@@ -166,3 +166,25 @@ def test_prior_sensitivity_flags_a_short_arc_and_not_a_good_orbit(tmp_path, span
     result = assemble_result(model, chain, start, settings)
     assert result.summary["prior_sensitivity"]["sensitive"] is flagged
     assert any("depends on the prior" in w for w in result.summary["warnings"]) is flagged
+
+
+def test_a_mass_against_the_prior_edge_is_flagged(small_data_file):
+    """Samples piled against a bound of the prior: the bound, not the data, sets the
+    interval. A Gaussian in log M centred on the upper bound and cut there, narrow
+    enough that reweighting alone would not notice (negative control: the same
+    Gaussian well inside the prior)."""
+    obs = massfit.read_observations(small_data_file)
+    spec = SystemSpec(central_mass=LogUniform(0.5, 2.5))
+    model = OrbitModel(obs, spec)
+    theta = find_start(model).theta
+    rng = np.random.default_rng(1)
+    top = np.log10(2.5)
+    for centre, flagged in ((top, True), (top - 0.3, False)):
+        values = centre + 0.05 * rng.standard_normal(200_000)
+        values = values[values < top]
+        samples = np.tile(theta, (values.size, 1))
+        samples[:, 0] = values
+        check = prior_sensitivity(model, samples)
+        assert abs(check["median_shift"]) < 0.5
+        assert (check["at_prior_edge"] > 0.05) is flagged
+        assert check["sensitive"] is flagged
