@@ -91,7 +91,9 @@ def test_killed_run_resumes_to_the_uninterrupted_result(data_file, tmp_path):
 
 
 def test_interrupt_keeps_the_checkpoint_and_says_how_to_resume(data_file, tmp_path):
-    command, kwargs = _cli(data_file, "--out", "stop", *OPTIONS, cwd=tmp_path)
+    # 64 walkers: seconds of sampling after the first check, so Ctrl-C lands mid-run.
+    slow = [o if o != "16" else "64" for o in OPTIONS]
+    command, kwargs = _cli(data_file, "--out", "stop", *slow, cwd=tmp_path)
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
                                text=True, **kwargs)
     saved = checkpoint_path(tmp_path / "stop")
@@ -104,7 +106,7 @@ def test_interrupt_keeps_the_checkpoint_and_says_how_to_resume(data_file, tmp_pa
     assert "--resume" in stderr and "Traceback" not in stderr
     assert saved.exists() and not (tmp_path / "stop").exists()
     # Starting again without --resume would throw the progress away: refused.
-    again = _run(data_file, "--out", "stop", *OPTIONS, cwd=tmp_path)
+    again = _run(data_file, "--out", "stop", *slow, cwd=tmp_path)
     assert again.returncode == 2 and "--resume" in again.stderr
     assert "Traceback" not in again.stderr
 
