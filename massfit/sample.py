@@ -165,7 +165,8 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
     while checked < settings.max_steps:
         checked = min(checked + settings.check_every, settings.max_steps)
         if checked > steps:
-            state = sampler.run_mcmc(state, checked - steps, progress=False)
+            state = sampler.run_mcmc(state, checked - steps, progress=False,
+                                     skip_initial_state_check=True)
             if bar is not None:
                 bar.update(checked - steps)
             steps = checked

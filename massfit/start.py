@@ -74,6 +74,10 @@ class Start:
         """A ball of ``n_walkers`` starting points, all inside the prior's support."""
         scale = np.sqrt(np.clip(np.diag(self.covariance), 1e-16, None))
         cov = self.covariance if np.all(np.isfinite(self.covariance)) else np.diag(scale ** 2)
+        # Ensemble moves only explore the span of the walkers: a rank-deficient
+        # covariance (a degenerate combination of parameters) would trap them in a
+        # subspace, so every direction gets a little width of its own.
+        cov = cov + np.diag((1e-3 * scale) ** 2)
         points = np.empty((n_walkers, model.n_dim))
         filled = 0
         for shrink in (1.0, 0.3, 0.1, 0.03, 0.01, 1e-3, 1e-4):
@@ -274,11 +278,13 @@ def _candidate_periods(t, series, comp):
     low_p, high_p = comp.period.low, comp.period.high
     if comp.period.is_fixed:
         return [comp.period.value]
-    # Search down to the prior's shortest period, not just to the sampling interval:
-    # moons seen once every few nights often have periods shorter than the spacing,
-    # and only the least squares can choose among such aliases. The grid is capped
-    # at 2e5 frequencies (10 per peak width 1/span).
-    min_period = max(low_p, span / 2e4 if span > 0 else low_p, 1e-3)
+    # Search below the sampling interval (moons seen once every few nights often
+    # have periods shorter than the spacing; only the least squares can choose among
+    # such aliases), but not far below it: with few epochs, periods much shorter than
+    # the spacing can always be made to fit. The grid is capped at 2e5 frequencies.
+    dt = np.diff(np.unique(np.round(t, 6)))
+    spacing = float(np.min(dt)) if dt.size else low_p
+    min_period = max(low_p, 0.5 * spacing, span / 2e4 if span > 0 else low_p, 1e-3)
     max_period = min(high_p, 20.0 * span)
     periods = []
     if span > 0 and min_period < span:
