@@ -30,8 +30,6 @@ from __future__ import annotations
 
 import math
 import os
-import shutil
-import tempfile
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -1154,15 +1152,13 @@ class PlanResult:
         """
         import matplotlib.pyplot as plt
 
-        from .results import _write_json
+        from .results import _write_json, atomic_folder
 
         out = Path(out_dir)
         if (out / "plan.json").exists() and not force:
             raise ConfigError(f"'{out}' already holds a plan; choose another folder or "
                               f"pass --force (force=True)", key="--out")
-        out.parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
-        try:
+        with atomic_folder(out) as tmp:
             self.ranking.write(tmp / "next_epochs.ecsv", format="ascii.ecsv")
             self.curve.write(tmp / "precision.ecsv", format="ascii.ecsv")
             if plots:
@@ -1171,12 +1167,6 @@ class PlanResult:
                     fig.savefig(tmp / f"precision.{ext}", dpi=150 if ext == "png" else None)
                 plt.close(fig)
             _write_json(tmp / "plan.json", self.summary())
-            if out.exists():
-                shutil.rmtree(out)
-            os.replace(tmp, out)
-        except BaseException:
-            shutil.rmtree(tmp, ignore_errors=True)
-            raise
         return out
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
@@ -446,15 +447,9 @@ class FitResult:
         if (out / SUMMARY_FILE).exists() and not force:
             raise ConfigError(f"'{out}' already holds a result; choose another folder or "
                               f"pass --force (force=True) to replace it", key="--out")
-        out.parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
-        try:
-            from .saved import RUN_FILE, model_state, write_observations
+        from .saved import RUN_FILE, model_state, write_observations
 
-            # mkdtemp makes the folder private; the result gets the usual permissions.
-            umask = os.umask(0)
-            os.umask(umask)
-            os.chmod(tmp, 0o777 & ~umask)
+        with atomic_folder(out) as tmp:
             self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
@@ -463,13 +458,30 @@ class FitResult:
             if plots:
                 self.write_figures(tmp, formats=formats)
             _write_json(tmp / SUMMARY_FILE, self.summary)
-            if out.exists():
-                shutil.rmtree(out)
-            os.replace(tmp, out)
-        except BaseException:
-            shutil.rmtree(tmp, ignore_errors=True)
-            raise
         return out
+
+
+@contextlib.contextmanager
+def atomic_folder(out: Path):
+    """Yield a temporary folder beside ``out`` that replaces ``out`` when the block ends.
+
+    A half-written output folder therefore never looks complete; on any error the
+    temporary folder is removed and ``out`` is left as it was.
+    """
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    try:
+        # mkdtemp makes the folder private; the result gets the usual permissions.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)
+        yield tmp
+        if out.exists():
+            shutil.rmtree(out)
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
 
 
 def _angle_text(block_mas):
