@@ -237,6 +237,49 @@ class Oblate(Keplerian):
         normal = _normal(orbit)
         return np.clip(sum(n * p for n, p in zip(normal, self.pole)), -1.0, 1.0)
 
+    def from_two_body(self, model, values) -> dict:
+        """Map a two-body solution into this model's elements.
+
+        A two-body fit of a precessing orbit follows its mean longitude: its period is
+        about the sidereal one, 2 pi / (n + dvarpi/dt), and its semi-major axis the
+        geometric size on the sky. For each companion the GM that a J2 primary needs
+        for that size and rate is found (:func:`oblate_gm`); the central mass is their
+        mean weighted by rows, and each period becomes the anomalistic one that gives
+        the same mean-longitude rate under that mass. Angles and the phase at the
+        reference epoch are kept.
+        """
+        from .constants import GM_SUN
+
+        values = dict(values)
+        names = list(model.companions)
+        orbits = {name: dict(values[name]) for name in names}
+        cos_i = {name: float(self._cos_i_eq({key: np.array([orbits[name][key]])
+                                              for key in ("inc", "node")})[0])
+                 for name in names}
+        central = []
+        for name in names:
+            orbit = orbits[name]
+            gm = oblate_gm(orbit["semi_major_axis"], orbit["period"], orbit["ecc"],
+                           np.arccos(cos_i[name]), self.j2, self.radius_au)
+            central.append(gm / GM_SUN - orbit.get("mass", 0.0))
+        weights = np.array([len(model._rows[name].t) for name in names], dtype=float)
+        values["central_mass"] = float(np.exp(np.sum(weights * np.log(np.maximum(
+            central, 1e-30))) / np.sum(weights)))
+        for name in names:
+            orbit = orbits[name]
+            gm = GM_SUN * (values["central_mass"] + orbit.get("mass", 0.0))
+            rate = TWO_PI / orbit["period"]
+            n_motion = rate
+            for _ in range(_ITERATIONS):
+                a_mean, _ = mean_and_geometric_axis(gm, n_motion, orbit["ecc"],
+                                                    cos_i[name], self.j2, self.radius_au)
+                node_rate, peri_rate = secular_rates(n_motion, a_mean, orbit["ecc"],
+                                                     cos_i[name], self.j2, self.radius_au)
+                n_motion = rate - node_rate - peri_rate
+            orbit["period"] = float(TWO_PI / n_motion)
+            values[name] = orbit
+        return values
+
     def semi_major_axis(self, gm, period, orbit):
         """Geometric semi-major axis (au) from GM and the anomalistic period."""
         _, a_geo = mean_and_geometric_axis(gm, TWO_PI / period, orbit["ecc"],

@@ -27,6 +27,7 @@ from scipy.optimize import least_squares
 
 from . import kepler
 from .constants import GM_SUN, KM_S_PER_AU_DAY
+from .dynamics import Keplerian
 from .errors import ModelError
 from .model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel, SystemSpec
 from .priors import Fixed, Normal
@@ -129,6 +130,8 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     """
     if model.velocity_only:
         return _velocity_only_start(model)
+    if type(model.dynamics) is not Keplerian:
+        return _perturbed_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best, joint = _best_combination(model, singles)
     modes = []
@@ -160,6 +163,35 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
         mode["best_period"] = float(best_phys["companions"][mode["body"]]["period"][0])
     return Start(theta=theta, chi2=chi2, covariance=covariance, modes=modes,
                  per_companion=per)
+
+
+def _perturbed_start(model):
+    """Start a perturbed model (J2, N-body) from the two-body search, then polish.
+
+    The periodograms, linear scans and alias choice work on Keplerian ellipses, so they
+    run on the two-body model of the same data and companions. Its solution is mapped
+    into the perturbed model's elements by the dynamics (``from_two_body``: e.g. the
+    J2 model turns the fitted mean-longitude rate into its anomalistic period and the
+    central mass into the one its corrected third law needs) and polished there by
+    least squares. The two-body model's comparable modes are reported as found.
+    """
+    spec = replace(model.spec, dynamics=Keplerian(), companions=dict(model.companions),
+                   strict_companions=True)
+    two_body = OrbitModel(model.observations, spec)
+    found = find_start(two_body)
+    values = _values_from_theta(two_body, found.theta)
+    values = model.dynamics.from_two_body(model, values)
+    theta = _least_squares(model, values, rounds=3)
+    if theta is None:
+        raise ModelError(f"the {model.dynamics.label} model's least-squares fit failed "
+                         f"from the two-body solution; check its settings (or fit the "
+                         f"two-body model first)")
+    model.recentre(theta)
+    modes = [dict(mode, searched_with="keplerian") for mode in found.modes]
+    per = {name: dict(sol, searched_with="keplerian")
+           for name, sol in found.per_companion.items()}
+    return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
+                 modes=modes, per_companion=per)
 
 
 def _comparable(modes):
