@@ -106,10 +106,15 @@ class Chain:
 def _moves():
     # Differential-evolution proposals cope with the strong correlations of orbit
     # posteriors (period-phase, mass-parallax) better than the plain stretch move.
-    # DE alone, without the snooker variant: measured on a four-companion model
-    # (benchmarks/), the snooker's per-walker Python loop made each step ~35 % dearer
-    # and the autocorrelation time was no shorter (tau_max 86 steps with DE alone,
-    # 103 with the 0.8/0.2 mixture, 52 walkers, 6000 steps).
+    # DE alone, never emcee's snooker variant (DESnookerMove, emcee 3.1): it does not
+    # leave the target invariant. Its step along the line to the anchor walker is
+    # scaled by the distance to it (delta / sqrt(|delta|) where a unit vector belongs),
+    # which the Metropolis factor does not undo: a 7-d standard normal sampled with the
+    # 0.8/0.2 DE/snooker mixture comes out with variances of 0.89 instead of 1 (0.65
+    # with the snooker alone), and the short-arc masses of validation/short_arc.py
+    # departed from the brute-force reference by a KS distance of 0.09. The test suite
+    # pins this (tests/test_sampler_target.py). The snooker was also ~35 % dearer per
+    # step on a four-companion model (benchmarks/) with no shorter autocorrelation.
     return [(emcee.moves.DEMove(), 1.0)]
 
 
