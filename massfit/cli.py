@@ -213,7 +213,7 @@ def _dynamics_options(parser):
     group.add_argument("--equator-node", metavar="'VALUE UNIT'",
                        help="oblate: position angle of the equator's ascending node")
     group.add_argument("--rtol", type=float, metavar="TOL",
-                       help="n-body: relative tolerance of the integrator (default 1e-10)")
+                       help="n-body: relative tolerance of the integrator (default 1e-12)")
     group.add_argument("--romer-delay", action="store_true",
                        help="delay each companion by the light time across the system")
 

@@ -42,7 +42,7 @@ Layout (every key optional except ``data.files``)::
     equatorial_radius = "71492 km"    #   ... at this reference radius
     equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
     equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
-    rtol = 1e-10                      # n-body: the integrator's relative tolerance
+    rtol = 1e-12                      # n-body: the integrator's relative tolerance
     compare_keplerian = true          # adequacy: also fit the two-body model
 
     [sampler]

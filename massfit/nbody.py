@@ -13,10 +13,24 @@ From there the astrocentric equations of motion,
             + sum_{j != k} G m_j [ (r_j - r_k) / |r_j - r_k|^3 - r_j / |r_j|^3 ],
 
 (the indirect term because the primary itself is pulled; e.g. Murray & Dermott,
-*Solar System Dynamics*, ch. 6, from memory) are integrated with scipy's DOP853, all
-walkers stacked into one system so that one call integrates them all. The step is
-shared by the stack and the error norm is taken over it; the default relative
-tolerance (1e-10) leaves every walker's error far below astrometric precision.
+*Solar System Dynamics*, ch. 6, from memory) are integrated with DOP853, forward and
+backward from the epoch to the observation times. Two integrators give the same
+numbers to their tolerance:
+
+* compiled (numba, :mod:`massfit._nbody_numba`; the default where numba is
+  installed): each walker on its own with its own steps, in compiled loops;
+* numpy (scipy's ``solve_ivp``): all walkers stacked into one system, the step shared
+  by the stack and the error norm taken over it.
+
+Which tolerance
+---------------
+The global error grows with the number of orbits integrated. On the invented pair of
+:func:`simulate_interacting_pair` (ten orbits of the inner companion, errors of 2e-5
+au) the log-likelihood at rtol 1e-10 is off by up to about 7 from a 1e-14 reference,
+at 1e-11 by 1, at 1e-12 by 0.1 and at 1e-13 by 0.01, while the compiled integrator's
+cost grows only by a factor 1.7 from 1e-10 to 1e-13. The default is therefore 1e-12;
+for longer baselines or more precise data tighten it, and check a fit by repeating
+its best solution's chi^2 at a tighter tolerance.
 
 The companions' masses are parameters: a companion whose mass is left at its default
 (fixed at zero) gets the prior ``mass_prior`` (log-uniform from 1e-12 to 10 M_sun
@@ -34,9 +48,18 @@ from .dynamics import Keplerian, orbit_state
 from .errors import ConfigError
 from .priors import Fixed, LogUniform
 
-__all__ = ["NBody", "integrate_system", "total_energy", "DEFAULT_MASS_PRIOR"]
+__all__ = ["NBody", "integrate_system", "total_energy", "DEFAULT_MASS_PRIOR",
+           "PAIR_TRUTH", "simulate_interacting_pair"]
 
 TWO_PI = 2.0 * np.pi
+
+try:  # numba is optional: the stacked numpy path gives the same numbers to tolerance.
+    from . import _nbody_numba as _fast
+except ImportError:  # pragma: no cover - exercised where numba is absent
+    _fast = None
+
+#: True where the compiled integrator is available.
+HAVE_NUMBA = _fast is not None
 #: Prior for companion masses the user left unstated (nominal solar masses).
 DEFAULT_MASS_PRIOR = LogUniform(1e-12, 10.0)
 
@@ -59,7 +82,8 @@ def _accelerations(pos, gm_central, gm_bodies):
     return direct + pull - indirect
 
 
-def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=1e-10):
+def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=1e-12,
+                     compiled=None):
     """Integrate primary plus companions from an astrocentric state at time 0.
 
     Parameters
@@ -74,18 +98,59 @@ def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=
         Astrocentric positions (au) and velocities (au/day) at time 0.
     rtol : float
         Relative tolerance of DOP853.
+    compiled : bool, optional
+        Use the compiled integrator (numba; each walker with its own steps) or the
+        numpy one (scipy's solve_ivp on the stacked walkers). Default: compiled
+        where numba is installed.
 
     Returns
     -------
     positions, velocities : ndarray, shape (n, K, T, 3)
         NaN where the integration failed (a close encounter, say).
     """
-    from scipy.integrate import solve_ivp
-
     times = np.asarray(times, dtype=float)
     n, k = masses.shape
     gm_central = GM_SUN * np.asarray(central_mass, dtype=float)
     gm_bodies = GM_SUN * np.asarray(masses, dtype=float)
+    use_compiled = _fast is not None if compiled is None else bool(compiled)
+    if use_compiled:
+        if _fast is None:
+            raise RuntimeError("the compiled integrator needs numba, which is not installed")
+        return _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0,
+                                   rtol)
+    return _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol)
+
+
+def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol):
+    n, k = gm_bodies.shape
+    y0 = np.ascontiguousarray(np.concatenate([position0, velocity0], axis=-1).reshape(n, -1),
+                              dtype=float)
+    # Absolute tolerance per walker and companion: rtol times its own distance and
+    # speed (so that a component passing through zero does not ask for the impossible).
+    r_scale = np.linalg.norm(position0, axis=-1)
+    v_scale = np.linalg.norm(velocity0, axis=-1)
+    atol = rtol * np.concatenate([np.repeat(r_scale[..., None], 3, -1),
+                                  np.repeat(v_scale[..., None], 3, -1)], axis=-1)
+    forward = np.flatnonzero(times >= 0)
+    forward = forward[np.argsort(times[forward], kind="stable")]
+    backward = np.flatnonzero(times < 0)
+    backward = backward[np.argsort(-times[backward], kind="stable")]
+    raw = np.empty((n, times.size, 6 * k))
+    with np.errstate(all="ignore"):
+        _fast.integrate(y0, np.ascontiguousarray(gm_central),
+                        np.ascontiguousarray(gm_bodies), times[forward].copy(),
+                        times[backward].copy(), float(rtol),
+                        np.ascontiguousarray(atol.reshape(n, -1)), raw)
+    out = np.empty_like(raw)
+    out[:, np.concatenate([forward, backward])] = raw
+    out = out.reshape(n, times.size, k, 6).transpose(0, 2, 1, 3)
+    return out[..., :3], out[..., 3:]
+
+
+def _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol):
+    from scipy.integrate import solve_ivp
+
+    n, k = gm_bodies.shape
     y0 = np.concatenate([position0, velocity0], axis=-1).reshape(-1)
     r_scale = np.max(np.linalg.norm(position0, axis=-1), axis=0)  # per companion
     v_scale = np.max(np.linalg.norm(velocity0, axis=-1), axis=0)
@@ -154,6 +219,9 @@ class NBody(Keplerian):
         Prior for the masses of companions whose mass is left unstated;
         :data:`DEFAULT_MASS_PRIOR` by default. A companion with a stated mass or mass
         prior keeps it.
+    compiled : bool, optional
+        Which integrator :func:`integrate_system` uses (None: the compiled one where
+        numba is installed); for checks and benchmarks, not a config setting.
 
     Notes
     -----
@@ -164,7 +232,7 @@ class NBody(Keplerian):
 
     label = "n-body"
 
-    def __init__(self, rtol=1e-10, mass_prior=None):
+    def __init__(self, rtol=1e-12, mass_prior=None, compiled=None):
         if isinstance(rtol, bool) or not isinstance(rtol, (int, float)) \
                 or not 1e-14 <= rtol <= 1e-6:
             raise ConfigError(f"the integrator's relative tolerance must be a number "
@@ -172,6 +240,7 @@ class NBody(Keplerian):
         self.rtol = float(rtol)
         self.mass_prior = mass_prior if mass_prior is not None else DEFAULT_MASS_PRIOR
         self.settings = {"rtol": rtol}
+        self.compiled = compiled
 
     def describe(self) -> dict:
         return {"model": self.label, "rtol": self.rtol,
@@ -210,7 +279,7 @@ class NBody(Keplerian):
         if good.size:
             positions[good], velocities[good] = integrate_system(
                 unique_t, central[good], masses[good], pos0[good], vel0[good],
-                rtol=self.rtol)
+                rtol=self.rtol, compiled=self.compiled)
         start = 0
         for k, name in enumerate(names):
             rows = where[start:start + model._rows[name].t.size]
@@ -220,3 +289,73 @@ class NBody(Keplerian):
             out[name] = ((pos[..., 0], pos[..., 1], pos[..., 2]),
                          (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
         return out
+
+
+#: The invented interacting pair *Tessaly*: a 1.0 M_sun star with two brown-dwarf-mass
+#: companions near a 5:2 period ratio (astrocentric osculating elements at the data's
+#: mid-time; angles in degrees, mean anomaly in radians).
+PAIR_TRUTH = {"central_mass": 1.0, "companions": {
+    "Arvel": dict(mass=0.03, period=100.0, ecc=0.08, inc=62.0, omega=40.0, node=110.0,
+                  mean0=0.5),
+    "Brisk": dict(mass=0.06, period=250.0, ecc=0.15, inc=66.0, omega=300.0, node=115.0,
+                  mean0=2.4)}}
+
+
+def simulate_interacting_pair(path, *, seed=11, n_obs=60, span=1000.0, err_au=2e-5):
+    """Write the invented pair's astrometry (au, as from an absolute orbit at a known
+    distance) as an ECSV table, integrated with DOP853 at rtol 1e-12.
+
+    Parameters
+    ----------
+    path : path
+        The ECSV file to write.
+    seed : int
+        Seed of the observing times and the noise.
+    n_obs : int
+        Epochs per companion, uniform over ``span`` days centred on the epoch.
+    span : float
+        Days.
+    err_au : float
+        1-sigma error of east and north, au.
+
+    Returns
+    -------
+    path
+    """
+    import astropy.units as u
+    from astropy.table import Table
+    from astropy.time import Time
+
+    rng = np.random.default_rng(seed)
+    bodies = PAIR_TRUTH["companions"]
+    names = list(bodies)
+    central = PAIR_TRUTH["central_mass"]
+    masses = np.array([[bodies[n]["mass"] for n in names]])
+    pos0 = np.empty((1, len(names), 3))
+    vel0 = np.empty_like(pos0)
+    for k, name in enumerate(names):
+        el = bodies[name]
+        a = np.cbrt(GM_SUN * (central + el["mass"]) * el["period"] ** 2 / (4 * np.pi ** 2))
+        pos, vel = orbit_state(a, el["ecc"], np.radians(el["inc"]), np.radians(el["omega"]),
+                               np.radians(el["node"]), el["mean0"], TWO_PI / el["period"])
+        pos0[0, k], vel0[0, k] = pos, vel
+    times = [np.sort(rng.uniform(-span / 2, span / 2, n_obs)) for _ in names]
+    # Every companion's rows share the mid-time of all rows as the epoch of the elements.
+    shift = np.mean(np.concatenate(times))
+    times = [t - shift for t in times]
+    table = Table()
+    east, north = [], []
+    for k, t in enumerate(times):
+        positions, _ = integrate_system(t, np.array([central]), masses, pos0, vel0,
+                                        rtol=1e-12)
+        north.append(positions[0, k, :, 0] + err_au * rng.standard_normal(t.size))
+        east.append(positions[0, k, :, 1] + err_au * rng.standard_normal(t.size))
+    table["time"] = Time(2461500.0 + np.concatenate(times), format="jd", scale="tdb")
+    table["body"] = np.concatenate([[name] * t.size for name, t in zip(names, times)])
+    table["east"] = np.concatenate(east) * u.au
+    table["north"] = np.concatenate(north) * u.au
+    table["east_err"] = table["north_err"] = np.full(len(table), err_au) * u.au
+    table.meta["description"] = ("Invented interacting pair of companions, integrated "
+                                 "with DOP853 (massfit validation)")
+    table.write(path, format="ascii.ecsv", overwrite=True)
+    return path
