@@ -35,7 +35,7 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 from astropy.io import ascii
-from astropy.table import Column
+from astropy.table import Column, MaskedColumn
 from astropy.time import Time
 from astropy.time.formats import TimeNumeric, TimeString
 
@@ -222,7 +222,9 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
         Units of columns, by column name, for files that do not carry them (plain CSV).
         Where an ECSV column has a unit in its header and ``units`` names the column
         too, the two must be the same unit (``mas`` and ``0.001 arcsec`` are); if they
-        conflict the read is refused rather than picking one.
+        conflict the read is refused rather than picking one. ECSV written from an
+        astropy QTable (Quantity columns, serialized in the header) is read the same
+        way: each Quantity column's unit is that column's unit.
     skip_bad_rows : bool, optional
         Put rows that cannot be used into ``Observations.rejected`` and carry on, instead
         of raising at the first one. Problems of a whole file still raise.
@@ -590,7 +592,7 @@ def _table_cells(file: str, table, lines: list[int], rows_read: int,
                  unreadable: list[_RowIssue]) -> _Cells:
     values, units = {}, {}
     for name in table.colnames:
-        column = table[name]
+        column = _quantity_as_column(table[name])
         if isinstance(column, Column):
             values[name] = _column_values(column)
             if column.unit is not None:
@@ -599,6 +601,18 @@ def _table_cells(file: str, table, lines: list[int], rows_read: int,
         else None
     return _Cells(file, list(table.colnames), values, np.array(lines, dtype=int), rows_read,
                   unreadable, units, dict(table.meta), native)
+
+
+def _quantity_as_column(column):
+    """A Quantity column (an ECSV file written from a QTable) as a Column with its unit.
+
+    Its unit is then checked like a unit stated in the header of a plain column.
+    """
+    if not isinstance(column, u.Quantity):
+        return column
+    unmasked = getattr(column, "unmasked", column)  # astropy's Masked quantities
+    mask = np.asarray(getattr(column, "mask", np.zeros(column.shape, dtype=bool)))
+    return MaskedColumn(np.asarray(unmasked.value), mask=mask, unit=column.unit)
 
 
 def _column_values(column: Column) -> list:

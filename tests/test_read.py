@@ -10,7 +10,7 @@ import io
 import astropy.units as u
 import numpy as np
 import pytest
-from astropy.table import Table
+from astropy.table import QTable, Table
 from astropy.time import Time
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -143,6 +143,56 @@ def test_length_offsets_in_km_become_au(tmp_path):
     km = np.array([120.0, -45.5, 8.0]) * 1e5
     np.testing.assert_allclose(obs.astrometry.east, km / u.au.to(u.km))
     assert obs.astrometry.length.all()
+
+
+def qtable_text(table):
+    """The ECSV text that ``QTable.write`` gives: Quantity columns, serialized."""
+    buffer = io.StringIO()
+    QTable(table).write(buffer, format="ascii.ecsv")
+    return buffer.getvalue()
+
+
+def test_ecsv_from_a_qtable_reads_like_one_from_a_table(tmp_path):
+    table = native_table(Time([58000.5, 58020.25, 58041.0], format="mjd", scale="tdb"))
+    table["corr"] = [0.1, -0.2, 0.0]
+    table["distance"] = [20.0, 21.0, 22.0] * u.pc
+    text = qtable_text(table)
+    assert "__serialized_columns__" in text and "astropy.units.quantity.Quantity" in text
+    quantities = read_observations(write(tmp_path, "q.ecsv", text)).astrometry
+    columns = read_observations(write(tmp_path, "t.ecsv", ecsv_text(table))).astrometry
+    for name in ("east", "north", "east_err", "north_err", "corr", "distance"):
+        np.testing.assert_array_equal(getattr(quantities, name), getattr(columns, name))
+    np.testing.assert_allclose(quantities.east, [0.12, -0.0455, 0.008])
+    np.testing.assert_allclose(quantities.time.mjd, [58000.5, 58020.25, 58041.0], atol=1e-9)
+    assert quantities.line.tolist() == [data_line(text, k) for k in range(3)]
+
+
+def test_ecsv_from_a_qtable_velocities_in_m_per_s(tmp_path):
+    table = QTable()
+    table["time"] = Time([58000.5, 58001.5], format="mjd", scale="tdb")
+    table["body"] = ["primary", "primary"]
+    table["rv"] = [1250.0, -300.0] * u.m / u.s
+    table["rv_err"] = [50.0, 40.0] * u.m / u.s
+    obs = read_observations(write(tmp_path, "v.ecsv", qtable_text(table)))
+    np.testing.assert_allclose(obs.velocities.rv, [1.25, -0.3])
+    np.testing.assert_allclose(obs.velocities.rv_err, [0.05, 0.04])
+
+
+def test_ecsv_from_a_qtable_with_a_wrong_or_missing_value(tmp_path):
+    table = offsets_table()
+    table["east"] = table["east"].value * u.kg
+    with pytest.raises(InputError, match="angle unit") as info:
+        read_observations(write(tmp_path, "kg.ecsv", qtable_text(table)))
+    assert info.value.column == "east" and "kg" in str(info.value)
+    # A masked Quantity value is written as an empty cell: named like one.
+    table = QTable(offsets_table(), masked=True)
+    table["north"].mask[1] = True
+    text = qtable_text(table)
+    path = write(tmp_path, "masked.ecsv", text)
+    with pytest.raises(InputError) as info:
+        read_observations(path)
+    assert_names(info, path, data_line(text, 1), "north")
+    assert read_observations(path, skip_bad_rows=True).rows_used == 2
 
 
 def test_per_row_distance_with_an_empty_cell(tmp_path):
