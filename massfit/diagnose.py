@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .priors import LogUniform, Uniform
+from .priors import LogUniform, Normal, Uniform
 
 __all__ = ["split_modes", "posterior_modes", "prior_sensitivity",
            "SEPARATION", "MIN_MODE_FRACTION", "SHIFT_LIMIT"]
@@ -40,6 +40,11 @@ WIDTH_LIMIT = 1.5
 #: posterior runs against the prior's edge, and the bound is doing the work.
 EDGE_WIDTH = 0.02
 EDGE_FRACTION = 0.05
+#: ...or the posterior's standard deviation (in log10 for a log-uniform prior) is more
+#: than this fraction of the prior's own: the data have not even halved the prior's
+#: spread, so the interval is largely the prior's (the "posterior contraction" of
+#: the Bayesian-workflow literature; the value 0.5 is a choice, not a standard).
+PRIOR_WIDTH_LIMIT = 0.5
 
 
 def split_modes(values, *, separation=SEPARATION, min_fraction=MIN_MODE_FRACTION):
@@ -218,12 +223,32 @@ def prior_sensitivity(model, samples) -> dict | None:
     ratio = float((hi2 - lo2) / max(hi1 - lo1, 1e-300))
     effective = float(1.0 / np.sum(w * w) / w.size)
     edge = _edge_fraction(spec.central_mass, phys["central_mass"])
+    of_prior = _width_of_prior(spec.central_mass, phys["central_mass"])
     sensitive = bool(abs(shift) > SHIFT_LIMIT or not 1 / WIDTH_LIMIT < ratio < WIDTH_LIMIT
-                     or effective * w.size < 50 or edge > EDGE_FRACTION)
+                     or effective * w.size < 50 or edge > EDGE_FRACTION
+                     or of_prior > PRIOR_WIDTH_LIMIT)
     return {"alternative": "; ".join(changed), "median_shift": shift,
             "width_ratio": ratio, "effective_fraction": effective,
-            "at_prior_edge": edge, "shift_limit": SHIFT_LIMIT, "width_limit": WIDTH_LIMIT,
-            "edge_limit": EDGE_FRACTION, "sensitive": sensitive}
+            "at_prior_edge": edge, "width_of_prior": of_prior, "shift_limit": SHIFT_LIMIT,
+            "width_limit": WIDTH_LIMIT, "edge_limit": EDGE_FRACTION,
+            "width_of_prior_limit": PRIOR_WIDTH_LIMIT, "sensitive": sensitive}
+
+
+def _width_of_prior(prior, values):
+    """Posterior standard deviation over the prior's, in the prior's own coordinate.
+
+    0 where the prior has no finite spread to compare with.
+    """
+    if isinstance(prior, LogUniform):
+        spread = np.log10(prior.high / prior.low) / np.sqrt(12.0)
+        values = np.log10(values)
+    elif isinstance(prior, Uniform) and np.isfinite(prior.high - prior.low):
+        spread = (prior.high - prior.low) / np.sqrt(12.0)
+    elif isinstance(prior, Normal):
+        spread = prior.sd  # a truncated one is narrower: the ratio errs low, not high
+    else:
+        return 0.0
+    return float(np.std(values) / spread) if spread > 0 else 0.0
 
 
 def _edge_fraction(prior, values):

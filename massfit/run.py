@@ -171,7 +171,8 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
             f"{sensitivity['median_shift']:+.2f} of its 68 % half-width and the width "
             f"changes by a factor {sensitivity['width_ratio']:.2f}; "
             f"{100 * sensitivity['at_prior_edge']:.0f} % of the samples lie at an edge "
-            f"of its prior; quote it together with its prior, or add data that cover "
+            f"of its prior, and its spread is {100 * sensitivity['width_of_prior']:.0f} % "
+            f"of the prior's; quote it together with its prior, or add data that cover "
             f"more of the orbit")
     return FitResult(model, chain, start, settings=settings, warnings=warnings,
                      record=record, checks={"posterior_modes": modes,

@@ -188,3 +188,29 @@ def test_a_mass_against_the_prior_edge_is_flagged(small_data_file):
         assert abs(check["median_shift"]) < 0.5
         assert (check["at_prior_edge"] > 0.05) is flagged
         assert check["sensitive"] is flagged
+
+
+def test_a_mass_that_fills_its_prior_is_flagged(small_data_file):
+    """Samples spread over the whole log-uniform prior (the data left it as it was):
+    their standard deviation is that of the prior, 0.699 / sqrt(12) in log10 M. Not
+    at an edge, and reweighting to a uniform prior moves such a hump little; only the
+    comparison with the prior's own spread sees it. Negative control: the same
+    hump five times narrower."""
+    obs = massfit.read_observations(small_data_file)
+    model = OrbitModel(obs, SystemSpec(central_mass=LogUniform(0.5, 2.5)))
+    theta = find_start(model).theta
+    rng = np.random.default_rng(4)
+    low, high = np.log10(0.5), np.log10(2.5)
+    centre = 0.5 * (low + high)
+    for half_width, flagged in ((0.3, True), (0.06, False)):
+        values = centre + half_width * (rng.beta(2, 2, 100_000) - 0.5) * 2
+        samples = np.tile(theta, (values.size, 1))
+        samples[:, 0] = values
+        check = prior_sensitivity(model, samples)
+        # A Beta(2, 2) hump of half-width h has sd h / sqrt(5); the prior's is 0.202.
+        expected = half_width / np.sqrt(5) / ((high - low) / np.sqrt(12))
+        assert check["width_of_prior"] == pytest.approx(expected, rel=0.02)
+        # Neither the edge nor the reweighting sees it: only the spread flags it.
+        assert check["at_prior_edge"] < 0.05 and abs(check["median_shift"]) < 0.5
+        assert 1 / 1.5 < check["width_ratio"] < 1.5
+        assert check["sensitive"] is flagged
