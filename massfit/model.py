@@ -262,6 +262,34 @@ class _AstrometryRows:
     pa_err: np.ndarray
 
 
+@dataclass
+class _PriorPlan:
+    """The prior as the model evaluates it: a box with a constant density, plus the
+    coordinates whose density varies and the sqrt(e) discs' bounds on e."""
+
+    low: np.ndarray
+    high: np.ndarray
+    constant: float
+    varying: list  # coordinate indices evaluated one by one
+    discs: list  # (index of sqrt_e_cos_w, index of sqrt_e_sin_w, e low, e high)
+
+
+@dataclass
+class _KernelRows:
+    """One companion's astrometry for the fused chi^2: east/north rows, then sep/pa."""
+
+    dt: np.ndarray  # days from the companion's reference epoch
+    scale: np.ndarray
+    uses_parallax: np.ndarray
+    n_cart: int
+    obs1: np.ndarray  # east, then separation
+    obs2: np.ndarray  # north, then position angle
+    err1: np.ndarray
+    err2: np.ndarray
+    corr: np.ndarray
+    corr_factor: np.ndarray
+
+
 class OrbitModel:
     """Log-posterior of a system's parameters given its observations.
 
@@ -327,6 +355,8 @@ class OrbitModel:
         self.n_dim = len(self.parameters)
         self._index = {p.name: k for k, p in enumerate(self.parameters)}
         self._log_norm = self._gaussian_normalisation()
+        self._kernel_rows = self._pack_for_kernel()
+        self._prior_plan = self._plan_prior()
         n_velocities = len(velocities) if self.has_velocities else 0
         if self.velocity_only and n_velocities <= self.n_dim:
             raise ModelError(f"{n_velocities} radial velocities cannot fix the "
@@ -463,6 +493,33 @@ class OrbitModel:
             sep=data.sep[index][polar], sep_err=data.sep_err[index][polar],
             pa=data.pa[index][polar], pa_err=data.pa_err[index][polar],
         )
+
+    def _pack_for_kernel(self):
+        """Each companion's rows as the fused compiled chi^2 takes them, or None.
+
+        Only plain two-body astrometry goes through the fused kernel: velocities, other
+        dynamics and the Romer delay keep the general path (the same sums, assembled
+        from the residual arrays).
+        """
+        if (self._vel is not None or type(self.dynamics) is not Keplerian
+                or getattr(self.spec, "romer_delay", False)):
+            return None
+        packs = {}
+        for name, rows in self._rows.items():
+            order = np.concatenate([rows.cart, rows.polar])
+            n_polar = rows.polar.size
+            packs[name] = _KernelRows(
+                dt=np.ascontiguousarray(rows.t[order] - self.reference_epoch(name)),
+                scale=np.ascontiguousarray(rows.scale[order], dtype=float),
+                uses_parallax=np.ascontiguousarray(rows.uses_parallax[order]),
+                n_cart=int(rows.cart.size),
+                obs1=np.concatenate([rows.east, rows.sep]),
+                obs2=np.concatenate([rows.north, rows.pa]),
+                err1=np.concatenate([rows.east_err, rows.sep_err]),
+                err2=np.concatenate([rows.north_err, rows.pa_err]),
+                corr=np.concatenate([rows.corr, np.zeros(n_polar)]),
+                corr_factor=np.concatenate([rows.corr_factor, np.ones(n_polar)]))
+        return packs
 
     def reference_epoch(self, name) -> float:
         """Reference epoch of a companion's phase, days since :attr:`epoch_jd`."""
@@ -684,14 +741,59 @@ class OrbitModel:
     def log_prior(self, theta):
         """Log prior density of the sampled coordinates, shape (n,)."""
         theta = np.atleast_2d(theta)
-        lp = np.zeros(theta.shape[0])
+        plan = self._prior_plan
         # One errstate for the whole loop: entering it costs as much as a small prior.
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            for k, param in enumerate(self.parameters):
-                if param.transform != "window":  # the windows go in one piece below
-                    lp += self._log_prior_one(param, theta[:, k], theta)
+            # Most coordinates have a prior that is flat where they are sampled (a
+            # log-uniform period in log10 P, a uniform e on the sqrt(e) disc, an
+            # isotropic cos i): one box test and a constant stand for them all.
+            inside = np.all((theta >= plan.low) & (theta <= plan.high), axis=1)
+            for k, j, low, high in plan.discs:
+                ecc = theta[:, k] ** 2 + theta[:, j] ** 2
+                inside &= (ecc >= low) & (ecc <= high)
+            lp = np.full(theta.shape[0], plan.constant)
+            for k in plan.varying:
+                lp += self._log_prior_one(self.parameters[k], theta[:, k], theta)
             lp += self._log_prior_windows(theta)
+            lp = np.where(inside, lp, -np.inf)
         return np.where(np.isnan(lp), -np.inf, lp)
+
+    def _plan_prior(self) -> _PriorPlan:
+        """Split the prior into a box with a constant density, and the rest."""
+        low = np.full(self.n_dim, -np.inf)
+        high = np.full(self.n_dim, np.inf)
+        constant, varying, discs = 0.0, [], []
+        for k, param in enumerate(self.parameters):
+            prior, kind = param.prior, param.transform
+            value = None
+            if kind == "window":
+                continue  # all of them in one piece, from the current centres
+            if kind == "flat":
+                value, box = 0.0, (param.low, param.high)
+            elif kind == "identity" and type(prior) is Uniform:
+                value, box = -np.log(prior.high - prior.low), (prior.low, prior.high)
+            elif kind == "log10" and type(prior) is LogUniform:
+                # p(x) dx = dx / (x ln(high/low)), and dx = x ln10 du.
+                value = np.log(LN10) - np.log(np.log(prior.high / prior.low))
+                box = (np.log10(prior.low), np.log10(prior.high))
+            elif kind == "cos" and type(prior) is Uniform and prior.low == 0.0 \
+                    and prior.high == np.pi:
+                value, box = 0.0, (param.low, param.high)
+            elif kind == "disc" and param.name.endswith("sqrt_e_sin_w"):
+                value, box = 0.0, (param.low, param.high)  # counted with its partner
+            elif kind == "disc" and type(prior) is Uniform:
+                partner = self._index[param.name.replace("cos_w", "sin_w")]
+                discs.append((k, partner, prior.low, prior.high))
+                value = -np.log(prior.high - prior.low) - np.log(np.pi)
+                box = (param.low, param.high)
+            if value is None or not np.isfinite(value):
+                varying.append(k)
+                continue
+            constant += value
+            low[k] = max(box[0], param.low)
+            high[k] = min(box[1], param.high)
+        return _PriorPlan(low=low, high=high, constant=float(constant),
+                          varying=varying, discs=discs)
 
     def _log_prior_windows(self, theta):
         # Angle windows are flat: only "inside all of them" matters, so one comparison
@@ -861,9 +963,34 @@ class OrbitModel:
 
     def log_likelihood(self, theta):
         """Gaussian log-likelihood, normalisation included, shape (n,)."""
-        res = self.residuals(theta)
-        chi2 = np.sum(res * res, axis=1)
+        theta = np.atleast_2d(theta)
+        if self._kernel_rows is not None and kepler._fast is not None:
+            chi2 = self._chi2_fused(theta)
+        else:
+            res = self.residuals(theta)
+            chi2 = np.sum(res * res, axis=1)
         return np.where(np.isfinite(chi2), -0.5 * chi2 + self._log_norm, -np.inf)
+
+    def _chi2_fused(self, theta):
+        # One compiled pass per companion straight to chi^2: at a few hundred rows the
+        # residual arrays and their Python assembly cost more than the orbits.
+        phys = self.physical(theta)
+        n = theta.shape[0]
+        parallax = phys["parallax"]
+        parallax_scale = (np.ones(n) if parallax is None
+                          else np.ascontiguousarray(parallax * 1e-3, dtype=float))
+        chi2 = np.zeros(n)
+        for name, pack in self._kernel_rows.items():
+            orbit = phys["companions"][name]
+            elements = [np.ascontiguousarray(orbit[key], dtype=float)
+                        for key in ("period", "mean_anomaly_ref", "ecc", "semi_major_axis",
+                                    "inc", "omega", "node")]
+            period, m0, ecc, a, inc, omega, node = elements
+            kepler._fast.astrometry_chi2(
+                pack.dt, period, m0, ecc, a, inc, omega, node, parallax_scale, pack.scale,
+                pack.uses_parallax, pack.n_cart, pack.obs1, pack.obs2, pack.err1,
+                pack.err2, pack.corr, pack.corr_factor, chi2)
+        return chi2
 
     def log_prob(self, theta):
         """Log-posterior (up to a constant) for each row of ``theta``; emcee's target."""
