@@ -43,6 +43,14 @@ _MAX_PEAKS = 12
 _POLISH = 6
 _COMBINE = 5
 _JOINT_TRIES = 4
+#: A single-companion candidate is dropped when, after a first pass of this many
+#: evaluations, its chi^2 exceeds this factor times (best chi^2 so far + residuals).
+_SCREEN_EVALUATIONS = 30
+_SCREEN_FACTOR = 10.0
+#: The single-companion search looks at most at this many rows of a companion (a
+#: seeded random subset): its cost grows with the rows, the solution it finds hardly.
+_SEARCH_ROWS = 4000
+_SEARCH_SEED = 20261202
 
 
 @dataclass
@@ -61,8 +69,9 @@ class Start:
         Other solutions with comparable chi^2: ``body``, ``period`` (d),
         ``central_mass`` (M_sun), ``delta_chi2``.
     per_companion : dict
-        name -> best single-companion solution (``period``, ``central_mass``,
-        ``chi2``, ``n_values``).
+        name -> best single-companion solution (``period``, ``central_mass``, and
+        ``chi2`` over the ``rows`` it was searched on: a random subset of
+        ``_SEARCH_ROWS`` where the companion has more).
     """
 
     theta: np.ndarray
@@ -157,7 +166,7 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     theta, chi2, covariance = joint
     model.recentre(theta)
     per = {name: {"period": m["period"], "central_mass": m["central_mass"],
-                  "chi2": m["chi2"]} for name, m in best.items()}
+                  "chi2": m["chi2"], "rows": m["rows"]} for name, m in best.items()}
     best_phys = model.physical(theta)
     for mode in modes:
         mode["best_period"] = float(best_phys["companions"][mode["body"]]["period"][0])
@@ -243,9 +252,12 @@ def _single_companion_modes(model, name):
     # each get polished instead of many grid points of one period.
     candidates = sorted(by_period.values(), key=lambda c: c[0])
     solutions = []
+    n_residuals = 2 * len(t)
     for _, values in candidates[:_POLISH * 2]:
         values = _to_model_values(values, name)
-        sol = _polish_single(sub, name, values)
+        best = min((sol["chi2"] for sol in solutions), default=np.inf)
+        sol = _polish_single(sub, name, values,
+                             give_up_above=_SCREEN_FACTOR * (best + n_residuals))
         if sol is not None:
             solutions.append(sol)
     if not solutions:
@@ -257,7 +269,17 @@ def _single_companion_modes(model, name):
 
 def _sub_model(model, name):
     obs = model.observations
-    rows = obs.astrometry.select(obs.astrometry.body == name)
+    mine = obs.astrometry.body == name
+    if np.sum(mine) > _SEARCH_ROWS:
+        # A big data set: search on a random subset, drawn with a fixed seed so the
+        # start stays deterministic, and random so that no even thinning can alias a
+        # short period. The joint polish afterwards uses every row.
+        index = np.flatnonzero(mine)
+        keep = np.random.default_rng(_SEARCH_SEED).choice(index.size, _SEARCH_ROWS,
+                                                          replace=False)
+        mine = np.zeros(mine.size, dtype=bool)
+        mine[index[np.sort(keep)]] = True
+    rows = obs.astrometry.select(mine)
     sub_obs = replace(obs, astrometry=rows, velocities=None)
     spec = model.spec
     parallax = spec.parallax
@@ -400,7 +422,13 @@ def _to_model_values(grid, name):
                    "mean_anomaly_ref": grid["m0"], "mass": 0.0}}
 
 
-def _polish_single(sub, name, values):
+def _polish_single(sub, name, values, *, give_up_above=np.inf):
+    """Least-squares polish of one companion's grid solution; None if it fails.
+
+    A candidate whose chi^2 after a short first pass still exceeds ``give_up_above``
+    is dropped: such hopeless periods used to take most of the start's time (hundreds
+    of Jacobians each) only to end orders of magnitude worse than the best.
+    """
     # The linear stage measured the phase at t = 0; move it to the body's reference.
     orbit = dict(values[name])
     orbit["mean_anomaly_ref"] += 2 * np.pi * sub.reference_epoch(name) / orbit["period"]
@@ -409,12 +437,17 @@ def _polish_single(sub, name, values):
         orbit["mass"] = _prior_centre(comp.mass)
     values = dict(values, **{name: orbit})
     values["central_mass"] = max(values["central_mass"] - orbit["mass"], 1e-30)
+    if np.isfinite(give_up_above):
+        first = _least_squares(sub, values, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
+        if first is None or _chi2(sub, first) > give_up_above:
+            return None
     theta = _least_squares(sub, values)
     if theta is None:
         return None
     chi2 = _chi2(sub, theta)
     phys = sub.physical(theta)
-    return {"chi2": chi2, "theta": theta, "orbit": _orbit_dict(phys, name),
+    return {"chi2": chi2, "rows": len(sub.observations.astrometry), "theta": theta,
+            "orbit": _orbit_dict(phys, name),
             "period": float(phys["companions"][name]["period"][0]),
             "central_mass": float(phys["central_mass"][0])}
 
@@ -508,7 +541,7 @@ def _jacobian_function(model, low=None, high=None, rel_step=None):
     return jac
 
 
-def _least_squares(model, values, *, rounds=2):
+def _least_squares(model, values, *, rounds=2, max_nfev=None):
     """Polish physical starting values; returns sampled coordinates or None."""
     model.recentre(_centre_guess(model, values))
     theta = model.from_physical(values)
@@ -520,7 +553,7 @@ def _least_squares(model, values, *, rounds=2):
         try:
             fit = least_squares(fun, theta, jac=_jacobian_function(model, low, high),
                                 bounds=(low, high), method="trf", x_scale="jac",
-                                max_nfev=400 * model.n_dim)
+                                max_nfev=max_nfev or 400 * model.n_dim)
         except (ValueError, np.linalg.LinAlgError):
             return None
         theta = model.recentre(fit.x)
