@@ -168,3 +168,28 @@ def test_poor_fit_is_flagged():
     tight = OrbitModel(obs, SystemSpec())
     warnings = _fit_quality(tight, find_start(tight))
     assert warnings and "poor" in warnings[0]
+
+
+def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
+        binary_file, monkeypatch):
+    # The single-companion search looks at a seeded random subset of a big companion's
+    # rows (4000 in use; 12 here, on 30 rows, to test it quickly); the joint polish
+    # uses every row, and its chi^2 is over all of them.
+    from massfit import start as start_module
+    from massfit.model import OrbitModel, SystemSpec
+    from massfit.run import distance_prior
+
+    path, truth = binary_file
+    obs = massfit.read_observations(path)
+    spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
+    full = start_module.find_start(OrbitModel(obs, spec))
+    monkeypatch.setattr(start_module, "_SEARCH_ROWS", 12)
+    model = OrbitModel(obs, spec)
+    start = start_module.find_start(model)
+    assert start.per_companion["Wren"]["rows"] == 12
+    assert full.per_companion["Wren"]["rows"] == 30
+    phys = model.physical(start.theta)
+    assert phys["companions"]["Wren"]["period"][0] == pytest.approx(3650.0, rel=0.05)
+    # The same solution as the search on every row, and a chi^2 over all 60 values.
+    assert start.chi2 == pytest.approx(full.chi2, rel=1e-4, abs=1e-3)
+    assert 20 < start.chi2 < 110
