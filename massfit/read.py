@@ -35,7 +35,7 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 from astropy.io import ascii
-from astropy.table import Column, MaskedColumn
+from astropy.table import Column, MaskedColumn, vstack
 from astropy.time import Time
 from astropy.time.formats import TimeNumeric, TimeString
 
@@ -59,6 +59,7 @@ _ECSV_MARK = re.compile(r"\s*#\s*%ECSV\b")
 # other separators that editors do not count as line ends.
 _LINE_END = re.compile(r"\r\n|\r|\n")
 _MAX_SHOWN = 40  # characters of an offending value quoted in a message
+_ECSV_BLOCK_ROWS = 50_000  # data lines per astropy parse (bounds the reader's memory)
 
 
 # ----------------------------------------------------------------------------- units
@@ -408,6 +409,8 @@ def _count_reason(found: int, expected: int) -> str:
 
 
 def _shown(value: Any) -> str:
+    if isinstance(value, np.generic):  # a cell of a column kept as an array
+        value = value.item()
     text = repr(value)
     return text if len(text) <= _MAX_SHOWN else text[:_MAX_SHOWN - 3] + "..."
 
@@ -463,15 +466,26 @@ def _ecsv_parse(head: list[str], rows: list[tuple[int, str]]):
     """
     # The same reader settings as astropy.io.ascii.read without guessing; empty cells
     # become masked values.
-    reader = ascii.get_reader(ascii.Ecsv, fill_values=[("", "0")])
+    # Big files go through astropy in blocks: its reader holds every cell as a Python
+    # string while it parses, several times the size of the finished table.
+    blocks = []
+    for start in range(0, max(len(rows), 1), _ECSV_BLOCK_ROWS):
+        block = rows[start:start + _ECSV_BLOCK_ROWS]
+        reader = ascii.get_reader(ascii.Ecsv, fill_values=[("", "0")])
+        try:
+            table = reader.read(head + [text for _, text in block])
+        except Exception as exc:  # astropy raises many types for malformed text
+            raise _AstropyRefused(_explained(exc)) from None
+        if len(table) != len(block):
+            # An unclosed quote makes astropy join a line with the next ones.
+            raise _AstropyRefused("a quoted value runs past the end of its line")
+        blocks.append(table)
+    if len(blocks) == 1:
+        return reader, blocks[0]
     try:
-        table = reader.read(head + [text for _, text in rows])
-    except Exception as exc:  # astropy raises many types for malformed text
+        return reader, vstack(blocks, join_type="exact", metadata_conflicts="silent")
+    except Exception as exc:  # blocks whose columns came out differently typed
         raise _AstropyRefused(_explained(exc)) from None
-    if len(table) != len(rows):
-        # An unclosed quote makes astropy join a line with the next ones.
-        raise _AstropyRefused("a quoted value runs past the end of its line")
-    return reader, table
 
 
 def _explained(exc: BaseException) -> str:
@@ -615,9 +629,12 @@ def _quantity_as_column(column):
     return MaskedColumn(np.asarray(unmasked.value), mask=mask, unit=column.unit)
 
 
-def _column_values(column: Column) -> list:
-    data = np.ma.getdata(column).tolist()
+def _column_values(column: Column) -> list | np.ndarray:
     mask = np.ma.getmaskarray(column)
+    if column.dtype.kind == "f" and column.ndim == 1 and not mask.any():
+        # Numbers stay an array: a list of Python floats costs ~4x the memory.
+        return np.array(np.ma.getdata(column), dtype=float)
+    data = np.ma.getdata(column).tolist()
     masked = mask.any(axis=tuple(range(1, mask.ndim)))
     return [None if hidden else value for value, hidden in zip(data, masked)]
 
@@ -794,8 +811,23 @@ def _number(cell: Any) -> tuple[float, str | None]:
 
 def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.ndarray:
     check = _CHECKS.get(name, lambda value: None)
+    column = _column_cells(cells, name)
     out = np.full(len(cells.lines), np.nan)
-    for row, cell in enumerate(_column_cells(cells, name)):
+    # Whole-column conversion first (big files: a Python loop per cell dominated the
+    # read); only the cells it cannot vouch for go through the per-cell checks below,
+    # which give the same values and name the problem.
+    converted = _as_floats(column)
+    if converted is None:
+        rows = range(len(column))
+    else:
+        scaled = converted * factor
+        with np.errstate(invalid="ignore"):
+            suspect = ~np.isfinite(converted) | ~np.isfinite(scaled)
+            suspect |= _SUSPECT.get(check, lambda values: False)(converted)
+        out = np.where(suspect, np.nan, scaled)
+        rows = np.flatnonzero(suspect).tolist()
+    for row in rows:
+        cell = column[row]
         if name in _MAY_BE_EMPTY and _is_empty(cell):
             continue
         value, reason = _number(cell)
@@ -807,6 +839,21 @@ def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.nda
         else:
             out[row] = value * factor
     return out
+
+
+def _as_floats(column: list) -> np.ndarray | None:
+    """The column as floats in one conversion, or None where numpy refuses it."""
+    try:
+        return np.array(column, dtype=float)
+    except (TypeError, ValueError, OverflowError):
+        return None
+
+
+#: Vectorised twins of the value checks: True wherever the check may complain.
+_SUSPECT: dict[Callable, Callable[[np.ndarray], np.ndarray]] = {
+    _positive: lambda values: ~(values > 0),
+    _correlation: lambda values: ~((values > -1) & (values < 1)),
+}
 
 
 # ----------------------------------------------------------------------------- times
@@ -911,9 +958,26 @@ def _concatenate(parts: list[dict]) -> dict | None:
     return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
 
 
-def _key_value(value: Any) -> Any:
-    # NaN never equals itself; the unused fields of a row are NaN and must still match.
-    return None if isinstance(value, float) and math.isnan(value) else value
+def _first_of_each(rows: dict, keys: tuple) -> np.ndarray:
+    """For each row, the index of the first row with the same values in ``keys``.
+
+    Values compare as numbers do (0.0 and -0.0 alike), except that NaN matches NaN: the
+    unused fields of a row are NaN and must still match.
+    """
+    n = len(rows["line"])
+    if n == 0:
+        return np.zeros(0, dtype=int)
+    codes = []
+    for key in keys:
+        values = np.asarray(rows[key])
+        if values.dtype.kind == "f":
+            values = np.where(np.isnan(values), np.nan, values + 0.0)  # one NaN, no -0
+            codes.append(values.view(np.int64))
+        else:
+            codes.append(np.unique(values, return_inverse=True)[1].astype(np.int64))
+    _, first_index, inverse = np.unique(np.column_stack(codes), axis=0, return_index=True,
+                                        return_inverse=True)
+    return first_index[inverse.ravel()]
 
 
 def _without_duplicates(rows: dict | None, group: str, options: _Options,
@@ -922,16 +986,11 @@ def _without_duplicates(rows: dict | None, group: str, options: _Options,
     if rows is None:
         return None
     keys = _DUPLICATE_KEYS[group]
-    columns = [rows[key].tolist() for key in keys]
-    first: dict[tuple, int] = {}
+    first = _first_of_each(rows, keys)
     keep = np.ones(len(rows["line"]), dtype=bool)
     issues = []
-    for row, key in enumerate(zip(*columns)):
-        key = tuple(_key_value(value) for value in key)
-        if key not in first:
-            first[key] = row
-            continue
-        earlier = first[key]
+    for row in np.flatnonzero(first != np.arange(first.size)):
+        earlier = first[row]
         where = f"line {rows['line'][earlier]}"
         if rows["file"][earlier] != rows["file"][row]:
             where = f"{rows['file'][earlier]} {where}"
