@@ -513,9 +513,7 @@ _CHUNK_ELEMENTS = 2_000_000
 
 
 def _batch_residuals(model, thetas):
-    obs = model.observations
-    n_rows = sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
-    step = max(1, _CHUNK_ELEMENTS // max(n_rows, 1))
+    step = max(1, _CHUNK_ELEMENTS // max(_rows(model), 1))
     res = np.concatenate([model.residuals(thetas[k:k + step], lenient=True)
                           for k in range(0, len(thetas), step)])
     prior = np.array([_prior_residuals(model, theta) for theta in thetas])
@@ -536,9 +534,22 @@ def _jacobian_function(model, low=None, high=None, rel_step=None):
         if high is not None:
             step = np.where(theta + step > high, -step, step)
         points = np.vstack([theta, theta + np.diag(step)])
-        res = _batch_residuals(model, points)
-        return ((res[1:] - res[0]) / step[:, None]).T
+        if len(points) * _rows(model) <= _CHUNK_ELEMENTS:
+            res = _batch_residuals(model, points)
+            return ((res[1:] - res[0]) / step[:, None]).T
+        # A big data set: one column at a time into one array (the same numbers),
+        # instead of a stack of every shifted residual vector and its differences.
+        base = _batch_residuals(model, points[:1])[0]
+        out = np.empty((base.size, step.size))
+        for k in range(step.size):
+            out[:, k] = (_batch_residuals(model, points[k + 1:k + 2])[0] - base) / step[k]
+        return out
     return jac
+
+
+def _rows(model) -> int:
+    obs = model.observations
+    return sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
 
 
 def _least_squares(model, values, *, rounds=2, max_nfev=None):

@@ -100,3 +100,22 @@ def test_fused_chi2_equals_the_residual_sum(example):
 
 def test_velocities_and_other_dynamics_keep_the_general_path():
     assert _model("sorrel")._kernel_rows is None
+
+
+def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
+    # Big data sets fill the start's Jacobian one column at a time (memory); the
+    # numbers must be those of the stacked evaluation.
+    from massfit import start as start_module
+
+    model = _model("mirren")
+    low, high = _bounds(model)
+    theta = np.where(np.isfinite(low + high), 0.5 * (low + high), 0.3)
+    theta = theta[np.newaxis, :]
+    assert np.isfinite(model.log_prior(theta)[0])
+    stacked = start_module._jacobian_function(model, low, high)(theta[0])
+    monkeypatch.setattr(start_module, "_CHUNK_ELEMENTS", 10)
+    columns = start_module._jacobian_function(model, low, high)(theta[0])
+    # Rows: the whitened residuals, then the Gaussian priors (parallax, companion mass).
+    assert columns.shape == stacked.shape == (len(model.residuals(theta)[0]) + 2,
+                                              model.n_dim)
+    assert np.array_equal(columns, stacked)
