@@ -119,3 +119,18 @@ def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
     assert columns.shape == stacked.shape == (len(model.residuals(theta)[0]) + 2,
                                               model.n_dim)
     assert np.array_equal(columns, stacked)
+
+
+@pytest.mark.parametrize("shape", [(5, 3, 2), (37, 200, 3), (1200, 52, 4)])
+def test_batched_autocorrelation_time_equals_emcee(shape):
+    # The convergence test's tau: the FFTs of many walkers in one call and a shorter
+    # padding; emcee's own estimator is the reference.
+    import emcee
+
+    from massfit.sample import _autocorr
+
+    rng = np.random.default_rng(sum(shape))
+    # A random walk plus noise: autocorrelation times of a few to tens of steps.
+    chain = 0.05 * np.cumsum(rng.standard_normal(shape), axis=0) + rng.standard_normal(shape)
+    expected = emcee.autocorr.integrated_time(chain, tol=0, quiet=True)
+    assert np.allclose(_autocorr(chain), expected, rtol=1e-12, atol=0.0)
