@@ -95,6 +95,8 @@ def _periodogram(rows, part, model, theta, name):
     """The strongest residual peak over the two components of each row."""
     from astropy.timeseries import LombScargle
 
+    from .diagnostics import periodogram_subset
+
     n = rows.t.size
     order = np.concatenate([rows.cart, rows.polar])
     t = rows.t[order]
@@ -102,6 +104,9 @@ def _periodogram(rows, part, model, theta, name):
     n_c = rows.cart.size
     first = np.concatenate([part[:n_c], part[2 * n_c:2 * n_c + rows.polar.size]])
     second = np.concatenate([part[n_c:2 * n_c], part[2 * n_c + rows.polar.size:]])
+    # Big data sets: a seeded random subset of the rows (see periodogram_subset).
+    keep = periodogram_subset(n)
+    t, first, second = t[keep], first[keep], second[keep]
     span = float(np.ptp(t))
     steps = np.diff(np.unique(t))
     if n < 6 or span <= 0 or not np.any(steps > 0):
@@ -128,6 +133,7 @@ def _periodogram(rows, part, model, theta, name):
     period = float(model.physical(theta[None, :])["companions"][name]["period"][0])
     best["peak_over_orbital_period"] = best["peak_period"] / period
     best["searched_periods"] = [float(1.0 / f_max), float(1.0 / f_min)]
+    best["rows_searched"] = int(t.size)
     return best
 
 

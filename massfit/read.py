@@ -755,7 +755,7 @@ def _validated_rows(cells: _Cells, kind: str, options: _Options):
     rows.update(body=body, jd1=jd1, jd2=jd2, file=np.full(count, cells.file),
                 line=cells.lines)
     good = issues.good()
-    return group, {key: value[good] for key, value in rows.items()}, issues.listed()
+    return group, _rows_where(rows, good), issues.listed()
 
 
 def _astrometry_rows(kind: str, values: dict, length: bool, count: int) -> dict:
@@ -955,7 +955,16 @@ def _settle(issues: list[_RowIssue], options: _Options, rejected: list) -> None:
 def _concatenate(parts: list[dict]) -> dict | None:
     if not parts:
         return None
+    if len(parts) == 1:
+        return parts[0]
     return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
+
+
+def _rows_where(rows: dict, mask: np.ndarray) -> dict:
+    """The rows where ``mask`` holds; the same arrays, uncopied, where it always does."""
+    if np.all(mask):  # the usual case, and a copy of a million rows is not free
+        return rows
+    return {key: value[mask] for key, value in rows.items()}
 
 
 def _first_of_each(rows: dict, keys: tuple) -> np.ndarray:
@@ -998,7 +1007,7 @@ def _without_duplicates(rows: dict | None, group: str, options: _Options,
                                 f"repeats {where} (same body, time and values)"))
         keep[row] = False
     _settle(issues, options, rejected)
-    return {key: value[keep] for key, value in rows.items()}
+    return _rows_where(rows, keep)
 
 
 def _as_data(cls, rows: dict | None):

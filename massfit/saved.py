@@ -97,9 +97,32 @@ def write_observations(observations, folder) -> list:
         table.meta["description"] = (f"massfit validated {attr} rows in internal units "
                                      f"(arcsec or au, radians, km/s, pc; times JD TDB)")
         path = Path(folder) / name
-        table.write(path, format="ascii.ecsv", overwrite=True)
+        _write_ecsv_in_blocks(table, path)
         paths.append(path)
     return paths
+
+
+#: Rows per block when writing a big table (astropy formats every cell of what it is
+#: given as a Python string at once: ~1 GB for a million rows of observations).
+_WRITE_BLOCK_ROWS = 50_000
+
+
+def _write_ecsv_in_blocks(table, path) -> None:
+    """``table.write(path, format="ascii.ecsv")``, the same file, in bounded memory."""
+    import io
+
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        for start in range(0, max(len(table), 1), _WRITE_BLOCK_ROWS):
+            buffer = io.StringIO()
+            table[start:start + _WRITE_BLOCK_ROWS].write(buffer, format="ascii.ecsv")
+            text = buffer.getvalue()
+            if start > 0:
+                # Later blocks: only their data lines (after the comments and the
+                # column names, which the first block wrote).
+                lines = text.splitlines(keepends=True)
+                body = next(k for k, line in enumerate(lines) if not line.startswith("#"))
+                text = "".join(lines[body + 1:])
+            out.write(text)
 
 
 # ------------------------------------------------------------------ reading

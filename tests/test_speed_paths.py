@@ -134,3 +134,27 @@ def test_batched_autocorrelation_time_equals_emcee(shape):
     chain = 0.05 * np.cumsum(rng.standard_normal(shape), axis=0) + rng.standard_normal(shape)
     expected = emcee.autocorr.integrated_time(chain, tol=0, quiet=True)
     assert np.allclose(_autocorr(chain), expected, rtol=1e-12, atol=0.0)
+
+
+def test_observations_written_in_blocks_are_the_file_astropy_writes(tmp_path, monkeypatch):
+    from astropy.table import Table
+
+    from massfit import saved
+
+    rng = np.random.default_rng(0)
+    table = Table({"east": rng.standard_normal(1234), "body": ["Ebbin", "Tor"] * 617,
+                   "line": np.arange(1234), "polar": rng.uniform(size=1234) > 0.5})
+    table.meta["description"] = "rows"
+    table.write(tmp_path / "whole.ecsv", format="ascii.ecsv")
+    monkeypatch.setattr(saved, "_WRITE_BLOCK_ROWS", 100)
+    saved._write_ecsv_in_blocks(table, tmp_path / "blocks.ecsv")
+    assert (tmp_path / "blocks.ecsv").read_bytes() == (tmp_path / "whole.ecsv").read_bytes()
+
+
+def test_periodogram_subset_is_fixed_and_only_for_big_sets():
+    from massfit.diagnostics import periodogram_subset
+
+    assert np.array_equal(periodogram_subset(500, 1000), np.arange(500))
+    first, again = periodogram_subset(10_000, 1000), periodogram_subset(10_000, 1000)
+    assert np.array_equal(first, again) and len(np.unique(first)) == 1000
+    assert np.all(np.diff(first) > 0) and first[-1] < 10_000
