@@ -8,7 +8,10 @@ the run stops at ``max_steps`` and says it has not converged.
 
 from __future__ import annotations
 
+import contextlib
+import signal
 import sys
+import threading
 import time
 from dataclasses import dataclass
 
@@ -171,8 +174,11 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
     while checked < settings.max_steps:
         checked = min(checked + settings.check_every, settings.max_steps)
         if checked > steps:
-            state = sampler.run_mcmc(state, checked - steps, progress=False,
-                                     skip_initial_state_check=True)
+            with _interrupt_between_steps() as interrupted:
+                for state in sampler.sample(state, iterations=checked - steps,
+                                            skip_initial_state_check=True):
+                    if interrupted():
+                        raise KeyboardInterrupt
             if bar is not None:
                 bar.update(checked - steps)
             steps = checked
@@ -248,6 +254,34 @@ def _autocorr(chain, *, window_factor=5.0):
 
 #: Samples per FFT call in the autocorrelation estimate (bounds its memory).
 _FFT_ELEMENTS = 2_000_000
+
+
+@contextlib.contextmanager
+def _interrupt_between_steps():
+    """Hold Ctrl-C until the current step is done, then raise KeyboardInterrupt.
+
+    emcee reports any exception raised inside the log-probability with a traceback on
+    the terminal (and Ctrl-C mostly lands there); deferred to the end of the step, the
+    interruption reaches the caller plainly, with the step complete in the checkpoint.
+    A second Ctrl-C interrupts at once. Outside the main thread, or where the caller
+    has its own SIGINT handler, nothing changes.
+    """
+    if (threading.current_thread() is not threading.main_thread()
+            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+        yield lambda: False  # not ours to change (a worker, or a caller's own handler)
+        return
+    pressed = []
+
+    def hold(signum, frame):
+        if pressed:
+            raise KeyboardInterrupt
+        pressed.append(signum)
+
+    previous = signal.signal(signal.SIGINT, hold)
+    try:
+        yield lambda: bool(pressed)
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _progress_bar(show, total, done=0):
