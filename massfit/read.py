@@ -59,7 +59,7 @@ _ECSV_MARK = re.compile(r"\s*#\s*%ECSV\b")
 # other separators that editors do not count as line ends.
 _LINE_END = re.compile(r"\r\n|\r|\n")
 _MAX_SHOWN = 40  # characters of an offending value quoted in a message
-_ECSV_BLOCK_ROWS = 50_000  # data lines per astropy parse (bounds the reader's memory)
+_ECSV_BLOCK_ROWS = 20_000  # data lines per astropy parse (bounds the reader's memory)
 
 
 # ----------------------------------------------------------------------------- units

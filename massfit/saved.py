@@ -104,7 +104,7 @@ def write_observations(observations, folder) -> list:
 
 #: Rows per block when writing a big table (astropy formats every cell of what it is
 #: given as a Python string at once: ~1 GB for a million rows of observations).
-_WRITE_BLOCK_ROWS = 50_000
+_WRITE_BLOCK_ROWS = 10_000
 
 
 def _write_ecsv_in_blocks(table, path) -> None:
