@@ -159,13 +159,23 @@ def _compare(model, theta):
     # The two-body model also gets its own start: from the perturbed solution alone
     # its least squares can stall (a J2 model's anomalistic period is not the rate a
     # two-body ellipse needs, and over a long baseline the phases drift apart).
-    # find_start re-centres the angle windows, so it runs after the first chi^2.
+    # Its least squares re-centres the angle windows, so it runs after the first chi^2.
     try:
-        from .start import find_start
+        from .start import _least_squares, two_body_start
 
-        own = find_start(kepler_model)
-        chi2["keplerian"] = min(chi2["keplerian"],
-                                _least_squares_chi2(kepler_model, own.theta))
+        _, _, values = two_body_start(model)
+        # Its companions' masses are zero; give them the perturbed solution's (the
+        # two-body model samples them too), keeping each orbit's M1 + m_k.
+        phys = model.physical(np.asarray(theta, dtype=float)[None, :])
+        for name in model.companions:
+            mass = float(phys["companions"][name]["mass"][0])
+            values[name] = dict(values[name], mass=mass)
+        shared = np.mean([float(phys["companions"][n]["mass"][0]) for n in model.companions])
+        values["central_mass"] = max(values["central_mass"] - shared, 1e-30)
+        own = _least_squares(kepler_model, values)
+        if own is not None:
+            chi2["keplerian"] = min(chi2["keplerian"],
+                                    _least_squares_chi2(kepler_model, own))
     except MassfitError:
         pass  # the least squares from the perturbed solution still bounds the chi^2
     rows = {}

@@ -101,15 +101,26 @@ class Keplerian:
     def prepare(self, model) -> None:
         """Check the model's companions against this dynamics (nothing to check here)."""
 
-    def from_two_body(self, model, values) -> dict:
+    def node_widths(self, model, widths) -> dict:
+        """Width of each companion's node window (pi where the sky cannot tell the
+        ascending node from the descending one, 2 pi where velocities can); a
+        perturbed model may need more of the orbits' orientation."""
+        return widths
+
+    def from_two_body(self, model, values) -> list:
         """Physical starting values for this dynamics from a two-body fit's.
 
         The start step searches with Keplerian ellipses (periodograms and linear scans
-        need them) and hands the result here before polishing with this model. The
-        two-body model and the N-body model (whose elements are osculating ones) take
-        the values as they are.
+        need them) and hands the result here before polishing with this model.
+
+        Returns
+        -------
+        list of dict
+            Candidates to polish in turn (the start keeps the best, and stops at the
+            first whose fit is acceptable). The two-body model takes the values as
+            they are.
         """
-        return values
+        return [values]
 
     def semi_major_axis(self, gm, period, orbit):
         """a^3 = G (M1 + m2) P^2 / (4 pi^2), au (gm in au^3/day^2, period in days)."""

@@ -237,7 +237,7 @@ class Oblate(Keplerian):
         normal = _normal(orbit)
         return np.clip(sum(n * p for n, p in zip(normal, self.pole)), -1.0, 1.0)
 
-    def from_two_body(self, model, values) -> dict:
+    def from_two_body(self, model, values) -> list:
         """Map a two-body solution into this model's elements.
 
         A two-body fit of a precessing orbit follows its mean longitude: its period is
@@ -278,7 +278,7 @@ class Oblate(Keplerian):
                 n_motion = rate - node_rate - peri_rate
             orbit["period"] = float(TWO_PI / n_motion)
             values[name] = orbit
-        return values
+        return [values]
 
     def semi_major_axis(self, gm, period, orbit):
         """Geometric semi-major axis (au) from GM and the anomalistic period."""

@@ -181,26 +181,59 @@ def _perturbed_start(model):
     run on the two-body model of the same data and companions. Its solution is mapped
     into the perturbed model's elements by the dynamics (``from_two_body``: e.g. the
     J2 model turns the fitted mean-longitude rate into its anomalistic period and the
-    central mass into the one its corrected third law needs) and polished there by
-    least squares. The two-body model's comparable modes are reported as found.
+    central mass into the one its corrected third law needs; the N-body model offers
+    several companion masses) and polished there by least squares, candidate by
+    candidate until one fits acceptably (the poor-fit criterion of the summary). The
+    two-body model's comparable modes are reported as found.
     """
-    spec = replace(model.spec, dynamics=Keplerian(), companions=dict(model.companions),
-                   strict_companions=True)
-    two_body = OrbitModel(model.observations, spec)
-    found = find_start(two_body)
-    values = _values_from_theta(two_body, found.theta)
-    values = model.dynamics.from_two_body(model, values)
-    theta = _least_squares(model, values, rounds=3)
-    if theta is None:
+    from scipy.stats import chi2 as chi2_dist
+
+    from .run import POOR_FIT_P_VALUE
+
+    _, found, values = two_body_start(model)
+    best, best_chi2 = None, np.inf
+    for candidate in model.dynamics.from_two_body(model, values):
+        for name, comp in model.companions.items():
+            if not comp.mass.is_fixed:
+                mass = candidate[name].get("mass", 0.0)
+                if not comp.mass.low < mass < comp.mass.high:
+                    candidate[name] = dict(candidate[name],
+                                           mass=_inside(comp.mass, _prior_centre(comp.mass)))
+        theta = _least_squares(model, candidate, rounds=3)
+        if theta is None:
+            continue
+        chi2 = _chi2(model, theta)
+        if chi2 < best_chi2:
+            best, best_chi2 = model.recentre(theta), chi2
+        dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
+        if dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE:
+            break  # good enough: the other candidates are for harder cases
+    if best is None:
         raise ModelError(f"the {model.dynamics.label} model's least-squares fit failed "
                          f"from the two-body solution; check its settings (or fit the "
                          f"two-body model first)")
-    model.recentre(theta)
+    theta = model.recentre(best)
     modes = [dict(mode, searched_with="keplerian") for mode in found.modes]
     per = {name: dict(sol, searched_with="keplerian")
            for name, sol in found.per_companion.items()}
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
                  modes=modes, per_companion=per)
+
+
+def two_body_start(model):
+    """The two-body search on a model's data: (two-body model, its Start, its values).
+
+    The companions' masses are fixed at zero there: astrometry alone fixes only
+    M1 + m_k for each orbit, and leaving the masses free would only give the least
+    squares degenerate directions to wander along (and cost it time).
+    """
+    companions = {name: replace(comp, mass=Fixed(0.0))
+                  for name, comp in model.companions.items()}
+    spec = replace(model.spec, dynamics=Keplerian(), companions=companions,
+                   strict_companions=True)
+    two_body = OrbitModel(model.observations, spec)
+    found = find_start(two_body)
+    return two_body, found, _values_from_theta(two_body, found.theta)
 
 
 def _comparable(modes):

@@ -139,3 +139,86 @@ def test_nbody_gives_unstated_masses_a_prior():
 def test_bad_tolerance_is_a_config_error():
     with pytest.raises(ConfigError, match="tolerance"):
         NBody(rtol=0.1)
+
+
+def test_nbody_start_recovers_the_pair_masses(tmp_path):
+    # The invented interacting pair (massfit.nbody.PAIR_TRUTH), fewer epochs than in
+    # validation/interacting_pair.py (which runs emcee on three noise seeds). From the
+    # data alone, the start step (two-body search, then N-body least squares) must
+    # find every mass within 4 of its Laplace sigmas, and measure the companions'
+    # masses (not leave them to their prior). Negative control: with massless
+    # companions (two-body orbits) the central mass lands far off and the fit is far
+    # worse.
+    from massfit.nbody import PAIR_TRUTH, simulate_interacting_pair
+    from massfit.start import _least_squares, _values_from_theta, find_start
+
+    obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=30))
+    truth = {"central": PAIR_TRUTH["central_mass"],
+             **{n: el["mass"] for n, el in PAIR_TRUTH["companions"].items()}}
+    comps = {n: CompanionSpec(n, mass=LogUniform(1e-4, 0.5))
+             for n in PAIR_TRUTH["companions"]}
+    model = OrbitModel(obs, SystemSpec(companions=comps, dynamics=NBody()))
+    start = find_start(model)
+    n_values = 2 * len(obs.astrometry)
+    assert start.chi2 < 1.3 * n_values
+    for name, true in truth.items():
+        k = model.names.index(f"{name}.log10_mass")
+        mass = 10 ** start.theta[k]
+        sd = mass * np.log(10) * np.sqrt(start.covariance[k, k])
+        print(f"{name}: {mass:.6g} +- {sd:.2g} (truth {true})")
+        assert abs(mass - true) < 4 * sd
+        assert sd < 0.05 * true
+    # The control: the same model with massless companions (1e-12 M_sun: a mass of
+    # exactly zero would get the mass prior), i.e. two-body orbits, polished from the
+    # N-body solution.
+    massless = OrbitModel(obs, SystemSpec(
+        companions={n: CompanionSpec(n, mass=Fixed(1e-12)) for n in comps},
+        dynamics=NBody()))
+    values = _values_from_theta(model, start.theta)
+    values["central_mass"] += np.mean([values[n]["mass"] for n in comps])
+    for name in comps:
+        values[name]["mass"] = 1e-12
+    theta = _least_squares(massless, values, rounds=3)
+    res = massless.residuals(theta[None])[0]
+    mass = 10 ** theta[massless.names.index("central.log10_mass")]
+    print(f"massless companions: central {mass:.6g}, chi2 {res @ res:.0f}")
+    assert abs(mass - truth["central"]) > 10 * 2e-4  # ten sigmas of the N-body fit
+    assert res @ res > 10 * n_values
+
+
+def test_only_a_relative_mirror_image_changes_the_nbody_sky(tmp_path):
+    # Mirroring an orbit through the sky plane, (omega, node) -> (omega + pi,
+    # node + pi), leaves a two-body orbit's sky path as it was. Mirroring every
+    # companion leaves the N-body sky paths as they were too (the mirror is a symmetry
+    # of Newton's equations); mirroring one changes the mutual inclination and so the
+    # paths. Hence the N-body model's full node window for all companions but one.
+    from massfit.nbody import PAIR_TRUTH, simulate_interacting_pair
+
+    obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=20))
+    comps = {n: CompanionSpec(n, mass=LogUniform(1e-4, 0.5))
+             for n in PAIR_TRUTH["companions"]}
+    model = OrbitModel(obs, SystemSpec(companions=comps, dynamics=NBody()))
+    first, second = list(PAIR_TRUTH["companions"])
+    assert model.node_width == {first: np.pi, second: 2 * np.pi}
+    values = {"central_mass": 1.0, "parallax": None}
+    for name, el in PAIR_TRUTH["companions"].items():
+        values[name] = dict(period=el["period"], ecc=el["ecc"], inc=np.radians(el["inc"]),
+                            omega=np.radians(el["omega"]), node=np.radians(el["node"]),
+                            mass=el["mass"], mean_anomaly_ref=el["mean0"])
+    phys = model.physical(model.from_physical(values)[None])
+
+    def sky(mirrored):
+        changed = {"central_mass": phys["central_mass"], "parallax": None,
+                   "companions": {}}
+        for name, orbit in phys["companions"].items():
+            orbit = dict(orbit)
+            if name in mirrored:
+                orbit["omega"], orbit["node"] = orbit["omega"] + np.pi, orbit["node"] + np.pi
+            changed["companions"][name] = orbit
+        states = model.dynamics.states(model, changed)
+        return np.concatenate([np.concatenate(states[n][0][:2], axis=1) for n in states],
+                              axis=1)
+
+    plain = sky(())
+    np.testing.assert_allclose(sky((first, second)), plain, rtol=0, atol=1e-9)
+    assert np.max(np.abs(sky((second,)) - plain)) > 1e-3  # au; errors are 2e-4 au

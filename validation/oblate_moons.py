@@ -11,13 +11,11 @@ intervals say (68 %, 95 %); the two-body fits should miss it, with a far worse c
     PYTHONPATH=. python validation/oblate_moons.py [--seeds N] [--half-span DAYS]
     PYTHONPATH=. python validation/oblate_moons.py --report-only   # redraw the figure
 
-Writes ``validation/oblate_moons_results.json`` and ``docs/figures/oblate_moons.png``.
+Writes ``validation/results/oblate_moons.json`` and ``docs/figures/oblate_moons.png``.
 """
 
 from __future__ import annotations
 
-import argparse
-import json
 import sys
 import tempfile
 import time
@@ -27,12 +25,15 @@ import numpy as np
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
+sys.path.insert(0, str(HERE))
+
+import _study  # noqa: E402
 
 from massfit import Oblate, SystemSpec, fit, read_observations  # noqa: E402
 from massfit.constants import GM_SUN_KM3_S2  # noqa: E402
 from massfit.oblateness import simulate_equatorial_moons  # noqa: E402
 
-RESULTS = HERE / "oblate_moons_results.json"
+RESULTS = HERE / "results" / "oblate_moons.json"
 FIGURE = HERE.parent / "docs" / "figures" / "oblate_moons.png"
 
 
@@ -142,34 +143,26 @@ def summarise(report):
 
 
 def main(argv=None):
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser = _study.parser(__doc__, RESULTS, FIGURE)
     parser.add_argument("--seeds", type=int, default=10)
     parser.add_argument("--half-span", type=float, default=150.0,
                         help="the data run from -H to +H days about the epoch")
     parser.add_argument("--n-obs", type=int, default=80, help="epochs per moon")
     parser.add_argument("--max-steps", type=int, default=20000)
-    parser.add_argument("--results", type=Path, default=RESULTS)
-    parser.add_argument("--figure", type=Path, default=FIGURE)
-    parser.add_argument("--report-only", action="store_true")
     args = parser.parse_args(argv)
-    if args.report_only:
-        report = json.loads(args.results.read_text())
-    else:
+
+    def compute():
         folder = Path(tempfile.mkdtemp(prefix="massfit-oblate-"))
         runs = [run_seed(seed, half_span=args.half_span, n_obs=args.n_obs,
                          max_steps=args.max_steps, folder=folder)
                 for seed in range(1, args.seeds + 1)]
-        report = {"setup": {"half_span_days": args.half_span, "epochs_per_moon": args.n_obs,
-                            "max_steps": args.max_steps,
-                            "data": "full J2 field integrated with DOP853 "
-                                    "(simulate_equatorial_moons)"},
-                  "runs": runs}
-        report["summary"] = summarise(report)
-        args.results.write_text(json.dumps(report, indent=1, default=str) + "\n")
-        print(f"written to {args.results}")
-    print(json.dumps(report["summary"], indent=1))
-    figure(report, args.figure)
-    print(f"figure: {args.figure}")
+        return {"setup": {"half_span_days": args.half_span, "epochs_per_moon": args.n_obs,
+                          "max_steps": args.max_steps,
+                          "data": "full J2 field integrated with DOP853 "
+                                  "(simulate_equatorial_moons)"},
+                "runs": runs}
+
+    _study.run_or_redraw(args, compute, summarise, figure)
 
 
 if __name__ == "__main__":
