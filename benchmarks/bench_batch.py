@@ -1,7 +1,10 @@
 """Batch throughput: the same batch on 1 and on 2 local worker processes.
 
-Eight invented one-companion systems, each a full fit of a few seconds; the wall time
-of ``run_batch`` includes starting the worker processes.
+Twenty-four invented one-companion systems, each a full fit of a few seconds; the wall
+time of ``run_batch`` includes starting the worker processes (a few seconds each: the
+imports and the compiled kernel's cache), which a survey of thousands of systems pays
+once per worker but a batch of a handful pays in full. Both runs must give the same
+numbers for every system.
 """
 
 from __future__ import annotations
@@ -17,7 +20,7 @@ from astropy.time import Time
 from massfit import batch
 from massfit.simulate import Elements, simulate_astrometry, write_scenario
 
-N_SYSTEMS = 8
+N_SYSTEMS = 24
 
 
 def _make_systems(root):
@@ -54,11 +57,13 @@ def run(report):
                          "converged": int(np.sum(table["converged"])),
                          "wall_s": time.perf_counter() - t0,
                          "sum_of_fit_s": float(np.sum(table["seconds"])),
-                         "mass_median_first": float(table["mass_msun_median"][0])})
+                         "mass_median_first": float(table["mass_msun_median"][0]),
+                         "masses": dict(zip(table["system"], table["mass_msun_median"]))})
     speedup = rows[0]["wall_s"] / rows[1]["wall_s"]
     for row in rows:
         row["speedup"] = rows[0]["wall_s"] / row["wall_s"]
-    report.table("batch of 8 systems, 1 against 2 local workers", rows, list(rows[0]))
-    same = rows[0]["mass_median_first"] == rows[1]["mass_median_first"]
+    same = rows[0].pop("masses") == rows[1].pop("masses")
+    report.table(f"batch of {N_SYSTEMS} systems, 1 against 2 local workers", rows,
+                 list(rows[0]))
     report.target("batch speed-up 2 workers / 1 worker >= 1.8 on 2 cores", speedup >= 1.8,
                   f"{speedup:.2f}x (same numbers on both: {same})")
