@@ -580,6 +580,20 @@ def _jacobian_function(model, low=None, high=None, rel_step=None):
     return jac
 
 
+def _trust_region_solver(model) -> str:
+    """scipy's 'exact' steps (an SVD of the Jacobian) unless the data set is big.
+
+    The SVD holds three more copies of the Jacobian (~400 MB at 1e6 rows); LSMR
+    works with products alone.
+    """
+    values = 2 * _rows(model)  # two per astrometric row (one per velocity: an upper bound)
+    return "lsmr" if values * model.n_dim > _EXACT_ELEMENTS else "exact"
+
+
+#: Jacobian elements (values x parameters) beyond which the start's steps use LSMR.
+_EXACT_ELEMENTS = 5_000_000
+
+
 def _rows(model) -> int:
     obs = model.observations
     return sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
@@ -597,7 +611,8 @@ def _least_squares(model, values, *, rounds=2, max_nfev=None):
         try:
             fit = least_squares(fun, theta, jac=_jacobian_function(model, low, high),
                                 bounds=(low, high), method="trf", x_scale="jac",
-                                max_nfev=max_nfev or 400 * model.n_dim)
+                                max_nfev=max_nfev or 400 * model.n_dim,
+                                tr_solver=_trust_region_solver(model))
         except (ValueError, np.linalg.LinAlgError):
             return None
         theta = model.recentre(fit.x)

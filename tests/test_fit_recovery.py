@@ -193,3 +193,23 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
     # The same solution as the search on every row, and a chi^2 over all 60 values.
     assert start.chi2 == pytest.approx(full.chi2, rel=1e-4, abs=1e-3)
     assert 20 < start.chi2 < 110
+
+
+def test_big_data_steps_by_lsmr_reach_the_same_start(binary_file, monkeypatch):
+    # Beyond 5e6 Jacobian elements the start's least squares steps with LSMR instead of
+    # an SVD (memory); forced here on 30 rows, it must end at the same solution.
+    from massfit import start as start_module
+    from massfit.model import OrbitModel, SystemSpec
+    from massfit.run import distance_prior
+
+    path, _ = binary_file
+    obs = massfit.read_observations(path)
+    spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
+    exact = start_module.find_start(OrbitModel(obs, spec))
+    monkeypatch.setattr(start_module, "_EXACT_ELEMENTS", 0)
+    model = OrbitModel(obs, spec)
+    assert start_module._trust_region_solver(model) == "lsmr"
+    lsmr = start_module.find_start(model)
+    assert lsmr.chi2 == pytest.approx(exact.chi2, rel=1e-3)
+    mass = model.physical(lsmr.theta)["central_mass"][0]
+    assert mass == pytest.approx(model.physical(exact.theta)["central_mass"][0], rel=1e-3)
