@@ -22,13 +22,18 @@ def _inside_95(block, value):
 
 
 @pytest.fixture(scope="module")
-def binary_fit(tmp_path_factory):
+def wren_observations(tmp_path_factory):
     from massfit.simulate import write_scenario
 
     folder = tmp_path_factory.mktemp("wren")
     table, truth = invented_binary()
     write_scenario(folder, table, truth, name="wren.ecsv")
-    obs = massfit.read_observations(folder / "wren.ecsv")
+    return massfit.read_observations(folder / "wren.ecsv"), truth
+
+
+@pytest.fixture(scope="module")
+def binary_fit(wren_observations):
+    obs, truth = wren_observations
     result = massfit.fit(obs, parallax="25.0 mas", parallax_err="0.25 mas", seed=3,
                          max_steps=30_000, progress=False)
     return result, truth
@@ -170,21 +175,28 @@ def test_poor_fit_is_flagged():
     assert warnings and "poor" in warnings[0]
 
 
+@pytest.fixture(scope="module")
+def wren_start(wren_observations):
+    """The Wren set's model maker and its start on every row, the ordinary way."""
+    from massfit.model import OrbitModel, SystemSpec
+    from massfit.run import distance_prior
+    from massfit.start import find_start
+
+    obs, _ = wren_observations
+    spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
+    return (lambda: OrbitModel(obs, spec)), find_start(OrbitModel(obs, spec))
+
+
 def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
-        binary_file, monkeypatch):
+        wren_start, monkeypatch):
     # The single-companion search looks at a seeded random subset of a big companion's
     # rows (4000 in use; 12 here, on 30 rows, to test it quickly); the joint polish
     # uses every row, and its chi^2 is over all of them.
     from massfit import start as start_module
-    from massfit.model import OrbitModel, SystemSpec
-    from massfit.run import distance_prior
 
-    path, truth = binary_file
-    obs = massfit.read_observations(path)
-    spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
-    full = start_module.find_start(OrbitModel(obs, spec))
+    new_model, full = wren_start
     monkeypatch.setattr(start_module, "_SEARCH_ROWS", 12)
-    model = OrbitModel(obs, spec)
+    model = new_model()
     start = start_module.find_start(model)
     assert start.per_companion["Wren"]["rows"] == 12
     assert full.per_companion["Wren"]["rows"] == 30
@@ -195,19 +207,14 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
     assert 20 < start.chi2 < 110
 
 
-def test_big_data_steps_by_lsmr_reach_the_same_start(binary_file, monkeypatch):
+def test_big_data_steps_by_lsmr_reach_the_same_start(wren_start, monkeypatch):
     # Beyond 5e6 Jacobian elements the start's least squares steps with LSMR instead of
     # an SVD (memory); forced here on 30 rows, it must end at the same solution.
     from massfit import start as start_module
-    from massfit.model import OrbitModel, SystemSpec
-    from massfit.run import distance_prior
 
-    path, _ = binary_file
-    obs = massfit.read_observations(path)
-    spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
-    exact = start_module.find_start(OrbitModel(obs, spec))
+    new_model, exact = wren_start
     monkeypatch.setattr(start_module, "_EXACT_ELEMENTS", 0)
-    model = OrbitModel(obs, spec)
+    model = new_model()
     assert start_module._trust_region_solver(model) == "lsmr"
     lsmr = start_module.find_start(model)
     assert lsmr.chi2 == pytest.approx(exact.chi2, rel=1e-3)
