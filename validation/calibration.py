@@ -239,7 +239,13 @@ def main(argv=None):
     parser.add_argument("--figures", default=str(ROOT / "docs" / "figures"))
     parser.add_argument("--report-only", action="store_true",
                         help="only assess and draw what is already in the results file")
+    parser.add_argument("--refit-capped", type=int, metavar="MAX_STEPS", default=None,
+                        help="refit the systems of the results file that did not "
+                             "converge, with this step cap, into calibration_refit.jsonl "
+                             "beside it (resumes; the first study is left as it is)")
     args = parser.parse_args(argv)
+    if args.refit_capped is not None:
+        return refit_capped(Path(args.results), args.refit_capped, args.workers)
     results = Path(args.results)
     results.parent.mkdir(parents=True, exist_ok=True)
     done = {}
@@ -276,6 +282,46 @@ def main(argv=None):
     print(json.dumps(verdict, indent=2))
     ok = all(v["within_bounds"] for v in verdict["levels"].values())
     return 0 if ok else 1
+
+
+def refit_capped(results, max_steps, workers):
+    """Refit the unconverged systems of ``results`` with a longer step cap.
+
+    Writes ``calibration_refit.jsonl`` and ``calibration_refit_summary.json`` beside
+    ``results``: the refitted systems alone, and the whole study with each refitted
+    system's new fit in place of its capped one (systems not yet refitted keep theirs).
+    """
+    from multiprocessing import Pool
+
+    first = {r["index"]: r for r in map(json.loads, results.read_text().splitlines())}
+    capped = sorted(k for k, r in first.items() if "failed" not in r and not r["converged"])
+    store = results.parent / "calibration_refit.jsonl"
+    refits = ({r["index"]: r for r in map(json.loads, store.read_text().splitlines())}
+              if store.exists() else {})
+    todo = [k for k in capped if k not in refits]
+    options = {"max_steps": max_steps}
+    with Pool(workers) as pool, open(store, "a") as handle:
+        for record in pool.imap_unordered(_worker, [(k, options) for k in todo]):
+            record["max_steps"] = max_steps
+            handle.write(json.dumps(record) + "\n")
+            handle.flush()
+            refits[record["index"]] = record
+            print(f"system {record['index']:3d}: refitted, converged "
+                  f"{record.get('converged')}, quantile {record.get('quantile', float('nan')):.3f}, "
+                  f"{record.get('seconds', 0):.0f} s", flush=True)
+    done = [r for r in refits.values() if "failed" not in r]
+    merged = [refits.get(k, r) for k, r in sorted(first.items()) if "failed" not in r]
+    verdict = {"max_steps": max_steps, "capped_in_first_study": len(capped),
+               "refitted": assess(done) if done else None,
+               "refitted_converged": assess([r for r in done if r["converged"]])
+               if any(r["converged"] for r in done) else None,
+               "whole_study_with_refits": assess(merged),
+               "whole_study_with_refits_converged_only":
+                   assess([r for r in merged if r["converged"]])}
+    (results.parent / "calibration_refit_summary.json").write_text(
+        json.dumps(verdict, indent=2) + "\n")
+    print(json.dumps(verdict, indent=2))
+    return 0
 
 
 if __name__ == "__main__":
