@@ -245,7 +245,8 @@ def main(argv=None):
                              "beside it (resumes; the first study is left as it is)")
     args = parser.parse_args(argv)
     if args.refit_capped is not None:
-        return refit_capped(Path(args.results), args.refit_capped, args.workers)
+        return refit_capped(Path(args.results), args.refit_capped, args.workers,
+                            fit=not args.report_only)
     results = Path(args.results)
     results.parent.mkdir(parents=True, exist_ok=True)
     done = {}
@@ -284,7 +285,7 @@ def main(argv=None):
     return 0 if ok else 1
 
 
-def refit_capped(results, max_steps, workers):
+def refit_capped(results, max_steps, workers, *, fit=True):
     """Refit the unconverged systems of ``results`` with a longer step cap.
 
     Writes ``calibration_refit.jsonl`` and ``calibration_refit_summary.json`` beside
@@ -298,7 +299,7 @@ def refit_capped(results, max_steps, workers):
     store = results.parent / "calibration_refit.jsonl"
     refits = ({r["index"]: r for r in map(json.loads, store.read_text().splitlines())}
               if store.exists() else {})
-    todo = [k for k in capped if k not in refits]
+    todo = [k for k in capped if k not in refits] if fit else []
     options = {"max_steps": max_steps}
     with Pool(workers) as pool, open(store, "a") as handle:
         for record in pool.imap_unordered(_worker, [(k, options) for k in todo]):
@@ -312,6 +313,7 @@ def refit_capped(results, max_steps, workers):
     done = [r for r in refits.values() if "failed" not in r]
     merged = [refits.get(k, r) for k, r in sorted(first.items()) if "failed" not in r]
     verdict = {"max_steps": max_steps, "capped_in_first_study": len(capped),
+               "refitted_so_far": len(done),
                "refitted": assess(done) if done else None,
                "refitted_converged": assess([r for r in done if r["converged"]])
                if any(r["converged"] for r in done) else None,
