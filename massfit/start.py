@@ -98,10 +98,7 @@ class Start:
             except np.linalg.LinAlgError:
                 trial = self.theta + shrink * scale * rng.standard_normal(
                     (4 * n_walkers, model.n_dim))
-            good = trial[np.isfinite(model.log_prob(trial))]
-            take = min(len(good), n_walkers - filled)
-            points[filled:filled + take] = good[:take]
-            filled += take
+            filled = _take_inside(model, trial, points, filled)
             if filled == n_walkers:
                 return points
         # The best fit can sit on the edge of several priors at once (short arcs run
@@ -113,14 +110,20 @@ class Start:
             trial = self.theta + 1e-6 * width * rng.standard_normal((4 * n_walkers,
                                                                      model.n_dim))
             trial = np.clip(trial, low + 1e-7 * width, high - 1e-7 * width)
-            good = trial[np.isfinite(model.log_prob(trial))]
-            take = min(len(good), n_walkers - filled)
-            points[filled:filled + take] = good[:take]
-            filled += take
+            filled = _take_inside(model, trial, points, filled)
             if filled == n_walkers:
                 return points
         raise ModelError("could not place the walkers inside the prior's support: the "
                          "best fit lies at the edge of a prior; widen that prior")
+
+
+def _take_inside(model, trial, points, filled) -> int:
+    """Copy the ``trial`` points inside the prior's support into ``points`` after the
+    first ``filled``, as many as fit; return the new count."""
+    good = trial[np.isfinite(model.log_prob(trial))]
+    take = min(len(good), len(points) - filled)
+    points[filled:filled + take] = good[:take]
+    return filled + take
 
 
 def find_start(model: OrbitModel, *, rng=None) -> Start:
