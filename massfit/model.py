@@ -644,10 +644,8 @@ class OrbitModel:
         n = theta.shape[0]
         col = self._column(theta)
         spec = self.spec
-        central = None
-        if not self.velocity_only:
-            central = (np.full(n, spec.central_mass.value) if spec.central_mass.is_fixed
-                       else 10.0 ** col("central.log10_mass"))
+        masses = None if self.velocity_only else self.physical_masses(theta)
+        central = None if masses is None else masses["central_mass"]
         parallax = None
         if self.needs_parallax:
             parallax = (np.full(n, spec.parallax.value) if spec.parallax.is_fixed
@@ -678,7 +676,7 @@ class OrbitModel:
                 inc = np.full(n, comp.inclination.value)
             else:
                 inc = np.arccos(np.clip(col(f"{name}.cos_inc"), -1.0, 1.0))
-            mass = self._scale_value(col, f"{name}.mass", comp.mass, n)
+            mass = masses["companions"][name]
             orbit.update(inc=inc, node=col(f"{name}.node"), mass=mass)
             # Kepler's third law, or its corrected form where the dynamics change it.
             a = self.dynamics.semi_major_axis(GM_SUN * (central + mass), period, orbit)
@@ -694,6 +692,19 @@ class OrbitModel:
         if self._vel is not None:
             out["rv"] = self._velocity_physical(col, n)
         return out
+
+    def physical_masses(self, theta) -> dict:
+        """Only the masses of :meth:`physical`: ``central_mass`` (n,) and per companion
+        its ``mass`` (n,), nominal M_sun; they need no orbital coordinate."""
+        theta = np.atleast_2d(theta)
+        n = theta.shape[0]
+        col = self._column(theta)
+        spec = self.spec
+        central = (np.full(n, spec.central_mass.value) if spec.central_mass.is_fixed
+                   else 10.0 ** col("central.log10_mass"))
+        return {"central_mass": central,
+                "companions": {name: self._scale_value(col, f"{name}.mass", comp.mass, n)
+                               for name, comp in self.companions.items()}}
 
     def _velocity_physical(self, col, n):
         vel = self._vel

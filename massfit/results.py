@@ -163,7 +163,10 @@ class FitResult:
             "burn_in_steps": int(chain.burn_in),
             "thin": int(chain.thin),
             "required_autocorr_multiple": 50,
-            "autocorr_steps": {n: float(t) for n, t in zip(names, chain.tau)},
+            "autocorr_steps": {n: float(t) for n, t in
+                               zip(chain.coordinate_names or names, chain.tau)},
+            # Companions sampled as a position and velocity (massfit.coordinates).
+            "sampled_as_state": list(chain.state_bodies),
         }
         summary["companions"] = {}
         for name, comp in s["companions"].items():

@@ -12,6 +12,7 @@ from .model import OrbitModel, SystemSpec
 from .observations import Observations
 from .priors import Fixed, Normal
 from .results import FitResult
+from .coordinates import StateCoordinates
 from .sample import SamplerSettings, run_sampler
 from .start import find_start
 
@@ -134,8 +135,12 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
-    chain = run_sampler(model.log_prob, initial, settings, checkpoint=checkpoint,
-                        resume=resume)
+    # Companions seen over a short arc are sampled as a position and velocity; the
+    # choice depends only on the start, so a resumed run makes the same one.
+    coordinates = StateCoordinates.for_start(model, start.theta)
+    chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings,
+                        checkpoint=checkpoint, resume=resume)
+    coordinates.restore(chain)
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
                   "seed": settings.seed, "python": sys.version.split()[0],

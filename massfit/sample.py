@@ -13,7 +13,7 @@ import signal
 import sys
 import threading
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import emcee
 import numpy as np
@@ -86,6 +86,11 @@ class Chain:
     walker_steps : ndarray, shape (n_kept, walkers, n_dim), optional
         The kept steps walker by walker (``samples`` is this, flattened); used to see
         whether walkers sit in separate modes.
+    coordinate_names : list of str, optional
+        Names of the coordinates the sampler moved in (those of ``tau``), where they
+        differ from the model's (see :mod:`massfit.coordinates`).
+    state_bodies : list of str
+        Companions sampled as a position and velocity rather than as elements.
     """
 
     samples: np.ndarray
@@ -101,6 +106,8 @@ class Chain:
     tau_history: list
     resumed_from: int = 0
     walker_steps: np.ndarray | None = None
+    coordinate_names: list | None = None
+    state_bodies: list = field(default_factory=list)
 
     def effective_samples(self, k: int = 0) -> float:
         """Effective number of independent samples of coordinate ``k``."""

@@ -246,13 +246,17 @@ def load_result(folder):
     theta = np.column_stack([np.asarray(table[n], dtype=float) for n in model.names])
     diag = summary["diagnostics"]
     tau = diag.get("autocorr_steps", {})
+    # Keyed by the coordinates the sampler moved in, which may not be the model's.
+    moved_in = list(tau) if len(tau) == model.n_dim else list(model.names)
     chain = Chain(samples=theta, log_prob=np.asarray(table["log_prob"], dtype=float),
                   steps=int(diag["steps"]), walkers=int(diag["walkers"]),
-                  tau=np.array([tau.get(n, diag["max_autocorr_steps"]) for n in model.names]),
+                  tau=np.array([tau.get(n, diag["max_autocorr_steps"]) for n in moved_in]),
                   converged=bool(summary["converged"]),
                   burn_in=int(diag.get("burn_in_steps", 0)), thin=int(diag.get("thin", 1)),
                   acceptance_fraction=float(diag["acceptance_fraction"]),
-                  seconds=float(diag["sampling_seconds"]), tau_history=[])
+                  seconds=float(diag["sampling_seconds"]), tau_history=[],
+                  coordinate_names=moved_in,
+                  state_bodies=list(diag.get("sampled_as_state", [])))
     result = FitResult.__new__(FitResult)
     result.model = model
     result.chain = chain

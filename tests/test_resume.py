@@ -20,6 +20,7 @@ import pytest
 import massfit
 from massfit.checkpoint import checkpoint_path, partial_dir
 from massfit.errors import ConfigError
+from conftest import write_one_companion
 
 ROOT = Path(__file__).resolve().parents[1]
 # Small on purpose: one companion, 14 epochs, 16 walkers, a check every 50 steps.
@@ -30,6 +31,15 @@ OPTIONS = ["--seed", "11", "--walkers", "16", "--max-steps", "2400", "--check-ev
 @pytest.fixture(scope="module")
 def data_file(small_data_file):
     return small_data_file
+
+
+@pytest.fixture(scope="module", params=["two orbits", "short arc"])
+def any_data_file(request, small_data_file, tmp_path_factory):
+    """The small file, and a companion seen over a sixth of its orbit (sampled in
+    state coordinates, massfit.coordinates)."""
+    if request.param == "two orbits":
+        return small_data_file
+    return write_one_companion(tmp_path_factory.mktemp("short-arc"), period=1500.0)
 
 
 def _cli(*args, cwd):
@@ -57,10 +67,13 @@ def _summary(folder):
     return summary
 
 
-def test_killed_run_resumes_to_the_uninterrupted_result(data_file, tmp_path):
+def test_killed_run_resumes_to_the_uninterrupted_result(any_data_file, tmp_path):
+    data_file = any_data_file
     full = _run(data_file, "--out", "full", *OPTIONS, cwd=tmp_path)
     assert full.returncode in (0, 3), full.stderr
     full_steps = _summary(tmp_path / "full")["diagnostics"]["steps"]
+    as_state = _summary(tmp_path / "full")["diagnostics"]["sampled_as_state"]
+    assert bool(as_state) == ("short-arc" in str(data_file))
 
     command, kwargs = _cli(data_file, "--out", "cut", *OPTIONS, cwd=tmp_path)
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL,

@@ -1,0 +1,242 @@
+"""Sampling a companion's orbit as its position and velocity at the reference epoch.
+
+Where the data cover only part of an orbit, the orbital elements are a poor set of
+coordinates to sample: what such an arc measures is where the companion is, how fast it
+moves and how its path bends, and in elements that is a long curved ridge through
+period, eccentricity, periapsis and phase. The relative position and velocity at the
+companion's reference epoch (the middle of its data) are what the arc measures almost
+directly; the rest of the posterior then lies along the line of sight.
+
+:class:`StateCoordinates` changes the sampled coordinates of chosen companions from
+the model's elements (``log10_period``, ``sqrt_e_cos_w``, ``sqrt_e_sin_w``, ``cos_inc``,
+``node``, ``phase``) to the state ``(north, east, z, v_north, v_east, v_z)`` in au and
+au/day; every other coordinate is kept. The map is a fixed bijection computed with the
+two-body formulas and the companion's GM = G (M1 + m2) (so it is exact whatever the
+model's dynamics), and the log-posterior gets the log of its Jacobian determinant:
+
+    |d(r, v) / d(a, e, cos i, M, omega, node)| = mu^(3/2) a^(1/2) e / 2
+
+(Delaunay's variables are canonical, so (r, v) -> (L, G, H, l, g, h) keeps volume;
+L = sqrt(mu a), G = L sqrt(1 - e^2), H = G cos i), and the elements' own map to the
+model's coordinates contributes 3 / (4 a ln 10). The prior stays what it is on the
+elements: only the coordinates the sampler moves in change.
+
+Where astrometry alone constrains a companion, (omega + pi, node + pi) is the same orbit
+on the sky; in state coordinates that is (z, v_z) -> (-z, -v_z), so the state is sampled
+with z >= 0 and folded into the model's node window on the way back.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .constants import GM_SUN
+from .dynamics import orbit_state
+
+__all__ = ["StateCoordinates", "ARC_FRACTION"]
+
+TWO_PI = 2.0 * np.pi
+LN10 = np.log(10.0)
+#: A companion whose data span less than this fraction of its best-fit period is
+#: sampled in state coordinates.
+ARC_FRACTION = 0.6
+_ELEMENTS = ("log10_period", "sqrt_e_cos_w", "sqrt_e_sin_w", "cos_inc", "node", "phase")
+_STATE = ("north", "east", "z", "v_north", "v_east", "v_z")
+
+
+class StateCoordinates:
+    """The change from a model's coordinates to the ones the sampler moves in.
+
+    Parameters
+    ----------
+    model : OrbitModel
+    bodies : list of str
+        Companions to sample as a state vector; each must have all six element
+        coordinates sampled (free eccentricity and inclination).
+    """
+
+    def __init__(self, model, bodies):
+        self.model = model
+        self.bodies = list(bodies)
+        index = {name: k for k, name in enumerate(model.names)}
+        self._columns = {}
+        for body in self.bodies:
+            missing = [c for c in _ELEMENTS if f"{body}.{c}" not in index]
+            if missing:
+                raise ValueError(f"{body}: state coordinates need the element coordinates "
+                                 f"{', '.join(missing)}")
+            self._columns[body] = [index[f"{body}.{c}"] for c in _ELEMENTS]
+        self.names = list(model.names)
+        for body, cols in self._columns.items():
+            for k, label in zip(cols, _STATE):
+                self.names[k] = f"{body}.{label}"
+
+    @classmethod
+    def for_start(cls, model, theta):
+        """Companions whose data span less than :data:`ARC_FRACTION` of the period at
+        ``theta`` (the best fit), where their element coordinates are all sampled."""
+        if model.velocity_only:
+            return cls(model, [])
+        phys = model.physical(theta)
+        bodies = []
+        for name in model.companions:
+            if not all(f"{name}.{c}" in model.names for c in _ELEMENTS):
+                continue
+            t = model._rows[name].t
+            span = float(np.max(t) - np.min(t)) if t.size else 0.0
+            if span < ARC_FRACTION * float(phys["companions"][name]["period"][0]):
+                bodies.append(name)
+        return cls(model, bodies)
+
+    def __bool__(self):
+        return bool(self.bodies)
+
+    # --------------------------------------------------------------- the maps
+    def _gm(self, theta):
+        """GM of each chosen companion's relative orbit, au^3/day^2, from the kept
+        coordinates of ``theta`` (rows)."""
+        phys = self.model.physical_masses(theta)
+        return {body: GM_SUN * (phys["central_mass"] + phys["companions"][body])
+                for body in self.bodies}
+
+    def to_sampled(self, theta):
+        """Sampler coordinates of model coordinates ``theta`` (n, n_dim)."""
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        out = theta.copy()
+        if not self.bodies:
+            return out
+        phys = self.model.physical(theta)
+        gm = self._gm(theta)
+        for body, cols in self._columns.items():
+            orbit = phys["companions"][body]
+            period = orbit["period"]
+            a = np.cbrt(gm[body] * period ** 2 / (4.0 * np.pi ** 2))
+            position, velocity = orbit_state(a, orbit["ecc"], orbit["inc"], orbit["omega"],
+                                             orbit["node"], orbit["mean_anomaly_ref"],
+                                             TWO_PI / period)
+            state = np.column_stack(position + velocity)
+            if self._mirrored(body):
+                flip = state[:, 2] < 0
+                state[flip, 2] *= -1.0
+                state[flip, 5] *= -1.0
+            out[:, cols] = state
+        return out
+
+    def _mirrored(self, body):
+        return self.model.node_width[body] < TWO_PI
+
+    def to_model(self, sampled):
+        """Model coordinates and log |d theta / d s| of sampler coordinates (n, n_dim).
+
+        Unbound or degenerate states give NaN coordinates and a log-Jacobian of -inf.
+        """
+        s = np.atleast_2d(np.asarray(sampled, dtype=float))
+        theta = s.copy()
+        log_jac = np.zeros(s.shape[0])
+        if not self.bodies:
+            return theta, log_jac
+        gm = self._gm(s)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for body, cols in self._columns.items():
+                state = s[:, cols]
+                elements, lj = _elements_of_state(state[:, :3], state[:, 3:], gm[body])
+                if self._mirrored(body):
+                    lj = np.where(state[:, 2] >= 0.0, lj, -np.inf)
+                theta[:, cols] = self._model_columns(body, elements)
+                log_jac += lj
+        bad = ~np.isfinite(log_jac) | np.any(~np.isfinite(theta), axis=1)
+        log_jac[bad] = -np.inf
+        return theta, log_jac
+
+    def _model_columns(self, body, elements):
+        period, ecc, cos_inc, node, omega, mean_anomaly = elements
+        model = self.model
+        low, _ = model.window(body, "node")
+        width = model.node_width[body]
+        turns = np.floor((node - low) / width)
+        node = node - turns * width
+        if width < TWO_PI:
+            omega = omega + turns * np.pi
+        phase_low, _ = model.window(body, "phase")
+        phase = phase_low + np.mod(mean_anomaly + omega - phase_low, TWO_PI)
+        root = np.sqrt(ecc)
+        return np.column_stack([np.log10(period), root * np.cos(omega), root * np.sin(omega),
+                                cos_inc, node, phase])
+
+    def log_prob(self, sampled):
+        """Log-posterior density in the sampler's coordinates, shape (n,)."""
+        if not self.bodies:
+            return self.model.log_prob(sampled)
+        theta, log_jac = self.to_model(sampled)
+        lp = np.full(theta.shape[0], -np.inf)
+        good = np.isfinite(log_jac)
+        if np.any(good):
+            lp[good] = self.model.log_prob(theta[good]) + log_jac[good]
+        return np.where(np.isfinite(lp), lp, -np.inf)
+
+
+    def restore(self, chain):
+        """Put a chain sampled in these coordinates back into the model's (in place).
+
+        ``samples`` and ``walker_steps`` become model coordinates; ``tau`` stays that
+        of the coordinates the sampler moved in, named in ``coordinate_names``.
+        """
+        chain.coordinate_names = list(self.names)
+        chain.state_bodies = list(self.bodies)
+        if not self.bodies:
+            return chain
+        chain.samples = self.to_model(chain.samples)[0]
+        if chain.walker_steps is not None:
+            shape = chain.walker_steps.shape
+            chain.walker_steps = self.to_model(
+                chain.walker_steps.reshape(-1, shape[-1]))[0].reshape(shape)
+        return chain
+
+
+def _cross(a, b):
+    """Row-wise cross product, components in the order given (north, east, z)."""
+    return np.column_stack([a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1],
+                            a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2],
+                            a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]])
+
+
+def _elements_of_state(r, v, gm):
+    """Two-body elements of relative states, and log |d(model coords) / d(r, v)|.
+
+    ``r`` (au) and ``v`` (au/day) have rows of (north, east, z); ``gm`` is in
+    au^3/day^2. Returns (period, ecc, cos i, node, omega, mean anomaly), each shape (n,),
+    and the log-Jacobian (-inf for unbound orbits).
+
+    The frame's unit vectors follow :func:`massfit.dynamics.orbit_state`: with the cross
+    product taken in the order (north, east, z), the orbit normal is
+    (sin node sin i, -cos node sin i, cos i), the ascending node lies along
+    (cos node, sin node, 0) and a quarter-turn ahead of it in the orbit is
+    (-cos i sin node, cos i cos node, sin i).
+    """
+    radius = np.sqrt(np.sum(r * r, axis=1))
+    speed2 = np.sum(v * v, axis=1)
+    energy = 0.5 * speed2 - gm / radius
+    a = -gm / (2.0 * energy)
+    h = _cross(r, v)
+    h_norm = np.sqrt(np.sum(h * h, axis=1))
+    cos_inc = h[:, 2] / h_norm
+    sin_inc = np.sqrt(np.maximum(1.0 - cos_inc * cos_inc, 0.0))
+    node = np.arctan2(h[:, 0], -h[:, 1])
+    e_vec = _cross(v, h) / gm[:, None] - r / radius[:, None]
+    ecc = np.sqrt(np.sum(e_vec * e_vec, axis=1))
+    cn, sn = np.cos(node), np.sin(node)
+    n_hat = np.column_stack([cn, sn, np.zeros_like(cn)])
+    m_hat = np.column_stack([-cos_inc * sn, cos_inc * cn, sin_inc])
+    omega = np.arctan2(np.sum(e_vec * m_hat, axis=1), np.sum(e_vec * n_hat, axis=1))
+    latitude = np.arctan2(np.sum(r * m_hat, axis=1), np.sum(r * n_hat, axis=1))
+    nu = latitude - omega
+    big_e = 2.0 * np.arctan2(np.sqrt(1.0 - ecc) * np.sin(0.5 * nu),
+                             np.sqrt(1.0 + ecc) * np.cos(0.5 * nu))
+    mean_anomaly = big_e - ecc * np.sin(big_e)
+    period = TWO_PI * np.sqrt(a ** 3 / gm)
+    # log |d theta / d(r, v)| = log[3 / (4 a ln10)] - log[mu^1.5 a^0.5 e / 2]
+    log_jac = (np.log(3.0 / (2.0 * LN10)) - 1.5 * np.log(gm) - 1.5 * np.log(a)
+               - np.log(ecc))
+    bound = (energy < 0) & (ecc < 1.0) & (h_norm > 0)
+    log_jac = np.where(bound, log_jac, -np.inf)
+    return (period, ecc, cos_inc, node, omega, mean_anomaly), log_jac

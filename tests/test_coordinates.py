@@ -1,0 +1,149 @@
+"""State coordinates for short arcs (massfit.coordinates).
+
+The change of coordinates must be a bijection onto the model's coordinates, its
+log-Jacobian must be the one the sampler needs, and it must be chosen where (and only
+where) a companion is seen over a short arc.
+"""
+
+import tempfile
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.time import Time
+
+import massfit
+from massfit.constants import GM_SUN
+from massfit.coordinates import ARC_FRACTION, StateCoordinates
+from massfit.dynamics import orbit_state
+from massfit.model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.priors import LogUniform, Uniform
+from massfit.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.start import find_start
+
+
+def _model(period, *, seed=3, epochs=14, span=900.0, velocities=False):
+    """An invented one-companion system ('Tollan' about a 1.3 M_sun star)."""
+    elements = {"Tollan": Elements(period=period, ecc=0.35, inc=58.0, omega=141.0,
+                                   node=67.0, periapsis_time=2460300.0)}
+    rng = np.random.default_rng(seed)
+    times = {"Tollan": Time(np.sort(2460000.0 + rng.uniform(0.0, span, epochs)),
+                            format="jd", scale="tdb")}
+    table = simulate_astrometry(times, elements, 1.3, error=0.01 * u.au, seed=seed)
+    spec = SystemSpec(central_mass=LogUniform(0.5, 3.0), strict_companions=True,
+                      companions={"Tollan": CompanionSpec(
+                          "Tollan", period=LogUniform(period / 4, period * 4),
+                          eccentricity=Uniform(0.0, 0.9))})
+    with tempfile.TemporaryDirectory() as folder:
+        write_scenario(folder, table, {}, name="tollan.ecsv")
+        obs = massfit.read_observations(Path(folder) / "tollan.ecsv")
+    return OrbitModel(obs, spec), spec, obs, 1.3
+
+
+@pytest.fixture(scope="module")
+def short_arc():
+    model = _model(4000.0)[0]  # 900 days of a 4000-day orbit: 23 %
+    start = find_start(model)
+    walkers = start.walkers(model, 40, np.random.default_rng(5))
+    return model, start, walkers
+
+
+def test_short_arc_is_sampled_as_a_state_and_a_long_one_is_not(short_arc):
+    model, start, _ = short_arc
+    coords = StateCoordinates.for_start(model, start.theta)
+    assert coords.bodies == ["Tollan"]
+    assert [n for n in coords.names if n.startswith("Tollan.")] == [
+        "Tollan.north", "Tollan.east", "Tollan.z", "Tollan.v_north", "Tollan.v_east",
+        "Tollan.v_z"]
+    long_model = _model(150.0)[0]  # six orbits
+    assert not StateCoordinates.for_start(long_model, find_start(long_model).theta)
+    assert ARC_FRACTION < 1.0
+
+
+def test_round_trip_and_mirror_fold(short_arc):
+    model, _, walkers = short_arc
+    coords = StateCoordinates(model, ["Tollan"])
+    s = coords.to_sampled(walkers)
+    z = coords.names.index("Tollan.z")
+    assert np.all(s[:, z] >= 0.0)  # the mirror image is folded away
+    theta, log_jac = coords.to_model(s)
+    assert np.all(np.isfinite(log_jac))
+    np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-10)
+    # The mirror state (z, v_z) -> (-z, -v_z) is the same orbit on the sky, but only
+    # one of the two is in the sampled space.
+    mirror = s.copy()
+    mirror[:, [z, z + 3]] *= -1.0
+    assert np.all(np.isneginf(coords.to_model(mirror)[1]))
+
+
+def test_log_jacobian_equals_finite_differences(short_arc):
+    model, _, walkers = short_arc
+    coords = StateCoordinates(model, ["Tollan"])
+    s = coords.to_sampled(walkers[:3])
+    for row in s:
+        jac = np.empty((row.size, row.size))
+        for k in range(row.size):
+            step = 1e-6 * max(abs(row[k]), 1e-3)
+            up, down = row.copy(), row.copy()
+            up[k] += step
+            down[k] -= step
+            jac[:, k] = (coords.to_model(up[None])[0][0]
+                         - coords.to_model(down[None])[0][0]) / (2 * step)
+        assert np.linalg.slogdet(jac)[1] == pytest.approx(coords.to_model(row[None])[1][0],
+                                                          abs=1e-5)
+
+
+def test_volume_element_of_the_two_body_state():
+    """Delaunay's variables (L, G, H, l, g, h) with L = sqrt(mu a), G = L sqrt(1 - e^2),
+    H = G cos i are canonical, so d^3r d^3v = dL dG dH dl dg dh, which gives
+    |d(r, v) / d(a, e, cos i, M, omega, node)| = mu^(3/2) a^(1/2) e / 2. Source: the
+    canonical Delaunay elements of any celestial-mechanics text (e.g. Murray & Dermott,
+    Solar System Dynamics, 1999, sec. 2.10; recalled from memory). massfit's own
+    elements-to-state map (dynamics.orbit_state) must have that Jacobian."""
+    mu = GM_SUN * 1.7
+    for a, e, cos_i, m, w, node in [(3.0, 0.3, 0.4, 1.0, 2.0, 0.5),
+                                    (0.7, 0.75, -0.8, 4.0, 5.5, 3.0),
+                                    (40.0, 0.05, 0.1, 6.0, 0.3, 1.2)]:
+        x0 = np.array([a, e, cos_i, m, w, node])
+
+        def state(x):
+            n = np.sqrt(mu / x[0] ** 3)
+            r, v = orbit_state(x[0], x[1], np.arccos(x[2]), x[4], x[5], x[3], n)
+            return np.array(r + v)
+
+        jac = np.empty((6, 6))
+        for k in range(6):
+            step = 1e-6 * max(abs(x0[k]), 1e-2)
+            up, down = x0.copy(), x0.copy()
+            up[k] += step
+            down[k] -= step
+            jac[:, k] = (state(up) - state(down)) / (2 * step)
+        expected = 0.5 * mu ** 1.5 * np.sqrt(a) * e
+        assert abs(np.linalg.det(jac)) == pytest.approx(expected, rel=1e-6)
+
+
+def test_unbound_states_have_no_density(short_arc):
+    model, _, walkers = short_arc
+    coords = StateCoordinates(model, ["Tollan"])
+    s = coords.to_sampled(walkers[:4])
+    fast = s.copy()
+    fast[:, [coords.names.index(f"Tollan.v_{c}") for c in ("north", "east", "z")]] *= 10.0
+    assert np.all(np.isneginf(coords.log_prob(fast)))
+    lp = coords.log_prob(s)
+    theta, log_jac = coords.to_model(s)
+    np.testing.assert_allclose(lp, model.log_prob(theta) + log_jac)
+
+
+def test_fit_of_a_short_arc_reports_its_state_coordinates():
+    _, spec, obs, truth = _model(4000.0)
+    result = massfit.fit(obs, spec, seed=4, walkers=24, max_steps=3000, check_every=250,
+                         progress=False)
+    diag = result.summary["diagnostics"]
+    assert diag["sampled_as_state"] == ["Tollan"]
+    assert "Tollan.v_z" in diag["autocorr_steps"]
+    assert "Tollan.log10_period" not in diag["autocorr_steps"]
+    # The samples come back in the model's coordinates, inside its windows.
+    assert np.all(np.isfinite(result.model.log_prob(result.chain.samples)))
+    masses = result.samples["central_mass_Msun"]
+    assert np.quantile(masses, 0.0013) < truth < np.quantile(masses, 0.9987)
