@@ -1,4 +1,12 @@
-"""Sampling a companion's orbit as its position and velocity at the reference epoch.
+"""The coordinates the sampler moves in, where they differ from the model's.
+
+Two changes, chosen per companion from the start (:meth:`StateCoordinates.for_start`):
+a companion seen over a short arc is sampled as its position and velocity at its
+reference epoch, and any other companion keeps its elements with the periapsis and
+the phase measured from a fixed direction on the sky rather than from the node.
+
+State vectors for short arcs
+----------------------------
 
 Where the data cover only part of an orbit, the orbital elements are a poor set of
 coordinates to sample: what such an arc measures is where the companion is, how fast it
@@ -24,6 +32,14 @@ elements: only the coordinates the sampler moves in change.
 Where astrometry alone constrains a companion, (omega + pi, node + pi) is the same orbit
 on the sky; in state coordinates that is (z, v_z) -> (-z, -v_z), so the state is sampled
 with z >= 0 and folded into the model's node window on the way back.
+
+Sky-fixed angles for the other companions
+-----------------------------------------
+For an orbit seen nearly face-on, only omega + node (prograde) or omega - node
+(retrograde) is measured, and with the model's coordinates that ridge winds round the
+sqrt(e) disc as the node changes. Rotating the eccentricity vector by s node
+(s = the sign of cos i) and adding s node to the phase makes the ridge straight; where
+the node is measured the rotation is nearly a fixed shift. Its Jacobian is 1.
 """
 
 from __future__ import annotations
@@ -42,6 +58,8 @@ LN10 = np.log(10.0)
 ARC_FRACTION = 0.6
 _ELEMENTS = ("log10_period", "sqrt_e_cos_w", "sqrt_e_sin_w", "cos_inc", "node", "phase")
 _STATE = ("north", "east", "z", "v_north", "v_east", "v_z")
+# The longitude coordinates replace these element coordinates (period and cos i stay).
+_LONGITUDE = ("sqrt_e_cos_lw", "sqrt_e_sin_lw", "cos_inc", "node", "longitude_phase")
 
 
 class StateCoordinates:
@@ -53,43 +71,69 @@ class StateCoordinates:
     bodies : list of str
         Companions to sample as a state vector; each must have all six element
         coordinates sampled (free eccentricity and inclination).
+    longitude : dict, optional
+        Companions (not in ``bodies``) to sample with the eccentricity vector and the
+        phase measured from a fixed direction on the sky instead of from the node
+        (see :meth:`for_start`): body -> (sign, phase centre), where sign is +1 for a
+        prograde orbit (cos i > 0) and -1 for a retrograde one, and the phase centre
+        (rad) is the middle of the sampled phase's window of width 2 pi.
     """
 
-    def __init__(self, model, bodies):
+    def __init__(self, model, bodies, longitude=None):
         self.model = model
         self.bodies = list(bodies)
+        self.longitude = dict(longitude or {})
         index = {name: k for k, name in enumerate(model.names)}
         self._columns = {}
-        for body in self.bodies:
+        for body in self.bodies + list(self.longitude):
             missing = [c for c in _ELEMENTS if f"{body}.{c}" not in index]
             if missing:
-                raise ValueError(f"{body}: state coordinates need the element coordinates "
+                raise ValueError(f"{body}: these coordinates need the element coordinates "
                                  f"{', '.join(missing)}")
             self._columns[body] = [index[f"{body}.{c}"] for c in _ELEMENTS]
         self.names = list(model.names)
-        for body, cols in self._columns.items():
-            for k, label in zip(cols, _STATE):
+        for body in self.bodies:
+            for k, label in zip(self._columns[body], _STATE):
+                self.names[k] = f"{body}.{label}"
+        for body in self.longitude:
+            for k, label in zip(self._columns[body][1:], _LONGITUDE):
                 self.names[k] = f"{body}.{label}"
 
     @classmethod
     def for_start(cls, model, theta):
-        """Companions whose data span less than :data:`ARC_FRACTION` of the period at
-        ``theta`` (the best fit), where their element coordinates are all sampled."""
+        """The coordinates for a fit that starts at ``theta`` (the best fit).
+
+        A companion whose data span less than :data:`ARC_FRACTION` of its period is
+        sampled as a state vector. Any other companion with a free eccentricity and
+        inclination keeps its elements, but with omega and the phase measured from a
+        fixed direction on the sky: the longitude of periapsis omega + s node and the
+        phase plus s node (s = the sign of cos i). For an orbit seen nearly face-on the
+        node and omega are then no longer tied along a ridge that winds round the
+        sqrt(e) disc (only their sum, or difference, is measured); elsewhere the node
+        is measured and the change is a shift. The Jacobian of both changes is 1.
+        """
         if model.velocity_only:
             return cls(model, [])
+        theta = np.asarray(theta, dtype=float)
         phys = model.physical(theta)
-        bodies = []
+        bodies, longitude = [], {}
         for name in model.companions:
             if not all(f"{name}.{c}" in model.names for c in _ELEMENTS):
                 continue
             t = model._rows[name].t
             span = float(np.max(t) - np.min(t)) if t.size else 0.0
-            if span < ARC_FRACTION * float(phys["companions"][name]["period"][0]):
+            orbit = phys["companions"][name]
+            if span < ARC_FRACTION * float(orbit["period"][0]):
                 bodies.append(name)
-        return cls(model, bodies)
+            else:
+                sign = 1.0 if np.cos(orbit["inc"][0]) >= 0 else -1.0
+                k = model.names.index(f"{name}.phase")
+                node = theta[model.names.index(f"{name}.node")]
+                longitude[name] = (sign, float(theta[k] + sign * node))
+        return cls(model, bodies, longitude)
 
     def __bool__(self):
-        return bool(self.bodies)
+        return bool(self.bodies or self.longitude)
 
     # --------------------------------------------------------------- the maps
     def _gm(self, theta):
@@ -103,11 +147,20 @@ class StateCoordinates:
         """Sampler coordinates of model coordinates ``theta`` (n, n_dim)."""
         theta = np.atleast_2d(np.asarray(theta, dtype=float))
         out = theta.copy()
+        for body, (sign, centre) in self.longitude.items():
+            cols = self._columns[body]
+            h, k, node, phase = (theta[:, cols[j]] for j in (1, 2, 4, 5))
+            turn = sign * node
+            cos_t, sin_t = np.cos(turn), np.sin(turn)
+            out[:, cols[1]] = h * cos_t - k * sin_t
+            out[:, cols[2]] = h * sin_t + k * cos_t
+            low = centre - np.pi
+            out[:, cols[5]] = low + np.mod(phase + turn - low, TWO_PI)
         if not self.bodies:
             return out
         phys = self.model.physical(theta)
         gm = self._gm(theta)
-        for body, cols in self._columns.items():
+        for body in self.bodies:
             orbit = phys["companions"][body]
             period = orbit["period"]
             a = np.cbrt(gm[body] * period ** 2 / (4.0 * np.pi ** 2))
@@ -119,7 +172,7 @@ class StateCoordinates:
                 flip = state[:, 2] < 0
                 state[flip, 2] *= -1.0
                 state[flip, 5] *= -1.0
-            out[:, cols] = state
+            out[:, self._columns[body]] = state
         return out
 
     def _mirrored(self, body):
@@ -128,16 +181,28 @@ class StateCoordinates:
     def to_model(self, sampled):
         """Model coordinates and log |d theta / d s| of sampler coordinates (n, n_dim).
 
-        Unbound or degenerate states give NaN coordinates and a log-Jacobian of -inf.
+        Unbound or degenerate states, and phases outside their window, give a
+        log-Jacobian of -inf.
         """
         s = np.atleast_2d(np.asarray(sampled, dtype=float))
         theta = s.copy()
         log_jac = np.zeros(s.shape[0])
+        for body, (sign, centre) in self.longitude.items():
+            cols = self._columns[body]
+            h, k, node, phase = (s[:, cols[j]] for j in (1, 2, 4, 5))
+            turn = sign * node
+            cos_t, sin_t = np.cos(turn), np.sin(turn)
+            theta[:, cols[1]] = h * cos_t + k * sin_t
+            theta[:, cols[2]] = -h * sin_t + k * cos_t
+            low, _ = self.model.window(body, "phase")
+            theta[:, cols[5]] = low + np.mod(phase - turn - low, TWO_PI)
+            log_jac[(phase < centre - np.pi) | (phase >= centre + np.pi)] = -np.inf
         if not self.bodies:
             return theta, log_jac
         gm = self._gm(s)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            for body, cols in self._columns.items():
+            for body in self.bodies:
+                cols = self._columns[body]
                 state = s[:, cols]
                 elements, lj = _elements_of_state(state[:, :3], state[:, 3:], gm[body])
                 if self._mirrored(body):
@@ -165,7 +230,7 @@ class StateCoordinates:
 
     def log_prob(self, sampled):
         """Log-posterior density in the sampler's coordinates, shape (n,)."""
-        if not self.bodies:
+        if not self:
             return self.model.log_prob(sampled)
         theta, log_jac = self.to_model(sampled)
         lp = np.full(theta.shape[0], -np.inf)
@@ -173,7 +238,6 @@ class StateCoordinates:
         if np.any(good):
             lp[good] = self.model.log_prob(theta[good]) + log_jac[good]
         return np.where(np.isfinite(lp), lp, -np.inf)
-
 
     def restore(self, chain):
         """Put a chain sampled in these coordinates back into the model's (in place).
@@ -183,7 +247,7 @@ class StateCoordinates:
         """
         chain.coordinate_names = list(self.names)
         chain.state_bodies = list(self.bodies)
-        if not self.bodies:
+        if not self:
             return chain
         chain.samples = self.to_model(chain.samples)[0]
         if chain.walker_steps is not None:

@@ -23,9 +23,9 @@ from massfit.simulate import Elements, simulate_astrometry, write_scenario
 from massfit.start import find_start
 
 
-def _model(period, *, seed=3, epochs=14, span=900.0, velocities=False):
+def _model(period, *, seed=3, epochs=14, span=900.0, inc=58.0):
     """An invented one-companion system ('Tollan' about a 1.3 M_sun star)."""
-    elements = {"Tollan": Elements(period=period, ecc=0.35, inc=58.0, omega=141.0,
+    elements = {"Tollan": Elements(period=period, ecc=0.35, inc=inc, omega=141.0,
                                    node=67.0, periapsis_time=2460300.0)}
     rng = np.random.default_rng(seed)
     times = {"Tollan": Time(np.sort(2460000.0 + rng.uniform(0.0, span, epochs)),
@@ -57,8 +57,36 @@ def test_short_arc_is_sampled_as_a_state_and_a_long_one_is_not(short_arc):
         "Tollan.north", "Tollan.east", "Tollan.z", "Tollan.v_north", "Tollan.v_east",
         "Tollan.v_z"]
     long_model = _model(150.0)[0]  # six orbits
-    assert not StateCoordinates.for_start(long_model, find_start(long_model).theta)
+    chosen = StateCoordinates.for_start(long_model, find_start(long_model).theta)
+    assert chosen.bodies == [] and list(chosen.longitude) == ["Tollan"]
     assert ARC_FRACTION < 1.0
+
+
+@pytest.mark.parametrize("inclination", [20.0, 160.0])
+def test_longitude_coordinates_round_trip_with_unit_jacobian(inclination):
+    """Prograde and retrograde: the sky-fixed longitude of periapsis and phase."""
+    model = _model(150.0, inc=inclination)[0]
+    start = find_start(model)
+    coords = StateCoordinates.for_start(model, start.theta)
+    sign, _ = coords.longitude["Tollan"]
+    assert sign == (1.0 if inclination < 90 else -1.0)
+    walkers = start.walkers(model, 30, np.random.default_rng(2))
+    s = coords.to_sampled(walkers)
+    theta, log_jac = coords.to_model(s)
+    np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-12)
+    assert np.all(log_jac == 0.0)
+    np.testing.assert_allclose(coords.log_prob(s), model.log_prob(walkers))
+    # sqrt(e) is kept, and omega + s node is what the new angle measures.
+    names = coords.names
+    h, k = s[:, names.index("Tollan.sqrt_e_cos_lw")], s[:, names.index("Tollan.sqrt_e_sin_lw")]
+    phys = model.physical(walkers)["companions"]["Tollan"]
+    np.testing.assert_allclose(h * h + k * k, phys["ecc"])
+    turn = np.angle(np.exp(1j * (np.arctan2(k, h) - phys["omega"] - sign * phys["node"])))
+    np.testing.assert_allclose(turn, 0.0, atol=1e-12)
+    # Outside the sampled phase's window there is no density.
+    outside = s.copy()
+    outside[:, names.index("Tollan.longitude_phase")] += 2 * np.pi
+    assert np.all(np.isneginf(coords.log_prob(outside)))
 
 
 def test_round_trip_and_mirror_fold(short_arc):
