@@ -100,10 +100,10 @@ class StateCoordinates:
                 self.names[k] = f"{body}.{label}"
 
     @classmethod
-    def for_start(cls, model, theta):
+    def for_start(cls, model, theta, *, arc_fraction=ARC_FRACTION):
         """The coordinates for a fit that starts at ``theta`` (the best fit).
 
-        A companion whose data span less than :data:`ARC_FRACTION` of its period is
+        A companion whose data span less than ``arc_fraction`` of its period is
         sampled as a state vector. Any other companion with a free eccentricity and
         inclination keeps its elements, but with omega and the phase measured from a
         fixed direction on the sky: the longitude of periapsis omega + s node and the
@@ -123,7 +123,7 @@ class StateCoordinates:
             t = model._rows[name].t
             span = float(np.max(t) - np.min(t)) if t.size else 0.0
             orbit = phys["companions"][name]
-            if span < ARC_FRACTION * float(orbit["period"][0]):
+            if span < arc_fraction * float(orbit["period"][0]):
                 bodies.append(name)
             else:
                 sign = 1.0 if np.cos(orbit["inc"][0]) >= 0 else -1.0

@@ -18,7 +18,8 @@ from astropy.time import Time
 from . import kepler
 from .constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
 
-__all__ = ["Elements", "simulate_astrometry", "simulate_velocities", "write_scenario"]
+__all__ = ["Elements", "simulate_astrometry", "simulate_velocities", "write_scenario",
+           "read_back"]
 
 
 class Elements(dict):
@@ -215,3 +216,17 @@ def write_scenario(folder, table, truth, *, name="astrometry.ecsv", description=
     if truth is not None:
         with open(folder / "truth.json", "w") as handle:
             json.dump(truth, handle, indent=2)
+
+
+def read_back(table, *, name="simulated.ecsv"):
+    """Observations of a simulated table, by way of an ECSV file and massfit's reader.
+
+    Simulated data then take the path a user's file takes (units, times, checks).
+    """
+    import tempfile
+
+    from .read import read_observations
+
+    with tempfile.TemporaryDirectory() as folder:
+        write_scenario(folder, table, None, name=name)
+        return read_observations(Path(folder) / name)

@@ -5,8 +5,6 @@ log-Jacobian must be the one the sampler needs, and it must be chosen where (and
 where) a companion is seen over a short arc.
 """
 
-import tempfile
-from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -19,7 +17,7 @@ from massfit.coordinates import ARC_FRACTION, StateCoordinates
 from massfit.dynamics import orbit_state
 from massfit.model import CompanionSpec, OrbitModel, SystemSpec
 from massfit.priors import LogUniform, Uniform
-from massfit.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.simulate import Elements, read_back, simulate_astrometry
 from massfit.start import find_start
 
 
@@ -35,9 +33,7 @@ def _model(period, *, seed=3, epochs=14, span=900.0, inc=58.0):
                       companions={"Tollan": CompanionSpec(
                           "Tollan", period=LogUniform(period / 4, period * 4),
                           eccentricity=Uniform(0.0, 0.9))})
-    with tempfile.TemporaryDirectory() as folder:
-        write_scenario(folder, table, {}, name="tollan.ecsv")
-        obs = massfit.read_observations(Path(folder) / "tollan.ecsv")
+    obs = read_back(table, name="tollan.ecsv")
     return OrbitModel(obs, spec), spec, obs, 1.3
 
 

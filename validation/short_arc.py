@@ -26,7 +26,6 @@ import argparse
 import json
 import os
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -37,9 +36,9 @@ import numpy as np  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
 import massfit  # noqa: E402
-from massfit.model import CompanionSpec, OrbitModel, SystemSpec  # noqa: E402
+from massfit.model import CompanionSpec, SystemSpec  # noqa: E402
 from massfit.priors import LogUniform, Uniform  # noqa: E402
-from massfit.simulate import Elements, simulate_astrometry, write_scenario  # noqa: E402
+from massfit.simulate import Elements, read_back, simulate_astrometry  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 KS_LIMIT = 0.05
@@ -65,9 +64,7 @@ def scenario(fraction, seed=17):
                       companions={"Hollin": CompanionSpec(
                           "Hollin", period=LogUniform(*PRIOR_PERIOD),
                           eccentricity=Uniform(0.0, ECC_HIGH))})
-    with tempfile.TemporaryDirectory() as folder:
-        write_scenario(folder, table, {}, name="hollin.ecsv")
-        obs = massfit.read_observations(Path(folder) / "hollin.ecsv")
+    obs = read_back(table, name="hollin.ecsv")
     return obs, spec
 
 
