@@ -22,7 +22,6 @@ import argparse
 import json
 import os
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -69,7 +68,7 @@ def system_design(index, base_seed=2026, *, companions=None, coverage=None, epoc
             "central_mass": mass, "companions": companions, "noise_seed": 7919 * index + 1}
 
 
-def fit_system(design, *, walkers=None, max_steps=8000, check_every=250,
+def fit_system(design, *, walkers=None, max_steps=50_000, check_every=250,
                keep_samples=False):
     """Simulate and fit one system; return the truth's place in the posterior.
 
@@ -81,7 +80,7 @@ def fit_system(design, *, walkers=None, max_steps=8000, check_every=250,
     import massfit
     from massfit.model import CompanionSpec, SystemSpec
     from massfit.priors import LogUniform, Uniform
-    from massfit.simulate import Elements, simulate_astrometry, write_scenario
+    from massfit.simulate import Elements, read_back, simulate_astrometry
 
     elements, times = {}, {}
     for name, comp in design["companions"].items():
@@ -95,9 +94,7 @@ def fit_system(design, *, walkers=None, max_steps=8000, check_every=250,
                                                       eccentricity=Uniform(0.0, ECC_HIGH))
                                   for name in elements})
     started = time.perf_counter()
-    with tempfile.TemporaryDirectory() as folder:
-        write_scenario(folder, table, {}, name="system.ecsv")
-        obs = massfit.read_observations(Path(folder) / "system.ecsv")
+    obs = read_back(table, name="system.ecsv")
     n_dim = 1 + 6 * design["n_companions"]
     result = massfit.fit(obs, spec, seed=design["index"] + 1,
                          walkers=walkers or max(24, 2 * n_dim + 2), max_steps=max_steps,
@@ -112,6 +109,13 @@ def fit_system(design, *, walkers=None, max_steps=8000, check_every=250,
             "effective_samples": result.summary["diagnostics"]["effective_samples"],
             "prior_sensitive": bool((result.summary.get("prior_sensitivity") or {})
                                     .get("sensitive", False)),
+            # Why a fit is not converged: too few autocorrelation times (needs 50, and
+            # an estimate that has settled), or walkers stuck in separate modes.
+            "autocorr_multiple": result.summary["diagnostics"]["steps"]
+            / result.summary["diagnostics"]["max_autocorr_steps"],
+            "unmixed_modes": sum(not m["walkers_cross"]
+                                 for m in result.checks["posterior_modes"]),
+            "sampled_as_state": result.summary["diagnostics"]["sampled_as_state"],
             "seconds": time.perf_counter() - started}
     if keep_samples:
         record["samples"] = np.asarray(masses)
@@ -233,7 +237,8 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--systems", type=int, default=200)
     parser.add_argument("--workers", type=int, default=2)
-    parser.add_argument("--max-steps", type=int, default=8000)
+    parser.add_argument("--max-steps", type=int, default=50_000,
+                        help="step cap of each fit (default: massfit's own)")
     parser.add_argument("--results", default=str(ROOT / "validation" / "results"
                                                  / "calibration.jsonl"))
     parser.add_argument("--figures", default=str(ROOT / "docs" / "figures"))
