@@ -1,6 +1,6 @@
 """The coordinates the sampler moves in, where they differ from the model's.
 
-Two changes, chosen per companion from the start (:meth:`StateCoordinates.for_start`):
+Two changes, chosen per companion from the start (:meth:`SamplerCoordinates.for_start`):
 a companion seen over a short arc is sampled as its position and velocity at its
 reference epoch, and any other companion keeps its elements with the periapsis and
 the phase measured from a fixed direction on the sky rather than from the node.
@@ -15,7 +15,7 @@ period, eccentricity, periapsis and phase. The relative position and velocity at
 companion's reference epoch (the middle of its data) are what the arc measures almost
 directly; the rest of the posterior then lies along the line of sight.
 
-:class:`StateCoordinates` changes the sampled coordinates of chosen companions from
+:class:`SamplerCoordinates` changes the sampled coordinates of chosen companions from
 the model's elements (``log10_period``, ``sqrt_e_cos_w``, ``sqrt_e_sin_w``, ``cos_inc``,
 ``node``, ``phase``) to the state ``(north, east, z, v_north, v_east, v_z)`` in au and
 au/day; every other coordinate is kept. The map is a fixed bijection computed with the
@@ -39,7 +39,10 @@ For an orbit seen nearly face-on, only omega + node (prograde) or omega - node
 (retrograde) is measured, and with the model's coordinates that ridge winds round the
 sqrt(e) disc as the node changes. Rotating the eccentricity vector by s node
 (s = the sign of cos i) and adding s node to the phase makes the ridge straight; where
-the node is measured the rotation is nearly a fixed shift. Its Jacobian is 1.
+the node is measured the rotation is nearly a fixed shift. Its Jacobian is 1. The
+sampled coordinates are then ``sqrt_e_cos_lon_peri`` and ``sqrt_e_sin_lon_peri``
+(sqrt(e) times the cosine and sine of the longitude of periapsis omega + s node) and
+``mean_longitude`` (the phase plus s node), in a window of width 2 pi.
 """
 
 from __future__ import annotations
@@ -49,7 +52,7 @@ import numpy as np
 from .constants import GM_SUN
 from .dynamics import orbit_state
 
-__all__ = ["StateCoordinates", "ARC_FRACTION"]
+__all__ = ["SamplerCoordinates", "ARC_FRACTION"]
 
 TWO_PI = 2.0 * np.pi
 LN10 = np.log(10.0)
@@ -59,10 +62,11 @@ ARC_FRACTION = 0.6
 _ELEMENTS = ("log10_period", "sqrt_e_cos_w", "sqrt_e_sin_w", "cos_inc", "node", "phase")
 _STATE = ("north", "east", "z", "v_north", "v_east", "v_z")
 # The longitude coordinates replace these element coordinates (period and cos i stay).
-_LONGITUDE = ("sqrt_e_cos_lw", "sqrt_e_sin_lw", "cos_inc", "node", "longitude_phase")
+_LONGITUDE = ("sqrt_e_cos_lon_peri", "sqrt_e_sin_lon_peri", "cos_inc", "node",
+              "mean_longitude")
 
 
-class StateCoordinates:
+class SamplerCoordinates:
     """The change from a model's coordinates to the ones the sampler moves in.
 
     Parameters

@@ -12,7 +12,7 @@ from .model import OrbitModel, SystemSpec
 from .observations import Observations
 from .priors import Fixed, Normal
 from .results import FitResult
-from .coordinates import StateCoordinates
+from .coordinates import SamplerCoordinates
 from .sample import SamplerSettings, run_sampler
 from .start import find_start
 
@@ -137,7 +137,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
                        settings=settings, started_utc=started)
     # Companions seen over a short arc are sampled as a position and velocity; the
     # choice depends only on the start, so a resumed run makes the same one.
-    coordinates = StateCoordinates.for_start(model, start.theta)
+    coordinates = SamplerCoordinates.for_start(model, start.theta)
     chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings,
                         checkpoint=checkpoint, resume=resume)
     coordinates.restore(chain)

@@ -13,7 +13,7 @@ from astropy.time import Time
 
 import massfit
 from massfit.constants import GM_SUN
-from massfit.coordinates import ARC_FRACTION, StateCoordinates
+from massfit.coordinates import ARC_FRACTION, SamplerCoordinates
 from massfit.dynamics import orbit_state
 from massfit.model import CompanionSpec, OrbitModel, SystemSpec
 from massfit.priors import LogUniform, Uniform
@@ -47,13 +47,13 @@ def short_arc():
 
 def test_short_arc_is_sampled_as_a_state_and_a_long_one_is_not(short_arc):
     model, start, _ = short_arc
-    coords = StateCoordinates.for_start(model, start.theta)
+    coords = SamplerCoordinates.for_start(model, start.theta)
     assert coords.bodies == ["Tollan"]
     assert [n for n in coords.names if n.startswith("Tollan.")] == [
         "Tollan.north", "Tollan.east", "Tollan.z", "Tollan.v_north", "Tollan.v_east",
         "Tollan.v_z"]
     long_model = _model(150.0)[0]  # six orbits
-    chosen = StateCoordinates.for_start(long_model, find_start(long_model).theta)
+    chosen = SamplerCoordinates.for_start(long_model, find_start(long_model).theta)
     assert chosen.bodies == [] and list(chosen.longitude) == ["Tollan"]
     assert ARC_FRACTION < 1.0
 
@@ -63,7 +63,7 @@ def test_longitude_coordinates_round_trip_with_unit_jacobian(inclination):
     """Prograde and retrograde: the sky-fixed longitude of periapsis and phase."""
     model = _model(150.0, inc=inclination)[0]
     start = find_start(model)
-    coords = StateCoordinates.for_start(model, start.theta)
+    coords = SamplerCoordinates.for_start(model, start.theta)
     sign, _ = coords.longitude["Tollan"]
     assert sign == (1.0 if inclination < 90 else -1.0)
     walkers = start.walkers(model, 30, np.random.default_rng(2))
@@ -74,20 +74,21 @@ def test_longitude_coordinates_round_trip_with_unit_jacobian(inclination):
     np.testing.assert_allclose(coords.log_prob(s), model.log_prob(walkers))
     # sqrt(e) is kept, and omega + s node is what the new angle measures.
     names = coords.names
-    h, k = s[:, names.index("Tollan.sqrt_e_cos_lw")], s[:, names.index("Tollan.sqrt_e_sin_lw")]
+    h = s[:, names.index("Tollan.sqrt_e_cos_lon_peri")]
+    k = s[:, names.index("Tollan.sqrt_e_sin_lon_peri")]
     phys = model.physical(walkers)["companions"]["Tollan"]
     np.testing.assert_allclose(h * h + k * k, phys["ecc"])
     turn = np.angle(np.exp(1j * (np.arctan2(k, h) - phys["omega"] - sign * phys["node"])))
     np.testing.assert_allclose(turn, 0.0, atol=1e-12)
     # Outside the sampled phase's window there is no density.
     outside = s.copy()
-    outside[:, names.index("Tollan.longitude_phase")] += 2 * np.pi
+    outside[:, names.index("Tollan.mean_longitude")] += 2 * np.pi
     assert np.all(np.isneginf(coords.log_prob(outside)))
 
 
 def test_round_trip_and_mirror_fold(short_arc):
     model, _, walkers = short_arc
-    coords = StateCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates(model, ["Tollan"])
     s = coords.to_sampled(walkers)
     z = coords.names.index("Tollan.z")
     assert np.all(s[:, z] >= 0.0)  # the mirror image is folded away
@@ -103,7 +104,7 @@ def test_round_trip_and_mirror_fold(short_arc):
 
 def test_log_jacobian_equals_finite_differences(short_arc):
     model, _, walkers = short_arc
-    coords = StateCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates(model, ["Tollan"])
     s = coords.to_sampled(walkers[:3])
     for row in s:
         jac = np.empty((row.size, row.size))
@@ -149,7 +150,7 @@ def test_volume_element_of_the_two_body_state():
 
 def test_unbound_states_have_no_density(short_arc):
     model, _, walkers = short_arc
-    coords = StateCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates(model, ["Tollan"])
     s = coords.to_sampled(walkers[:4])
     fast = s.copy()
     fast[:, [coords.names.index(f"Tollan.v_{c}") for c in ("north", "east", "z")]] *= 10.0

@@ -30,7 +30,7 @@ import astropy.units as u  # noqa: E402
 import numpy as np  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
-from massfit.coordinates import ARC_FRACTION, StateCoordinates  # noqa: E402
+from massfit.coordinates import ARC_FRACTION, SamplerCoordinates  # noqa: E402
 from massfit.model import CompanionSpec, OrbitModel, SystemSpec  # noqa: E402
 from massfit.priors import LogUniform, Uniform  # noqa: E402
 from massfit.sample import SamplerSettings, run_sampler  # noqa: E402
@@ -69,11 +69,11 @@ def compare(fraction, seed, steps, walkers=24):
     settings = SamplerSettings(max_steps=steps, check_every=steps, seed=seed,
                                progress=False)
     out = {"fraction": fraction, "seed": seed, "steps": steps,
-           "chosen": bool(StateCoordinates.for_start(model, start.theta).bodies)}
+           "chosen": bool(SamplerCoordinates.for_start(model, start.theta).bodies)}
     for label, coords in (
-            ("elements", StateCoordinates(model, [])),
-            ("sky_fixed", StateCoordinates.for_start(model, start.theta, arc_fraction=0)),
-            ("state", StateCoordinates.for_start(model, start.theta, arc_fraction=np.inf))):
+            ("elements", SamplerCoordinates(model, [])),
+            ("sky_fixed", SamplerCoordinates.for_start(model, start.theta, arc_fraction=0)),
+            ("state", SamplerCoordinates.for_start(model, start.theta, arc_fraction=np.inf))):
         chain = run_sampler(coords.log_prob, coords.to_sampled(initial), settings)
         out[label] = {"tau_mass": float(chain.tau[0]), "tau_max": float(np.max(chain.tau)),
                       "acceptance": chain.acceptance_fraction}
