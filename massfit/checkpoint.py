@@ -34,7 +34,9 @@ __all__ = ["partial_dir", "checkpoint_path", "fingerprint", "write_meta", "read_
 CHECKPOINT_FILE = "checkpoint.h5"
 CHAIN_GROUP = "chain"
 META_GROUP = "massfit"
-FORMAT_VERSION = 1
+#: 2: the chain is stored in the sampler's coordinates (massfit.coordinates), which
+#: version 1 did not have; a version-1 chain cannot be continued.
+FORMAT_VERSION = 2
 # Settings that change the chain; a resumed run must use the same ones.
 _FIXED_SETTINGS = ("walkers", "check_every", "seed")
 
