@@ -50,8 +50,8 @@ def test_short_arc_is_sampled_as_a_state_and_a_long_one_is_not(short_arc):
     coords = SamplerCoordinates.for_start(model, start.theta)
     assert coords.bodies == ["Tollan"]
     assert [n for n in coords.names if n.startswith("Tollan.")] == [
-        "Tollan.north", "Tollan.east", "Tollan.z", "Tollan.v_north", "Tollan.v_east",
-        "Tollan.v_z"]
+        "Tollan.north", "Tollan.east", "Tollan.depth_1", "Tollan.v_north", "Tollan.v_east",
+        "Tollan.depth_2"]
     long_model = _model(150.0)[0]  # six orbits
     chosen = SamplerCoordinates.for_start(long_model, find_start(long_model).theta)
     assert chosen.bodies == [] and list(chosen.longitude) == ["Tollan"]
@@ -88,23 +88,40 @@ def test_longitude_coordinates_round_trip_with_unit_jacobian(inclination):
 
 def test_round_trip_and_mirror_fold(short_arc):
     model, _, walkers = short_arc
-    coords = SamplerCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates.for_start(model, walkers[0], arc_fraction=np.inf)
+    assert "Tollan.depth_1" in coords.names and "Tollan.z" not in coords.names
     s = coords.to_sampled(walkers)
-    z = coords.names.index("Tollan.z")
-    assert np.all(s[:, z] >= 0.0)  # the mirror image is folded away
     theta, log_jac = coords.to_model(s)
     assert np.all(np.isfinite(log_jac))
     np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-10)
-    # The mirror state (z, v_z) -> (-z, -v_z) is the same orbit on the sky, but only
-    # one of the two is in the sampled space.
-    mirror = s.copy()
-    mirror[:, [z, z + 3]] *= -1.0
-    assert np.all(np.isneginf(coords.to_model(mirror)[1]))
+    # The mirror image (omega + pi, node + pi), the same orbit on the sky, is the
+    # same point of the sampled space: (z, v_z) -> (-z, -v_z) leaves depth_1/2 alone.
+    mirror = model.physical(walkers)["companions"]["Tollan"]
+    values = {"central_mass": 10 ** walkers[0, 0], "parallax": None}
+    for row in range(3):
+        orbit = {key: float(mirror[key][row]) for key in
+                 ("period", "ecc", "inc", "mean_anomaly_ref", "mass")}
+        orbit.update(omega=float(mirror["omega"][row]) + np.pi,
+                     node=float(mirror["node"][row]) + np.pi)
+        values["central_mass"] = 10 ** walkers[row, 0]
+        flipped = coords.to_sampled(model.from_physical(dict(values, Tollan=orbit)))
+        np.testing.assert_allclose(flipped[0], s[row], rtol=1e-9, atol=1e-12)
+    # Only one image is sampled: the wall is square to the start's own (z, T v_z).
+    k = coords.names.index("Tollan.depth_1")
+    assert np.all(s[:, k] >= 0)
+    other = s.copy()
+    other[:, [k, k + 3]] *= -1.0
+    assert np.all(np.isneginf(coords.log_prob(other)))
+    (r, v), = coords._states(walkers[:1], ["Tollan"]).values()
+    scale, angle = coords.depth_frame["Tollan"]
+    assert scale == pytest.approx(np.linalg.norm(r) / np.linalg.norm(v))
+    assert angle == pytest.approx(np.angle(r[0, 2] + 1j * scale * v[0, 2]))
+    assert coords.to_sampled(walkers[:1])[0, k + 3] == pytest.approx(0.0, abs=1e-12)
 
 
 def test_log_jacobian_equals_finite_differences(short_arc):
     model, _, walkers = short_arc
-    coords = SamplerCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates.for_start(model, walkers[0], arc_fraction=np.inf)
     s = coords.to_sampled(walkers[:3])
     for row in s:
         jac = np.empty((row.size, row.size))
@@ -150,10 +167,10 @@ def test_volume_element_of_the_two_body_state():
 
 def test_unbound_states_have_no_density(short_arc):
     model, _, walkers = short_arc
-    coords = SamplerCoordinates(model, ["Tollan"])
+    coords = SamplerCoordinates.for_start(model, walkers[0], arc_fraction=np.inf)
     s = coords.to_sampled(walkers[:4])
     fast = s.copy()
-    fast[:, [coords.names.index(f"Tollan.v_{c}") for c in ("north", "east", "z")]] *= 10.0
+    fast[:, [coords.names.index(f"Tollan.{c}") for c in ("v_north", "v_east")]] *= 10.0
     assert np.all(np.isneginf(coords.log_prob(fast)))
     lp = coords.log_prob(s)
     theta, log_jac = coords.to_model(s)
@@ -166,7 +183,7 @@ def test_fit_of_a_short_arc_reports_its_state_coordinates():
                          progress=False)
     diag = result.summary["diagnostics"]
     assert diag["sampled_as_state"] == ["Tollan"]
-    assert "Tollan.v_z" in diag["autocorr_steps"]
+    assert "Tollan.depth_2" in diag["autocorr_steps"]
     assert "Tollan.log10_period" not in diag["autocorr_steps"]
     # The samples come back in the model's coordinates, inside its windows.
     assert np.all(np.isfinite(result.model.log_prob(result.chain.samples)))

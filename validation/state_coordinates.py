@@ -71,7 +71,7 @@ def compare(fraction, seed, steps, walkers=24):
     out = {"fraction": fraction, "seed": seed, "steps": steps,
            "chosen": bool(SamplerCoordinates.for_start(model, start.theta).bodies)}
     for label, coords in (
-            ("elements", SamplerCoordinates(model, [])),
+            ("elements", SamplerCoordinates(model)),
             ("sky_fixed", SamplerCoordinates.for_start(model, start.theta, arc_fraction=0)),
             ("state", SamplerCoordinates.for_start(model, start.theta, arc_fraction=np.inf))):
         chain = run_sampler(coords.log_prob, coords.to_sampled(initial), settings)
