@@ -55,7 +55,10 @@ def test_short_arc_is_sampled_as_a_state_and_a_long_one_is_not(short_arc):
     long_model = _model(150.0)[0]  # six orbits
     chosen = SamplerCoordinates.for_start(long_model, find_start(long_model).theta)
     assert chosen.bodies == [] and list(chosen.longitude) == ["Tollan"]
-    assert ARC_FRACTION < 1.0
+    # Up to one orbit the state vector is chosen (validation/state_coordinates.py).
+    assert ARC_FRACTION == 1.0
+    most = _model(1100.0)[0]  # 900 days of an 1100-day orbit
+    assert SamplerCoordinates.for_start(most, find_start(most).theta).bodies == ["Tollan"]
 
 
 @pytest.mark.parametrize("inclination", [20.0, 160.0])
