@@ -17,8 +17,9 @@ directly; the rest of the posterior then lies along the line of sight.
 
 :class:`SamplerCoordinates` changes the sampled coordinates of chosen companions from
 the model's elements (``log10_period``, ``sqrt_e_cos_w``, ``sqrt_e_sin_w``, ``cos_inc``,
-``node``, ``phase``) to the state ``(north, east, z, v_north, v_east, v_z)`` in au and
-au/day; every other coordinate is kept. The map is a fixed bijection computed with the
+``node``, ``phase``) to its relative state at the reference epoch: ``north``, ``east``
+(au), ``v_north``, ``v_east`` (au/day) and the line-of-sight pair ``depth_1``,
+``depth_2`` (below); every other coordinate is kept. The map is a fixed bijection computed with the
 two-body formulas and the companion's GM = G (M1 + m2) (so it is exact whatever the
 model's dynamics), and the log-posterior gets the log of its Jacobian determinant:
 
