@@ -148,7 +148,7 @@ class SamplerCoordinates:
                 # T = |r| / |v| at the reference epoch: z and T v_z then spread
                 # alike; the wall between the mirror images is put square to the
                 # best fit's (z, T v_z), as far from it as a line through 0 can be.
-                (r, v), = cls(model)._states(theta[None, :], [name]).values()
+                (r, v), = _two_body_states(model, theta[None, :], [name]).values()
                 scale = float(np.linalg.norm(r) / np.linalg.norm(v))
                 state[name] = (scale, float(np.angle(r[0, 2] + 1j * scale * v[0, 2])))
             else:
@@ -182,7 +182,7 @@ class SamplerCoordinates:
             out[:, cols[2]] = h * sin_t + k * cos_t
             low = centre - np.pi
             out[:, cols[5]] = low + np.mod(phase + turn - low, TWO_PI)
-        for body, (r, v) in self._states(theta, self.bodies).items():
+        for body, (r, v) in _two_body_states(self.model, theta, self.bodies).items():
             state = np.column_stack([r, v])
             scale, angle = self.depth_frame[body]
             depth = (state[:, 2] + 1j * scale * state[:, 5]) * np.exp(-1j * angle)
@@ -190,23 +190,6 @@ class SamplerCoordinates:
                 depth = np.where(depth.real < 0, -depth, depth)  # the image kept
             state[:, 2], state[:, 5] = depth.real, depth.imag
             out[:, self._columns[body]] = state
-        return out
-
-    def _states(self, theta, bodies):
-        """Two-body position and velocity (n, 3) of ``bodies`` at model coordinates."""
-        if not bodies:
-            return {}
-        phys = self.model.physical(theta)
-        out = {}
-        for body in bodies:
-            orbit = phys["companions"][body]
-            period = orbit["period"]
-            gm = GM_SUN * (phys["central_mass"] + orbit["mass"])
-            a = np.cbrt(gm * period ** 2 / (4.0 * np.pi ** 2))
-            position, velocity = orbit_state(a, orbit["ecc"], orbit["inc"], orbit["omega"],
-                                             orbit["node"], orbit["mean_anomaly_ref"],
-                                             TWO_PI / period)
-            out[body] = (np.column_stack(position), np.column_stack(velocity))
         return out
 
     def _mirrored(self, body):
@@ -293,6 +276,25 @@ class SamplerCoordinates:
             chain.walker_steps = self.to_model(
                 chain.walker_steps.reshape(-1, shape[-1]))[0].reshape(shape)
         return chain
+
+
+def _two_body_states(model, theta, bodies):
+    """Two-body position and velocity, each (n, 3), of ``bodies`` at model coordinates
+    ``theta`` (n, n_dim), with Kepler's law in its plain form."""
+    if not bodies:
+        return {}
+    phys = model.physical(theta)
+    out = {}
+    for body in bodies:
+        orbit = phys["companions"][body]
+        period = orbit["period"]
+        gm = GM_SUN * (phys["central_mass"] + orbit["mass"])
+        a = np.cbrt(gm * period ** 2 / (4.0 * np.pi ** 2))
+        position, velocity = orbit_state(a, orbit["ecc"], orbit["inc"], orbit["omega"],
+                                         orbit["node"], orbit["mean_anomaly_ref"],
+                                         TWO_PI / period)
+        out[body] = (np.column_stack(position), np.column_stack(velocity))
+    return out
 
 
 def _cross(a, b):

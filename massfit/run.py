@@ -135,8 +135,9 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
-    # Companions seen over a short arc are sampled as a position and velocity; the
-    # choice depends only on the start, so a resumed run makes the same one.
+    # The sampler's own coordinates (short arcs as a position and velocity, other
+    # orbits with sky-fixed angles); the choice depends only on the start, so a
+    # resumed run makes the same one.
     coordinates = SamplerCoordinates.for_start(model, start.theta)
     chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings,
                         checkpoint=checkpoint, resume=resume)
