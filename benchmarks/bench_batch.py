@@ -18,7 +18,7 @@ import numpy as np
 from astropy.time import Time
 
 from massfit import batch
-from massfit.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
 
 N_SYSTEMS = 24
 

@@ -16,7 +16,7 @@ import time
 
 import numpy as np
 
-from massfit.model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.priors import Fixed
 
 from common import HERE, best_time, one_companion_table, observations_from
@@ -101,14 +101,14 @@ def _big_fit_rss():
     import tempfile
     from pathlib import Path
 
-    from massfit.simulate import write_scenario
+    from massfit.scenarios.simulate import write_scenario
 
     with tempfile.TemporaryDirectory() as tmp:
         write_scenario(tmp, one_companion_table(BIG_FIT_ROWS), {}, name="data.ecsv")
         data, out = Path(tmp) / "data.ecsv", Path(tmp) / "fit"
         code = textwrap.dedent(f"""
             import json, sys, time
-            from massfit.cli import main
+            from massfit.cli.commands import main
 
             def peak_kb():
                 # VmHWM: this program's own peak. ru_maxrss would not do: Linux keeps

@@ -13,7 +13,7 @@ import time
 
 import numpy as np
 
-from massfit import kepler
+from massfit.orbits import kepler
 
 from common import best_time
 

@@ -1,6 +1,6 @@
 """N-body log-posterior: the compiled integrator against the stacked numpy one.
 
-The invented interacting pair of ``massfit.nbody.simulate_interacting_pair`` (two
+The invented interacting pair of ``massfit.orbits.nbody.simulate_interacting_pair`` (two
 companions over 1000 days, 120 epochs, errors of 2e-5 au), the N-body model at its
 default tolerance.
 One ensemble of walkers scattered about the truth is evaluated with each integrator
@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from massfit import CompanionSpec, NBody, SystemSpec, read_observations
-from massfit import nbody
-from massfit.model import OrbitModel
+from massfit.orbits import nbody
+from massfit.model.orbit_model import OrbitModel
 from massfit.priors import LogUniform
 
 WALKERS = (8, 16, 32, 64)
@@ -103,7 +103,7 @@ def _figure(rows, path):
     import matplotlib.pyplot as plt
     from matplotlib.ticker import NullLocator
 
-    from massfit.plots import COLUMN_WIDTH, STYLE
+    from massfit.plot.figures import COLUMN_WIDTH, STYLE
 
     walkers = [r["walkers"] for r in rows]
     with plt.rc_context(STYLE):

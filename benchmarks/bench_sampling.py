@@ -28,11 +28,11 @@ import emcee
 import numpy as np
 
 import massfit
-from massfit import kepler
-from massfit.model import OrbitModel, SystemSpec
+from massfit.orbits import kepler
+from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.run import distance_prior
-from massfit.sample import _moves
-from massfit.start import find_start
+from massfit.sample.chain import _moves
+from massfit.start.search import find_start
 
 from common import CALDER_DISTANCE, calder_table, observations_from
 

@@ -13,7 +13,7 @@ import astropy.units as u
 import numpy as np
 from astropy.time import Time
 
-from massfit.simulate import Elements, simulate_astrometry
+from massfit.scenarios.simulate import Elements, simulate_astrometry
 
 HERE = Path(__file__).resolve().parent
 
@@ -58,7 +58,7 @@ def observations_from(table):
     import tempfile
 
     import massfit
-    from massfit.simulate import write_scenario
+    from massfit.scenarios.simulate import write_scenario
 
     with tempfile.TemporaryDirectory() as tmp:
         write_scenario(tmp, table, {}, name="data.ecsv")

@@ -18,9 +18,9 @@ import time
 import warnings
 from pathlib import Path
 
-from massfit.plan import Schedule, _evenly_spaced, fit_scatter, forecast_precision, \
+from massfit.plan.planner import Schedule, _evenly_spaced, fit_scatter, forecast_precision, \
     plan_observations
-from massfit.scenarios import planning_system
+from massfit.scenarios.examples import planning_system
 
 warnings.filterwarnings("ignore", message=".*dubious year")
 TDB = dict(time_scale="tdb")

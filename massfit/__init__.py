@@ -11,26 +11,21 @@ Three lines from a notebook::
 ``result.orbit_plot()`` return matplotlib Figures, and ``print(result)`` reads well.
 """
 
-from importlib import metadata as _metadata
+from massfit.config.fit import load_config
+from massfit.orbits.dynamics import Keplerian
+from massfit.errors import ConfigError, InputError, MassfitError, ModelError
+from massfit.model.orbit_model import CompanionSpec, SystemSpec
+from massfit.orbits.nbody import NBody
+from massfit.orbits.oblate import Oblate
+from massfit.plan.planner import AssumedSystem, Schedule, forecast_precision, plan_observations
+from massfit.priors import Fixed, LogUniform, Normal, Uniform
+from massfit.read.tables import read_observations
+from massfit.result.fit_result import FitResult
+from massfit.run import fit
+from massfit.result.loading import load_result
+from massfit.sample.chain import SamplerSettings
+from massfit.version import __version__
 
-from .config import load_config
-from .dynamics import Keplerian
-from .errors import ConfigError, InputError, MassfitError, ModelError
-from .model import CompanionSpec, SystemSpec
-from .nbody import NBody
-from .oblateness import Oblate
-from .plan import AssumedSystem, Schedule, forecast_precision, plan_observations
-from .priors import Fixed, LogUniform, Normal, Uniform
-from .read import read_observations
-from .results import FitResult
-from .run import fit
-from .saved import load_result
-from .sample import SamplerSettings
-
-try:
-    __version__ = _metadata.version("massfit")
-except _metadata.PackageNotFoundError:  # pragma: no cover - running from a checkout
-    __version__ = "0.1.0"
 
 __all__ = [
     "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",

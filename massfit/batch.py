@@ -32,7 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import ConfigError, MassfitError
+from massfit.errors import ConfigError, MassfitError
 
 __all__ = ["BatchJob", "collect_jobs", "fit_job", "run_batch", "RESULTS_FILE"]
 
@@ -134,7 +134,7 @@ def system_seed(seed: int, name: str) -> int:
 def _config_has_seed(config):
     if config is None:
         return False
-    from .config import load_config
+    from massfit.config.fit import load_config
 
     return load_config(config).sampler.seed is not None
 
@@ -226,10 +226,10 @@ def fit_job(job: BatchJob) -> dict:
 def _fit_and_save(job):
     from dataclasses import replace
 
-    from .config import FitSetup, load_config
-    from .read import read_observations
-    from .run import distance_prior, fit
-    from .runrecord import run_record
+    from massfit.config.fit import FitSetup, load_config
+    from massfit.read.tables import read_observations
+    from massfit.run import distance_prior, fit
+    from massfit.write.run_record import run_record
 
     if job.config is not None:
         setup = load_config(job.config)

@@ -54,7 +54,7 @@ def parse_quantity(text, *, expect, key=None, file=None):
     -------
     astropy.units.Quantity
     """
-    from .errors import ConfigError
+    from massfit.errors import ConfigError
 
     if isinstance(text, u.Quantity):
         quantity = text

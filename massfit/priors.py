@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ConfigError
+from massfit.errors import ConfigError
 
 __all__ = ["Prior", "Uniform", "LogUniform", "Normal", "Fixed", "prior_from_spec"]
 
@@ -195,7 +195,7 @@ def prior_from_spec(spec, *, unit, key, file=None, convert=None):
 
 
 def _to_float(value, unit, key, file):
-    from .constants import parse_quantity
+    from massfit.constants import parse_quantity
     import astropy.units as u
 
     if unit is None or unit == u.dimensionless_unscaled:

@@ -7,14 +7,14 @@ import sys
 
 import numpy as np
 
-from .errors import ConfigError
-from .model import OrbitModel, SystemSpec
-from .observations import Observations
-from .priors import Fixed, Normal
-from .results import FitResult
-from .coordinates import SamplerCoordinates
-from .sample import SamplerSettings, run_sampler
-from .start import find_start
+from massfit.errors import ConfigError
+from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.read.observations import Observations
+from massfit.priors import Fixed, Normal
+from massfit.result.fit_result import FitResult
+from massfit.sample.reparameterisation import SamplerCoordinates
+from massfit.sample.chain import SamplerSettings, run_sampler
+from massfit.start.search import find_start
 
 __all__ = ["fit", "distance_prior"]
 
@@ -34,7 +34,7 @@ def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefi
     """
     import astropy.units as u
 
-    from .constants import parse_quantity
+    from massfit.constants import parse_quantity
 
     if distance is not None and parallax is not None:
         raise ConfigError("give either a parallax or a distance, not both",
@@ -85,7 +85,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     record : dict, optional
         Extra entries for the run record (run.json): command line, config, checksums.
     checkpoint : path, optional
-        HDF5 file where the chain is saved step by step (see :mod:`massfit.checkpoint`).
+        HDF5 file where the chain is saved step by step (see :mod:`massfit.sample.checkpoint`).
     resume : bool
         Continue the interrupted run saved in ``checkpoint``; with the same data,
         model and seed the result is the one an uninterrupted run gives.
@@ -97,7 +97,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     from dataclasses import asdict, replace
 
     if not isinstance(observations, Observations):
-        from .read import read_observations
+        from massfit.read.tables import read_observations
 
         observations = read_observations(observations)
     spec = system if system is not None else SystemSpec()
@@ -120,7 +120,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         if checkpoint is None:
             raise ConfigError("resuming needs the checkpoint of the interrupted run",
                               key="checkpoint")
-        from .checkpoint import read_meta
+        from massfit.sample.checkpoint import read_meta
 
         saved = read_meta(checkpoint, model=model, settings=settings)
         settings = replace(settings, seed=saved["settings"]["seed"])
@@ -131,7 +131,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         rng = np.random.default_rng(settings.seed)
         initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
         if checkpoint is not None:
-            from .checkpoint import write_meta
+            from massfit.sample.checkpoint import write_meta
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
@@ -161,7 +161,7 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
     autocorrelation time. A central mass that moves under a second vague prior is
     flagged as prior-sensitive. Both go into the summary and its warnings.
     """
-    from .diagnose import posterior_modes, prior_sensitivity
+    from massfit.summarise.posterior_checks import posterior_modes, prior_sensitivity
 
     modes = posterior_modes(model, chain)
     unmixed = [m for m in modes if not m["walkers_cross"]]

@@ -9,7 +9,7 @@ from astropy.time import Time
 
 os.environ.setdefault("MPLBACKEND", "Agg")
 
-from massfit.simulate import Elements, simulate_astrometry, write_scenario  # noqa: E402
+from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario  # noqa: E402
 
 
 def invented_binary(seed=11, n=30, parallax=25.0 * u.mas, error=0.5 * u.mas):

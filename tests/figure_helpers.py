@@ -14,7 +14,7 @@ import numpy as np
 from astropy.table import Table
 from astropy.time import Time
 
-from massfit.simulate import Elements, simulate_astrometry
+from massfit.scenarios.simulate import Elements, simulate_astrometry
 
 TRUTH_MASS_MSUN = 1.2
 PARALLAX_MAS = 25.0

@@ -14,8 +14,8 @@ from astropy.time import Time
 
 import massfit
 from massfit import batch
-from massfit.cli import main
-from massfit.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.cli.commands import main
+from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
 
 SAMPLER = "[sampler]\nwalkers = 16\nmax_steps = 200\ncheck_every = 100\n"
 

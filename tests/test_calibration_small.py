@@ -9,7 +9,7 @@ Binomial(20, 0.6827) (Binomial(20, 0.9545)); the test asks for counts inside the
 
 A second set of twenty has poor coverage: each companion is seen over 20-50 % of
 its orbit, where massfit samples it as a position and velocity
-(massfit.coordinates). With the elements as sampled coordinates these same fits put
+(massfit.sample.reparameterisation). With the elements as sampled coordinates these same fits put
 the truth inside the 95.45 % interval 14 times out of 20 (outside the range), with
 state coordinates 19 (measured when the test was written).
 

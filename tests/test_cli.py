@@ -6,7 +6,7 @@ import sys
 
 import pytest
 
-from massfit.cli import main
+from massfit.cli.commands import main
 
 SUMMARY_KEYS = {"central_mass", "central_gm", "parallax", "converged", "diagnostics",
                 "companions", "inputs"}

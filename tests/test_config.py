@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from massfit.config import load_config
+from massfit.config.fit import load_config
 from massfit.errors import ConfigError
 from massfit.priors import Fixed, LogUniform, Normal, Uniform
 
@@ -91,7 +91,7 @@ def test_broken_toml_names_the_file(tmp_path):
 
 
 def test_config_fit_from_cli(tmp_path, binary_file):
-    from massfit.cli import main
+    from massfit.cli.commands import main
 
     data, _ = binary_file
     path = write(tmp_path, f"""

@@ -1,4 +1,4 @@
-"""State coordinates for short arcs (massfit.coordinates).
+"""State coordinates for short arcs (massfit.sample.reparameterisation).
 
 The change of coordinates must be a bijection onto the model's coordinates, its
 log-Jacobian must be the one the sampler needs, and it must be chosen where (and only
@@ -13,12 +13,12 @@ from astropy.time import Time
 
 import massfit
 from massfit.constants import GM_SUN
-from massfit.coordinates import ARC_FRACTION, SamplerCoordinates, _two_body_states
-from massfit.dynamics import orbit_state
-from massfit.model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.sample.reparameterisation import ARC_FRACTION, SamplerCoordinates, _two_body_states
+from massfit.orbits.dynamics import orbit_state
+from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
 from massfit.priors import LogUniform, Uniform
-from massfit.simulate import Elements, read_back, simulate_astrometry
-from massfit.start import find_start
+from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry
+from massfit.start.search import find_start
 
 
 def _model(period, *, seed=3, epochs=14, span=900.0, inc=58.0):

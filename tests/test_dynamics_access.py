@@ -3,11 +3,11 @@
 import pytest
 
 import massfit
-from massfit.cli import main
-from massfit.config import parse_config
-from massfit.dynamics import Keplerian
+from massfit.cli.commands import main
+from massfit.config.fit import parse_config
+from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ConfigError
-from massfit.oblateness import Oblate
+from massfit.orbits.oblate import Oblate
 
 
 def _config(**dynamics):
@@ -65,7 +65,7 @@ def test_saved_model_state_rebuilds_the_dynamics():
     # A result folder keeps the assumptions in run.json; the dynamics must come back.
     import json
 
-    from massfit.saved import _decode, _encode
+    from massfit.result.loading import _decode, _encode
 
     for dynamics in (massfit.Oblate(0.015, "70000 km", "80 deg", "20 deg"),
                      massfit.NBody(rtol=1e-11), Keplerian()):

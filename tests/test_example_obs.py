@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 import massfit
-from massfit.scenarios import PACKAGE_DATA, SCENARIOS
+from massfit.scenarios.examples import PACKAGE_DATA, SCENARIOS
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = ROOT / "example_obs"
@@ -29,7 +29,7 @@ def test_package_copy_agrees_with_example_obs(name):
 
 
 def test_scenarios_regenerate_every_file(tmp_path, monkeypatch):
-    import massfit.scenarios as scenarios
+    import massfit.scenarios.examples as scenarios
 
     monkeypatch.setattr(scenarios, "PACKAGE_DATA", tmp_path / "pkg")
     scenarios.write_all(tmp_path / "obs")

@@ -9,8 +9,8 @@ from astropy.time import Time
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-from massfit import plots  # noqa: E402
-from massfit.diagnostics import Residuals, residual_periodogram  # noqa: E402
+from massfit.plot import figures as plots  # noqa: E402
+from massfit.summarise.residuals import Residuals, residual_periodogram  # noqa: E402
 from massfit.errors import ConfigError  # noqa: E402
 
 

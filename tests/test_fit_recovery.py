@@ -12,7 +12,7 @@ import pytest
 from astropy.time import Time
 
 import massfit
-from massfit.scenarios import DEMO_DIR
+from massfit.scenarios.examples import DEMO_DIR
 
 from conftest import invented_binary
 
@@ -23,7 +23,7 @@ def _inside_95(block, value):
 
 @pytest.fixture(scope="module")
 def wren_observations(tmp_path_factory):
-    from massfit.simulate import write_scenario
+    from massfit.scenarios.simulate import write_scenario
 
     folder = tmp_path_factory.mktemp("wren")
     table, truth = invented_binary()
@@ -68,7 +68,7 @@ def test_wrong_parallax_misses_the_truth():
     # Negative control: a parallax 10 % too large (with a tight error) shrinks the
     # semi-major axis in au by 10 % and the mass by 27 %; the truth must fall outside.
     table, truth = invented_binary()
-    from massfit.simulate import read_back
+    from massfit.scenarios.simulate import read_back
 
     obs = read_back(table, name="wren.ecsv")
     result = massfit.fit(obs, parallax="27.5 mas", parallax_err="0.1 mas", seed=3,
@@ -98,8 +98,8 @@ def test_light_time_matters_for_the_moons():
     # Negative control for the per-row light time: the moons' positions carry the
     # changing observer distance (4.3-6.3 au, up to 17 minutes of light time); fitted
     # without the correction, the best fit must be clearly worse.
-    from massfit.model import OrbitModel, SystemSpec
-    from massfit.start import find_start
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.start.search import find_start
 
     obs = massfit.read_observations(DEMO_DIR / "moons.ecsv")
     with_lt = find_start(OrbitModel(obs, SystemSpec(light_time=True)))
@@ -124,7 +124,7 @@ def _aliased_moons():
     import os
     import tempfile
 
-    from massfit.simulate import Elements, simulate_astrometry, write_scenario
+    from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
 
     rng = np.random.default_rng(2)
     elements = {"Kiv": Elements(period=3.71, ecc=0.02, inc=70.0, omega=10.0, node=40.0,
@@ -143,8 +143,8 @@ def _aliased_moons():
 def test_shared_mass_picks_the_right_alias():
     # Seen every 4 d, the 3.71 d moon fits equally well at its alias near 51 d; only
     # the mass shared with the outer moon tells them apart.
-    from massfit.model import OrbitModel, SystemSpec
-    from massfit.start import find_start
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.start.search import find_start
 
     model = OrbitModel(_aliased_moons(), SystemSpec())
     start = find_start(model)
@@ -156,9 +156,9 @@ def test_shared_mass_picks_the_right_alias():
 
 def test_poor_fit_is_flagged():
     # Negative control for the goodness-of-fit warning: errors stated 5x too small.
-    from massfit.model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
     from massfit.run import _fit_quality
-    from massfit.start import find_start
+    from massfit.start.search import find_start
 
     obs = _aliased_moons()
     model = OrbitModel(obs, SystemSpec())
@@ -174,9 +174,9 @@ def test_poor_fit_is_flagged():
 @pytest.fixture(scope="module")
 def wren_start(wren_observations):
     """The Wren set's model maker and its start on every row, the ordinary way."""
-    from massfit.model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
     from massfit.run import distance_prior
-    from massfit.start import find_start
+    from massfit.start.search import find_start
 
     obs, _ = wren_observations
     spec = SystemSpec(parallax=distance_prior(parallax="25.0 mas", key_prefix=""))
@@ -188,7 +188,7 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
     # The single-companion search looks at a seeded random subset of a big companion's
     # rows (4000 in use; 12 here, on 30 rows, to test it quickly); the joint polish
     # uses every row, and its chi^2 is over all of them.
-    from massfit import start as start_module
+    from massfit.start import search as start_module
 
     new_model, full = wren_start
     monkeypatch.setattr(start_module, "_SEARCH_ROWS", 12)
@@ -206,7 +206,7 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
 def test_big_data_steps_by_lsmr_reach_the_same_start(wren_start, monkeypatch):
     # Beyond 5e6 Jacobian elements the start's least squares steps with LSMR instead of
     # an SVD (memory); forced here on 30 rows, it must end at the same solution.
-    from massfit import start as start_module
+    from massfit.start import search as start_module
 
     new_model, exact = wren_start
     monkeypatch.setattr(start_module, "_EXACT_ELEMENTS", 0)

@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from massfit import kepler
-from massfit.start import elements_from_thiele_innes
+from massfit.orbits import kepler
+from massfit.start.search import elements_from_thiele_innes
 
 SOLVERS = [kepler.solve_kepler_numpy]
 if kepler.HAVE_NUMBA:
@@ -139,7 +139,7 @@ def test_fused_cos_sin_belong_to_the_returned_anomaly(solver):
 def test_compiled_fallback_is_exercised_and_exact():
     # The branch-free sequence hands some points (high e) to the safeguarded loop;
     # a negative control that the fallback really runs, and that its answers hold.
-    from massfit import _kepler_numba
+    from massfit.orbits import _kepler_numba
 
     rng = np.random.default_rng(3)
     m = rng.uniform(-np.pi, np.pi, 20_000)

@@ -3,13 +3,13 @@
 import numpy as np
 import pytest
 
-from massfit.dynamics import Keplerian, orbit_state
+from massfit.orbits.dynamics import Keplerian, orbit_state
 from massfit.errors import ConfigError
-from massfit.model import CompanionSpec, OrbitModel, SystemSpec
-from massfit.nbody import HAVE_NUMBA, NBody, integrate_system, total_energy
+from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.orbits.nbody import HAVE_NUMBA, NBody, integrate_system, total_energy
 from massfit.priors import Fixed, LogUniform
-from massfit.read import read_observations
-from massfit.scenarios import DEMO_DIR
+from massfit.read.tables import read_observations
+from massfit.scenarios.examples import DEMO_DIR
 
 
 #: Both integrators: the compiled one (numba, per-walker steps) and the numpy one
@@ -142,15 +142,15 @@ def test_bad_tolerance_is_a_config_error():
 
 
 def test_nbody_start_recovers_the_pair_masses(tmp_path):
-    # The invented interacting pair (massfit.nbody.PAIR_TRUTH), fewer epochs than in
+    # The invented interacting pair (massfit.orbits.nbody.PAIR_TRUTH), fewer epochs than in
     # validation/interacting_pair.py (which runs emcee on three noise seeds). From the
     # data alone, the start step (two-body search, then N-body least squares) must
     # find every mass within 4 of its Laplace sigmas, and measure the companions'
     # masses (not leave them to their prior). Negative control: with massless
     # companions (two-body orbits) the central mass lands far off and the fit is far
     # worse.
-    from massfit.nbody import PAIR_TRUTH, simulate_interacting_pair
-    from massfit.start import _least_squares, _values_from_theta, find_start
+    from massfit.orbits.nbody import PAIR_TRUTH, simulate_interacting_pair
+    from massfit.start.search import _least_squares, _values_from_theta, find_start
 
     obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=30))
     truth = {"central": PAIR_TRUTH["central_mass"],
@@ -192,7 +192,7 @@ def test_only_a_relative_mirror_image_changes_the_nbody_sky(tmp_path):
     # companion leaves the N-body sky paths as they were too (the mirror is a symmetry
     # of Newton's equations); mirroring one changes the mutual inclination and so the
     # paths. Hence the N-body model's full node window for all companions but one.
-    from massfit.nbody import PAIR_TRUTH, simulate_interacting_pair
+    from massfit.orbits.nbody import PAIR_TRUTH, simulate_interacting_pair
 
     obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=20))
     comps = {n: CompanionSpec(n, mass=LogUniform(1e-4, 0.5))

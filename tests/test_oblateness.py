@@ -7,8 +7,8 @@ import pytest
 
 from massfit import read_observations
 from massfit.errors import ConfigError
-from massfit.model import OrbitModel, SystemSpec
-from massfit.oblateness import (Oblate, integrate_oblate_orbit, mean_and_geometric_axis,
+from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.orbits.oblate import (Oblate, integrate_oblate_orbit, mean_and_geometric_axis,
                                 oblate_gm, simulate_equatorial_moons)
 
 DAY = 86400.0
@@ -62,7 +62,7 @@ def moons(tmp_path_factory):
 @pytest.fixture(scope="module")
 def starts(moons):
     """The start step of each model on the same data, without any guesses."""
-    from massfit.start import find_start
+    from massfit.start.search import find_start
 
     obs, gm_true, j2, radius, *_ = moons
     out = {}
@@ -167,7 +167,7 @@ def test_bad_oblateness_settings_are_config_errors():
 
 
 def test_adequacy_flags_the_two_body_fit_and_clears_the_j2_fit(starts):
-    from massfit.adequacy import assess, report_lines
+    from massfit.summarise.adequacy import assess, report_lines
 
     (j2_model, j2_start), (kep_model, kep_start) = starts["j2"], starts["keplerian"]
     kep = assess(kep_model, kep_start.theta)

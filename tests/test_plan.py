@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 from astropy.time import Time
 
-from massfit.cli import main
+from massfit.cli.commands import main
 from massfit.errors import ConfigError, InputError
-from massfit.plan import (AssumedSystem, Posterior, Schedule, _EnsembleInformation,
+from massfit.plan.planner import (AssumedSystem, Posterior, Schedule, _EnsembleInformation,
                           _FisherInformation, fit_scatter, forecast_precision,
                           plan_observations, simulated_observations)
 

@@ -6,13 +6,13 @@ import pytest
 from astropy.time import Time
 
 import massfit
-from massfit.diagnose import posterior_modes, prior_sensitivity, split_modes
-from massfit.model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.summarise.posterior_checks import posterior_modes, prior_sensitivity, split_modes
+from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
 from massfit.priors import LogUniform
 from massfit.run import assemble_result
-from massfit.sample import SamplerSettings, run_sampler
-from massfit.simulate import Elements, simulate_astrometry, write_scenario
-from massfit.start import Start, find_start
+from massfit.sample.chain import SamplerSettings, run_sampler
+from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.start.search import Start, find_start
 
 from conftest import write_one_companion
 

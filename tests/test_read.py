@@ -1,4 +1,4 @@
-"""Tests of the observation readers (massfit.read).
+"""Tests of the observation readers (massfit.read.tables).
 
 All data are invented; files are written into pytest's tmp_path.
 """
@@ -16,7 +16,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from massfit.errors import ConfigError, InputError, MassfitError
-from massfit.read import read_observations, read_table
+from massfit.read.tables import read_observations, read_table
 
 UNITS = {"east": "mas", "north": "mas", "east_err": "mas", "north_err": "mas",
          "sep": "mas", "sep_err": "mas", "pa": "deg", "pa_err": "deg",

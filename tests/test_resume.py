@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 import massfit
-from massfit.checkpoint import checkpoint_path, partial_dir
+from massfit.sample.checkpoint import checkpoint_path, partial_dir
 from massfit.errors import ConfigError
 from conftest import write_one_companion
 
@@ -36,7 +36,7 @@ def data_file(small_data_file):
 @pytest.fixture(scope="module", params=["two orbits", "short arc"])
 def any_data_file(request, small_data_file, tmp_path_factory):
     """The small file, and a companion seen over a sixth of its orbit (sampled in
-    state coordinates, massfit.coordinates)."""
+    state coordinates, massfit.sample.reparameterisation)."""
     if request.param == "two orbits":
         return small_data_file
     return write_one_companion(tmp_path_factory.mktemp("short-arc"), period=1500.0)

@@ -7,15 +7,15 @@ orbit and the central mass): r^2 = |x|^2 is then chi-square with 7 degrees of
 freedom, mean 7 and variance 14 (textbook result, e.g. Abramowitz & Stegun 26.4).
 The negative control is emcee's snooker move mixed in as emcee documents it (0.8 DE,
 0.2 snooker), which massfit once used and which shrinks this normal's variance by
-about a tenth (measured; see massfit/sample.py).
+about a tenth (measured; see massfit/sample/chain.py).
 """
 
 import emcee
 import numpy as np
 from scipy import stats
 
-import massfit.sample as sample
-from massfit.sample import SamplerSettings, run_sampler
+import massfit.sample.chain as sample
+from massfit.sample.chain import SamplerSettings, run_sampler
 
 N_DIM = 7
 

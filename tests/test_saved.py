@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import massfit
-from massfit.cli import main
+from massfit.cli.commands import main
 from massfit.errors import InputError
 
 
@@ -85,7 +85,7 @@ def test_html_summary_is_a_table(saved):
     assert "Companion Aster" in html and "Companion Brel" in html
     assert "NOT converged" in html  # the fixture's short chain did not converge
     period = original.summary["companions"]["Aster"]["period"]
-    from massfit.tables import round_interval
+    from massfit.write.tables import round_interval
 
     assert round_interval(period).html() in html
 
@@ -93,7 +93,7 @@ def test_html_summary_is_a_table(saved):
 def test_fit_command_writes_figures_unless_told_not_to(binary_file, tmp_path, monkeypatch):
     # The drawing itself is tested elsewhere; here only that `massfit fit` asks for
     # every figure by default and for none with --no-plots.
-    from massfit.results import FitResult
+    from massfit.result.fit_result import FitResult
 
     calls = []
     monkeypatch.setattr(FitResult, "write_figures",

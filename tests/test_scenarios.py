@@ -5,7 +5,7 @@ import json
 from pathlib import Path
 
 import massfit
-from massfit.scenarios import DEMO_DIR, write_all
+from massfit.scenarios.examples import DEMO_DIR, write_all
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -17,7 +17,7 @@ def test_example_obs_matches_the_package_copy():
 
 
 def test_scenarios_regenerate_byte_for_byte(tmp_path, monkeypatch):
-    import massfit.scenarios as scenarios
+    import massfit.scenarios.examples as scenarios
 
     monkeypatch.setattr(scenarios, "DEMO_DIR", tmp_path / "pkg")
     write_all(tmp_path / "obs")

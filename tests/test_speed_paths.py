@@ -14,12 +14,12 @@ import numpy as np
 import pytest
 
 import massfit
-from massfit import kepler
-from massfit.model import CompanionSpec, OrbitModel
+from massfit.orbits import kepler
+from massfit.model.orbit_model import CompanionSpec, OrbitModel
 from massfit.priors import Normal, Uniform
-from massfit.read import read_observations
-from massfit.scenarios import demo_setup
-from massfit.start import _bounds
+from massfit.read.tables import read_observations
+from massfit.scenarios.examples import demo_setup
+from massfit.start.search import _bounds
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_obs"
 
@@ -105,7 +105,7 @@ def test_velocities_and_other_dynamics_keep_the_general_path():
 def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
     # Big data sets fill the start's Jacobian one column at a time (memory); the
     # numbers must be those of the stacked evaluation.
-    from massfit import start as start_module
+    from massfit.start import search as start_module
 
     model = _model("mirren")
     low, high = _bounds(model)
@@ -127,7 +127,7 @@ def test_batched_autocorrelation_time_equals_emcee(shape):
     # padding; emcee's own estimator is the reference.
     import emcee
 
-    from massfit.sample import _autocorr
+    from massfit.sample.chain import _autocorr
 
     rng = np.random.default_rng(sum(shape))
     # A random walk plus noise: autocorrelation times of a few to tens of steps.
@@ -139,7 +139,7 @@ def test_batched_autocorrelation_time_equals_emcee(shape):
 def test_observations_written_in_blocks_are_the_file_astropy_writes(tmp_path, monkeypatch):
     from astropy.table import Table
 
-    from massfit import saved
+    from massfit.result import loading as saved
 
     rng = np.random.default_rng(0)
     table = Table({"east": rng.standard_normal(1234), "body": ["Ebbin", "Tor"] * 617,
@@ -152,7 +152,7 @@ def test_observations_written_in_blocks_are_the_file_astropy_writes(tmp_path, mo
 
 
 def test_periodogram_subset_is_fixed_and_only_for_big_sets():
-    from massfit.diagnostics import periodogram_subset
+    from massfit.summarise.residuals import periodogram_subset
 
     assert np.array_equal(periodogram_subset(500, 1000), np.arange(500))
     first, again = periodogram_subset(10_000, 1000), periodogram_subset(10_000, 1000)

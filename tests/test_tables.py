@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from astropy.table import Table
 
-from massfit.tables import (ecsv_table, latex_table, markdown_table, parameter_rows,
+from massfit.write.tables import (ecsv_table, latex_table, markdown_table, parameter_rows,
                             round_interval)
 
 
@@ -113,7 +113,7 @@ def test_reported_angles_match_the_simulated_orbit(summary):
 
 
 def test_dates_are_printed_in_full():
-    from massfit.tables import format_interval
+    from massfit.write.tables import format_interval
 
     jd = dict(block(2461320.8581234, 0.0000025, 0.0000025), unit="JD (TDB)")
     assert format_interval(jd) == "2461320.8581234 +/- 0.0000025"

@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from massfit.read import read_observations
+from massfit.read.tables import read_observations
 
 ROOT = Path(__file__).resolve().parents[1]
 HEADER = "time,body,east,north,east_err,north_err"
@@ -138,7 +138,7 @@ def _problem(status, stderr, named, words):
 
 def test_every_bad_input_is_a_one_line_error_with_status_2(tmp_path, capsys):
     """In-process, every case: an exception escaping main() would fail the test."""
-    from massfit.cli import main
+    from massfit.cli.commands import main
 
     failures = []
     for name, (args, named, words) in _cases(tmp_path).items():

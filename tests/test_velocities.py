@@ -15,11 +15,11 @@ import pytest
 from astropy.time import Time
 
 import massfit
-from massfit import kepler
+from massfit.orbits import kepler
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY, MASS_UNITS
 from massfit.errors import ConfigError, InputError
-from massfit.model import OrbitModel, SystemSpec
-from massfit.simulate import Elements, simulate_astrometry, simulate_velocities, write_scenario
+from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.scenarios.simulate import Elements, simulate_astrometry, simulate_velocities, write_scenario
 
 M_JUP = MASS_UNITS["Mjup"] / MASS_UNITS["Msun"]
 QUICK = dict(seed=7, max_steps=12_000, progress=False)
@@ -67,7 +67,7 @@ def test_mass_function_of_a_textbook_binary():
     # Sun: K = 2 pi a / P with a = 1 au and P = 365.256363 d (from memory), and
     # f = (M sin i)^3 / (M + m)^2 = M_sun, to the 1e-5 by which the real year
     # departs from Kepler's law with the nominal GM_sun.
-    from massfit.summarise import mass_function
+    from massfit.summarise.derived import mass_function
 
     k = 2 * np.pi * 1.0 / 365.256363 * KM_S_PER_AU_DAY
     assert mass_function(365.256363, k, 0.0) == pytest.approx(1.0, rel=1e-5)
@@ -225,7 +225,7 @@ JOINT = {"Brisk": Elements(period=2900.0, ecc=0.35, inc=62.0, omega=210.0, node=
 @pytest.fixture(scope="module")
 def joint_cli_fit(tmp_path_factory):
     """A double-lined binary with a visual orbit and no parallax, fitted by the CLI."""
-    from massfit.cli import main
+    from massfit.cli.commands import main
 
     folder = tmp_path_factory.mktemp("joint")
     rng = np.random.default_rng(5)
@@ -308,7 +308,7 @@ def test_instrument_with_no_rows_left_is_an_error(tmp_path):
     obs = massfit.read_observations(path, time_format="jd", time_scale="tdb",
                                     units=RV_UNITS, skip_bad_rows=True)
     assert len(obs.rejected) == 2
-    spec = SystemSpec(instruments={"B": massfit.model.InstrumentSpec(
+    spec = SystemSpec(instruments={"B": massfit.model.orbit_model.InstrumentSpec(
         jitter=massfit.Fixed(0.0))})
     with pytest.raises(ConfigError) as info:
         OrbitModel(obs, spec)
@@ -319,7 +319,7 @@ def test_instrument_with_no_rows_left_is_an_error(tmp_path):
 
 # ------------------------------------------------------------------------- config
 def test_config_velocity_keys(tmp_path):
-    from massfit.config import parse_config
+    from massfit.config.fit import parse_config
 
     raw = {"data": {"files": ["v.csv"]},
            "velocities": {"trend": "quadratic",
@@ -379,7 +379,7 @@ def test_primary_reflex_with_astrometry_separates_the_two_masses(tmp_path):
 def test_two_signals_in_the_primary_velocities_are_both_found(tmp_path):
     # Two invented planets, 1 and 3 Jupiter masses at 9.31 d and 143 d: the start
     # (periodogram, linear scan, least squares, one signal after the other) finds both.
-    from massfit.start import find_start
+    from massfit.start.search import find_start
 
     el = {"b": Elements(period=9.31, ecc=0.1, inc=80.0, omega=40.0, node=0.0,
                         periapsis_time=2459003.0, mass=0.0009),

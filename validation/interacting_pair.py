@@ -1,6 +1,6 @@
 """An invented interacting pair: recover the central mass and both companions' masses.
 
-The invented system *Tessaly* (``massfit.nbody.PAIR_TRUTH``): a 1.0 M_sun star with
+The invented system *Tessaly* (``massfit.orbits.nbody.PAIR_TRUTH``): a 1.0 M_sun star with
 two companions of 0.003 and 0.006 M_sun (about 3 and 6 Jupiter masses) near a 5:2
 period ratio (100 d and 250 d), observed on 60 epochs each over 1000 days in length
 units (au, as from an absolute orbit at a known distance), errors 2e-4 au. The data are integrated with
@@ -41,7 +41,7 @@ sys.path.insert(0, str(HERE))
 import _study  # noqa: E402
 
 from massfit import CompanionSpec, NBody, SystemSpec, fit, read_observations  # noqa: E402
-from massfit.nbody import PAIR_TRUTH, simulate_interacting_pair  # noqa: E402
+from massfit.orbits.nbody import PAIR_TRUTH, simulate_interacting_pair  # noqa: E402
 from massfit.priors import LogUniform  # noqa: E402
 
 RESULTS = HERE / "results" / "interacting_pair.json"
@@ -116,7 +116,7 @@ def run_seed(seed, *, max_steps, folder, keep_samples):
 def figure(report, path):
     import matplotlib.pyplot as plt
 
-    from massfit.plots import PAGE_WIDTH, STYLE
+    from massfit.plot.figures import PAGE_WIDTH, STYLE
 
     first = report["runs"][0]
     names = list(PAIR_TRUTH["companions"])

@@ -1,6 +1,6 @@
 """Invented moons of an oblate planet, fitted end to end with and without J2.
 
-The data come from integrating the full J2 field (massfit.oblateness.
+The data come from integrating the full J2 field (massfit.orbits.oblate.
 simulate_equatorial_moons: the invented planet *Vessaline*, two inner moons in its
 equator), not from the secular model that is fitted. For each noise seed the same
 table is fitted twice with :func:`massfit.fit` (start search, emcee, summary): once
@@ -31,7 +31,7 @@ import _study  # noqa: E402
 
 from massfit import Oblate, SystemSpec, fit, read_observations  # noqa: E402
 from massfit.constants import GM_SUN_KM3_S2  # noqa: E402
-from massfit.oblateness import simulate_equatorial_moons  # noqa: E402
+from massfit.orbits.oblate import simulate_equatorial_moons  # noqa: E402
 
 RESULTS = HERE / "results" / "oblate_moons.json"
 FIGURE = HERE.parent / "docs" / "figures" / "oblate_moons.png"
@@ -81,7 +81,7 @@ def run_seed(seed, *, half_span, n_obs, max_steps, folder):
 def figure(report, path):
     import matplotlib.pyplot as plt
 
-    from massfit.plots import PAGE_WIDTH, STYLE
+    from massfit.plot.figures import PAGE_WIDTH, STYLE
 
     runs = report["runs"]
     with plt.rc_context(STYLE):

@@ -25,8 +25,8 @@ from pathlib import Path
 import numpy as np
 
 import massfit
-from massfit.plan import Schedule, fit_scatter, forecast_precision, simulated_observations
-from massfit.scenarios import planning_system
+from massfit.plan.planner import Schedule, fit_scatter, forecast_precision, simulated_observations
+from massfit.scenarios.examples import planning_system
 
 warnings.filterwarnings("ignore", message=".*dubious year")
 
@@ -68,9 +68,9 @@ def profile_width(system, schedule, seed):
 
     from scipy.optimize import brentq
 
-    from massfit.model import OrbitModel
+    from massfit.model.orbit_model import OrbitModel
     from massfit.priors import Fixed
-    from massfit.start import _chi2, _least_squares
+    from massfit.start.search import _chi2, _least_squares
 
     obs = simulated_observations(system, schedule, seed=seed)
     spec = system.simulated_spec(seed)
@@ -98,7 +98,7 @@ def profile_width(system, schedule, seed):
 
 
 def _prior_terms(model, theta):
-    from massfit.start import _prior_residuals
+    from massfit.start.search import _prior_residuals
 
     return _prior_residuals(model, theta)
 

@@ -2,7 +2,7 @@
 
 massfit samples a companion whose data span less than ``ARC_FRACTION`` of its best-fit
 period as its position and velocity at the middle of its data
-(:mod:`massfit.coordinates`), and every other companion as elements. This script
+(:mod:`massfit.sample.reparameterisation`), and every other companion as elements. This script
 measures the autocorrelation times behind that choice: invented one-companion systems
 seen over a range of fractions of an orbit (12 epochs, the same noise), each sampled
 for the same number of steps from the same walkers in three coordinate sets: the
@@ -30,12 +30,12 @@ import astropy.units as u  # noqa: E402
 import numpy as np  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
-from massfit.coordinates import ARC_FRACTION, SamplerCoordinates  # noqa: E402
-from massfit.model import CompanionSpec, OrbitModel, SystemSpec  # noqa: E402
+from massfit.sample.reparameterisation import ARC_FRACTION, SamplerCoordinates  # noqa: E402
+from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec  # noqa: E402
 from massfit.priors import LogUniform, Uniform  # noqa: E402
-from massfit.sample import SamplerSettings, run_sampler  # noqa: E402
-from massfit.simulate import Elements, read_back, simulate_astrometry  # noqa: E402
-from massfit.start import find_start  # noqa: E402
+from massfit.sample.chain import SamplerSettings, run_sampler  # noqa: E402
+from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry  # noqa: E402
+from massfit.start.search import find_start  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 SPAN_DAYS = 1000.0

@@ -1,7 +1,7 @@
 """Pulls of the double-lined mass ratio K1/K2 over noise realisations.
 
 An invented double-lined binary is simulated with many noise seeds; for each, the
-least-squares start (massfit.start.find_start) gives K1/K2 and its error from the
+least-squares start (massfit.start.search.find_start) gives K1/K2 and its error from the
 start's covariance. The pulls (fitted - true) / error should have mean ~0 and standard
 deviation ~1; a bias in the velocity model (sign, share of the reflex) would show as a
 mean far from 0. Run: ``PYTHONPATH=. python validation/velocity_pulls.py [n_seeds]``.
@@ -18,9 +18,9 @@ import numpy as np
 from astropy.time import Time
 
 import massfit
-from massfit.model import OrbitModel
-from massfit.simulate import Elements, simulate_velocities, write_scenario
-from massfit.start import find_start
+from massfit.model.orbit_model import OrbitModel
+from massfit.scenarios.simulate import Elements, simulate_velocities, write_scenario
+from massfit.start.search import find_start
 
 TRUTH = dict(period=11.83, ecc=0.12, inc=81.0, omega=63.0, node=0.0,
              periapsis_time=2459004.1, mass=0.74)

@@ -1,0 +1,2 @@
+"""Configuration files: the TOML of a fit and of an observation plan, checked key by key.
+"""

@@ -1,0 +1,317 @@
+"""The TOML configuration of a fit, checked key by key.
+
+Layout (every key optional except ``data.files``)::
+
+    [data]
+    files = ["moons.ecsv"]            # relative to this config file
+    time_format = "jd"                # for plain CSV: an astropy Time format
+    time_scale = "utc"                #   and scale
+    units = {east = "mas", north = "mas", east_err = "mas", north_err = "mas"}
+    skip_bad_rows = false             # reject (and list) bad rows instead of stopping
+
+    [system]
+    primary = "Ossery"                # name of the primary's own velocity rows
+    parallax = "48.2 mas"             # with parallax_err: a Gaussian prior; alone: fixed
+    parallax_err = "0.3 mas"
+    distance = "20.7 pc"              # a fixed distance instead of a parallax
+    light_time = true                 # with per-row distances, evaluate at t - d/c
+    romer_delay = false               # light time across the system (along z)
+    central_mass_prior = {kind = "log-uniform", low = "1e-6 Msun", high = "1 Msun"}
+
+    [companions.Tamsin]               # listing companions makes the list strict
+    period_prior = {kind = "log-uniform", low = "1 d", high = "100 d"}
+    eccentricity_prior = {kind = "uniform", low = 0, high = 0.5}
+    inclination_prior = {kind = "normal", mean = "88 deg", sd = "1 deg"}
+    mass = "1e-4 Msun"                # a fixed companion mass, or
+    mass_prior = {kind = "normal", mean = "1e-4 Msun", sd = "2e-5 Msun"}
+    semi_amplitude_prior = {kind = "uniform", low = "0 m/s", high = "500 m/s"}  # RV only
+
+    [velocities]                      # radial velocities (any table with an rv column)
+    trend = "linear"                  # "none" (default), "linear" or "quadratic"
+    slope_prior = {kind = "normal", mean = "0 m / (s d)", sd = "1 m / (s d)"}  # default flat
+    curvature_prior = {kind = "normal", mean = "0 m / (s d2)", sd = "0.01 m / (s d2)"}
+    jitter_prior = {kind = "log-uniform", low = "0.1 m/s", high = "100 m/s"}
+
+    [velocities.instruments.Halden]   # one instrument label of the velocity files
+    offset_prior = {kind = "normal", mean = "-12.4 km/s", sd = "1 km/s"}  # default flat
+    jitter_prior = {kind = "fixed", value = "0 m/s"}
+
+    [dynamics]                        # how the companions move (default: keplerian)
+    model = "oblate"                  # "keplerian", "oblate" (J2) or "n-body"
+    j2 = 0.0147                       # oblate: the primary's J2 ...
+    equatorial_radius = "71492 km"    #   ... at this reference radius
+    equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
+    equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
+    rtol = 1e-12                      # n-body: the integrator's relative tolerance
+    compare_keplerian = true          # adequacy: also fit the two-body model
+
+    [sampler]
+    walkers = 64
+    max_steps = 50000
+    check_every = 500
+    seed = 1
+
+    [output]
+    folder = "fit-out"                # relative to this config file
+    plots = true
+"""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import astropy.units as u
+
+from massfit.errors import ConfigError
+from massfit.model.orbit_model import CompanionSpec, SystemSpec
+from massfit.priors import Fixed, prior_from_spec
+from massfit.sample.chain import SamplerSettings
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = ["FitSetup", "load_config", "parse_config"]
+
+_SCHEMA = {
+    "data": {"files": list, "time_format": str, "time_scale": str, "units": dict,
+             "skip_bad_rows": bool},
+    "system": {"primary": str, "parallax": str, "parallax_err": str, "distance": str,
+               "light_time": bool, "romer_delay": bool, "central_mass_prior": dict},
+    "companions": dict,
+    "velocities": {"trend": str, "slope_prior": dict, "curvature_prior": dict,
+                   "jitter_prior": dict, "instruments": dict},
+    "dynamics": {"model": str, "j2": float, "equatorial_radius": str,
+                 "equator_inclination": str, "equator_node": str, "rtol": float,
+                 "compare_keplerian": bool},
+    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
+    "output": {"folder": str, "plots": bool},
+}
+_COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,
+                   "inclination_prior": dict, "mass": str, "mass_prior": dict,
+                   "semi_amplitude_prior": dict}
+_INSTRUMENT_KEYS = {"offset_prior": dict, "jitter_prior": dict}
+_KM_S = u.km / u.s
+
+
+@dataclass
+class FitSetup:
+    """Everything a config file says, resolved and checked.
+
+    Attributes
+    ----------
+    files : list of Path
+    read_options : dict
+        Keyword arguments for :func:`massfit.read_observations`.
+    system : SystemSpec
+    sampler : SamplerSettings
+    output : Path or None
+    plots : bool
+    source : dict
+        The config as read (for the run record).
+    """
+
+    files: list
+    read_options: dict = field(default_factory=dict)
+    system: SystemSpec = field(default_factory=SystemSpec)
+    sampler: SamplerSettings = field(default_factory=SamplerSettings)
+    output: Path | None = None
+    plots: bool = True
+    source: dict = field(default_factory=dict)
+
+
+def load_config(path) -> FitSetup:
+    """Read and check a TOML config; paths in it are relative to the file."""
+    path = Path(path)
+    return parse_config(read_toml(path), base=path.parent, file=str(path))
+
+
+def read_toml(path) -> dict:
+    """The TOML file at ``path`` as a dict; a ConfigError naming the file if unreadable."""
+    path = Path(path)
+    try:
+        text = path.read_bytes()
+    except OSError as exc:
+        raise ConfigError(f"cannot read the config file ({exc.strerror})", file=path) from None
+    try:
+        raw = tomllib.loads(text.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise ConfigError("the config is not UTF-8 text", file=path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML: {exc}", file=path) from None
+    return raw
+
+
+def parse_config(raw: dict, *, base=".", file=None) -> FitSetup:
+    """Check a config dictionary (as TOML gives it) and resolve it."""
+    try:
+        return _parse(raw, Path(base), file)
+    except ConfigError as exc:
+        if exc.file is None and file is not None:
+            raise ConfigError(exc.reason, key=exc.key, file=file) from None
+        raise
+
+
+def _parse(raw, base, file):
+    _check_keys(raw, _SCHEMA, "", file)
+    data = raw.get("data", {})
+    if "files" not in data or not data["files"]:
+        raise ConfigError("list the observation files, e.g. files = [\"moons.ecsv\"]",
+                          key="data.files", file=file)
+    for k, name in enumerate(data["files"]):
+        if not isinstance(name, str):
+            raise ConfigError("each file is a string path", key=f"data.files[{k}]",
+                              file=file)
+    files = [(base / name).resolve() for name in data["files"]]
+    read_options = {key: data[key] for key in ("time_format", "time_scale", "units",
+                                               "skip_bad_rows") if key in data}
+    for col, unit in read_options.get("units", {}).items():
+        if not isinstance(unit, str):
+            raise ConfigError("a unit is a string such as \"mas\"",
+                              key=f"data.units.{col}", file=file)
+    system = _system(raw.get("system", {}), raw.get("companions"), file)
+    _velocities(system, raw.get("velocities", {}), file)
+    _dynamics(system, raw.get("dynamics", {}), file)
+    read_options["primary"] = system.primary
+    sampler = SamplerSettings(**raw.get("sampler", {}))
+    out = raw.get("output", {})
+    return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
+                    output=(base / out["folder"]).resolve() if "folder" in out else None,
+                    plots=out.get("plots", True), source=raw)
+
+
+def _check_keys(table, schema, prefix, file):
+    if not isinstance(table, dict):
+        raise ConfigError("expected a table", key=prefix.rstrip(".") or None, file=file)
+    for key, value in table.items():
+        where = f"{prefix}{key}"
+        if key not in schema:
+            raise ConfigError(f"unknown key; accepted here: {', '.join(sorted(schema))}",
+                              key=where, file=file)
+        expected = schema[key]
+        if isinstance(expected, dict):
+            _check_keys(value, expected, f"{where}.", file)
+        elif not _is_type(value, expected):
+            raise ConfigError(f"expected {_type_name(expected)}, got {type(value).__name__} "
+                              f"{value!r}", key=where, file=file)
+
+
+def _is_type(value, expected):
+    if expected is int:
+        return isinstance(value, int) and not isinstance(value, bool)
+    if expected is float:
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
+    return isinstance(value, expected)
+
+
+def _type_name(kind):
+    return {list: "a list", dict: "a table", str: "a string", int: "a whole number",
+            float: "a number", bool: "true or false"}[kind]
+
+
+def _system(table, companions, file):
+    from massfit.run import distance_prior
+
+    plx = distance_prior(table.get("parallax"), table.get("parallax_err"),
+                         table.get("distance"), key_prefix="system.")
+    spec = SystemSpec(primary=table.get("primary", "primary"), parallax=plx,
+                      light_time=table.get("light_time", True),
+                      romer_delay=table.get("romer_delay", False))
+    if "central_mass_prior" in table:
+        spec.central_mass = _mass_prior(table["central_mass_prior"],
+                                        "system.central_mass_prior", file)
+    if companions is not None:
+        spec.strict_companions = True
+        for name, body in companions.items():
+            spec.companions[name] = _companion(name, body, file)
+    return spec
+
+
+def _velocities(system, table, file):
+    from massfit.model.orbit_model import TRENDS, InstrumentSpec
+
+    trend = table.get("trend", "none")
+    if trend not in TRENDS:
+        raise ConfigError(f"unknown trend {trend!r}; accepted: {', '.join(TRENDS)}",
+                          key="velocities.trend", file=file)
+    system.trend = trend
+    for term, unit in (("slope", _KM_S / u.day), ("curvature", _KM_S / u.day ** 2)):
+        key = f"{term}_prior"
+        if key in table:
+            if term == "curvature" and trend != "quadratic" or trend == "none":
+                raise ConfigError(f"a {term} prior needs trend = \"quadratic\""
+                                  if term == "curvature" else
+                                  "a slope prior needs trend = \"linear\" or "
+                                  "\"quadratic\"", key=f"velocities.{key}", file=file)
+            setattr(system, term, prior_from_spec(table[key], unit=unit,
+                                                  key=f"velocities.{key}", file=file))
+    if "jitter_prior" in table:
+        system.jitter = _jitter_prior(table["jitter_prior"], "velocities.jitter_prior", file)
+    for label, body in table.get("instruments", {}).items():
+        key = f"velocities.instruments.{label}"
+        _check_keys(body, _INSTRUMENT_KEYS, f"{key}.", file)
+        spec = InstrumentSpec()
+        if "offset_prior" in body:
+            spec.offset = prior_from_spec(body["offset_prior"], unit=_KM_S,
+                                          key=f"{key}.offset_prior", file=file)
+        if "jitter_prior" in body:
+            spec.jitter = _jitter_prior(body["jitter_prior"], f"{key}.jitter_prior", file)
+        system.instruments[label] = spec
+
+
+def _jitter_prior(spec, key, file):
+    prior = prior_from_spec(spec, unit=_KM_S, key=key, file=file)
+    low = prior.value if prior.is_fixed else prior.low
+    if low < 0:
+        raise ConfigError("a jitter cannot be negative", key=key, file=file)
+    return prior
+def _dynamics(spec, table, file):
+    from massfit.orbits.dynamics import make_dynamics
+
+    options = {k: v for k, v in table.items() if k not in ("model", "compare_keplerian")}
+    spec.dynamics = make_dynamics(table.get("model", "keplerian"), file=file, **options)
+    spec.compare_keplerian = table.get("compare_keplerian", True)
+
+
+def _mass_prior(spec, key, file):
+    return prior_from_spec(spec, unit=u.M_sun, key=key, file=file)
+
+
+def _companion(name, body, file):
+    key = f"companions.{name}"
+    _check_keys(body, _COMPANION_KEYS, f"{key}.", file)
+    comp = CompanionSpec(name)
+    if "period_prior" in body:
+        comp.period = prior_from_spec(body["period_prior"], unit=u.day,
+                                      key=f"{key}.period_prior", file=file)
+    if "eccentricity_prior" in body:
+        comp.eccentricity = prior_from_spec(body["eccentricity_prior"], unit=None,
+                                            key=f"{key}.eccentricity_prior", file=file)
+        if comp.eccentricity.low < 0 or comp.eccentricity.high >= 1:
+            raise ConfigError("eccentricity must stay within [0, 1)",
+                              key=f"{key}.eccentricity_prior", file=file)
+    if "inclination_prior" in body:
+        comp.inclination = prior_from_spec(body["inclination_prior"], unit=u.rad,
+                                           key=f"{key}.inclination_prior", file=file)
+    if "mass" in body and "mass_prior" in body:
+        raise ConfigError("give either mass (fixed) or mass_prior, not both",
+                          key=f"{key}.mass", file=file)
+    if "mass" in body:
+        comp.mass = prior_from_spec({"kind": "fixed", "value": body["mass"]}, unit=u.M_sun,
+                                    key=f"{key}.mass", file=file)
+    if "mass_prior" in body:
+        comp.mass = _mass_prior(body["mass_prior"], f"{key}.mass_prior", file)
+    if "semi_amplitude_prior" in body:
+        comp.semi_amplitude = prior_from_spec(body["semi_amplitude_prior"], unit=_KM_S,
+                                              key=f"{key}.semi_amplitude_prior", file=file)
+        low = comp.semi_amplitude.value if comp.semi_amplitude.is_fixed else \
+            comp.semi_amplitude.low
+        if low < 0:
+            raise ConfigError("a semi-amplitude cannot be negative",
+                              key=f"{key}.semi_amplitude_prior", file=file)
+    if isinstance(comp.mass, Fixed) and comp.mass.value < 0:
+        raise ConfigError("a mass cannot be negative", key=f"{key}.mass", file=file)
+    return comp

@@ -1,0 +1,261 @@
+"""How each companion moves: the orbit evaluators the joint model calls.
+
+:class:`~massfit.model.orbit_model.OrbitModel` asks its ``dynamics`` object two things:
+
+* ``semi_major_axis(gm, period, orbit)``: the semi-major axis that Kepler's third law
+  (or its corrected form) gives for a companion, from the sampled mass and period;
+* ``states(model, phys, want_velocity)``: the companions' positions relative to the
+  primary (and optionally their velocities) at every row's time.
+
+:class:`Keplerian` is the default (two-body relative orbits). The perturbed models live
+in :mod:`massfit.orbits.oblate` (a J2 primary) and :mod:`massfit.orbits.nbody` (companions that
+pull on each other). :func:`observed_offsets` adds the light time across the system
+(the Romer delay along z) on top of whichever model is in use.
+
+Positions are in au as ``(north, east, z)`` triples of arrays shaped
+``(n_walkers, n_rows)``; velocities in au/day. z points away from the observer.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from massfit.orbits import kepler
+from massfit.constants import C_AU_PER_DAY
+
+__all__ = ["Keplerian", "orbit_state", "observed_offsets", "romer_factor", "make_dynamics",
+           "MODEL_OPTIONS"]
+
+TWO_PI = 2.0 * np.pi
+
+
+def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_velocity=True):
+    """Position and velocity on a Keplerian ellipse, in the sky frame.
+
+    Parameters
+    ----------
+    a, ecc, inc, omega, node : array_like
+        Semi-major axis (au), eccentricity, inclination, argument of periapsis and
+        position angle of the ascending node (rad), broadcast together.
+    mean_anomaly : array_like
+        Mean anomaly (rad).
+    mean_motion : array_like
+        dM/dt (rad/day), used for the velocity only.
+    want_velocity : bool
+        Also return the velocity.
+
+    Returns
+    -------
+    position : tuple of ndarray
+        (north, east, z), au.
+    velocity : tuple of ndarray or None
+        (d north/dt, d east/dt, dz/dt), au/day.
+
+    Notes
+    -----
+    The unit vectors are the Thiele-Innes constants divided by a, with the z row of
+    the conventions: P = (A, B, sin w sin i)/a along periapsis, Q = (F, G, cos w sin i)/a
+    a quarter-turn ahead.
+    """
+    big_e = kepler.solve_kepler(mean_anomaly, ecc)
+    cos_e, sin_e = np.cos(big_e), np.sin(big_e)
+    root = np.sqrt(1.0 - ecc * ecc)
+    p_vec, q_vec = _pq(inc, omega, node)
+    x = cos_e - ecc
+    y = root * sin_e
+    position = tuple(a * (x * p + y * q) for p, q in zip(p_vec, q_vec))
+    if not want_velocity:
+        return position, None
+    e_dot = mean_motion / (1.0 - ecc * cos_e)
+    vx = -a * e_dot * sin_e
+    vy = a * e_dot * root * cos_e
+    velocity = tuple(vx * p + vy * q for p, q in zip(p_vec, q_vec))
+    return position, velocity
+
+
+def _pq(inc, omega, node):
+    cw, sw = np.cos(omega), np.sin(omega)
+    cn, sn = np.cos(node), np.sin(node)
+    ci, si = np.cos(inc), np.sin(inc)
+    p_vec = (cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si)
+    q_vec = (-sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si)
+    return p_vec, q_vec
+
+
+class Keplerian:
+    """Two-body relative orbits: each companion on a fixed ellipse about the primary.
+
+    Kepler's third law in Newton's form, P^2 = 4 pi^2 a^3 / (G (M1 + m2)), and the
+    kernel of :mod:`massfit.orbits.kepler`. This is what every fit uses unless told otherwise.
+    """
+
+    #: Name used in the config (``[dynamics] model``), the summary and the report.
+    label = "keplerian"
+    #: The settings as given, for the run record (``make_dynamics`` takes them back).
+    settings: dict = {}
+
+    def describe(self) -> dict:
+        """The settings of this model, for the summary."""
+        return {"model": self.label}
+
+    def prepare(self, model) -> None:
+        """Check the model's companions against this dynamics (nothing to check here)."""
+
+    def node_widths(self, model, widths) -> dict:
+        """Width of each companion's node window (pi where the sky cannot tell the
+        ascending node from the descending one, 2 pi where velocities can); a
+        perturbed model may need more of the orbits' orientation."""
+        return widths
+
+    def from_two_body(self, model, values) -> list:
+        """Physical starting values for this dynamics from a two-body fit's.
+
+        The start step searches with Keplerian ellipses (periodograms and linear scans
+        need them) and hands the result here before polishing with this model.
+
+        Returns
+        -------
+        list of dict
+            Candidates to polish in turn (the start keeps the best, and stops at the
+            first whose fit is acceptable). The two-body model takes the values as
+            they are.
+        """
+        return [values]
+
+    def semi_major_axis(self, gm, period, orbit):
+        """a^3 = G (M1 + m2) P^2 / (4 pi^2), au (gm in au^3/day^2, period in days)."""
+        with np.errstate(invalid="ignore"):
+            return np.cbrt(gm * period ** 2 / (4.0 * np.pi ** 2))
+
+    def states(self, model, phys, *, want_velocity=False) -> dict:
+        """Positions (and velocities) of every companion at its rows' times.
+
+        Without velocities the fused kernel gives east and north only (z is None).
+        """
+        out = {}
+        for name, rows in model._rows.items():
+            orbit = phys["companions"][name]
+            t_ref = model.reference_epoch(name)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                if not want_velocity:
+                    east, north = kepler.sky_offsets(
+                        rows.t, orbit["period"], orbit["ecc"], orbit["mean_anomaly_ref"],
+                        orbit["semi_major_axis"], orbit["inc"], orbit["omega"],
+                        orbit["node"], t_ref=t_ref)
+                    out[name] = ((north, east, None), None)
+                    continue
+                column = {key: value[:, None] for key, value in orbit.items()}
+                n_motion = TWO_PI / column["period"]
+                mean = column["mean_anomaly_ref"] + n_motion * (rows.t[None, :] - t_ref)
+                out[name] = orbit_state(column["semi_major_axis"], column["ecc"],
+                                        column["inc"], column["omega"], column["node"], mean,
+                                        n_motion)
+        return out
+
+
+def romer_factor(central_mass, companion_mass):
+    """(M1 - m2) / (M1 + m2): the share of z/c by which the relative position is late.
+
+    Light from the companion leaves at t - z_c/c and light from the primary at
+    t - z_p/c (barycentric z). With z_c = M1/(M1+m2) z and z_p = -m2/(M1+m2) z, the
+    observed offset is, to first order in the delay, the relative orbit at
+    t - (M1 - m2)/(M1 + m2) z/c.
+    """
+    total = central_mass + companion_mass
+    return (central_mass - companion_mass) / total
+
+
+def observed_offsets(model, phys) -> dict:
+    """East and north offsets (au) as observed: the dynamics plus the light time across
+    the system when ``model.spec.romer_delay`` is on.
+
+    The delay is applied to first order (position minus velocity times delay). The
+    next term, half the acceleration times the delay squared, is smaller than the
+    first-order shift by about (delay / period) times 2 pi, i.e. negligible for any
+    orbit wider than a few light-days (why a linear step is enough).
+
+    Returns
+    -------
+    dict
+        name -> (east, north), arrays of shape (n_walkers, n_rows), au.
+    """
+    dynamics = model.dynamics
+    delayed = bool(getattr(model.spec, "romer_delay", False))
+    states = dynamics.states(model, phys, want_velocity=delayed)
+    out = {}
+    for name, (position, velocity) in states.items():
+        north, east, z = position
+        if delayed:
+            orbit = phys["companions"][name]
+            factor = romer_factor(phys["central_mass"], orbit["mass"])[:, None]
+            delay = factor * z / C_AU_PER_DAY
+            north = north - velocity[0] * delay
+            east = east - velocity[1] * delay
+        out[name] = (east, north)
+    return out
+
+
+#: The names ``[dynamics] model`` accepts, and the settings each one takes.
+MODEL_OPTIONS = {
+    "keplerian": (),
+    "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
+    "n-body": ("rtol",),
+}
+
+
+def make_dynamics(model="keplerian", *, key_prefix="dynamics.", file=None, **options):
+    """The dynamics object for a config's ``[dynamics]`` table or the CLI options.
+
+    Parameters
+    ----------
+    model : str
+        One of :data:`MODEL_OPTIONS`.
+    key_prefix : str
+        Prefix of the names in error messages (``"dynamics."`` or ``"--"``).
+    file : str, optional
+        The config file, for error messages.
+    **options
+        The model's settings (None values are ignored).
+
+    Returns
+    -------
+    Keplerian or a subclass
+    """
+    from massfit.errors import ConfigError
+
+    options = {k: v for k, v in options.items() if v is not None}
+    if model not in MODEL_OPTIONS:
+        raise ConfigError(f"unknown dynamics model '{model}'; accepted: "
+                          f"{', '.join(MODEL_OPTIONS)}", key=f"{key_prefix}model", file=file)
+    for key in options:
+        if key not in MODEL_OPTIONS[model]:
+            allowed = ", ".join(MODEL_OPTIONS[model]) or "no settings"
+            raise ConfigError(f"this does not apply to the {model} model (it takes "
+                              f"{allowed})", key=_renamed(key, key_prefix), file=file)
+    if model == "keplerian":
+        return Keplerian()
+    if model == "oblate":
+        from massfit.orbits.oblate import Oblate
+
+        for key in ("j2", "equatorial_radius"):
+            if key not in options:
+                raise ConfigError("the oblate model needs J2 and the equatorial radius",
+                                  key=_renamed(key, key_prefix), file=file)
+        try:
+            return Oblate(options["j2"], options["equatorial_radius"],
+                          options.get("equator_inclination"), options.get("equator_node"))
+        except ConfigError as exc:
+            raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix),
+                              file=file) from None
+    from massfit.orbits.nbody import NBody
+
+    try:
+        return NBody(**options)
+    except ConfigError as exc:
+        raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix), file=file) from None
+
+
+def _renamed(key, prefix):
+    """A ``dynamics.x_y`` key as the caller names it (``--x-y`` on the command line)."""
+    name = key.split(".", 1)[-1] if key else ""
+    return prefix + (name.replace("_", "-") if prefix == "--" else name)

@@ -1,0 +1,2 @@
+"""The observation planner: which epochs shrink the central mass's uncertainty most.
+"""

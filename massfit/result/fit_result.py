@@ -1,0 +1,511 @@
+"""The result of a fit: numbers, text for a terminal or a notebook, and an output folder."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import math
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+from astropy.table import Table
+
+from massfit.summarise.derived import MASS_UNITS, derived_samples, interval
+
+__all__ = ["FitResult", "format_value", "best_mass_unit"]
+
+SUMMARY_FILE = "summary.json"
+SAMPLES_FILE = "samples.ecsv"
+
+
+_CENTRAL_BLOCKS = (
+    ("central_mass", "central_mass", "kg"),
+    ("central_gm", "central_gm", "km3 / s2"),
+    ("central_mass_solar", "central_mass_Msun", "M_sun"),
+    ("central_mass_jupiter", "central_mass_Mjup", "M_jup"),
+    ("central_mass_earth", "central_mass_Mearth", "M_earth"),
+)
+#: Companion quantities of the summary, in order, with their units.
+_COMPANION_BLOCKS = (
+    ("period", "d"), ("semi_major_axis", "au"), ("semi_major_axis_km", "km"),
+    ("eccentricity", ""), ("inclination", "deg"), ("periapsis_argument", "deg"),
+    ("ascending_node", "deg"), ("periapsis_time", "JD (TDB)"), ("mass", "M_sun"),
+    ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
+    ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
+    ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
+    ("mass_ratio", ""),
+)
+
+
+#: Terminal lines of a companion: (summary key, label, unit).
+_COMPANION_LINES = (
+    ("period", "P", "d"), ("eccentricity", "e", ""), ("inclination", "i", "deg"),
+    ("periapsis_argument", "omega", "deg"), ("ascending_node", "Omega", "deg"),
+    ("mass", "m", "M_sun"), ("rv_semi_amplitude", "K1", "km/s (primary)"),
+    ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
+    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (i = 90 deg)"),
+    ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
+)
+
+
+def _companion_lines(comp) -> list:
+    lines = []
+    for key, label, unit in _COMPANION_LINES:
+        if key not in comp:
+            continue
+        note = ""
+        if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
+            note = " (or +180 with node +180)"
+        lines.append(f"  {label:<8}= {format_value(comp[key])} {unit}{note}".rstrip())
+        if key == "period" and "semi_major_axis" in comp:
+            a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
+                      f" = {format_value(comp['semi_major_axis_km'])} km")
+            if "semi_major_axis_angle" in comp:
+                a_line += " = " + _angle_text(comp["semi_major_axis_angle"])
+            lines.append(a_line)
+    return lines
+
+
+def _velocity_summary(rv) -> dict:
+    out = {"offset": {lab: interval(v, "km / s") for lab, v in rv["offset"].items()},
+           "jitter": {lab: interval(v, "km / s") for lab, v in rv["jitter"].items()}}
+    for term, unit in (("slope", "km / s / d"), ("curvature", "km / s / d2")):
+        if term in rv:
+            out[f"trend_{term}"] = interval(rv[term], unit)
+    return out
+
+
+def format_value(block) -> str:
+    """``median +upper -lower`` (or ``median +/- error``) rounded by the interval.
+
+    See :func:`massfit.write.tables.round_interval` for the rounding rule.
+    """
+    from massfit.write.tables import format_interval
+
+    return format_interval(block)
+
+
+def best_mass_unit(mass_msun: float) -> str:
+    """The mass unit that reads best for a central mass in solar masses."""
+    if mass_msun >= 0.01:
+        return "Msun"
+    if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
+        return "Mjup"
+    return "Mearth"
+
+
+class FitResult:
+    """Everything a fit produced.
+
+    Attributes
+    ----------
+    model : OrbitModel
+    chain : Chain
+        The posterior samples and the sampler's diagnostics.
+    start : Start
+        The starting solution and any comparable modes.
+    samples : dict
+        Derived physical samples (see :func:`massfit.summarise.derived.derived_samples`).
+    summary : dict
+        The content of ``summary.json``.
+    """
+
+    def __init__(self, model, chain, start, *, settings=None, warnings=None, record=None,
+                 checks=None):
+        self.model = model
+        self.chain = chain
+        self.start = start
+        self.settings = settings
+        self.samples = derived_samples(model, chain.samples, seed=getattr(settings, "seed", None))
+        self.warnings = list(warnings or [])
+        self.record = dict(record or {})
+        # Posterior checks beyond the convergence test (massfit.summarise.posterior_checks).
+        self.checks = dict(checks or {})
+        self.summary = self._build_summary()
+
+    # ------------------------------------------------------------------ numbers
+    @property
+    def converged(self) -> bool:
+        return bool(self.chain.converged)
+
+    def _build_summary(self) -> dict:
+        s = self.samples
+        obs = self.model.observations
+        chain = self.chain
+        summary = {}
+        for key, sample_key, unit in _CENTRAL_BLOCKS:
+            # Velocities alone may leave the central mass open: null, never a number.
+            summary[key] = interval(s[sample_key], unit) if sample_key in s else None
+        if "central_mass_note" in s:
+            summary["central_mass_note"] = s["central_mass_note"]
+        if "parallax" in s:
+            summary["parallax"] = interval(s["parallax"], "mas")
+            if self.model.parallax_from_velocities:
+                summary["parallax_note"] = (
+                    "no parallax was given: sampled with a "
+                    f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
+                    "companion's radial velocities with its relative astrometry")
+        summary["converged"] = self.converged
+        names = self.model.names
+        k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
+        summary["diagnostics"] = {
+            "walkers": int(chain.walkers),
+            "steps": int(chain.steps),
+            "max_autocorr_steps": float(np.max(chain.tau)),
+            "effective_samples": chain.effective_samples(k_mass),
+            # Of the central mass where it is sampled, else of the first coordinate.
+            "effective_samples_of": names[k_mass] if names else None,
+            "sampling_seconds": float(chain.seconds),
+            "acceptance_fraction": float(chain.acceptance_fraction),
+            "burn_in_steps": int(chain.burn_in),
+            "thin": int(chain.thin),
+            "required_autocorr_multiple": 50,
+            "autocorr_steps": {n: float(t) for n, t in
+                               zip(chain.coordinate_names or names, chain.tau)},
+            # Companions sampled as a position and velocity (massfit.sample.reparameterisation).
+            "sampled_as_state": list(chain.state_bodies),
+        }
+        summary["companions"] = {}
+        for name, comp in s["companions"].items():
+            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
+                     if key in comp}
+            if "semi_major_axis_mas" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
+            if "ascending_node" in comp:
+                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
+                                               else 0.0)
+            summary["companions"][name] = block
+        if "rv" in s:
+            summary["velocities"] = _velocity_summary(s["rv"])
+        summary["adequacy"] = self._adequacy()
+        summary["modes"] = list(self.start.modes)
+        summary["posterior_modes"] = list(self.checks.get("posterior_modes", []))
+        summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
+        summary["warnings"] = list(self.warnings)
+        summary["inputs"] = {
+            "files": list(obs.files),
+            "rows_read": int(obs.rows_read),
+            "rows_used": int(obs.rows_used),
+            "rows_rejected": [r.as_dict() for r in obs.rejected],
+            "unused_columns": dict(obs.unused_columns),
+        }
+        return summary
+
+    def _adequacy(self):
+        """Residual checks at the best sample, and the two-body comparison."""
+        from massfit.summarise.adequacy import assess
+
+        if self.model.velocity_only:
+            return None
+        best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
+        return assess(self.model, best)
+
+    # --------------------------------------------------------------------- text
+    def report(self) -> str:
+        """A plain-text summary for the terminal."""
+        s = self.summary
+        lines = []
+        if not self.converged:
+            lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times",
+                      "*** or their estimate has not settled; do not quote these numbers.", ""]
+        lines.append("Central body")
+        if s["central_gm"] is None:
+            lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
+        else:
+            lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
+                         f"(95%: {s['central_gm']['lower_95']:.6g} .. "
+                         f"{s['central_gm']['upper_95']:.6g})")
+            lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
+                         f"(includes the uncertainty of G)")
+            unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
+            key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
+                   "Mearth": "central_mass_earth"}[unit]
+            lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
+                         f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+            if "central_mass_note" in s:
+                lines.append(f"  note: {s['central_mass_note']}")
+        if "parallax" in s:
+            lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        by_period = sorted(s["companions"].items(),
+                           key=lambda item: item[1]["period"]["median"] or 0.0)
+        for name, comp in by_period:
+            lines.append(f"Companion {name}")
+            lines.extend(_companion_lines(comp))
+        if s.get("adequacy"):
+            from massfit.summarise.adequacy import report_lines
+
+            lines.extend(report_lines(s["adequacy"]))
+        d = s["diagnostics"]
+        lines.append("Sampler")
+        lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
+                     f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
+                     f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
+                     f"acceptance {d['acceptance_fraction']:.2f}")
+        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
+        of = "the mass" if of == "central.log10_mass" else of
+        lines.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
+                     f"sampling took {d['sampling_seconds']:.1f} s; "
+                     f"converged: {'yes' if self.converged else 'NO'}")
+        for mode in s["modes"]:
+            mass = ("" if mode["central_mass"] is None
+                    else f", central mass {mode['central_mass']:.4g} M_sun")
+            lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
+                         f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
+                         f"{mode['delta_chi2']:.1f}")
+        for text in s["warnings"]:
+            lines.append(f"  warning: {text}")
+        inputs = s["inputs"]
+        lines.append(f"Inputs: {inputs['rows_used']} of {inputs['rows_read']} rows used "
+                     f"from {len(inputs['files'])} file(s); "
+                     f"{len(inputs['rows_rejected'])} rejected")
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.report()
+
+    def __repr__(self) -> str:
+        m = self.summary["central_mass_solar"]
+        mass = "not determined" if m is None else f"{m['median']:.6g} M_sun"
+        return (f"<FitResult central mass {mass}, "
+                f"{len(self.summary['companions'])} companion(s), "
+                f"converged={self.converged}>")
+
+    def _repr_html_(self) -> str:
+        from html import escape
+
+        from massfit.write.tables import html_table
+
+        s = self.summary
+        d = s["diagnostics"]
+        head = ("<p><b>massfit result</b> &mdash; "
+                + ("converged" if self.converged else
+                   "<span style='color:#b00'><b>NOT converged</b>: do not quote these "
+                   "numbers</span>")
+                + f"; {d['walkers']} walkers &times; {d['steps']} steps, "
+                  f"{d['steps'] / max(d['max_autocorr_steps'], 1):.0f} autocorrelation "
+                  f"times, {d['effective_samples']:.0f} effective samples of the mass</p>")
+        notes = "".join(f"<li>{escape(text)}</li>" for text in s["warnings"])
+        inputs = s["inputs"]
+        tail = (f"<p>{inputs['rows_used']} of {inputs['rows_read']} rows used from "
+                f"{len(inputs['files'])} file(s); {len(inputs['rows_rejected'])} rejected. "
+                f"Medians with 68.27 % and 95.45 % credible intervals.</p>")
+        return (head + html_table(s) + (f"<ul>{notes}</ul>" if notes else "") + tail)
+
+    def table(self, fmt: str = "markdown", *, mass_unit: str | None = None):
+        """The parameter summary as a table.
+
+        Parameters
+        ----------
+        fmt : {"latex", "markdown", "html", "ecsv"}
+            ``ecsv`` returns an astropy Table (write it with ``format="ascii.ecsv"``);
+            the others return text.
+        mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
+            The unit of the central mass beside kg.
+        """
+        from massfit.write import tables
+
+        makers = {"latex": tables.latex_table, "markdown": tables.markdown_table,
+                  "html": tables.html_table, "ecsv": tables.ecsv_table}
+        if fmt not in makers:
+            from massfit.errors import ConfigError
+
+            raise ConfigError(f"unknown table format {fmt!r}; accepted: "
+                              f"{', '.join(makers)}", key="fmt")
+        return makers[fmt](self.summary, mass_unit=mass_unit)
+
+    # ----------------------------------------------------------------- samples
+    def samples_table(self) -> Table:
+        """Posterior samples (sampled coordinates and derived quantities) as a Table."""
+        table = Table()
+        for k, name in enumerate(self.model.names):
+            table[name] = self.chain.samples[:, k]
+        table["log_prob"] = self.chain.log_prob
+        units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
+        for key, values in self.samples.items():
+            if key in ("companions", "rv") or not isinstance(values, np.ndarray):
+                continue  # velocity terms are sampled columns already; notes are text
+            table[key] = values
+            if key in units:
+                table[key].unit = units[key]
+        comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
+                      "semi_major_axis_mas": "mas", "inclination": "deg",
+                      "periapsis_argument": "deg", "ascending_node": "deg",
+                      "rv_semi_amplitude": "km / s", "rv_semi_amplitude_companion": "km / s"}
+        for key in ("mass", "mass_function", "mass_function_companion", "minimum_mass",
+                    "mass_sin3i", "primary_mass_sin3i"):
+            comp_units[key] = "solMass"
+        for name, comp in self.samples["companions"].items():
+            for key, values in comp.items():
+                table[f"{name}.{key}"] = values
+                if key in comp_units:
+                    table[f"{name}.{key}"].unit = comp_units[key]
+        table.meta["converged"] = self.converged
+        return table
+
+    # -------------------------------------------------------------------- plots
+    def corner_plot(self, **kwargs):
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.figures.corner_plot`."""
+        from massfit.plot.figures import corner_plot
+
+        return corner_plot(self, **kwargs)
+
+    def velocity_plot(self, **kwargs):
+        """Radial velocities against phase, with residuals; see :func:`massfit.plot.figures.velocity_plot`."""
+        from massfit.plot.figures import velocity_plot
+
+        return velocity_plot(self, **kwargs)
+
+    def velocity_time_plot(self, **kwargs):
+        """Radial velocities against time, with residuals; see :func:`massfit.plot.figures.velocity_time_plot`."""
+        from massfit.plot.figures import velocity_time_plot
+
+        return velocity_time_plot(self, **kwargs)
+
+    def orbit_plot(self, **kwargs):
+        """Sky-plane orbits with the data; see :func:`massfit.plot.figures.orbit_plot`."""
+        from massfit.plot.figures import orbit_plot
+
+        return orbit_plot(self, **kwargs)
+
+    def residual_plot(self, **kwargs):
+        """Normalised residuals against time; see :func:`massfit.plot.figures.residual_plot`."""
+        from massfit.plot.figures import residual_plot
+
+        return residual_plot(self, **kwargs)
+
+    def periodogram_plot(self, **kwargs):
+        """Periodograms of the residuals; see :func:`massfit.plot.figures.periodogram_plot`."""
+        from massfit.plot.figures import periodogram_plot
+
+        return periodogram_plot(self, **kwargs)
+
+    def leftover_signals(self, **kwargs) -> list:
+        """Companions whose residuals keep a periodic signal; see :mod:`massfit.summarise.residuals`."""
+        from massfit.summarise.residuals import leftover_signals
+
+        return leftover_signals(self, **kwargs)
+
+    def write_figures(self, folder, *, figures=None, formats=("png", "pdf")) -> list:
+        """Draw figures and write them into ``folder``; returns the paths written.
+
+        Parameters
+        ----------
+        figures : list of str, optional
+            Stems of :data:`massfit.plot.figures.FIGURES` (all by default).
+        formats : sequence of str
+            File types matplotlib can write (``png``, ``pdf``, ``svg``, ``eps``...).
+        """
+        import matplotlib.pyplot as plt
+
+        from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+
+        chosen = applicable_figures(self) if figures is None else list(figures)
+        unknown = [f for f in chosen if f not in FIGURES]
+        if unknown:
+            from massfit.errors import ConfigError
+
+            raise ConfigError(f"unknown figure {', '.join(unknown)}; accepted: "
+                              f"{', '.join(FIGURES)}", key="figures")
+        paths = []
+        for stem in chosen:
+            fig = FIGURES[stem](self)
+            try:
+                paths += save_figure(fig, Path(folder) / stem, formats)
+            finally:
+                plt.close(fig)
+        return paths
+
+    def write_tables(self, folder) -> list:
+        """Write the parameter summary as LaTeX, Markdown and ECSV into ``folder``."""
+        from massfit.write.tables import TABLE_FORMATS
+
+        paths = []
+        for fmt, name in TABLE_FORMATS.items():
+            path = Path(folder) / name
+            table = self.table(fmt)
+            if fmt == "ecsv":
+                table.write(path, format="ascii.ecsv", overwrite=True)
+            else:
+                path.write_text(table)
+            paths.append(path)
+        return paths
+
+    # --------------------------------------------------------------------- save
+    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
+        """Write the output folder: summary, samples, observations, tables and figures.
+
+        ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
+        command line).
+
+        The folder is written beside its final place and renamed into it at the end,
+        so a half-written folder never looks complete. An existing result is kept
+        unless ``force`` is true.
+        """
+        from massfit.errors import ConfigError
+
+        out = Path(out_dir)
+        if (out / SUMMARY_FILE).exists() and not force:
+            raise ConfigError(f"'{out}' already holds a result; choose another folder or "
+                              f"pass --force (force=True) to replace it", key="--out")
+        from massfit.result.loading import RUN_FILE, model_state, write_observations
+
+        with atomic_folder(out) as tmp:
+            self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
+            # What massfit.load_result needs to rebuild the model and redraw.
+            write_observations(self.model.observations, tmp)
+            _write_json(tmp / RUN_FILE, {**self.record, "model": model_state(self.model)})
+            self.write_tables(tmp)
+            if plots:
+                self.write_figures(tmp, formats=formats)
+            _write_json(tmp / SUMMARY_FILE, self.summary)
+        return out
+
+
+@contextlib.contextmanager
+def atomic_folder(out: Path):
+    """Yield a temporary folder beside ``out`` that replaces ``out`` when the block ends.
+
+    A half-written output folder therefore never looks complete; on any error the
+    temporary folder is removed and ``out`` is left as it was.
+    """
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    try:
+        # mkdtemp makes the folder private; the result gets the usual permissions.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)
+        yield tmp
+        if out.exists():
+            shutil.rmtree(out)
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+
+
+def _angle_text(block_mas):
+    """An angular interval block (mas) in mas or arcsec, whichever reads better."""
+    if block_mas["median"] is not None and block_mas["median"] >= 1e4:
+        scaled = {k: (v / 1e3 if isinstance(v, float) else v) for k, v in block_mas.items()}
+        return f"{format_value(scaled)} arcsec"
+    return f"{format_value(block_mas)} mas"
+
+
+def _write_json(path, data):
+    with open(path, "w") as handle:
+        json.dump(data, handle, indent=2, default=_json_default)
+        handle.write("\n")
+
+
+def _json_default(value):
+    if isinstance(value, (np.floating, np.integer)):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.bool_):
+        return bool(value)
+    return str(value)

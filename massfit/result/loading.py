@@ -1,0 +1,285 @@
+"""A saved output folder read back into a result, without refitting and without pickle.
+
+What :meth:`FitResult.save` writes is enough to rebuild the model and redraw every
+figure:
+
+- ``observations.ecsv`` (and ``velocities.ecsv`` where there are radial velocities):
+  the validated rows in massfit's internal units, so the input files need not be at
+  hand any more;
+- ``run.json`` key ``model``: the assumptions (the :class:`SystemSpec` with every
+  prior), the angle windows the sampler used and the names of the sampled
+  coordinates, plus what the observations were read from;
+- ``samples.ecsv``: the sampled coordinates and every derived quantity;
+- ``summary.json``: the numbers and the sampler's diagnostics.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+from astropy.table import Table
+from astropy.time import Time
+
+from massfit import priors as _priors
+from massfit.errors import InputError
+from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.read.observations import AstrometryData, Observations, Rejection, VelocityData
+
+__all__ = ["load_result", "model_state", "write_observations", "STATE_VERSION"]
+
+#: Version of the ``model`` block of run.json; a reader refuses newer ones.
+STATE_VERSION = 1
+RUN_FILE = "run.json"
+_DATA_FILES = {"astrometry": ("observations.ecsv", AstrometryData),
+               "velocities": ("velocities.ecsv", VelocityData)}
+_PRIORS = {cls.__name__: cls for cls in (_priors.Uniform, _priors.LogUniform,
+                                         _priors.Normal, _priors.Fixed)}
+
+
+# ------------------------------------------------------------------ writing
+def _encode(value):
+    """JSON form of a spec value: priors, dataclasses, dicts and lists recursively."""
+    if isinstance(value, _priors.Prior):
+        body = {f.name: float(getattr(value, f.name)) for f in dataclasses.fields(value)}
+        return {"prior": type(value).__name__, **body}
+    if hasattr(value, "label") and hasattr(value, "settings"):  # a dynamics model
+        return {"dynamics_model": value.label, **_encode(dict(value.settings))}
+    if dataclasses.is_dataclass(value):
+        return {"dataclass": type(value).__name__,
+                **{f.name: _encode(getattr(value, f.name))
+                   for f in dataclasses.fields(value)}}
+    if isinstance(value, dict):
+        return {str(k): _encode(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_encode(v) for v in value]
+    if isinstance(value, (np.floating, np.integer, np.bool_)):
+        return value.item()
+    return value
+
+
+def model_state(model) -> dict:
+    """What run.json keeps to rebuild ``model`` (the ``model`` key)."""
+    obs = model.observations
+    return {
+        "version": STATE_VERSION,
+        "system": _encode(model.spec),
+        "parameter_names": list(model.names),
+        "node_width": {k: float(v) for k, v in model.node_width.items()},
+        "centres": {k: {kk: float(vv) for kk, vv in v.items()}
+                    for k, v in model.centres.items()},
+        "observations": {"files": list(obs.files), "rows_read": int(obs.rows_read),
+                         "rejected": [r.as_dict() for r in obs.rejected],
+                         "unused_columns": {k: list(v) for k, v in
+                                            dict(obs.unused_columns).items()},
+                         "primary": obs.primary},
+    }
+
+
+def write_observations(observations, folder) -> list:
+    """Write the validated observations (internal units) as ECSV into ``folder``."""
+    paths = []
+    for attr, (name, cls) in _DATA_FILES.items():
+        data = getattr(observations, attr, None)
+        if data is None or len(data) == 0:
+            continue
+        table = Table()
+        for f in dataclasses.fields(cls):
+            value = getattr(data, f.name)
+            if isinstance(value, Time):
+                table[f.name] = value.tdb.jd
+                table.meta[f"{f.name}_scale"] = "tdb"
+            else:
+                table[f.name] = np.asarray(value)
+        table.meta["description"] = (f"massfit validated {attr} rows in internal units "
+                                     f"(arcsec or au, radians, km/s, pc; times JD TDB)")
+        path = Path(folder) / name
+        _write_ecsv_in_blocks(table, path)
+        paths.append(path)
+    return paths
+
+
+#: Rows per block when writing a big table (astropy formats every cell of what it is
+#: given as a Python string at once: ~1 GB for a million rows of observations).
+_WRITE_BLOCK_ROWS = 10_000
+
+
+def _write_ecsv_in_blocks(table, path) -> None:
+    """``table.write(path, format="ascii.ecsv")``, the same file, in bounded memory."""
+    import io
+
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        for start in range(0, max(len(table), 1), _WRITE_BLOCK_ROWS):
+            buffer = io.StringIO()
+            table[start:start + _WRITE_BLOCK_ROWS].write(buffer, format="ascii.ecsv")
+            text = buffer.getvalue()
+            if start > 0:
+                # Later blocks: only their data lines (after the comments and the
+                # column names, which the first block wrote).
+                lines = text.splitlines(keepends=True)
+                body = next(k for k, line in enumerate(lines) if not line.startswith("#"))
+                text = "".join(lines[body + 1:])
+            out.write(text)
+
+
+# ------------------------------------------------------------------ reading
+def _decode(value):
+    if isinstance(value, dict):
+        if "prior" in value:
+            cls = _PRIORS.get(value["prior"])
+            if cls is None:
+                raise InputError(f"unknown prior {value['prior']!r} in the saved model")
+            return cls(**{k: v for k, v in value.items() if k != "prior"})
+        if "dynamics_model" in value:
+            from massfit.orbits.dynamics import make_dynamics
+
+            return make_dynamics(value["dynamics_model"],
+                                 **{k: v for k, v in value.items() if k != "dynamics_model"})
+        if "dataclass" in value:
+            from massfit.model import orbit_model as _model
+
+            cls = getattr(_model, str(value["dataclass"]), None)
+            if not (isinstance(cls, type) and dataclasses.is_dataclass(cls)):
+                raise InputError(f"unknown part {value['dataclass']!r} in the saved model")
+            return _build(cls, value)
+        return {k: _decode(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_decode(v) for v in value]
+    return value
+
+
+def _build(cls, value):
+    known = {f.name for f in dataclasses.fields(cls)}
+    return cls(**{k: _decode(v) for k, v in value.items() if k in known})
+
+
+def _read_data(folder, attr):
+    name, cls = _DATA_FILES[attr]
+    path = folder / name
+    if not path.exists():
+        return None
+    table = Table.read(path, format="ascii.ecsv")
+    values = {}
+    for f in dataclasses.fields(cls):
+        if f.name not in table.colnames:
+            raise InputError(f"column '{f.name}' is missing; the folder was written by "
+                             f"another massfit version", file=str(path))
+        column = np.asarray(table[f.name])
+        if f.name == "time":
+            values[f.name] = Time(column, format="jd", scale="tdb")
+        elif column.dtype.kind in "US":
+            values[f.name] = column.astype(str)
+        else:
+            values[f.name] = column
+    return cls(**values)
+
+
+def _read_json(path):
+    try:
+        return json.loads(path.read_text())
+    except OSError as exc:
+        raise InputError(f"cannot read it ({exc.strerror}); is this a massfit output "
+                         f"folder?", file=str(path)) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON ({exc.msg})", file=str(path),
+                         line=exc.lineno) from None
+
+
+def load_result(folder):
+    """Read a saved output folder back into a :class:`~massfit.result.fit_result.FitResult`.
+
+    The model is rebuilt from the saved observations and assumptions; the posterior
+    samples, the summary and the diagnostics are those saved (nothing is refitted or
+    recomputed), so figures and tables drawn from it match the original run.
+
+    Parameters
+    ----------
+    folder : str or Path
+        A folder written by :meth:`FitResult.save` (or ``massfit fit``).
+
+    Returns
+    -------
+    FitResult
+    """
+    from massfit.result.fit_result import SAMPLES_FILE, SUMMARY_FILE, FitResult
+    from massfit.sample.chain import Chain
+
+    folder = Path(folder)
+    summary = _read_json(folder / SUMMARY_FILE)
+    record = _read_json(folder / RUN_FILE)
+    state = record.get("model")
+    if not isinstance(state, dict):
+        raise InputError("run.json has no 'model' block: this folder was written by an "
+                         "earlier massfit and cannot be redrawn; fit again",
+                         file=str(folder / RUN_FILE))
+    if state.get("version", 0) > STATE_VERSION:
+        raise InputError(f"the saved model is version {state['version']}; this massfit "
+                         f"reads up to {STATE_VERSION}", file=str(folder / RUN_FILE))
+    info = state["observations"]
+    observations = Observations(
+        astrometry=_read_data(folder, "astrometry"),
+        velocities=_read_data(folder, "velocities"), files=list(info["files"]),
+        rows_read=int(info["rows_read"]),
+        rejected=[Rejection(**r) for r in info["rejected"]],
+        unused_columns=dict(info["unused_columns"]), primary=info["primary"])
+    spec = _build(SystemSpec, state["system"])
+    model = OrbitModel(observations, spec)
+    model.node_width.update(state["node_width"])
+    for name, centre in state["centres"].items():
+        model.centres[name].update(centre)
+    if list(model.names) != list(state["parameter_names"]):
+        raise InputError("the model rebuilt from the saved assumptions has other "
+                         "parameters than the saved samples; the folder is inconsistent",
+                         file=str(folder / RUN_FILE))
+    samples_path = folder / SAMPLES_FILE
+    try:
+        table = Table.read(samples_path, format="ascii.ecsv")
+    except (OSError, ValueError) as exc:
+        raise InputError(f"cannot read the samples ({exc})", file=str(samples_path)) from None
+    missing = [n for n in model.names + ["log_prob"] if n not in table.colnames]
+    if missing:
+        raise InputError(f"columns {', '.join(missing)} are missing",
+                         file=str(samples_path))
+    theta = np.column_stack([np.asarray(table[n], dtype=float) for n in model.names])
+    diag = summary["diagnostics"]
+    tau = diag.get("autocorr_steps", {})
+    # Keyed by the coordinates the sampler moved in, which may not be the model's.
+    moved_in = list(tau) if len(tau) == model.n_dim else list(model.names)
+    chain = Chain(samples=theta, log_prob=np.asarray(table["log_prob"], dtype=float),
+                  steps=int(diag["steps"]), walkers=int(diag["walkers"]),
+                  tau=np.array([tau.get(n, diag["max_autocorr_steps"]) for n in moved_in]),
+                  converged=bool(summary["converged"]),
+                  burn_in=int(diag.get("burn_in_steps", 0)), thin=int(diag.get("thin", 1)),
+                  acceptance_fraction=float(diag["acceptance_fraction"]),
+                  seconds=float(diag["sampling_seconds"]), tau_history=[],
+                  coordinate_names=moved_in,
+                  state_bodies=list(diag.get("sampled_as_state", [])))
+    result = FitResult.__new__(FitResult)
+    result.model = model
+    result.chain = chain
+    result.start = SimpleNamespace(modes=list(summary.get("modes", [])))
+    result.settings = None
+    result.samples = _derived_from_table(table, model)
+    result.warnings = list(summary.get("warnings", []))
+    result.record = record
+    result.summary = summary
+    return result
+
+
+def _derived_from_table(table, model):
+    out = {"companions": {name: {} for name in model.companions}}
+    for col in table.colnames:
+        # Sampled coordinates are not derived quantities, except the parallax, which
+        # is both (and was written once).
+        if (col in model.names and col != "parallax") or col == "log_prob":
+            continue
+        body, _, key = col.partition(".")
+        values = np.asarray(table[col], dtype=float)
+        if key and body in out["companions"]:
+            out["companions"][body][key] = values
+        elif not key:
+            out[col] = values
+    return out

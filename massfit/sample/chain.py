@@ -1,0 +1,299 @@
+"""Sampling the posterior with emcee until the chain is long enough to trust.
+
+Convergence criterion (the one ``converged`` in the summary reports): the chain is at
+least ``50`` integrated autocorrelation times long for every coordinate, and the
+largest autocorrelation time changed by less than 3 % between two checks. Otherwise
+the run stops at ``max_steps`` and says it has not converged.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import signal
+import sys
+import threading
+import time
+from dataclasses import dataclass, field
+
+import emcee
+import numpy as np
+import scipy.fft
+
+__all__ = ["SamplerSettings", "Chain", "run_sampler"]
+
+#: Required chain length in autocorrelation times.
+TAU_MULTIPLE = 50.0
+#: Largest allowed relative change of the autocorrelation time between checks.
+TAU_STABILITY = 0.03
+
+
+@dataclass
+class SamplerSettings:
+    """How long and how widely to sample.
+
+    Parameters
+    ----------
+    walkers : int or None
+        Number of walkers; None gives max(32, 2 n_dim + 2) rounded up to even. The
+        autocorrelation time in steps hardly depends on the walkers once there are
+        more than twice the dimensions (measured for differential-evolution moves on
+        a 25-parameter model: tau ~100 steps with 52 and with 100 walkers), so more
+        walkers only make each step dearer.
+    max_steps : int
+        Step cap; a run that reaches it without converging says so.
+    check_every : int
+        Steps between convergence checks.
+    seed : int or None
+        Seed for the walkers' start and for emcee; the same seed repeats the run.
+    progress : bool or None
+        Progress bar; None shows it only on a terminal.
+    """
+
+    walkers: int | None = None
+    max_steps: int = 50_000
+    check_every: int = 500
+    seed: int | None = None
+    progress: bool | None = None
+
+    def n_walkers(self, n_dim: int) -> int:
+        n = self.walkers if self.walkers is not None else max(32, 2 * n_dim + 2)
+        return int(n + (n % 2))
+
+
+@dataclass
+class Chain:
+    """A finished chain with its diagnostics.
+
+    Attributes
+    ----------
+    samples : ndarray, shape (n_samples, n_dim)
+        Flattened samples after burn-in and thinning.
+    log_prob : ndarray, shape (n_samples,)
+    steps : int
+        Steps taken by each walker.
+    walkers : int
+    tau : ndarray
+        Integrated autocorrelation time of each coordinate, steps.
+    converged : bool
+    burn_in, thin : int
+    acceptance_fraction : float
+        Mean over walkers.
+    seconds : float
+        Wall time of the sampling alone.
+    tau_history : list of (steps, max tau)
+    resumed_from : int
+        Steps that were already in the checkpoint when this run began (0 if fresh).
+    walker_steps : ndarray, shape (n_kept, walkers, n_dim), optional
+        The kept steps walker by walker (``samples`` is this, flattened); used to see
+        whether walkers sit in separate modes.
+    coordinate_names : list of str, optional
+        Names of the coordinates the sampler moved in (those of ``tau``), where they
+        differ from the model's (see :mod:`massfit.sample.reparameterisation`).
+    state_bodies : list of str
+        Companions sampled as a position and velocity rather than as elements.
+    """
+
+    samples: np.ndarray
+    log_prob: np.ndarray
+    steps: int
+    walkers: int
+    tau: np.ndarray
+    converged: bool
+    burn_in: int
+    thin: int
+    acceptance_fraction: float
+    seconds: float
+    tau_history: list
+    resumed_from: int = 0
+    walker_steps: np.ndarray | None = None
+    coordinate_names: list | None = None
+    state_bodies: list = field(default_factory=list)
+
+    def effective_samples(self, k: int = 0) -> float:
+        """Effective number of independent samples of coordinate ``k``."""
+        return float(self.walkers * (self.steps - self.burn_in) / max(self.tau[k], 1.0))
+
+
+def _moves():
+    # Differential-evolution proposals cope with the strong correlations of orbit
+    # posteriors (period-phase, mass-parallax) better than the plain stretch move.
+    # DE alone, never emcee's snooker variant (DESnookerMove, emcee 3.1): it does not
+    # leave the target invariant. Its step along the line to the anchor walker is
+    # scaled by the distance to it (delta / sqrt(|delta|) where a unit vector belongs),
+    # which the Metropolis factor does not undo: a 7-d standard normal sampled with the
+    # 0.8/0.2 DE/snooker mixture comes out with variances of 0.89 instead of 1 (0.65
+    # with the snooker alone), and the short-arc masses of validation/short_arc.py
+    # departed from the brute-force reference by a KS distance of 0.09. The test suite
+    # pins this (tests/test_sampler_target.py). The snooker was also ~35 % dearer per
+    # step on a four-companion model (benchmarks/) with no shorter autocorrelation.
+    return [(emcee.moves.DEMove(), 1.0)]
+
+
+def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
+                resume=False) -> Chain:
+    """Run emcee from ``initial`` until converged or at the step cap.
+
+    Convergence is checked every ``settings.check_every`` steps, counted from the
+    first step, and each check looks only at the chain stored so far; so a run that
+    is resumed from a checkpoint checks at the same steps, sees the same numbers and
+    stops where an uninterrupted run would.
+
+    Parameters
+    ----------
+    log_prob : callable
+        Vectorised log-posterior: (n_walkers, n_dim) -> (n_walkers,).
+    initial : ndarray, shape (n_walkers, n_dim)
+        Starting points.
+    settings : SamplerSettings
+    checkpoint : path, optional
+        HDF5 file for emcee's HDF5 backend: every step and the random state after it
+        are saved there (see :mod:`massfit.sample.checkpoint`). In memory when None.
+    resume : bool
+        Continue the chain stored in ``checkpoint`` instead of starting afresh.
+
+    Returns
+    -------
+    Chain
+    """
+    n_walkers, n_dim = initial.shape
+    backend = None
+    if checkpoint is not None:
+        from massfit.sample.checkpoint import chain_backend
+
+        backend = chain_backend(checkpoint)
+        if not resume and backend.initialized:
+            backend.reset(n_walkers, n_dim)
+    sampler = emcee.EnsembleSampler(n_walkers, n_dim, log_prob, vectorize=True,
+                                    moves=_moves(), backend=backend)
+    steps = resumed_from = int(sampler.iteration)
+    if steps > 0:
+        state = sampler.backend.get_last_sample()
+    else:
+        state = emcee.State(initial, random_state=np.random.RandomState(
+            np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state())
+    show = settings.progress if settings.progress is not None else sys.stderr.isatty()
+    bar = _progress_bar(show, settings.max_steps, steps)
+    history = []
+    tau_old = None
+    converged = False
+    started = time.perf_counter()
+    checked = 0
+    while checked < settings.max_steps:
+        checked = min(checked + settings.check_every, settings.max_steps)
+        if checked > steps:
+            with _interrupt_between_steps() as interrupted:
+                for state in sampler.sample(state, iterations=checked - steps,
+                                            skip_initial_state_check=True):
+                    if interrupted():
+                        raise KeyboardInterrupt
+            if bar is not None:
+                bar.update(checked - steps)
+            steps = checked
+        tau = _autocorr(sampler.get_chain()[:checked])
+        history.append((checked, float(np.max(tau))))
+        if bar is not None:
+            bar.set_postfix_str(f"tau_max={np.max(tau):.0f}, need {TAU_MULTIPLE:.0f} tau")
+        if (tau_old is not None and np.all(np.isfinite(tau))
+                and checked >= TAU_MULTIPLE * np.max(tau)
+                and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau)):
+            converged = True
+            break
+        tau_old = tau
+    seconds = time.perf_counter() - started
+    if bar is not None:
+        bar.close()
+    # A checkpoint never holds more than the run would have taken, but the result is
+    # cut at the last check all the same, so it cannot depend on when it was stopped.
+    steps = checked
+    chain = sampler.get_chain()[:steps]
+    lnp = sampler.get_log_prob()[:steps]
+    tau = _autocorr(chain)
+    tau_max = float(np.max(tau)) if np.all(np.isfinite(tau)) else float(steps)
+    burn_in = min(int(np.ceil(2 * tau_max)), steps // 2)
+    thin = max(1, int(tau_max // 2))
+    # The same slice as emcee's get_chain(discard=burn_in, thin=thin).
+    keep = slice(burn_in + thin - 1, steps, thin)
+    accepted = sampler.backend.accepted
+    return Chain(
+        samples=chain[keep].reshape(-1, n_dim),
+        log_prob=lnp[keep].reshape(-1),
+        steps=steps, walkers=n_walkers, tau=np.asarray(tau), converged=converged,
+        burn_in=burn_in, thin=thin,
+        acceptance_fraction=float(np.mean(accepted / max(sampler.iteration, 1))),
+        seconds=seconds, tau_history=history, resumed_from=resumed_from,
+        walker_steps=chain[keep])
+
+
+def _autocorr(chain, *, window_factor=5.0):
+    """Integrated autocorrelation time of each coordinate of a (steps, walkers, dim) chain.
+
+    emcee's estimator (``emcee.autocorr.integrated_time`` with ``tol=0``): the
+    autocorrelation function of each walker's series, averaged over the walkers, summed
+    up to the first lag M with M >= c tau(M) (c = ``window_factor``). emcee makes one
+    FFT per walker and coordinate, and at every convergence check that cost about as
+    much as the sampling between checks; here the FFTs of many walkers go in one call.
+    The numbers agree with emcee's to rounding (tested).
+    """
+    chain = np.asarray(chain, dtype=float)
+    n_steps, n_walkers, n_dim = chain.shape
+    # Any padding of at least 2 n - 1 gives the same autocorrelation at lags below n
+    # (emcee pads to twice the next power of two); a fast length costs less.
+    size = scipy.fft.next_fast_len(max(2 * n_steps - 1, 1), real=True)
+    group = max(1, _FFT_ELEMENTS // size)
+    tau = np.empty(n_dim)
+    for d in range(n_dim):
+        mean_acf = np.zeros(n_steps)
+        for start in range(0, n_walkers, group):
+            # One row per walker, contiguous along the steps (the FFT axis).
+            series = np.ascontiguousarray(chain[:, start:start + group, d].T)
+            series -= series.mean(axis=1, keepdims=True)
+            spectrum = scipy.fft.rfft(series, n=size, axis=1)
+            acf = scipy.fft.irfft(spectrum.real ** 2 + spectrum.imag ** 2, n=size,
+                                  axis=1)[:, :n_steps]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                mean_acf += np.sum(acf / acf[:, :1], axis=0)
+        mean_acf /= n_walkers
+        taus = 2.0 * np.cumsum(mean_acf) - 1.0
+        short = np.arange(n_steps) < window_factor * taus
+        tau[d] = taus[np.argmin(short) if np.any(short) else n_steps - 1]
+    return tau
+
+
+#: Samples per FFT call in the autocorrelation estimate (bounds its memory).
+_FFT_ELEMENTS = 2_000_000
+
+
+@contextlib.contextmanager
+def _interrupt_between_steps():
+    """Hold Ctrl-C until the current step is done, then raise KeyboardInterrupt.
+
+    emcee reports any exception raised inside the log-probability with a traceback on
+    the terminal (and Ctrl-C mostly lands there); deferred to the end of the step, the
+    interruption reaches the caller plainly, with the step complete in the checkpoint.
+    A second Ctrl-C interrupts at once. Outside the main thread, or where the caller
+    has its own SIGINT handler, nothing changes.
+    """
+    if (threading.current_thread() is not threading.main_thread()
+            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+        yield lambda: False  # not ours to change (a worker, or a caller's own handler)
+        return
+    pressed = []
+
+    def hold(signum, frame):
+        if pressed:
+            raise KeyboardInterrupt
+        pressed.append(signum)
+
+    previous = signal.signal(signal.SIGINT, hold)
+    try:
+        yield lambda: bool(pressed)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _progress_bar(show, total, done=0):
+    if not show:
+        return None
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, initial=done, desc="sampling", unit="step", file=sys.stderr)

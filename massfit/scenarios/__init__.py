@@ -1,0 +1,2 @@
+"""Invented example systems and the simulator that makes their data.
+"""

@@ -1,0 +1,262 @@
+"""Is a two-body model enough? Residual checks and a model comparison.
+
+For the best posterior sample of a fit:
+
+* chi^2 of each companion's astrometry, its reduced value (over the values left after
+  that companion's own parameters) and the chance of a chi^2 at least that large if the
+  model and the errors were right;
+* the highest peak of a Lomb-Scargle periodogram of each companion's whitened
+  residuals (astropy), with its false-alarm probability (Baluev's bound). A
+  significant peak at the orbital period or a harmonic is the mark of an orbit that
+  turns (precession) or is pulled by a neighbour;
+* where the fit used a perturbed model (J2 or N-body), the two-body model fitted to the
+  same data by least squares from the same solution, and the two compared by chi^2,
+  AIC and BIC. With the same parameters in both (J2 is fixed; N-body masses are
+  parameters in both) the information criteria differ by delta chi^2 alone.
+
+Rules of thumb (common practice): reduced chi^2 well above 1, or a false-alarm
+probability below 1e-3, says the model misses something; delta BIC above 10 is strong
+evidence for the model with the lower BIC.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import replace
+
+import numpy as np
+
+__all__ = ["assess", "report_lines", "FAP_THRESHOLD"]
+
+#: False-alarm probability below which a residual peak is called significant.
+FAP_THRESHOLD = 1e-3
+_MAX_FREQUENCIES = 50_000
+
+
+def assess(model, theta, *, compare=None) -> dict:
+    """The adequacy block of the summary for the solution ``theta``.
+
+    Parameters
+    ----------
+    model : OrbitModel
+    theta : ndarray, shape (n_dim,)
+        The solution to judge (the best posterior sample).
+    compare : bool, optional
+        Fit and compare the two-body model where ``model`` is perturbed; defaults to
+        the model's ``spec.compare_keplerian``.
+
+    Returns
+    -------
+    dict
+        ``dynamics`` (the model's settings), ``companions`` (name -> ``chi2``,
+        ``n_values``, ``n_own_parameters``, ``reduced_chi2``, ``p_value``,
+        ``periodogram``), ``total`` and ``comparison`` (None for a two-body fit).
+    """
+    theta = np.asarray(theta, dtype=float)
+    res = model.residuals(theta[None, :])[0]
+    out = {"dynamics": model.dynamics.describe(),
+           "romer_delay": bool(getattr(model.spec, "romer_delay", False)),
+           "companions": {}}
+    start = 0
+    chi2_astrometry, n_astrometry = 0.0, 0
+    for name, rows in model._rows.items():
+        n_values = 2 * rows.t.size
+        part = res[start:start + n_values]
+        start += n_values
+        own = sum(1 for p in model.names if p.startswith(f"{name}."))
+        chi2 = float(part @ part)
+        chi2_astrometry += chi2
+        n_astrometry += n_values
+        out["companions"][name] = {
+            **_chi2_block(chi2, n_values, own),
+            "n_own_parameters": own,
+            "periodogram": _periodogram(rows, part, model, theta, name),
+        }
+    out["total"] = _chi2_block(chi2_astrometry, n_astrometry, model.n_dim)
+    out["total"]["n_parameters"] = model.n_dim
+    if compare is None:
+        compare = bool(getattr(model.spec, "compare_keplerian", True))
+    perturbed = model.dynamics.label != "keplerian"
+    out["comparison"] = _compare(model, theta) if perturbed and compare else None
+    out["verdicts"] = _verdicts(out)
+    return out
+
+
+def _chi2_block(chi2, n_values, n_params):
+    from scipy.stats import chi2 as chi2_dist
+
+    dof = n_values - n_params
+    return {"chi2": chi2, "n_values": int(n_values),
+            "reduced_chi2": chi2 / dof if dof > 0 else None,
+            "p_value": float(chi2_dist.sf(chi2, dof)) if dof > 0 else None}
+
+
+def _periodogram(rows, part, model, theta, name):
+    """The strongest residual peak over the two components of each row."""
+    from astropy.timeseries import LombScargle
+
+    from massfit.summarise.residuals import periodogram_subset
+
+    n = rows.t.size
+    order = np.concatenate([rows.cart, rows.polar])
+    t = rows.t[order]
+    # The residual layout: east (cartesian rows), north, sep (polar rows), pa.
+    n_c = rows.cart.size
+    first = np.concatenate([part[:n_c], part[2 * n_c:2 * n_c + rows.polar.size]])
+    second = np.concatenate([part[n_c:2 * n_c], part[2 * n_c + rows.polar.size:]])
+    # Big data sets: a seeded random subset of the rows (see periodogram_subset).
+    keep = periodogram_subset(n)
+    t, first, second = t[keep], first[keep], second[keep]
+    span = float(np.ptp(t))
+    steps = np.diff(np.unique(t))
+    if n < 6 or span <= 0 or not np.any(steps > 0):
+        return None
+    f_min = 1.0 / span
+    # Up to a pseudo-Nyquist frequency of the typical spacing, at 5 samples per peak.
+    f_max = max(0.5 / float(np.median(steps[steps > 0])), 4 * f_min)
+    n_freq = int(min(_MAX_FREQUENCIES, max(200, 5 * span * (f_max - f_min))))
+    freq = np.linspace(f_min, f_max, n_freq)
+    best = None
+    for label, values in (("east or separation", first), ("north or position angle",
+                                                           second)):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ls = LombScargle(t, values, np.ones_like(values))
+            power = ls.power(freq)
+            k = int(np.argmax(power))
+            fap = float(ls.false_alarm_probability(power[k], method="baluev",
+                                                   minimum_frequency=f_min,
+                                                   maximum_frequency=f_max))
+        if best is None or fap < best["false_alarm_probability"]:
+            best = {"component": label, "peak_period": float(1.0 / freq[k]),
+                    "peak_power": float(power[k]), "false_alarm_probability": fap}
+    period = float(model.physical(theta[None, :])["companions"][name]["period"][0])
+    best["peak_over_orbital_period"] = best["peak_period"] / period
+    best["searched_periods"] = [float(1.0 / f_max), float(1.0 / f_min)]
+    best["rows_searched"] = int(t.size)
+    return best
+
+
+def _compare(model, theta):
+    """Least-squares chi^2 of the perturbed and of the two-body model, side by side."""
+    from massfit.orbits.dynamics import Keplerian
+    from massfit.errors import MassfitError
+    from massfit.model.orbit_model import OrbitModel
+
+    spec = replace(model.spec, dynamics=Keplerian(), companions=dict(model.companions),
+                   strict_companions=True)
+    try:
+        kepler_model = OrbitModel(model.observations, spec)
+    except MassfitError as exc:  # the data may not suit the two-body model: say so
+        return {"error": f"the two-body model could not be set up: {exc}"}
+    kepler_model.node_width = dict(model.node_width)
+    kepler_model.centres = {k: dict(v) for k, v in model.centres.items()}
+    if kepler_model.names != model.names:
+        return {"error": "the two models sample different parameters; not compared"}
+    n_values = int(sum(2 * rows.t.size for rows in model._rows.values()))
+    chi2 = {"perturbed": _least_squares_chi2(model, theta),
+            "keplerian": _least_squares_chi2(kepler_model, theta)}
+    # The two-body model also gets its own start: from the perturbed solution alone
+    # its least squares can stall (a J2 model's anomalistic period is not the rate a
+    # two-body ellipse needs, and over a long baseline the phases drift apart).
+    # Its least squares re-centres the angle windows, so it runs after the first chi^2.
+    try:
+        from massfit.start.search import _least_squares, two_body_start
+
+        _, _, values = two_body_start(model)
+        # Its companions' masses are zero; give them the perturbed solution's (the
+        # two-body model samples them too), keeping each orbit's M1 + m_k.
+        phys = model.physical(np.asarray(theta, dtype=float)[None, :])
+        for name in model.companions:
+            mass = float(phys["companions"][name]["mass"][0])
+            values[name] = dict(values[name], mass=mass)
+        shared = np.mean([float(phys["companions"][n]["mass"][0]) for n in model.companions])
+        values["central_mass"] = max(values["central_mass"] - shared, 1e-30)
+        own = _least_squares(kepler_model, values)
+        if own is not None:
+            chi2["keplerian"] = min(chi2["keplerian"],
+                                    _least_squares_chi2(kepler_model, own))
+    except MassfitError:
+        pass  # the least squares from the perturbed solution still bounds the chi^2
+    rows = {}
+    for label, which in (("perturbed", model), ("keplerian", kepler_model)):
+        k = which.n_dim
+        rows[label] = {"model": which.dynamics.label, "chi2": chi2[label],
+                       "n_parameters": k, "aic": float(chi2[label] + 2 * k),
+                       "bic": float(chi2[label] + k * np.log(n_values))}
+    delta_bic = rows["keplerian"]["bic"] - rows["perturbed"]["bic"]
+    rows["n_values"] = n_values
+    rows["delta_chi2"] = rows["keplerian"]["chi2"] - rows["perturbed"]["chi2"]
+    rows["delta_aic"] = rows["keplerian"]["aic"] - rows["perturbed"]["aic"]
+    rows["delta_bic"] = delta_bic
+    rows["preferred"] = ("perturbed" if delta_bic > 10 else
+                         "keplerian" if delta_bic < -10 else "neither decisively")
+    return rows
+
+
+def _least_squares_chi2(model, theta):
+    from scipy.optimize import least_squares
+
+    from massfit.start.search import _bounds, _residual_function
+
+    fun = _residual_function(model)
+    low, high = _bounds(model)
+    width = np.where(np.isfinite(high - low), high - low, 1.0)
+    x0 = np.clip(theta, low + 1e-9 * width, high - 1e-9 * width)
+    best = float(np.sum(fun(x0) ** 2))
+    try:
+        fit = least_squares(fun, x0, bounds=(low, high), method="trf", x_scale="jac",
+                            max_nfev=100 * model.n_dim)
+        best = min(best, float(np.sum(fit.fun ** 2)))
+    except (ValueError, np.linalg.LinAlgError):
+        pass  # keep the chi^2 at the starting solution, which is still an upper bound
+    return best
+
+
+def _verdicts(block):
+    out = []
+    for name, comp in block["companions"].items():
+        peak = comp["periodogram"]
+        red = comp["reduced_chi2"]
+        if red is not None and comp["p_value"] is not None and comp["p_value"] < 1e-3:
+            out.append(f"{name}: reduced chi2 {red:.2f} (p = {comp['p_value']:.1e}): the "
+                       f"model or the errors miss something")
+        if peak is not None and peak["false_alarm_probability"] < FAP_THRESHOLD:
+            out.append(f"{name}: residual peak at {peak['peak_period']:.6g} d "
+                       f"({peak['peak_over_orbital_period']:.3g} x the orbital period), "
+                       f"false-alarm probability {peak['false_alarm_probability']:.1e}")
+    comparison = block["comparison"]
+    if comparison and "delta_bic" in comparison:
+        out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
+                   f"{comparison['delta_bic']:.1f} (positive favours "
+                   f"{block['dynamics']['model']}); preferred: {comparison['preferred']}")
+    if not out:
+        out.append("no sign that the model misses anything (chi2 and residual "
+                   "periodograms consistent with noise)")
+    return out
+
+
+def report_lines(block) -> list:
+    """Lines of the terminal report for an adequacy block."""
+    lines = [f"Model adequacy ({block['dynamics']['model']}"
+             f"{', Romer delay on' if block.get('romer_delay') else ''})"]
+    for name, comp in block["companions"].items():
+        red = comp["reduced_chi2"]
+        text = (f"  {name:<10} chi2 = {comp['chi2']:.1f} for {comp['n_values']} values"
+                f" (reduced {red:.2f})" if red is not None else
+                f"  {name:<10} chi2 = {comp['chi2']:.1f} for {comp['n_values']} values")
+        peak = comp["periodogram"]
+        if peak is not None:
+            text += (f"; residual peak {peak['peak_period']:.4g} d, "
+                     f"FAP {peak['false_alarm_probability']:.2g}")
+        lines.append(text)
+    comparison = block["comparison"]
+    if comparison and "delta_bic" in comparison:
+        lines.append(f"  two-body chi2 {comparison['keplerian']['chi2']:.1f} vs "
+                     f"{comparison['perturbed']['model']} "
+                     f"{comparison['perturbed']['chi2']:.1f}: delta AIC "
+                     f"{comparison['delta_aic']:.1f}, delta BIC {comparison['delta_bic']:.1f}")
+    elif comparison:
+        lines.append(f"  comparison: {comparison['error']}")
+    lines += [f"  -> {text}" for text in block["verdicts"]]
+    return lines

@@ -1,0 +1,323 @@
+"""The parameter summary as a table: rounding, and LaTeX, Markdown, HTML and ECSV forms.
+
+Rounding follows the interval, not a fixed number of digits: the smaller 68 % half-width
+keeps two significant figures when its three leading digits are 100-354 and one when
+they are 355-949 (949.5 and up round to 1000 and keep two). This is the rounding rule of
+the Particle Data Group's Review of Particle Physics (introduction, from memory), common
+practice in astronomy too. The median is given to the same decimal place, and numbers
+far from 1 share one power of ten with their errors.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from astropy.table import Table
+
+from massfit.summarise.derived import MASS_UNIT_LABELS
+
+__all__ = ["Rounded", "round_interval", "parameter_rows", "latex_table",
+           "markdown_table", "html_table", "ecsv_table", "TABLE_FORMATS"]
+
+#: Table formats and the file each is written to in an output folder.
+TABLE_FORMATS = {"latex": "parameters.tex", "markdown": "parameters.md",
+                 "ecsv": "parameters.ecsv"}
+
+_MASS_KEYS = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
+              "Mearth": "central_mass_earth", "kg": "central_mass"}
+_MASS_TEXT = {"Msun": "M_sun", "Mjup": "M_jup", "Mearth": "M_earth", "kg": "kg"}
+
+
+@dataclass(frozen=True)
+class Rounded:
+    """An interval rounded for print: ``(median +plus -minus) x 10^exponent``.
+
+    Attributes
+    ----------
+    median, plus, minus : str
+        Mantissas, already rounded to the same decimal place.
+    exponent : int
+        Power of ten shared by the three (0 when none is needed).
+    """
+
+    median: str
+    plus: str
+    minus: str
+    exponent: int = 0
+
+    @property
+    def symmetric(self) -> bool:
+        return self.plus == self.minus
+
+    def text(self) -> str:
+        """``4.1153 +0.0012 -0.0011`` or ``4.1153 +/- 0.0012``, with ``e+08`` if scaled."""
+        body = (f"{self.median} +/- {self.plus}" if self.symmetric
+                else f"{self.median} +{self.plus} -{self.minus}")
+        return f"({body}) e{self.exponent:+03d}" if self.exponent else body
+
+    def latex(self) -> str:
+        """Math-mode LaTeX (without the dollar signs)."""
+        body = (rf"{self.median} \pm {self.plus}" if self.symmetric
+                else rf"{self.median}^{{+{self.plus}}}_{{-{self.minus}}}")
+        return rf"({body}) \times 10^{{{self.exponent}}}" if self.exponent else body
+
+    def html(self) -> str:
+        body = (f"{self.median} &plusmn; {self.plus}" if self.symmetric
+                else f"{self.median}<sup>+{self.plus}</sup><sub>&minus;{self.minus}</sub>")
+        return f"({body}) &times; 10<sup>{self.exponent}</sup>" if self.exponent else body
+
+
+def _error_place(width: float) -> int:
+    """Decimal place (as a power of ten) to which an error of ``width`` is quoted."""
+    k = math.floor(math.log10(width))
+    leading = width / 10.0 ** k * 100.0  # three leading digits, 100 <= leading < 1000
+    if leading < 354.5:
+        return k - 1  # two significant figures
+    if leading < 949.5:
+        return k  # one
+    return k  # rounds up to 10^(k+1), quoted with two figures: 1.0 x 10^(k+1)
+
+
+def round_interval(block: dict, *, exponent: int | None = None) -> Rounded | None:
+    """Round an interval block (median and 68 % bounds) for print.
+
+    Parameters
+    ----------
+    block : dict
+        An interval block of the summary (``median``, ``lower_68``, ``upper_68``).
+    exponent : int, optional
+        Force this power of ten; by default one is used only for numbers below 1e-3
+        or from 1e5 up.
+
+    Returns
+    -------
+    Rounded or None
+        None where the block has no median (nothing finite was sampled).
+    """
+    med = block.get("median")
+    if med is None:
+        return None
+    up = max(block["upper_68"] - med, 0.0)
+    down = max(med - block["lower_68"], 0.0)
+    widths = [w for w in (up, down) if w > 0]
+    if not widths:  # a fixed quantity: six significant figures, no error to speak of
+        place = (math.floor(math.log10(abs(med))) - 5) if med else 0
+    else:
+        place = _error_place(min(widths))
+    size = max(abs(med), max(widths, default=0.0))
+    if exponent is None:
+        magnitude = math.floor(math.log10(size)) if size > 0 else 0
+        exponent = magnitude if (magnitude >= 5 or magnitude < -3) else 0
+    decimals = max(0, exponent - place)
+    scale = 10.0 ** exponent
+
+    def show(x):
+        # Round at the error's decimal place first so that e.g. 1234.5 with error 100
+        # prints 1200, not 1234.
+        value = round(x / 10.0 ** place) * 10.0 ** place if place > 0 else x
+        text = f"{value / scale:.{decimals}f}"
+        return "0" if float(text) == 0 and text.startswith("-") else text
+
+    return Rounded(show(med), show(up), show(down), exponent)
+
+
+def _exponent_for(block):
+    # Dates read best in full (JD 2461320.8581, not 2.4613208581e6).
+    return 0 if str(block.get("unit", "")).startswith("JD") else None
+
+
+def format_interval(block: dict) -> str:
+    """One interval as plain text (``undetermined`` when nothing finite was sampled)."""
+    rounded = round_interval(block, exponent=_exponent_for(block))
+    return "undetermined" if rounded is None else rounded.text()
+
+
+# ---------------------------------------------------------------------------- rows
+@dataclass(frozen=True)
+class _Row:
+    group: str  # "" for the central body, else the companion's name
+    key: str  # the summary key (dotted for companions)
+    name: str  # words
+    symbol: str  # LaTeX math
+    unit_latex: str
+    unit_text: str
+    block: dict
+
+
+def _pick_mass_unit(summary, mass_unit):
+    if mass_unit is not None:
+        if mass_unit not in _MASS_KEYS:
+            from massfit.errors import ConfigError
+
+            raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
+                              f"{', '.join(_MASS_KEYS)}", key="mass_unit")
+        return mass_unit
+    from massfit.result.fit_result import best_mass_unit
+
+    if summary["central_mass_solar"] is None:  # velocities alone: not determined
+        return "Msun"
+    return best_mass_unit(summary["central_mass_solar"]["median"] or 1.0)
+
+
+def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
+    """The rows of the parameter table, in print order.
+
+    Parameters
+    ----------
+    summary : dict
+        A result's summary (the content of ``summary.json``).
+    mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
+        The unit of the central mass beside the one in kg (by default the one that
+        reads best).
+
+    Returns
+    -------
+    list of _Row
+    """
+    unit = _pick_mass_unit(summary, mass_unit)
+    rows = [_Row("", "central_gm", "gravitational parameter", r"GM",
+                 r"$\mathrm{km^{3}\,s^{-2}}$", "km3 / s2", summary["central_gm"]),
+            _Row("", "central_mass", "central mass", r"M", "kg", "kg",
+                 summary["central_mass"])]
+    if summary["central_gm"] is None:  # not fixed by the data (velocities alone)
+        rows = []
+    elif unit != "kg":
+        rows.append(_Row("", _MASS_KEYS[unit], "central mass", r"M",
+                         rf"${MASS_UNIT_LABELS[unit]}$", _MASS_TEXT[unit],
+                         summary[_MASS_KEYS[unit]]))
+    if "parallax" in summary:
+        rows.append(_Row("", "parallax", "parallax", r"\varpi", "mas", "mas",
+                         summary["parallax"]))
+    spec = [("period", "period", "P", "d", "d"),
+            ("semi_major_axis", "semi-major axis", "a", "au", "au"),
+            ("semi_major_axis_angle", "semi-major axis", "a", "mas", "mas"),
+            ("eccentricity", "eccentricity", "e", "", ""),
+            ("inclination", "inclination", "i", r"$^\circ$", "deg"),
+            ("periapsis_argument", "argument of periapsis", r"\omega", r"$^\circ$", "deg"),
+            ("ascending_node", "position angle of the node", r"\Omega", r"$^\circ$", "deg"),
+            ("periapsis_time", "time of periapsis", r"t_\mathrm{p}", "JD (TDB)", "JD (TDB)"),
+            ("mass", "companion mass", r"m", r"$M_\odot$", "M_sun"),
+            ("rv_semi_amplitude", "velocity semi-amplitude of the primary", r"K_1",
+             r"$\mathrm{km\,s^{-1}}$", "km / s"),
+            ("rv_semi_amplitude_companion", "velocity semi-amplitude of the companion",
+             r"K_2", r"$\mathrm{km\,s^{-1}}$", "km / s"),
+            ("mass_function", "mass function", r"f(m)", r"$M_\odot$", "M_sun"),
+            ("minimum_mass", "minimum mass (i = 90 deg)", r"m_\mathrm{min}", r"$M_\odot$",
+             "M_sun"),
+            ("mass_sin3i", "companion mass times sin^3 i", r"m \sin^3 i", r"$M_\odot$",
+             "M_sun"),
+            ("primary_mass_sin3i", "primary mass times sin^3 i", r"M \sin^3 i",
+             r"$M_\odot$", "M_sun")]
+    for name, comp in summary["companions"].items():
+        for key, words, symbol, unit_latex, unit_text in spec:
+            if key in comp:
+                rows.append(_Row(name, f"{name}.{key}", words, symbol, unit_latex,
+                                 unit_text, comp[key]))
+    return rows
+
+
+def _groups(rows):
+    current = None
+    for row in rows:
+        if row.group != current:
+            current = row.group
+            yield row.group, True, row
+        else:
+            yield row.group, False, row
+
+
+def _tex_escape(text):
+    return (text.replace("\\", r"\textbackslash{}").replace("_", r"\_")
+            .replace("&", r"\&").replace("%", r"\%").replace("#", r"\#"))
+
+
+def latex_table(summary: dict, *, mass_unit: str | None = None,
+                caption: str | None = None, label: str = "tab:massfit") -> str:
+    """The parameter summary as a LaTeX ``table`` (booktabs rules).
+
+    Medians with their 68.27 % intervals, rounded by :func:`round_interval`.
+    """
+    lines = [r"\begin{table}", r"\centering"]
+    if caption:
+        lines.append(rf"\caption{{{caption}}}")
+    lines += [rf"\label{{{label}}}", r"\begin{tabular}{llll}", r"\toprule",
+              r"Parameter & Symbol & Value & Unit \\", r"\midrule"]
+    for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
+        if first:
+            title = "Central body" if not group else f"Companion {_tex_escape(group)}"
+            if group:
+                lines.append(r"\midrule")
+            lines.append(rf"\multicolumn{{4}}{{l}}{{\textit{{{title}}}}} \\")
+        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        value = "undetermined" if rounded is None else f"${rounded.latex()}$"
+        lines.append(f"{row.name} & ${row.symbol}$ & {value} & {row.unit_latex} \\\\")
+    lines += [r"\bottomrule", r"\end{tabular}",
+              r"\par\smallskip{\footnotesize Medians with 68.27\,\% credible intervals.}",
+              r"\end{table}"]
+    return "\n".join(lines) + "\n"
+
+
+def markdown_table(summary: dict, *, mass_unit: str | None = None) -> str:
+    """The parameter summary as a Markdown (pipe) table."""
+    lines = ["| body | parameter | value | unit |", "| --- | --- | --- | --- |"]
+    for row in parameter_rows(summary, mass_unit=mass_unit):
+        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        value = "undetermined" if rounded is None else rounded.text()
+        lines.append(f"| {row.group or 'central'} | {row.name} | {value} | "
+                     f"{row.unit_text} |")
+    lines.append("")
+    lines.append("Medians with 68.27 % credible intervals.")
+    return "\n".join(lines) + "\n"
+
+
+_HTML_UNITS = {"km3 / s2": "km<sup>3</sup>&thinsp;s<sup>&minus;2</sup>",
+               "km / s": "km&thinsp;s<sup>&minus;1</sup>", "deg": "&deg;",
+               "M_sun": "M<sub>&#9737;</sub>", "M_jup": "M<sub>J</sub>",
+               "M_earth": "M<sub>&#8853;</sub>"}
+
+
+def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
+    """The parameter summary as an HTML table (for notebooks)."""
+    from html import escape
+
+    out = ["<table>", "<thead><tr><th style='text-align:left'>parameter</th>"
+           "<th style='text-align:right'>median and 68 % interval</th>"
+           "<th style='text-align:left'>unit</th>"
+           "<th style='text-align:right'>95 % interval</th></tr></thead>", "<tbody>"]
+    for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
+        if first:
+            title = "Central body" if not group else f"Companion {escape(group)}"
+            out.append(f"<tr><th colspan='4' style='text-align:left'>{title}</th></tr>")
+        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        value = "undetermined" if rounded is None else rounded.html()
+        wide = ("" if row.block.get("lower_95") is None else
+                f"{row.block['lower_95']:.6g} &ndash; {row.block['upper_95']:.6g}")
+        unit = _HTML_UNITS.get(row.unit_text, escape(row.unit_text))
+        out.append(f"<tr><td style='text-align:left'>{escape(row.name)}</td>"
+                   f"<td style='text-align:right'>{value}</td>"
+                   f"<td style='text-align:left'>{unit}</td>"
+                   f"<td style='text-align:right'>{wide}</td></tr>")
+    out += ["</tbody>", "</table>"]
+    return "\n".join(out)
+
+
+def ecsv_table(summary: dict, *, mass_unit: str | None = None) -> Table:
+    """The parameter summary as an astropy Table (write it as ECSV).
+
+    Full-precision medians and interval bounds, plus the rounded text of each.
+    """
+    rows = parameter_rows(summary, mass_unit=mass_unit)
+    table = Table()
+    table["body"] = [row.group or "central" for row in rows]
+    table["parameter"] = [row.key.split(".", 1)[-1] for row in rows]
+    table["unit"] = [row.unit_text for row in rows]
+    for key in ("median", "lower_68", "upper_68", "lower_95", "upper_95"):
+        table[key] = np.array([np.nan if row.block.get(key) is None else row.block[key]
+                               for row in rows], dtype=float)
+    table["rounded"] = [format_interval(row.block) for row in rows]
+    table.meta["description"] = ("massfit parameter summary: medians with 68.27 % and "
+                                 "95.45 % central credible intervals")
+    table.meta["converged"] = bool(summary.get("converged", False))
+    return table
