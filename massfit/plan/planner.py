@@ -1195,7 +1195,7 @@ def _percent(rel):
 
 
 def _mass_unit(mass):
-    from massfit.result.fit_result import best_mass_unit
+    from massfit.summarise.derived import best_mass_unit
 
     name = best_mass_unit(float(mass.to_value(u.M_sun)))
     return {"Msun": "solMass", "Mjup": "jupiterMass", "Mearth": "earthMass"}[name]

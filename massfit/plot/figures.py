@@ -24,8 +24,8 @@ from massfit.orbits import kepler
 from massfit.constants import AU_KM
 from massfit.summarise.residuals import FAP_THRESHOLD, astrometric_residuals, best_sample, residual_periodogram
 from massfit.errors import ConfigError
-from massfit.summarise.derived import MASS_UNIT_LABELS, interval
-from massfit.write.tables import round_interval
+from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit, interval
+from massfit.summarise.rounding import round_interval
 
 __all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
            "velocity_time_plot",
@@ -265,7 +265,6 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     import corner
     import matplotlib.pyplot as plt
 
-    from massfit.result.fit_result import best_mass_unit
 
     if mass_unit is None:
         mass_unit = (best_mass_unit(float(np.median(result.samples["central_mass_Msun"])))

@@ -13,7 +13,8 @@ from pathlib import Path
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import MASS_UNITS, derived_samples, interval
+from massfit.summarise.derived import MASS_UNITS, best_mass_unit, derived_samples, interval
+from massfit.summarise.rounding import format_interval
 
 __all__ = ["FitResult", "format_value", "best_mass_unit"]
 
@@ -81,20 +82,9 @@ def _velocity_summary(rv) -> dict:
 def format_value(block) -> str:
     """``median +upper -lower`` (or ``median +/- error``) rounded by the interval.
 
-    See :func:`massfit.write.tables.round_interval` for the rounding rule.
+    See :func:`massfit.summarise.rounding.round_interval` for the rounding rule.
     """
-    from massfit.write.tables import format_interval
-
     return format_interval(block)
-
-
-def best_mass_unit(mass_msun: float) -> str:
-    """The mass unit that reads best for a central mass in solar masses."""
-    if mass_msun >= 0.01:
-        return "Msun"
-    if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
-        return "Mjup"
-    return "Mearth"
 
 
 class FitResult:

@@ -18,6 +18,15 @@ PERCENTILES = (2.275, 15.865, 50.0, 84.135, 97.725)
 MASS_UNIT_LABELS = {"Msun": r"M_\odot", "Mjup": r"M_\mathrm{J}", "Mearth": r"M_\oplus"}
 
 
+def best_mass_unit(mass_msun: float) -> str:
+    """The mass unit that reads best for a central mass in solar masses."""
+    if mass_msun >= 0.01:
+        return "Msun"
+    if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
+        return "Mjup"
+    return "Mearth"
+
+
 def interval(values, unit) -> dict:
     """The conventions' interval block of a sample array."""
     values = np.asarray(values, dtype=float)

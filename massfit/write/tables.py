@@ -1,24 +1,19 @@
-"""The parameter summary as a table: rounding, and LaTeX, Markdown, HTML and ECSV forms.
+"""The parameter summary as a table: LaTeX, Markdown, HTML and ECSV forms.
 
-Rounding follows the interval, not a fixed number of digits: the smaller 68 % half-width
-keeps two significant figures when its three leading digits are 100-354 and one when
-they are 355-949 (949.5 and up round to 1000 and keep two). This is the rounding rule of
-the Particle Data Group's Review of Particle Physics (introduction, from memory), common
-practice in astronomy too. The median is given to the same decimal place, and numbers
-far from 1 share one power of ten with their errors.
+Values are rounded by :func:`massfit.summarise.rounding.round_interval`.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import MASS_UNIT_LABELS
+from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit
+from massfit.summarise.rounding import Rounded, format_interval, print_exponent, round_interval
 
-__all__ = ["Rounded", "round_interval", "parameter_rows", "latex_table",
+__all__ = ["Rounded", "round_interval", "format_interval", "parameter_rows", "latex_table",
            "markdown_table", "html_table", "ecsv_table", "TABLE_FORMATS"]
 
 #: Table formats and the file each is written to in an output folder.
@@ -28,110 +23,6 @@ TABLE_FORMATS = {"latex": "parameters.tex", "markdown": "parameters.md",
 _MASS_KEYS = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
               "Mearth": "central_mass_earth", "kg": "central_mass"}
 _MASS_TEXT = {"Msun": "M_sun", "Mjup": "M_jup", "Mearth": "M_earth", "kg": "kg"}
-
-
-@dataclass(frozen=True)
-class Rounded:
-    """An interval rounded for print: ``(median +plus -minus) x 10^exponent``.
-
-    Attributes
-    ----------
-    median, plus, minus : str
-        Mantissas, already rounded to the same decimal place.
-    exponent : int
-        Power of ten shared by the three (0 when none is needed).
-    """
-
-    median: str
-    plus: str
-    minus: str
-    exponent: int = 0
-
-    @property
-    def symmetric(self) -> bool:
-        return self.plus == self.minus
-
-    def text(self) -> str:
-        """``4.1153 +0.0012 -0.0011`` or ``4.1153 +/- 0.0012``, with ``e+08`` if scaled."""
-        body = (f"{self.median} +/- {self.plus}" if self.symmetric
-                else f"{self.median} +{self.plus} -{self.minus}")
-        return f"({body}) e{self.exponent:+03d}" if self.exponent else body
-
-    def latex(self) -> str:
-        """Math-mode LaTeX (without the dollar signs)."""
-        body = (rf"{self.median} \pm {self.plus}" if self.symmetric
-                else rf"{self.median}^{{+{self.plus}}}_{{-{self.minus}}}")
-        return rf"({body}) \times 10^{{{self.exponent}}}" if self.exponent else body
-
-    def html(self) -> str:
-        body = (f"{self.median} &plusmn; {self.plus}" if self.symmetric
-                else f"{self.median}<sup>+{self.plus}</sup><sub>&minus;{self.minus}</sub>")
-        return f"({body}) &times; 10<sup>{self.exponent}</sup>" if self.exponent else body
-
-
-def _error_place(width: float) -> int:
-    """Decimal place (as a power of ten) to which an error of ``width`` is quoted."""
-    k = math.floor(math.log10(width))
-    leading = width / 10.0 ** k * 100.0  # three leading digits, 100 <= leading < 1000
-    if leading < 354.5:
-        return k - 1  # two significant figures
-    if leading < 949.5:
-        return k  # one
-    return k  # rounds up to 10^(k+1), quoted with two figures: 1.0 x 10^(k+1)
-
-
-def round_interval(block: dict, *, exponent: int | None = None) -> Rounded | None:
-    """Round an interval block (median and 68 % bounds) for print.
-
-    Parameters
-    ----------
-    block : dict
-        An interval block of the summary (``median``, ``lower_68``, ``upper_68``).
-    exponent : int, optional
-        Force this power of ten; by default one is used only for numbers below 1e-3
-        or from 1e5 up.
-
-    Returns
-    -------
-    Rounded or None
-        None where the block has no median (nothing finite was sampled).
-    """
-    med = block.get("median")
-    if med is None:
-        return None
-    up = max(block["upper_68"] - med, 0.0)
-    down = max(med - block["lower_68"], 0.0)
-    widths = [w for w in (up, down) if w > 0]
-    if not widths:  # a fixed quantity: six significant figures, no error to speak of
-        place = (math.floor(math.log10(abs(med))) - 5) if med else 0
-    else:
-        place = _error_place(min(widths))
-    size = max(abs(med), max(widths, default=0.0))
-    if exponent is None:
-        magnitude = math.floor(math.log10(size)) if size > 0 else 0
-        exponent = magnitude if (magnitude >= 5 or magnitude < -3) else 0
-    decimals = max(0, exponent - place)
-    scale = 10.0 ** exponent
-
-    def show(x):
-        # Round at the error's decimal place first so that e.g. 1234.5 with error 100
-        # prints 1200, not 1234.
-        value = round(x / 10.0 ** place) * 10.0 ** place if place > 0 else x
-        text = f"{value / scale:.{decimals}f}"
-        return "0" if float(text) == 0 and text.startswith("-") else text
-
-    return Rounded(show(med), show(up), show(down), exponent)
-
-
-def _exponent_for(block):
-    # Dates read best in full (JD 2461320.8581, not 2.4613208581e6).
-    return 0 if str(block.get("unit", "")).startswith("JD") else None
-
-
-def format_interval(block: dict) -> str:
-    """One interval as plain text (``undetermined`` when nothing finite was sampled)."""
-    rounded = round_interval(block, exponent=_exponent_for(block))
-    return "undetermined" if rounded is None else rounded.text()
 
 
 # ---------------------------------------------------------------------------- rows
@@ -154,8 +45,6 @@ def _pick_mass_unit(summary, mass_unit):
             raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
                               f"{', '.join(_MASS_KEYS)}", key="mass_unit")
         return mass_unit
-    from massfit.result.fit_result import best_mass_unit
-
     if summary["central_mass_solar"] is None:  # velocities alone: not determined
         return "Msun"
     return best_mass_unit(summary["central_mass_solar"]["median"] or 1.0)
@@ -250,7 +139,7 @@ def latex_table(summary: dict, *, mass_unit: str | None = None,
             if group:
                 lines.append(r"\midrule")
             lines.append(rf"\multicolumn{{4}}{{l}}{{\textit{{{title}}}}} \\")
-        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else f"${rounded.latex()}$"
         lines.append(f"{row.name} & ${row.symbol}$ & {value} & {row.unit_latex} \\\\")
     lines += [r"\bottomrule", r"\end{tabular}",
@@ -263,7 +152,7 @@ def markdown_table(summary: dict, *, mass_unit: str | None = None) -> str:
     """The parameter summary as a Markdown (pipe) table."""
     lines = ["| body | parameter | value | unit |", "| --- | --- | --- | --- |"]
     for row in parameter_rows(summary, mass_unit=mass_unit):
-        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else rounded.text()
         lines.append(f"| {row.group or 'central'} | {row.name} | {value} | "
                      f"{row.unit_text} |")
@@ -290,7 +179,7 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
         if first:
             title = "Central body" if not group else f"Companion {escape(group)}"
             out.append(f"<tr><th colspan='4' style='text-align:left'>{title}</th></tr>")
-        rounded = round_interval(row.block, exponent=_exponent_for(row.block))
+        rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else rounded.html()
         wide = ("" if row.block.get("lower_95") is None else
                 f"{row.block['lower_95']:.6g} &ndash; {row.block['upper_95']:.6g}")
