@@ -32,7 +32,7 @@ def test_existing_result_is_kept_without_force(small_result, tmp_path):
     assert (out / "summary.json").read_bytes() == before
     assert (out / "note.txt").exists()
     small_result.save(out, plots=False, force=True)
-    assert not (out / "note.txt").exists()  # replaced as a whole
+    assert (out / "note.txt").read_text() == "mine"  # only massfit's own files replaced
 
 
 def test_a_failed_write_leaves_no_folder_that_looks_complete(small_result, tmp_path,
