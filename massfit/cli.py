@@ -13,7 +13,7 @@ import json
 import sys
 from pathlib import Path
 
-from .errors import ConfigError, MassfitError
+from .errors import ConfigError, MassfitError, WriteError
 
 __all__ = ["main", "EXIT_OK", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED"]
 
@@ -267,6 +267,9 @@ def main(argv=None) -> int:
         if args.command == "redraw":
             return _cmd_redraw(args)
         return _cmd_demo(args)
+    except WriteError as exc:
+        print(f"massfit: error: {exc}", file=sys.stderr)
+        return EXIT_WRITE_FAILED
     except MassfitError as exc:
         print(f"massfit: error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
@@ -320,7 +323,7 @@ def _setup_from_args(args):
     return setup
 
 
-def _run(setup, args, *, record):
+def _run(setup, args, *, record, force):
     from dataclasses import replace
 
     from .checkpoint import checkpoint_path, discard
@@ -346,9 +349,34 @@ def _run(setup, args, *, record):
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False))
-    result.save(setup.output, plots=setup.plots and not args.no_plots, force=args.force)
+    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
     discard(setup.output)
     return result
+
+
+def _save(result, out, *, plots, force):
+    """Write the result; a figure that fails is one warning line, a failed write one error."""
+    import warnings
+
+    from .checkpoint import checkpoint_path
+    from .errors import os_error_text
+    from .results import FigureWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", FigureWarning)
+        try:
+            result.save(out, plots=plots, force=force)
+        except OSError as exc:
+            raise WriteError(f"cannot write the result into '{out}': {os_error_text(exc)}; "
+                             f"the chain is kept in '{checkpoint_path(out)}': make room, "
+                             f"then run the same command with --resume to write the "
+                             f"result without sampling again") from None
+    for warning in caught:
+        if issubclass(warning.category, FigureWarning):
+            print(f"massfit: warning: {warning.message}", file=sys.stderr)
+        else:
+            warnings.warn_explicit(warning.message, warning.category, warning.filename,
+                                   warning.lineno)
 
 
 def _record(args, setup):
@@ -360,37 +388,56 @@ def _record(args, setup):
 def _finish(result, out):
     print(result.report())
     print(f"\nwritten to {out}/")
+    if result.poor_fit:
+        print("massfit: the best fit is POOR: its chi^2 is improbable for the stated "
+              "errors; the result is flagged in summary.json (fit_quality: poor)",
+              file=sys.stderr)
     if not result.converged:
         print("massfit: the fit did NOT converge; the numbers above are flagged in "
               "summary.json (converged: false)", file=sys.stderr)
-        return EXIT_NOT_CONVERGED
-    return EXIT_OK
+    # A longer chain cannot mend a poor fit: that is the first thing to know.
+    if result.poor_fit:
+        return EXIT_POOR_FIT
+    return EXIT_OK if result.converged else EXIT_NOT_CONVERGED
+
+
+def _notice(text):
+    print(f"massfit: {text}", file=sys.stderr)
+
+
+def _fit_into(setup, args, *, force, inputs):
+    """Check and lock the output folder, then fit and save; returns the FitResult."""
+    from .checkpoint import checkpoint_path, discard, exclusive_run
+    from .outfolder import check_output_folder
+
+    out = setup.output
+    check_output_folder(out, force=force, inputs=inputs)
+    resume = getattr(args, "resume", False)
+    saved = checkpoint_path(out)
+    with exclusive_run(out, notice=_notice):
+        if resume and not saved.exists():
+            raise ConfigError(f"there is nothing to resume: no checkpoint at '{saved}'; "
+                              f"run without --resume to start the fit", key="--resume")
+        if not resume and saved.exists():
+            if not force:
+                raise ConfigError(f"an interrupted run left its checkpoint at '{saved}'; "
+                                  f"continue it with --resume, or start afresh with "
+                                  f"--force", key="--resume")
+            discard(out)
+        try:
+            return _run(setup, args, record=_record(args, setup), force=force)
+        except KeyboardInterrupt:
+            if saved.exists():
+                print(f"massfit: interrupted; the progress is saved in '{saved}': run the "
+                      f"same command with --resume to continue", file=sys.stderr)
+            raise
 
 
 def _cmd_fit(args):
-    from .checkpoint import checkpoint_path, discard
-
     setup = _setup_from_args(args)
-    if (Path(setup.output) / "summary.json").exists() and not args.force:
-        raise ConfigError(f"'{setup.output}' already holds a result; choose another folder "
-                          f"or pass --force", key="--out")
-    saved = checkpoint_path(setup.output)
-    if args.resume and not saved.exists():
-        raise ConfigError(f"there is nothing to resume: no checkpoint at '{saved}'; run "
-                          f"without --resume to start the fit", key="--resume")
-    if not args.resume and saved.exists():
-        if not args.force:
-            raise ConfigError(f"an interrupted run left its checkpoint at '{saved}'; "
-                              f"continue it with --resume, or start afresh with --force",
-                              key="--resume")
-        discard(setup.output)
-    try:
-        result = _run(setup, args, record=_record(args, setup))
-    except KeyboardInterrupt:
-        if saved.exists():
-            print(f"massfit: interrupted; the progress is saved in '{saved}': run the "
-                  f"same command with --resume to continue", file=sys.stderr)
-        raise
+    inputs = [*setup.files, *(Path(p) for p in args.inputs)]
+    result = _fit_into(setup, args, force=args.force or setup.replace_existing,
+                       inputs=inputs)
     return _finish(result, setup.output)
 
 
@@ -400,8 +447,10 @@ def _cmd_demo(args):
 
     setup: FitSetup = demo_setup()
     setup.output = Path(args.out)
-    result = _run(setup, argparse.Namespace(**vars(args), parallax=None, parallax_err=None,
-                                            distance=None), record=_record(args, setup))
+    # The demo replaces its own earlier result, never a folder massfit did not write.
+    result = _fit_into(setup, argparse.Namespace(**vars(args), parallax=None,
+                                                 parallax_err=None, distance=None),
+                       force=True, inputs=setup.files)
     status = _finish(result, setup.output)
     truth = json.loads((Path(setup.files[0]).parent / "truth.json").read_text())
     print("\n" + _compare_with_truth(result, truth))
@@ -409,6 +458,7 @@ def _cmd_demo(args):
 
 
 def _cmd_plan(args):
+    from .outfolder import check_output_folder
     from .plan import plan_observations
     from .planconfig import plan_setup
 
@@ -418,13 +468,13 @@ def _cmd_plan(args):
         "check_steps", "seed", "time_format", "time_scale", "out")}
     setup = plan_setup(args.source, **options)
     out = Path(setup.output)
-    if (out / "plan.json").exists() and not args.force:
-        raise ConfigError(f"'{out}' already holds a plan; choose another folder or pass "
-                          f"--force", key="--out")
+    force = args.force or setup.replace_existing
+    inputs = [p for p in (args.source, args.candidates, args.observed) if p is not None]
+    check_output_folder(out, force=force, inputs=inputs)
     result = plan_observations(setup.source, setup.candidates, observed=setup.observed,
                                n_next=setup.n_next, check=setup.check,
                                check_steps=setup.check_steps, seed=setup.seed)
-    result.save(out, plots=setup.plots and not args.no_plots, force=args.force)
+    result.save(out, plots=setup.plots and not args.no_plots, force=force)
     print(result.report())
     print(f"\nwritten to {out}/")
     return EXIT_OK
