@@ -1,9 +1,13 @@
 """The ``massfit`` command: a thin layer over the Python API.
 
-Exit status: 0 done and converged; 2 a problem with the input, the config or an option
-(one line on stderr, no traceback); 3 the fit finished but did not converge (the
-result is written and flagged); 130 interrupted (``fit`` keeps a checkpoint in the
-output folder's partial area, and ``--resume`` continues from it).
+Exit status: 0 done, converged and a good fit; 1 the checkpoint or the result could not
+be written (a full disc: one line says what was kept and whether ``--resume``
+continues); 2 a problem with the input, the config, an option or the output folder (one
+line on stderr, no traceback); 3 the fit finished but did not converge (the result is
+written and flagged); 4 the best fit's chi^2 is improbable for the stated errors
+(``fit_quality`` poor; the result is written and flagged; 4 wins over 3, since a longer
+chain cannot mend it); 130 interrupted (``fit`` keeps a checkpoint in the output
+folder's partial area, and ``--resume`` continues from it).
 """
 
 from __future__ import annotations
@@ -15,11 +19,14 @@ from pathlib import Path
 
 from .errors import ConfigError, MassfitError, WriteError
 
-__all__ = ["main", "EXIT_OK", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED"]
+__all__ = ["main", "EXIT_OK", "EXIT_WRITE_FAILED", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED",
+           "EXIT_POOR_FIT"]
 
 EXIT_OK = 0
+EXIT_WRITE_FAILED = 1
 EXIT_USER_ERROR = 2
 EXIT_NOT_CONVERGED = 3
+EXIT_POOR_FIT = 4
 EXIT_INTERRUPTED = 130
 
 
@@ -29,7 +36,9 @@ def _parser() -> argparse.ArgumentParser:
         description="Measure the mass of a central body from the orbits of its "
                     "companions (relative astrometry and radial velocities), sampled "
                     "with emcee.",
-        epilog="Exit status: 0 converged, 2 bad input or option, 3 not converged.")
+        epilog="Exit status: 0 converged and a good fit, 1 the checkpoint or result could "
+               "not be written (disc full), 2 bad input, option or output folder, 3 not "
+               "converged, 4 a poor fit (chi^2 improbable for the errors; wins over 3).")
     from . import __version__
 
     parser.add_argument("--version", action="version", version=f"massfit {__version__}")
@@ -65,8 +74,9 @@ def _parser() -> argparse.ArgumentParser:
     _sampler_options(fit)
     _dynamics_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
-    fit.add_argument("--force", action="store_true", help="replace an existing result "
-                     "(or the checkpoint of an interrupted run)")
+    fit.add_argument("--force", action="store_true", help="replace a result massfit wrote "
+                     "in the output folder (only its own files), or the checkpoint of an "
+                     "interrupted run")
     fit.add_argument("--resume", action="store_true", help="continue an interrupted run "
                      "from its checkpoint; same inputs and options give the same result "
                      "as an uninterrupted run")
@@ -147,7 +157,8 @@ def _plan_parser(sub):
     plan.add_argument("--out", metavar="DIR", help="output folder (required unless the "
                       "config names one)")
     plan.add_argument("--no-plots", action="store_true", help="skip the figure")
-    plan.add_argument("--force", action="store_true", help="replace an existing plan")
+    plan.add_argument("--force", action="store_true", help="replace a plan or result "
+                      "massfit wrote in the output folder (only its own files)")
 
 
 def _redraw_parser(sub):

@@ -85,7 +85,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     record : dict, optional
         Extra entries for the run record (run.json): command line, config, checksums.
     checkpoint : path, optional
-        HDF5 file where the chain is saved step by step (see :mod:`massfit.checkpoint`).
+        Checkpoint file; the chain is saved in blocks beside it (see
+        :mod:`massfit.checkpoint`).
     resume : bool
         Continue the interrupted run saved in ``checkpoint``; with the same data,
         model and seed the result is the one an uninterrupted run gives.
