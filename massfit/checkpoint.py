@@ -115,7 +115,7 @@ def _holder_text(lock: Path) -> str:
 
 
 def _open_lock(lock: Path):
-    """Open and lock ``lock``; returns (fd, previous holder or None); refuses a live holder."""
+    """Open and lock ``lock``: (fd, the previous holder or None); refuse a live holder."""
     import fcntl
 
     while True:
@@ -159,6 +159,11 @@ def exclusive_run(out_dir, *, notice=None):
     ConfigError
         Another run holds the lock, or the partial area is a symbolic link.
     """
+    made = []  # folders made for the partial area, deepest first: removed if left empty
+    missing = Path(out_dir).parent
+    while not missing.exists() and missing != missing.parent:
+        made.append(missing)
+        missing = missing.parent
     lock = make_partial_dir(out_dir) / LOCK_FILE
     fd, previous = _open_lock(lock)
     try:
@@ -176,6 +181,8 @@ def exclusive_run(out_dir, *, notice=None):
         os.close(fd)
         with contextlib.suppress(OSError):
             lock.parent.rmdir()  # only when no checkpoint is left in it
+            for folder in made:
+                folder.rmdir()  # only when neither a result nor anything else is in it
 
 
 def fingerprint(model) -> str:
@@ -414,7 +421,7 @@ def chain_backend(path, *, flush_seconds=2.0):
 
 
 def write_failure(path: Path, exc: OSError) -> WriteError:
-    """The one-line error of a checkpoint write that failed, saying what ``--resume`` can do."""
+    """The one-line error of a failed checkpoint write, saying what ``--resume`` can do."""
     reason = os_error_text(exc)
     if not path.exists():
         return WriteError(

@@ -97,7 +97,7 @@ class WriteError(MassfitError):
 def os_error_text(exc: OSError) -> str:
     """One line for an OSError: the system's name of the error, and the file if known.
 
-    (h5py's own messages run over several lines.)
+    (Some libraries' messages run over several lines.)
     """
     reason = os.strerror(exc.errno) if exc.errno else " ".join(str(exc).split())
     return f"{reason} ('{exc.filename}')" if exc.filename else reason

@@ -51,7 +51,7 @@ def _own_stems() -> set:
 
 
 def massfit_files(folder) -> set | None:
-    """Names of the entries of ``folder`` that massfit wrote; None if massfit did not write it."""
+    """Names of the entries of ``folder`` massfit wrote; None if massfit did not write it."""
     folder = Path(folder)
     for record, marker in _RECORDS.items():
         path = folder / record
@@ -78,7 +78,7 @@ def _refuse(out, reason, key):
 
 
 def _check_place(out: Path, inputs, key):
-    """Refuse an output folder that is a link, a file, or holds the inputs or the working folder."""
+    """Refuse a link, a file, or a folder holding an input or the working folder."""
     if out.is_symlink():
         _refuse(out, "is a symbolic link; massfit writes only into a real folder: give "
                      "the folder itself or a new one", key)

@@ -247,6 +247,7 @@ class FitResult:
             from .adequacy import report_lines
 
             lines.extend(report_lines(s["adequacy"]))
+        lines.append(_quality_line(s["fit_quality"]))
         d = s["diagnostics"]
         lines.append("Sampler")
         lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
@@ -501,6 +502,16 @@ class FitResult:
 
 class FigureWarning(UserWarning):
     """A figure of a saved result could not be drawn; the numbers were saved."""
+
+
+def _quality_line(quality) -> str:
+    """The terminal's line for the summary's fit_quality verdict."""
+    if quality["verdict"] == "not tested":
+        return f"Fit quality: not tested ({quality.get('note', '')})"
+    return (f"Fit quality: {quality['verdict']} (chi2 = {quality['chi2']:.4g} for "
+            f"{quality['n_values']} values and {quality['n_parameters']} parameters, "
+            f"p = {quality['p_value']:.2g}; poor below p = "
+            f"{quality['poor_below_p_value']:g})")
 
 
 def _angle_text(block_mas):
