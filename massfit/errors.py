@@ -1,14 +1,18 @@
 """The exceptions massfit raises for its users.
 
 Every error a user can cause is a :class:`MassfitError`. The command line prints its
-message on one line and exits with status 2; it never shows a traceback for these.
+message on one line and exits with status 2 (1 for a :class:`WriteError`, where the
+disc, not the input, is at fault); it never shows a traceback for these.
 Messages name the file, line and column (or the config key or option) and say what
 would be accepted.
 """
 
 from __future__ import annotations
 
-__all__ = ["MassfitError", "InputError", "ConfigError", "ModelError"]
+import os
+
+__all__ = ["MassfitError", "InputError", "ConfigError", "ModelError", "WriteError",
+           "os_error_text"]
 
 
 class MassfitError(Exception):
@@ -81,3 +85,19 @@ class ModelError(MassfitError, ValueError):
     For example angular offsets with no distance, parallax or radial velocity to turn
     them into lengths, or a companion with too few epochs for its orbit.
     """
+
+
+class WriteError(MassfitError):
+    """The checkpoint or the result could not be written (a full disc, no permission).
+
+    The message says what was kept and whether ``--resume`` continues from it.
+    """
+
+
+def os_error_text(exc: OSError) -> str:
+    """One line for an OSError: the system's name of the error, and the file if known.
+
+    (Some libraries' messages run over several lines.)
+    """
+    reason = os.strerror(exc.errno) if exc.errno else " ".join(str(exc).split())
+    return f"{reason} ('{exc.filename}')" if exc.filename else reason

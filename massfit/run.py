@@ -85,7 +85,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     record : dict, optional
         Extra entries for the run record (run.json): command line, config, checksums.
     checkpoint : path, optional
-        HDF5 file where the chain is saved step by step (see :mod:`massfit.sample.checkpoint`).
+        Checkpoint file; the chain is saved in blocks beside it (see
+        :mod:`massfit.sample.checkpoint`).
     resume : bool
         Continue the interrupted run saved in ``checkpoint``; with the same data,
         model and seed the result is the one an uninterrupted run gives.
@@ -168,7 +169,7 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
     if unmixed:
         chain.converged = False
     sensitivity = prior_sensitivity(model, chain.samples)
-    warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
+    warnings = _warnings(chain, start) + _velocity_warnings(model)
     warnings += [_modes_warning(m) for m in modes]
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
@@ -219,29 +220,6 @@ def _velocity_warnings(model):
                    "the order found (strongest first); give each a period prior to pin "
                    "which is which")
     return out
-
-
-#: Below this chi^2 p-value the best fit is called poor (about 3.7 sigma).
-POOR_FIT_P_VALUE = 1e-4
-
-
-def _fit_quality(model, start):
-    """A warning when the best fit is far worse than the errors allow."""
-    from scipy.stats import chi2 as chi2_dist
-
-    if model.has_velocities:  # jitter terms absorb misfit by design
-        return []
-    res = model.residuals(start.theta[None, :])[0]
-    dof = res.size - model.n_dim
-    if dof <= 0:
-        return []
-    p_value = float(chi2_dist.sf(start.chi2, dof))
-    if p_value >= POOR_FIT_P_VALUE:
-        return []
-    return [f"the best fit is poor: chi2 = {start.chi2:.4g} for {res.size} measured values "
-            f"and {model.n_dim} parameters (p = {p_value:.2g}); the errors may be "
-            f"underestimated, a period alias may have been chosen, or the model misses "
-            f"an effect: do not quote the intervals as they are"]
 
 
 def _warnings(chain, start):

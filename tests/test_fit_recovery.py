@@ -155,20 +155,23 @@ def test_shared_mass_picks_the_right_alias():
 
 
 def test_poor_fit_is_flagged():
-    # Negative control for the goodness-of-fit warning: errors stated 5x too small.
+    # Negative control for the goodness-of-fit verdict: errors stated 5x too small.
+    from massfit.summarise.adequacy import assess, fit_quality, quality_warnings
     from massfit.model.orbit_model import OrbitModel, SystemSpec
-    from massfit.run import _fit_quality
     from massfit.start.search import find_start
 
     obs = _aliased_moons()
     model = OrbitModel(obs, SystemSpec())
-    start = find_start(model)
-    assert _fit_quality(model, start) == []
+    good = fit_quality(assess(model, find_start(model).theta))
+    assert good["verdict"] == "good" and quality_warnings(good) == []
     obs.astrometry.east_err /= 5
     obs.astrometry.north_err /= 5
     tight = OrbitModel(obs, SystemSpec())
-    warnings = _fit_quality(tight, find_start(tight))
-    assert warnings and "poor" in warnings[0]
+    poor = fit_quality(assess(tight, find_start(tight).theta))
+    assert poor["verdict"] == "poor" and poor["p_value"] < 1e-4
+    # chi^2 grows by 25 when every error shrinks 5-fold (same residuals, to the fit).
+    assert poor["chi2"] == pytest.approx(25 * good["chi2"], rel=0.2)
+    assert "poor" in quality_warnings(poor)[0]
 
 
 @pytest.fixture(scope="module")

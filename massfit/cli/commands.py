@@ -1,9 +1,13 @@
 """The ``massfit`` command: a thin layer over the Python API.
 
-Exit status: 0 done and converged; 2 a problem with the input, the config or an option
-(one line on stderr, no traceback); 3 the fit finished but did not converge (the
-result is written and flagged); 130 interrupted (``fit`` keeps a checkpoint in the
-output folder's partial area, and ``--resume`` continues from it).
+Exit status: 0 done, converged and a good fit; 1 the checkpoint or the result could not
+be written (a full disc: one line says what was kept and whether ``--resume``
+continues); 2 a problem with the input, the config, an option or the output folder (one
+line on stderr, no traceback); 3 the fit finished but did not converge (the result is
+written and flagged); 4 the best fit's chi^2 is improbable for the stated errors
+(``fit_quality`` poor; the result is written and flagged; 4 wins over 3, since a longer
+chain cannot mend it); 130 interrupted (``fit`` keeps a checkpoint in the output
+folder's partial area, and ``--resume`` continues from it).
 """
 
 from __future__ import annotations
@@ -13,13 +17,16 @@ import json
 import sys
 from pathlib import Path
 
-from massfit.errors import ConfigError, MassfitError
+from massfit.errors import ConfigError, MassfitError, WriteError
 
-__all__ = ["main", "EXIT_OK", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED"]
+__all__ = ["main", "EXIT_OK", "EXIT_WRITE_FAILED", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED",
+           "EXIT_POOR_FIT"]
 
 EXIT_OK = 0
+EXIT_WRITE_FAILED = 1
 EXIT_USER_ERROR = 2
 EXIT_NOT_CONVERGED = 3
+EXIT_POOR_FIT = 4
 EXIT_INTERRUPTED = 130
 
 
@@ -29,8 +36,10 @@ def _parser() -> argparse.ArgumentParser:
         description="Measure the mass of a central body from the orbits of its "
                     "companions (relative astrometry and radial velocities), sampled "
                     "with emcee.",
-        epilog="Exit status: 0 converged, 2 bad input or option, 3 not converged.")
-    from massfit.version import __version__
+        epilog="Exit status: 0 converged and a good fit, 1 the checkpoint or result could "
+               "not be written (disc full), 2 bad input, option or output folder, 3 not "
+               "converged, 4 a poor fit (chi^2 improbable for the errors; wins over 3).")
+    from massfit import __version__
 
     parser.add_argument("--version", action="version", version=f"massfit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
@@ -65,8 +74,9 @@ def _parser() -> argparse.ArgumentParser:
     _sampler_options(fit)
     _dynamics_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
-    fit.add_argument("--force", action="store_true", help="replace an existing result "
-                     "(or the checkpoint of an interrupted run)")
+    fit.add_argument("--force", action="store_true", help="replace a result massfit wrote "
+                     "in the output folder (only its own files), or the checkpoint of an "
+                     "interrupted run")
     fit.add_argument("--resume", action="store_true", help="continue an interrupted run "
                      "from its checkpoint; same inputs and options give the same result "
                      "as an uninterrupted run")
@@ -147,7 +157,8 @@ def _plan_parser(sub):
     plan.add_argument("--out", metavar="DIR", help="output folder (required unless the "
                       "config names one)")
     plan.add_argument("--no-plots", action="store_true", help="skip the figure")
-    plan.add_argument("--force", action="store_true", help="replace an existing plan")
+    plan.add_argument("--force", action="store_true", help="replace a plan or result "
+                      "massfit wrote in the output folder (only its own files)")
 
 
 def _redraw_parser(sub):
@@ -267,6 +278,9 @@ def main(argv=None) -> int:
         if args.command == "redraw":
             return _cmd_redraw(args)
         return _cmd_demo(args)
+    except WriteError as exc:
+        print(f"massfit: error: {exc}", file=sys.stderr)
+        return EXIT_WRITE_FAILED
     except MassfitError as exc:
         print(f"massfit: error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
@@ -320,7 +334,7 @@ def _setup_from_args(args):
     return setup
 
 
-def _run(setup, args, *, record):
+def _run(setup, args, *, record, force):
     from dataclasses import replace
 
     from massfit.sample.checkpoint import checkpoint_path, discard
@@ -346,9 +360,34 @@ def _run(setup, args, *, record):
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False))
-    result.save(setup.output, plots=setup.plots and not args.no_plots, force=args.force)
+    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
     discard(setup.output)
     return result
+
+
+def _save(result, out, *, plots, force):
+    """Write the result; a figure that fails is one warning line, a failed write one error."""
+    import warnings
+
+    from massfit.sample.checkpoint import checkpoint_path
+    from massfit.errors import os_error_text
+    from massfit.result.fit_result import FigureWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", FigureWarning)
+        try:
+            result.save(out, plots=plots, force=force)
+        except OSError as exc:
+            raise WriteError(f"cannot write the result into '{out}': {os_error_text(exc)}; "
+                             f"the chain is kept in '{checkpoint_path(out)}': make room, "
+                             f"then run the same command with --resume to write the "
+                             f"result without sampling again") from None
+    for warning in caught:
+        if issubclass(warning.category, FigureWarning):
+            print(f"massfit: warning: {warning.message}", file=sys.stderr)
+        else:
+            warnings.warn_explicit(warning.message, warning.category, warning.filename,
+                                   warning.lineno)
 
 
 def _record(args, setup):
@@ -360,37 +399,56 @@ def _record(args, setup):
 def _finish(result, out):
     print(result.report())
     print(f"\nwritten to {out}/")
+    if result.poor_fit:
+        print("massfit: the best fit is POOR: its chi^2 is improbable for the stated "
+              "errors; the result is flagged in summary.json (fit_quality: poor)",
+              file=sys.stderr)
     if not result.converged:
         print("massfit: the fit did NOT converge; the numbers above are flagged in "
               "summary.json (converged: false)", file=sys.stderr)
-        return EXIT_NOT_CONVERGED
-    return EXIT_OK
+    # A longer chain cannot mend a poor fit: that is the first thing to know.
+    if result.poor_fit:
+        return EXIT_POOR_FIT
+    return EXIT_OK if result.converged else EXIT_NOT_CONVERGED
+
+
+def _notice(text):
+    print(f"massfit: {text}", file=sys.stderr)
+
+
+def _fit_into(setup, args, *, force, inputs):
+    """Check and lock the output folder, then fit and save; returns the FitResult."""
+    from massfit.sample.checkpoint import checkpoint_path, discard, exclusive_run
+    from massfit.write.folder import check_output_folder
+
+    out = setup.output
+    check_output_folder(out, force=force, inputs=inputs)
+    resume = getattr(args, "resume", False)
+    saved = checkpoint_path(out)
+    with exclusive_run(out, notice=_notice):
+        if resume and not saved.exists():
+            raise ConfigError(f"there is nothing to resume: no checkpoint at '{saved}'; "
+                              f"run without --resume to start the fit", key="--resume")
+        if not resume and saved.exists():
+            if not force:
+                raise ConfigError(f"an interrupted run left its checkpoint at '{saved}'; "
+                                  f"continue it with --resume, or start afresh with "
+                                  f"--force", key="--resume")
+            discard(out)
+        try:
+            return _run(setup, args, record=_record(args, setup), force=force)
+        except KeyboardInterrupt:
+            if saved.exists():
+                print(f"massfit: interrupted; the progress is saved in '{saved}': run the "
+                      f"same command with --resume to continue", file=sys.stderr)
+            raise
 
 
 def _cmd_fit(args):
-    from massfit.sample.checkpoint import checkpoint_path, discard
-
     setup = _setup_from_args(args)
-    if (Path(setup.output) / "summary.json").exists() and not args.force:
-        raise ConfigError(f"'{setup.output}' already holds a result; choose another folder "
-                          f"or pass --force", key="--out")
-    saved = checkpoint_path(setup.output)
-    if args.resume and not saved.exists():
-        raise ConfigError(f"there is nothing to resume: no checkpoint at '{saved}'; run "
-                          f"without --resume to start the fit", key="--resume")
-    if not args.resume and saved.exists():
-        if not args.force:
-            raise ConfigError(f"an interrupted run left its checkpoint at '{saved}'; "
-                              f"continue it with --resume, or start afresh with --force",
-                              key="--resume")
-        discard(setup.output)
-    try:
-        result = _run(setup, args, record=_record(args, setup))
-    except KeyboardInterrupt:
-        if saved.exists():
-            print(f"massfit: interrupted; the progress is saved in '{saved}': run the "
-                  f"same command with --resume to continue", file=sys.stderr)
-        raise
+    inputs = [*setup.files, *(Path(p) for p in args.inputs)]
+    result = _fit_into(setup, args, force=args.force or setup.replace_existing,
+                       inputs=inputs)
     return _finish(result, setup.output)
 
 
@@ -400,8 +458,10 @@ def _cmd_demo(args):
 
     setup: FitSetup = demo_setup()
     setup.output = Path(args.out)
-    result = _run(setup, argparse.Namespace(**vars(args), parallax=None, parallax_err=None,
-                                            distance=None), record=_record(args, setup))
+    # The demo replaces its own earlier result, never a folder massfit did not write.
+    result = _fit_into(setup, argparse.Namespace(**vars(args), parallax=None,
+                                                 parallax_err=None, distance=None),
+                       force=True, inputs=setup.files)
     status = _finish(result, setup.output)
     truth = json.loads((Path(setup.files[0]).parent / "truth.json").read_text())
     print("\n" + _compare_with_truth(result, truth))
@@ -409,6 +469,7 @@ def _cmd_demo(args):
 
 
 def _cmd_plan(args):
+    from massfit.write.folder import check_output_folder
     from massfit.plan.planner import plan_observations
     from massfit.config.plan import plan_setup
 
@@ -418,13 +479,13 @@ def _cmd_plan(args):
         "check_steps", "seed", "time_format", "time_scale", "out")}
     setup = plan_setup(args.source, **options)
     out = Path(setup.output)
-    if (out / "plan.json").exists() and not args.force:
-        raise ConfigError(f"'{out}' already holds a plan; choose another folder or pass "
-                          f"--force", key="--out")
+    force = args.force or setup.replace_existing
+    inputs = [p for p in (args.source, args.candidates, args.observed) if p is not None]
+    check_output_folder(out, force=force, inputs=inputs)
     result = plan_observations(setup.source, setup.candidates, observed=setup.observed,
                                n_next=setup.n_next, check=setup.check,
                                check_steps=setup.check_steps, seed=setup.seed)
-    result.save(out, plots=setup.plots and not args.no_plots, force=args.force)
+    result.save(out, plots=setup.plots and not args.no_plots, force=force)
     print(result.report())
     print(f"\nwritten to {out}/")
     return EXIT_OK

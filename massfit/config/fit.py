@@ -54,6 +54,7 @@ Layout (every key optional except ``data.files``)::
     [output]
     folder = "fit-out"                # relative to this config file
     plots = true
+    replace_existing = false          # true: replace a result massfit wrote there (--force)
 """
 
 from __future__ import annotations
@@ -88,7 +89,7 @@ _SCHEMA = {
                  "equator_inclination": str, "equator_node": str, "rtol": float,
                  "compare_keplerian": bool},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
-    "output": {"folder": str, "plots": bool},
+    "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,
                    "inclination_prior": dict, "mass": str, "mass_prior": dict,
@@ -110,6 +111,8 @@ class FitSetup:
     sampler : SamplerSettings
     output : Path or None
     plots : bool
+    replace_existing : bool
+        Replace a result massfit wrote before in the output folder (``--force``).
     source : dict
         The config as read (for the run record).
     """
@@ -120,6 +123,7 @@ class FitSetup:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     output: Path | None = None
     plots: bool = True
+    replace_existing: bool = False
     source: dict = field(default_factory=dict)
 
 
@@ -180,7 +184,8 @@ def _parse(raw, base, file):
     out = raw.get("output", {})
     return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
                     output=(base / out["folder"]).resolve() if "folder" in out else None,
-                    plots=out.get("plots", True), source=raw)
+                    plots=out.get("plots", True),
+                    replace_existing=out.get("replace_existing", False), source=raw)
 
 
 def _check_keys(table, schema, prefix, file):

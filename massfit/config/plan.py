@@ -37,6 +37,7 @@ Layout (``[assumed]`` or ``fit_folder``, and ``[epochs].candidates``, are requir
     [output]
     folder = "plan-out"
     plots = true
+    replace_existing = false          # true: replace a plan massfit wrote there (--force)
 """
 
 from __future__ import annotations
@@ -61,7 +62,7 @@ _SCHEMA = {
     "epochs": {"observed": object, "candidates": object, "error": str, "error_unit": str,
                "next": int},
     "check": {"schedules": int, "max_steps": int, "seed": int},
-    "output": {"folder": str, "plots": bool},
+    "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION = {"period": str, "eccentricity": (int, float), "inclination": str,
               "periapsis_argument": str, "ascending_node": str, "periapsis_time": object,
@@ -81,6 +82,8 @@ class PlanSetup:
     n_next, check, check_steps, seed : int
     output : Path or None
     plots : bool
+    replace_existing : bool
+        Replace a result massfit wrote before in the output folder (``--force``).
     raw : dict
         The config as read.
     """
@@ -94,6 +97,7 @@ class PlanSetup:
     seed: int = 0
     output: Path | None = None
     plots: bool = True
+    replace_existing: bool = False
     raw: dict = field(default_factory=dict)
 
 
@@ -132,7 +136,8 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
                      n_next=epochs.get("next", 5), check=check.get("schedules", 0),
                      check_steps=check.get("max_steps", 2000), seed=check.get("seed", 0),
                      output=(base / out["folder"]).resolve() if "folder" in out else None,
-                     plots=out.get("plots", True), raw=raw)
+                     plots=out.get("plots", True),
+                     replace_existing=out.get("replace_existing", False), raw=raw)
 
 
 def schedule_from_spec(spec, key, base, times, error, file=None,

@@ -1149,16 +1149,17 @@ class PlanResult:
         """Write ``plan.json``, ``next_epochs.ecsv``, ``precision.ecsv`` and the figure.
 
         The folder is written beside its final place and renamed into it at the end.
+        An existing plan or fit is replaced only if ``force`` is true, and then only
+        the files massfit wrote; a folder massfit did not write is never touched (see
+        :mod:`massfit.write.folder`).
         """
         import matplotlib.pyplot as plt
 
-        from massfit.result.fit_result import _write_json, atomic_folder
+        from massfit.write.folder import atomic_folder, write_json
 
         out = Path(out_dir)
-        if (out / "plan.json").exists() and not force:
-            raise ConfigError(f"'{out}' already holds a plan; choose another folder or "
-                              f"pass --force (force=True)", key="--out")
-        with atomic_folder(out) as tmp:
+        with atomic_folder(out, record="plan.json", force=force) as tmp:
+            write_json(tmp / "plan.json", self.summary())
             self.ranking.write(tmp / "next_epochs.ecsv", format="ascii.ecsv")
             self.curve.write(tmp / "precision.ecsv", format="ascii.ecsv")
             if plots:
@@ -1166,7 +1167,6 @@ class PlanResult:
                 for ext in ("png", "pdf"):
                     fig.savefig(tmp / f"precision.{ext}", dpi=150 if ext == "png" else None)
                 plt.close(fig)
-            _write_json(tmp / "plan.json", self.summary())
         return out
 
 

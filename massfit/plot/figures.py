@@ -235,7 +235,8 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         ``semi_major_axis_km``, ``semi_major_axis_mas``, ``eccentricity``,
         ``inclination``, ``periapsis_argument``, ``ascending_node``, ``mass``. By
         default the mass, GM, the parallax (where sampled) and each companion's
-        ``quantities``.
+        ``quantities``, leaving out any that did not vary (a fixed parallax or
+        mass); a parameter named here that did not vary is an error.
     mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
         Unit of the central mass; by default the one that reads best.
     companions, quantities : list of str, optional
@@ -272,9 +273,21 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     if mass_unit not in _MASS_SAMPLES:
         raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
                           f"{', '.join(_MASS_SAMPLES)}", key="mass_unit")
+    chosen = parameters
     if parameters is None:
         parameters = default_corner_parameters(result, companions, quantities)
     columns = _corner_columns(result, parameters, mass_unit)
+    # A fixed quantity (a fixed parallax or companion mass) has no panel to fill.
+    fixed = [c.key for c in columns if not np.ptp(c.plotted(c.values)) > 0]
+    if fixed and chosen is not None:
+        raise ConfigError(f"{', '.join(fixed)} did not vary in this fit (fixed or without "
+                          f"spread): a corner panel needs samples that vary",
+                          key="parameters")
+    columns = [c for c in columns if c.key not in fixed]
+    parameters = [c.key for c in columns]
+    if not columns:
+        raise ConfigError("nothing in this fit varies: no corner plot to draw",
+                          key="parameters")
     k = len(columns)
     if width is None:
         width = COLUMN_WIDTH if k <= 3 else (PAGE_WIDTH if k <= 10 else 0.6 * k)

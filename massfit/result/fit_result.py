@@ -2,12 +2,6 @@
 
 from __future__ import annotations
 
-import contextlib
-import json
-import math
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -16,7 +10,7 @@ from astropy.table import Table
 from massfit.summarise.derived import MASS_UNITS, best_mass_unit, derived_samples, interval
 from massfit.summarise.rounding import format_interval
 
-__all__ = ["FitResult", "format_value", "best_mass_unit"]
+__all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
 SUMMARY_FILE = "summary.json"
 SAMPLES_FILE = "samples.ecsv"
@@ -121,6 +115,11 @@ class FitResult:
     def converged(self) -> bool:
         return bool(self.chain.converged)
 
+    @property
+    def poor_fit(self) -> bool:
+        """True when the best fit's chi^2 is improbable for the stated errors."""
+        return self.summary["fit_quality"]["verdict"] == "poor"
+
     def _build_summary(self) -> dict:
         s = self.samples
         obs = self.model.observations
@@ -139,6 +138,10 @@ class FitResult:
                     f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
                     "companion's radial velocities with its relative astrometry")
         summary["converged"] = self.converged
+        from massfit.summarise.adequacy import fit_quality, quality_warnings
+
+        adequacy = self._adequacy()
+        summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
         summary["diagnostics"] = {
@@ -170,11 +173,11 @@ class FitResult:
             summary["companions"][name] = block
         if "rv" in s:
             summary["velocities"] = _velocity_summary(s["rv"])
-        summary["adequacy"] = self._adequacy()
+        summary["adequacy"] = adequacy
         summary["modes"] = list(self.start.modes)
         summary["posterior_modes"] = list(self.checks.get("posterior_modes", []))
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
-        summary["warnings"] = list(self.warnings)
+        summary["warnings"] = list(self.warnings) + quality_warnings(summary["fit_quality"])
         summary["inputs"] = {
             "files": list(obs.files),
             "rows_read": int(obs.rows_read),
@@ -201,6 +204,12 @@ class FitResult:
         if not self.converged:
             lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times",
                       "*** or their estimate has not settled; do not quote these numbers.", ""]
+        quality = s["fit_quality"]
+        if quality["verdict"] == "poor":
+            lines += [f"*** POOR FIT: chi2 = {quality['chi2']:.4g} for {quality['n_values']} "
+                      f"values (reduced {quality['reduced_chi2']:.3g}, p = "
+                      f"{quality['p_value']:.2g});",
+                      "*** the model or the stated errors do not describe the data.", ""]
         lines.append("Central body")
         if s["central_gm"] is None:
             lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
@@ -228,6 +237,7 @@ class FitResult:
             from massfit.summarise.adequacy import report_lines
 
             lines.extend(report_lines(s["adequacy"]))
+        lines.append(_quality_line(s["fit_quality"]))
         d = s["diagnostics"]
         lines.append("Sampler")
         lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
@@ -431,50 +441,67 @@ class FitResult:
         command line).
 
         The folder is written beside its final place and renamed into it at the end,
-        so a half-written folder never looks complete. An existing result is kept
-        unless ``force`` is true.
+        so a half-written folder never looks complete. The numbers are written before
+        the figures: a figure that fails is a :class:`FigureWarning`, listed in
+        run.json (``figures.failed``), and the rest of the result is kept. An existing
+        result is replaced only if ``force`` is true, and then only the files massfit
+        wrote; a folder massfit did not write is never touched (see
+        :mod:`massfit.write.folder`).
         """
-        from massfit.errors import ConfigError
-
-        out = Path(out_dir)
-        if (out / SUMMARY_FILE).exists() and not force:
-            raise ConfigError(f"'{out}' already holds a result; choose another folder or "
-                              f"pass --force (force=True) to replace it", key="--out")
+        from massfit.write.folder import atomic_folder, write_json
         from massfit.result.loading import RUN_FILE, model_state, write_observations
 
-        with atomic_folder(out) as tmp:
+        out = Path(out_dir)
+        record = {**self.record, "model": model_state(self.model)}
+        with atomic_folder(out, record=RUN_FILE, force=force,
+                           inputs=self.model.observations.files) as tmp:
+            write_json(tmp / SUMMARY_FILE, self.summary)
             self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
-            _write_json(tmp / RUN_FILE, {**self.record, "model": model_state(self.model)})
             self.write_tables(tmp)
+            write_json(tmp / RUN_FILE, record)
             if plots:
-                self.write_figures(tmp, formats=formats)
-            _write_json(tmp / SUMMARY_FILE, self.summary)
+                record["figures"] = self._write_figures_or_warn(tmp, formats)
+                write_json(tmp / RUN_FILE, record)
         return out
 
+    def _write_figures_or_warn(self, folder, formats) -> dict:
+        """Draw every figure that applies; one that fails is a warning, not a lost result."""
+        import warnings
 
-@contextlib.contextmanager
-def atomic_folder(out: Path):
-    """Yield a temporary folder beside ``out`` that replaces ``out`` when the block ends.
+        from massfit.plot.figures import applicable_figures
 
-    A half-written output folder therefore never looks complete; on any error the
-    temporary folder is removed and ``out`` is left as it was.
-    """
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
-    try:
-        # mkdtemp makes the folder private; the result gets the usual permissions.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o777 & ~umask)
-        yield tmp
-        if out.exists():
-            shutil.rmtree(out)
-        os.replace(tmp, out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        done = {"written": [], "failed": []}
+        for stem in applicable_figures(self):
+            try:
+                self.write_figures(folder, figures=[stem], formats=formats)
+            except OSError:
+                raise  # the disc, not the figure: the whole write fails (see save)
+            except Exception as exc:  # noqa: BLE001 - a figure never costs the numbers
+                for path in Path(folder).glob(f"{stem}.*"):
+                    path.unlink()  # half a figure is no figure
+                reason = " ".join(f"{type(exc).__name__}: {exc}".split())
+                done["failed"].append({"figure": stem, "error": reason})
+                warnings.warn(f"the figure '{stem}' could not be drawn ({reason}); the "
+                              f"numbers are saved without it", FigureWarning, stacklevel=2)
+            else:
+                done["written"].append(stem)
+        return done
+
+
+class FigureWarning(UserWarning):
+    """A figure of a saved result could not be drawn; the numbers were saved."""
+
+
+def _quality_line(quality) -> str:
+    """The terminal's line for the summary's fit_quality verdict."""
+    if quality["verdict"] == "not tested":
+        return f"Fit quality: not tested ({quality.get('note', '')})"
+    return (f"Fit quality: {quality['verdict']} (chi2 = {quality['chi2']:.4g} for "
+            f"{quality['n_values']} values and {quality['n_parameters']} parameters, "
+            f"p = {quality['p_value']:.2g}; poor below p = "
+            f"{quality['poor_below_p_value']:g})")
 
 
 def _angle_text(block_mas):
@@ -483,19 +510,3 @@ def _angle_text(block_mas):
         scaled = {k: (v / 1e3 if isinstance(v, float) else v) for k, v in block_mas.items()}
         return f"{format_value(scaled)} arcsec"
     return f"{format_value(block_mas)} mas"
-
-
-def _write_json(path, data):
-    with open(path, "w") as handle:
-        json.dump(data, handle, indent=2, default=_json_default)
-        handle.write("\n")
-
-
-def _json_default(value):
-    if isinstance(value, (np.floating, np.integer)):
-        return value.item()
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, np.bool_):
-        return bool(value)
-    return str(value)

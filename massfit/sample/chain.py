@@ -146,8 +146,8 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         Starting points.
     settings : SamplerSettings
     checkpoint : path, optional
-        HDF5 file for emcee's HDF5 backend: every step and the random state after it
-        are saved there (see :mod:`massfit.sample.checkpoint`). In memory when None.
+        The checkpoint file: the steps and the random state after them are saved in
+        blocks beside it (see :mod:`massfit.sample.checkpoint`). In memory only when None.
     resume : bool
         Continue the chain stored in ``checkpoint`` instead of starting afresh.
 

@@ -1,4 +1,4 @@
-"""``python -m massfit.scenarios`` rewrites every invented example."""
+"""``python -m massfit.scenarios.examples`` rewrites every invented example."""
 
 from massfit.scenarios.examples import write_all
 

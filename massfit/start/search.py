@@ -191,7 +191,7 @@ def _perturbed_start(model):
     """
     from scipy.stats import chi2 as chi2_dist
 
-    from massfit.run import POOR_FIT_P_VALUE
+    from massfit.summarise.adequacy import POOR_FIT_P_VALUE
 
     _, found, values = two_body_start(model)
     best, best_chi2 = None, np.inf

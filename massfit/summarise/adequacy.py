@@ -26,10 +26,13 @@ from dataclasses import replace
 
 import numpy as np
 
-__all__ = ["assess", "report_lines", "FAP_THRESHOLD"]
+__all__ = ["assess", "report_lines", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
+           "POOR_FIT_P_VALUE"]
 
 #: False-alarm probability below which a residual peak is called significant.
 FAP_THRESHOLD = 1e-3
+#: Below this chi^2 p-value the best fit is called poor (about 3.7 sigma).
+POOR_FIT_P_VALUE = 1e-4
 _MAX_FREQUENCIES = 50_000
 
 
@@ -234,6 +237,58 @@ def _verdicts(block):
         out.append("no sign that the model misses anything (chi2 and residual "
                    "periodograms consistent with noise)")
     return out
+
+
+def fit_quality(block, *, tested=True) -> dict:
+    """The summary's ``fit_quality``: is the best fit's chi^2 probable for the stated errors?
+
+    Parameters
+    ----------
+    block : dict or None
+        The adequacy block of the fit (:func:`assess`), at the best posterior sample.
+    tested : bool
+        False where fitted jitter terms absorb any misfit (radial velocities): the
+        verdict is then ``"not tested"``.
+
+    Returns
+    -------
+    dict
+        ``verdict`` (``"good"``, ``"poor"`` or ``"not tested"``), ``chi2``,
+        ``n_values``, ``n_parameters``, ``reduced_chi2``, ``p_value``,
+        ``poor_below_p_value`` (:data:`POOR_FIT_P_VALUE`) and ``per_companion``
+        (name -> ``chi2``, ``n_values``, ``reduced_chi2``, ``p_value``). A poor fit
+        makes ``massfit fit`` exit with its own status.
+    """
+    out = {"verdict": "not tested", "chi2": None, "n_values": None, "n_parameters": None,
+           "reduced_chi2": None, "p_value": None, "poor_below_p_value": POOR_FIT_P_VALUE,
+           "per_companion": {}}
+    if block is None or not tested or "total" not in block:
+        out["note"] = ("radial velocities: their fitted jitter absorbs any misfit, so "
+                       "chi^2 is no test of the fit" if not tested else
+                       "no relative astrometry to test")
+        return out
+    total = block["total"]
+    out.update({k: total[k] for k in ("chi2", "n_values", "n_parameters", "reduced_chi2",
+                                      "p_value")})
+    out["per_companion"] = {name: {k: comp[k] for k in ("chi2", "n_values",
+                                                         "reduced_chi2", "p_value")}
+                            for name, comp in block["companions"].items()}
+    if total["p_value"] is None:
+        out["note"] = "no more values than parameters: chi^2 tests nothing"
+        return out
+    out["verdict"] = "poor" if total["p_value"] < POOR_FIT_P_VALUE else "good"
+    return out
+
+
+def quality_warnings(quality) -> list:
+    """The summary's warning for a poor fit (none for a good or untested one)."""
+    if quality["verdict"] != "poor":
+        return []
+    return [f"the best fit is poor: chi2 = {quality['chi2']:.4g} for "
+            f"{quality['n_values']} measured values and {quality['n_parameters']} "
+            f"parameters (p = {quality['p_value']:.2g}); the errors may be "
+            f"underestimated, a period alias may have been chosen, or the model misses "
+            f"an effect: do not quote the intervals as they are"]
 
 
 def report_lines(block) -> list:

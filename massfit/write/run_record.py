@@ -9,7 +9,7 @@ from importlib import metadata
 __all__ = ["run_record", "sha256"]
 
 _PACKAGES = ("massfit", "numpy", "scipy", "emcee", "astropy", "corner", "matplotlib",
-             "h5py", "numba")
+             "numba")
 
 
 def sha256(path) -> str:
