@@ -95,6 +95,9 @@ def collect_jobs(source, out_dir, *, seed=None, sampler=None, plots=False) -> li
     -------
     list of BatchJob
     """
+    from .sample import check_seed
+
+    check_seed(seed, key="--seed")
     source = Path(source)
     systems_dir = Path(out_dir).resolve() / SYSTEMS_DIR
     if source.is_dir():
@@ -152,6 +155,8 @@ def _from_folder(folder):
 def _from_table(path):
     from astropy.table import Table
 
+    from .sample import check_seed
+
     fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
     try:
         table = Table.read(path, format=fmt)
@@ -188,8 +193,8 @@ def _from_table(path):
             try:
                 entry["seed"] = int(seed)
             except ValueError:
-                raise ConfigError(f"seed '{seed}' is not a whole number",
-                                  key=f"{where}, column 'seed'") from None
+                entry["seed"] = seed
+            check_seed(entry["seed"], key=f"{where}, column 'seed'")
         entries.append(entry)
     return entries
 

@@ -288,8 +288,9 @@ def _units_option(text):
 def _setup_from_args(args):
     from .config import FitSetup, load_config
     from .model import SystemSpec
-    from .sample import SamplerSettings
+    from .sample import SamplerSettings, check_seed
 
+    check_seed(args.seed, key="--seed")
     inputs = [Path(p) for p in args.inputs]
     if len(inputs) == 1 and inputs[0].suffix.lower() == ".toml":
         setup = load_config(inputs[0])

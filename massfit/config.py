@@ -177,6 +177,7 @@ def _parse(raw, base, file):
     _dynamics(system, raw.get("dynamics", {}), file)
     read_options["primary"] = system.primary
     sampler = SamplerSettings(**raw.get("sampler", {}))
+    sampler.check(key_prefix="sampler.", file=file)
     out = raw.get("output", {})
     return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
                     output=(base / out["folder"]).resolve() if "folder" in out else None,

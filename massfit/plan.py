@@ -44,6 +44,7 @@ from .errors import ConfigError, InputError, ModelError
 from .model import OrbitModel, SystemSpec
 from .observations import AstrometryData, Observations
 from .priors import Fixed, Normal
+from .sample import check_seed
 
 __all__ = ["AssumedSystem", "Schedule", "Posterior", "PlanResult", "forecast_precision",
            "plan_observations", "read_posterior"]
@@ -1250,6 +1251,7 @@ def plan_observations(source, candidates: Schedule, *, observed: Schedule | None
     if not isinstance(check_steps, int) or isinstance(check_steps, bool) or check_steps < 100:
         raise ConfigError("the check's step cap must be a whole number of at least 100",
                           key="--check-steps")
+    check_seed(seed, key="--seed")
     if len(candidates) == 0:
         raise ConfigError("there are no candidate epochs", key="--candidates")
     if isinstance(source, (str, os.PathLike)):

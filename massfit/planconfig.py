@@ -50,6 +50,7 @@ from .config import _check_keys, read_toml
 from .constants import parse_quantity
 from .errors import ConfigError
 from .plan import AssumedSystem, Schedule, _parse_time
+from .sample import check_seed
 
 __all__ = ["PlanSetup", "load_plan_config", "parse_plan_config", "plan_setup",
            "schedule_from_spec"]
@@ -127,6 +128,7 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
         observed = schedule_from_spec(epochs["observed"], "epochs.observed", base, times,
                                       error, file, unit)
     check = raw.get("check", {})
+    check_seed(check.get("seed"), key="check.seed", file=file)
     out = raw.get("output", {})
     return PlanSetup(source=source, candidates=candidates, observed=observed,
                      n_next=epochs.get("next", 5), check=check.get("schedules", 0),

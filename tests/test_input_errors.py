@@ -1,0 +1,81 @@
+"""Bad input reaching the command line: one line naming the key, file, line or column,
+exit status 2 and no traceback (each case ran into a traceback or a silent mistake)."""
+
+import contextlib
+import io
+import subprocess
+import sys
+import warnings
+from types import SimpleNamespace
+
+import pytest
+
+from massfit.cli import main
+
+
+def run_cli(*args, cwd=None):
+    """A real process (where the failure was a traceback in one)."""
+    return subprocess.run([sys.executable, "-m", "massfit", *args], capture_output=True,
+                          text=True, cwd=cwd, timeout=600)
+
+
+def run_main(*args):
+    """The same command in this process (faster); warnings count as stderr output."""
+    err = io.StringIO()
+    with warnings.catch_warnings(record=True) as caught, contextlib.redirect_stderr(err), \
+            contextlib.redirect_stdout(io.StringIO()):
+        warnings.simplefilter("always")
+        try:
+            status = main([str(a) for a in args])
+        except SystemExit as exc:
+            status = exc.code
+    text = err.getvalue() + "".join(f"{w.category.__name__}: {w.message}\n" for w in caught)
+    return SimpleNamespace(returncode=status, stderr=text)
+
+
+def assert_one_line_error(proc, *needles):
+    """Exit 2, one 'massfit: error:' line holding every needle, nothing else on stderr."""
+    assert proc.returncode == 2, proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    errors = [line for line in lines if line.startswith("massfit: error:")]
+    assert len(errors) == 1, proc.stderr
+    assert "Traceback" not in proc.stderr and "Warning" not in proc.stderr, proc.stderr
+    for needle in needles:
+        assert needle in errors[0], errors[0]
+    return errors[0]
+
+
+def test_negative_seed_on_the_command_line(binary_file, tmp_path):
+    path, _ = binary_file
+    proc = run_cli("fit", str(path), "--out", str(tmp_path / "o"), "--seed", "-5",
+                   "--no-plots")
+    assert_one_line_error(proc, "--seed", "at least 0")
+    assert not (tmp_path / "o").exists()
+
+
+def test_negative_seed_in_a_config(binary_file, tmp_path):
+    path, _ = binary_file
+    config = tmp_path / "neg.toml"
+    config.write_text(f'[data]\nfiles = ["{path.name}"]\n[sampler]\nseed = -7\n')
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "neg.toml", "sampler.seed")
+
+
+def test_negative_batch_seed(binary_file, tmp_path):
+    path, _ = binary_file
+    systems = tmp_path / "systems.csv"
+    systems.write_text(f"system,files,seed\nwren,{path.name},-2\n")
+    proc = run_main("batch", systems, "--out", tmp_path / "b", "--seed", "1")
+    assert_one_line_error(proc, "row 1", "seed")
+    proc = run_main("batch", systems, "--out", tmp_path / "b", "--seed", "-3")
+    assert_one_line_error(proc, "--seed")
+
+
+@pytest.mark.parametrize("option, value", [("--parallax", "41.3 km"),
+                                           ("--parallax-err", "1 pc")])
+def test_a_parallax_must_be_an_angle(binary_file, tmp_path, option, value):
+    path, _ = binary_file
+    extra = [] if option == "--parallax" else ["--parallax", "41.3 mas"]
+    proc = run_main("fit", path, "--out", tmp_path / "o", option, value, *extra,
+                    "--no-plots")
+    assert_one_line_error(proc, option, "not an angle")
