@@ -401,6 +401,13 @@ class OrbitModel:
             # Only the primary's velocities: the companions are those listed, or one.
             names = list(self.spec.companions) or ["companion"]
         primary_rv = velocities is not None and bool(np.any(velocities.body == primary))
+        # A listed companion without data is the first thing to say: an unlisted body
+        # in the data is often the same one under another name.
+        for name in self.spec.companions:
+            if name not in names:
+                raise ModelError(f"companion '{name}' is listed in the model ([companions."
+                                 f"{name}]) but no row of the data has body '{name}'; "
+                                 f"bodies in the data: {', '.join(names) or 'none'}")
         specs = {}
         for name in names:
             if name in self.spec.companions:
@@ -414,18 +421,16 @@ class OrbitModel:
                 comp = replace(comp, mass=DEFAULT_REFLEX_MASS_PRIOR if reflex
                                else Fixed(0.0))
             specs[name] = comp
-        for name in self.spec.companions:
-            if name not in specs:
-                raise ModelError(f"companion '{name}' is in the model but has no rows in "
-                                 f"the data")
         for name in astrometric:
-            n_rows = int(np.sum(observations.astrometry.body == name))
-            if 2 * n_rows < 7 and not primary_rv and name not in spectroscopic:
-                rows = observations.astrometry.body == name
+            rows = observations.astrometry.body == name
+            # Rows at one time are one epoch however many there are.
+            n_epochs = len(np.unique(observations.astrometry.time[rows].jd))
+            if 2 * n_epochs < 7 and not primary_rv and name not in spectroscopic:
                 raise ModelError(
                     f"{_files(observations.astrometry.file[rows])}: "
-                    f"companion '{name}' has {n_rows} astrometric epoch(s); an orbit "
-                    f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
+                    f"companion '{name}' has {n_epochs} astrometric epoch(s) (distinct "
+                    f"times) in {int(rows.sum())} row(s); an orbit and the central mass "
+                    f"need at least 4 (7 numbers for 7 unknowns)")
         return specs
 
     def _unlisted_body(self, observations, name):

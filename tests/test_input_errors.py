@@ -79,3 +79,36 @@ def test_a_parallax_must_be_an_angle(binary_file, tmp_path, option, value):
     proc = run_main("fit", path, "--out", tmp_path / "o", option, value, *extra,
                     "--no-plots")
     assert_one_line_error(proc, option, "not an angle")
+
+
+def _plain_csv(folder, rows):
+    """A plain CSV of east/north rows (time in JD TDB, offsets in mas)."""
+    lines = ["time,body,east,north,east_err,north_err"]
+    lines += [",".join(str(v) for v in row) for row in rows]
+    path = folder / "plain.csv"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+CSV_OPTIONS = ("--time-format", "jd", "--time-scale", "tdb", "--parallax", "25 mas",
+               "--units", "east=mas,north=mas,east_err=mas,north_err=mas")
+
+
+def _good_rows(n=8):
+    return [(2458000.5 + 97.0 * k, "Wren", 80.0 - 3 * k, 30.0 + 2 * k, 0.5, 0.5)
+            for k in range(n)]
+
+
+def test_rows_all_at_one_time_are_one_epoch(tmp_path):
+    rows = [(2458088.5, "Wren", 85.0 + k, 36.0 - k, 0.5, 0.5) for k in range(7)]
+    proc = run_main("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
+                    tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "'Wren'", "1 astrometric epoch", "7 row(s)")
+
+
+def test_listed_companion_without_data_is_named(binary_file, tmp_path):
+    path, _ = binary_file
+    config = tmp_path / "c.toml"
+    config.write_text(f'[data]\nfiles = ["{path.name}"]\n[companions.C]\n')
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "companion 'C'", "[companions.C]", "bodies in the data: Wren")
