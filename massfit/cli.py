@@ -280,8 +280,11 @@ def _units_option(text):
     for part in text.split(","):
         if "=" not in part:
             raise ConfigError(f"'{part}' is not COLUMN=UNIT", key="--units")
-        col, unit = part.split("=", 1)
-        units[col.strip()] = unit.strip()
+        col, unit = (piece.strip() for piece in part.split("=", 1))
+        if col in units:
+            raise ConfigError(f"column '{col}' is given twice ({col}={units[col]} and "
+                              f"{col}={unit}); give each column one unit", key="--units")
+        units[col] = unit
     return units
 
 

@@ -94,6 +94,9 @@ _OPTIONAL = {
     "polar": {"distance": (_DISTANCE,)},
     "rv": {},
 }
+#: Every column that takes a unit, in any kind of file.
+_UNIT_COLUMNS = frozenset(name for table in (*_SETS.values(), *_OPTIONAL.values())
+                          for name in table)
 _KIND_NAMES = {"cartesian": "east/north astrometry", "polar": "sep/pa astrometry",
                "rv": "radial velocities"}
 _ALWAYS = ("time", "body")
@@ -223,7 +226,9 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
         Units of columns, by column name, for files that do not carry them (plain CSV).
         Where an ECSV column has a unit in its header and ``units`` names the column
         too, the two must be the same unit (``mas`` and ``0.001 arcsec`` are); if they
-        conflict the read is refused rather than picking one. ECSV written from an
+        conflict the read is refused rather than picking one. One mapping may cover
+        every kind of file; a name that is neither a column of some file nor a column
+        massfit reads is refused (a misspelt column would otherwise go unused). ECSV written from an
         astropy QTable (Quantity columns, serialized in the header) is read the same
         way: each Quantity column's unit is that column's unit.
     skip_bad_rows : bool, optional
@@ -250,9 +255,18 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
     options = _options(time_format, time_scale, units, skip_bad_rows, primary)
     observations = Observations(primary=options.primary)
     groups: dict[str, list] = {"astrometry": [], "velocities": []}
+    columns: set[str] = set()
     for file in _file_names(paths):
-        group, rows = _read_one(file, options, observations)
+        group, rows, names = _read_one(file, options, observations)
         groups[group].append(rows)
+        columns.update(names)
+    # One mapping may serve every kind of file, so a column massfit reads may be absent;
+    # any other name that no file has is a slip (east_er for east_err) and is refused.
+    unknown = [name for name in options.units if name not in columns | _UNIT_COLUMNS]
+    if unknown:
+        raise ConfigError(f"names column(s) {', '.join(map(repr, unknown))}, which no file "
+                          f"has and massfit does not read; the files' columns are "
+                          f"{', '.join(sorted(columns))}", key="units")
     merged = {group: _without_duplicates(_concatenate(parts), group, options,
                                          observations.rejected)
               for group, parts in groups.items()}
@@ -333,8 +347,9 @@ def _file_names(paths) -> list[str]:
 
 # ----------------------------------------------------------------------------- one file
 
-def _read_one(file: str, options: _Options, observations: Observations) -> tuple[str, dict]:
-    """Read one file, record what it contributes and return its usable rows."""
+def _read_one(file: str, options: _Options,
+              observations: Observations) -> tuple[str, dict, list[str]]:
+    """Read one file, record what it contributes; return its usable rows and columns."""
     cells = _split_file(file)
     kind = _kind(cells)
     group, rows, issues = _validated_rows(cells, kind, options)
@@ -343,7 +358,7 @@ def _read_one(file: str, options: _Options, observations: Observations) -> tuple
     observations.unused_columns[file] = [name for name in cells.names
                                          if name not in _used_columns(cells, kind)]
     _settle(issues, options, observations.rejected)
-    return group, rows
+    return group, rows, list(cells.names)
 
 
 def _split_file(file: str) -> _Cells:

@@ -112,3 +112,19 @@ def test_listed_companion_without_data_is_named(binary_file, tmp_path):
     config.write_text(f'[data]\nfiles = ["{path.name}"]\n[companions.C]\n')
     proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
     assert_one_line_error(proc, "companion 'C'", "[companions.C]", "bodies in the data: Wren")
+
+
+def test_a_column_given_two_units_is_refused(tmp_path):
+    # Taking the last of east=mas,east=deg silently gave a mass wrong by 1e11.
+    proc = run_main("fit", _plain_csv(tmp_path, _good_rows()), "--time-format", "jd",
+                    "--time-scale", "tdb", "--parallax", "25 mas", "--units",
+                    "east=mas,north=mas,east_err=mas,north_err=mas,east=deg",
+                    "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "--units", "'east' is given twice")
+
+
+def test_a_unit_for_a_column_that_does_not_exist_is_refused(tmp_path):
+    proc = run_main("fit", _plain_csv(tmp_path, _good_rows()), *CSV_OPTIONS[:-1],
+                    "east=mas,north=mas,east_err=mas,north_err=mas,east_er=mas",
+                    "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "units", "'east_er'", "no file has")
