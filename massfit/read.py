@@ -520,6 +520,12 @@ def _ecsv_cells(file: str, lines: list[str], comments: list[int], names_at: int,
     try:
         reader, empty = _ecsv_parse(head, [])
     except _AstropyRefused as exc:
+        # The YAML parser counts lines of the header text, not of the file: a tab (the
+        # usual culprit, which YAML refuses) is found and named at its own line.
+        tabbed = [index for index in comments if "\t" in lines[index]]
+        if tabbed:
+            raise InputError("holds a tab in the ECSV header; the header is YAML, which "
+                             "takes spaces only", file=file, line=tabbed[0] + 1) from None
         raise InputError(f"has a malformed ECSV header: {exc}", file=file) from None
     _require_rows(file, data)
     rows = [(index + 1, lines[index]) for index in data]

@@ -128,3 +128,14 @@ def test_a_unit_for_a_column_that_does_not_exist_is_refused(tmp_path):
                     "east=mas,north=mas,east_err=mas,north_err=mas,east_er=mas",
                     "--out", tmp_path / "o", "--no-plots")
     assert_one_line_error(proc, "units", "'east_er'", "no file has")
+
+
+def test_a_tab_in_an_ecsv_header_is_reported_at_its_own_line(binary_file, tmp_path):
+    path, _ = binary_file
+    lines = path.read_text().splitlines()
+    at = next(k for k, line in enumerate(lines) if line.startswith("# - {name: north,"))
+    lines[at] = lines[at].replace("north, unit", "north,\tunit")
+    tabbed = tmp_path / "tabbed.ecsv"
+    tabbed.write_text("\n".join(lines) + "\n")
+    proc = run_main("fit", tabbed, "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, f"tabbed.ecsv, line {at + 1}: ", "tab")
