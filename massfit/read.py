@@ -841,10 +841,11 @@ def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.nda
     if converted is None:
         rows = range(len(column))
     else:
-        scaled = converted * factor
-        with np.errstate(invalid="ignore"):
+        with np.errstate(invalid="ignore", over="ignore"):
+            scaled = converted * factor
             suspect = ~np.isfinite(converted) | ~np.isfinite(scaled)
             suspect |= _SUSPECT.get(check, lambda values: False)(converted)
+            suspect |= _out_of_range(scaled, check is _positive)
         out = np.where(suspect, np.nan, scaled)
         rows = np.flatnonzero(suspect).tolist()
     for row in rows:
@@ -853,13 +854,37 @@ def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.nda
             continue
         value, reason = _number(cell)
         reason = reason or check(value)
-        if reason is None and not math.isfinite(value * factor):
-            reason = "is too large to convert to massfit's internal units"
+        if reason is None:
+            reason = _range_problem(value, factor, check is _positive)
         if reason:
             issues.add(row, name, reason)
         else:
             out[row] = value * factor
     return out
+
+
+#: Largest magnitude, and smallest error or distance, in internal units (arcsec, au,
+#: rad, km/s, pc): squares and ratios of values within these stay finite doubles, and
+#: no measurement comes near either.
+_LARGEST = 1e100
+_SMALLEST = 1e-100
+
+
+def _out_of_range(scaled: np.ndarray, positive: bool) -> np.ndarray:
+    outside = np.abs(scaled) > _LARGEST
+    return outside | (scaled < _SMALLEST) if positive else outside
+
+
+def _range_problem(value: float, factor: float, positive: bool) -> str | None:
+    with np.errstate(over="ignore"):
+        scaled = float(np.float64(value) * factor)
+    if not math.isfinite(scaled) or abs(scaled) > _LARGEST:
+        return (f"is too large ({_shown(value)}): massfit takes magnitudes up to "
+                f"{_LARGEST:.0e} of its internal units")
+    if positive and scaled < _SMALLEST:
+        return (f"is too small ({_shown(value)}): an error or distance must be at least "
+                f"{_SMALLEST:.0e} of massfit's internal units")
+    return None
 
 
 def _as_floats(column: list) -> np.ndarray | None:
@@ -895,6 +920,12 @@ def _times(cells: _Cells, options: _Options, issues: _Issues) -> tuple[np.ndarra
         masked, issues,
         lambda row: f"{_shown(raw[row])} is not a valid time in format '{time_format}' "
                     f"and scale '{time_scale}'")
+
+
+_J2000_JD = 2451545.0
+#: Times further than this from J2000 are refused: their spans would make nonsense of
+#: the period search (periods up to 1e9 d), and no observation is that old.
+_TIME_RANGE_DAYS = 1e8
 
 
 def _native_time(cells: _Cells) -> Time:
@@ -943,8 +974,15 @@ def _tdb_dates(make: Callable[[list[int]], Time], masked: np.ndarray, issues: _I
     rows = np.flatnonzero(~masked).tolist()
     for done, time in _converted(make, rows, issues, why):
         dates[:, done] = np.array([time.jd1, time.jd2]).reshape(2, -1)
-    for row in np.flatnonzero(~np.isfinite(dates.sum(axis=0))):
+    jd = dates.sum(axis=0)
+    for row in np.flatnonzero(~np.isfinite(jd) & ~masked):
         issues.add(row, "time", "is not a finite time")
+    with np.errstate(invalid="ignore"):
+        far = np.abs(jd - _J2000_JD) > _TIME_RANGE_DAYS
+    for row in np.flatnonzero(far):
+        issues.add(row, "time", f"is JD {jd[row]:.6g} (TDB), more than {_TIME_RANGE_DAYS:.0e} "
+                                f"days (about 270 000 years) from J2000; massfit takes "
+                                f"times within that range")
     return dates[0], dates[1]
 
 

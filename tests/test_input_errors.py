@@ -139,3 +139,25 @@ def test_a_tab_in_an_ecsv_header_is_reported_at_its_own_line(binary_file, tmp_pa
     tabbed.write_text("\n".join(lines) + "\n")
     proc = run_main("fit", tabbed, "--out", tmp_path / "o", "--no-plots")
     assert_one_line_error(proc, f"tabbed.ecsv, line {at + 1}: ", "tab")
+
+
+@pytest.mark.parametrize("column, value, needle", [
+    (2, "1e308", "column 'east': is too large"),
+    (4, "1e-320", "column 'east_err': is too small"),
+    (0, "1e300", "column 'time': is JD 1e+300"),
+    (0, "-1e300", "column 'time': is JD -1e+300"),
+])
+def test_absurd_values_are_named_by_file_line_and_column(tmp_path, column, value, needle):
+    rows = [list(row) for row in _good_rows()]
+    rows[2][column] = value
+    proc = run_main("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
+                    tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "plain.csv, line 4, ", needle)
+
+
+def test_huge_times_in_a_real_process(tmp_path):
+    rows = [list(row) for row in _good_rows()]
+    rows[0][0] = "1e300"
+    proc = run_cli("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
+                   tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "plain.csv, line 2, column 'time'")
