@@ -32,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .config import real_path
 from .errors import ConfigError, MassfitError
 
 __all__ = ["BatchJob", "collect_jobs", "fit_job", "run_batch", "RESULTS_FILE"]
@@ -99,7 +100,7 @@ def collect_jobs(source, out_dir, *, seed=None, sampler=None, plots=False) -> li
 
     check_seed(seed, key="--seed")
     source = Path(source)
-    systems_dir = Path(out_dir).resolve() / SYSTEMS_DIR
+    systems_dir = real_path(out_dir) / SYSTEMS_DIR
     if source.is_dir():
         entries = _from_folder(source)
     elif source.is_file():
@@ -139,7 +140,10 @@ def _config_has_seed(config):
         return False
     from .config import load_config
 
-    return load_config(config).sampler.seed is not None
+    try:
+        return load_config(config).sampler.seed is not None
+    except MassfitError:
+        return False  # the system fails on its own, with this reason, when it is fitted
 
 
 def _folder_name(name):
@@ -149,7 +153,7 @@ def _folder_name(name):
 
 def _from_folder(folder):
     configs = sorted(folder.glob("*.toml"))
-    return [{"system": path.stem, "config": str(path.resolve())} for path in configs]
+    return [{"system": path.stem, "config": str(real_path(path))} for path in configs]
 
 
 def _from_table(path):
@@ -172,12 +176,12 @@ def _from_table(path):
         raise ConfigError(f"unknown column(s) {sorted(unknown)} in the table of systems; "
                           f"accepted: system, files, {', '.join(_TABLE_OPTIONAL)}",
                           key=str(path))
-    base = path.parent.resolve()
+    base = real_path(path.parent)
     entries = []
     for k, row in enumerate(table):
         where = f"{path}, row {k + 1}"
         name = _cell(row, "system")
-        files = [str((base / part.strip()).resolve())
+        files = [str(real_path(base / part.strip()))
                  for part in (_cell(row, "files") or "").split(";") if part.strip()]
         if not name:
             raise ConfigError("a system needs a name", key=where)
@@ -185,7 +189,7 @@ def _from_table(path):
         if not files and not config:
             raise ConfigError(f"system '{name}' lists no files and no config", key=where)
         entry = {"system": name, "files": files,
-                 "config": str((base / config).resolve()) if config else None,
+                 "config": str(real_path(base / config)) if config else None,
                  "distance": {key: _cell(row, key) for key in
                               ("parallax", "parallax_err", "distance") if _cell(row, key)}}
         seed = _cell(row, "seed")

@@ -46,7 +46,7 @@ from pathlib import Path
 
 import astropy.units as u
 
-from .config import _check_keys, read_toml
+from .config import _check_keys, read_toml, real_path
 from .constants import parse_quantity
 from .errors import ConfigError
 from .plan import AssumedSystem, Schedule, _parse_time
@@ -115,7 +115,7 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
     if "assumed" in raw:
         source = _assumed(raw["assumed"], times, file)
     else:
-        source = (base / raw["fit_folder"]).resolve()
+        source = real_path(base / raw["fit_folder"])
     epochs = raw.get("epochs", {})
     error = epochs.get("error")
     unit = epochs.get("error_unit")
@@ -133,7 +133,7 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
     return PlanSetup(source=source, candidates=candidates, observed=observed,
                      n_next=epochs.get("next", 5), check=check.get("schedules", 0),
                      check_steps=check.get("max_steps", 2000), seed=check.get("seed", 0),
-                     output=(base / out["folder"]).resolve() if "folder" in out else None,
+                     output=real_path(base / out["folder"]) if "folder" in out else None,
                      plots=out.get("plots", True), raw=raw)
 
 

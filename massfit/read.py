@@ -462,6 +462,13 @@ def _csv_names(file: str, line: str, number: int) -> list[str]:
     if problem:
         raise InputError(f"the header {problem}", file=file, line=number)
     names = [token.strip() for token in tokens]
+    if not set(names) & set(_ALWAYS):
+        # Perhaps not a table at all (a path slip to some other file): say so without
+        # quoting it, as its first line may hold anything.
+        raise InputError("is not an observation table: its first line names no 'time' or "
+                         "'body' column (a CSV table starts with a line of column names "
+                         "such as time,body,east,north,east_err,north_err)", file=file,
+                         line=number)
     if "" in names:
         raise InputError(f"column {names.index('') + 1} of the header has no name",
                          file=file, line=number)

@@ -161,3 +161,51 @@ def test_huge_times_in_a_real_process(tmp_path):
     proc = run_cli("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
                    tmp_path / "o", "--no-plots")
     assert_one_line_error(proc, "plain.csv, line 2, column 'time'")
+
+
+SECRET = "not-for-the-terminal-4711"
+
+
+def _secret_setup(tmp_path):
+    """A config that lists, by a slip of the path, a file outside its folder."""
+    (tmp_path / "secret.txt").write_text(f"root:x:0:0:{SECRET}:/root:/bin/sh\nx:y\n")
+    configs = tmp_path / "configs"
+    configs.mkdir()
+    (configs / "slip.toml").write_text('[data]\nfiles = ["../secret.txt"]\n')
+    return configs
+
+
+def test_a_file_that_is_not_a_table_is_not_quoted(tmp_path):
+    configs = _secret_setup(tmp_path)
+    proc = run_main("fit", configs / "slip.toml", "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "secret.txt, line 1", "not an observation table")
+    assert SECRET not in proc.stderr
+
+
+def test_a_batch_does_not_quote_it_in_results(tmp_path):
+    configs = _secret_setup(tmp_path)
+    proc = run_main("batch", configs, "--out", tmp_path / "b", "--workers", "1")
+    assert proc.returncode == 3 and "Traceback" not in proc.stderr
+    results = (tmp_path / "b" / "results.ecsv").read_text()
+    assert "not an observation table" in results
+    assert SECRET not in results and SECRET not in proc.stderr
+
+
+def test_a_symlink_loop_listed_in_a_config(tmp_path):
+    (tmp_path / "loop_a.csv").symlink_to(tmp_path / "loop_b.csv")
+    (tmp_path / "loop_b.csv").symlink_to(tmp_path / "loop_a.csv")
+    config = tmp_path / "loop.toml"
+    config.write_text('[data]\nfiles = ["loop_a.csv"]\n')
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    assert_one_line_error(proc, "loop_a.csv", "cannot be read")
+
+
+def test_a_symlink_loop_in_a_batch_folder(tmp_path):
+    folder = tmp_path / "configs"
+    folder.mkdir()
+    (folder / "x.toml").symlink_to(folder / "y.toml")
+    (folder / "y.toml").symlink_to(folder / "x.toml")
+    proc = run_main("batch", folder, "--out", tmp_path / "b", "--workers", "1", "--seed", "1")
+    assert proc.returncode == 3 and "Traceback" not in proc.stderr, proc.stderr
+    results = (tmp_path / "b" / "results.ecsv").read_text()
+    assert results.count("cannot read the config file") == 2
