@@ -456,19 +456,26 @@ def _compare_with_truth(result, truth):
 
 
 def _cmd_batch(args):
-    from .batch import collect_jobs, run_batch
+    from .batch import NOT_RUN, RESULTS_FILE, collect_jobs, run_batch
 
     overrides = {k: getattr(args, k) for k in ("walkers", "max_steps")
                  if getattr(args, k) is not None}
     jobs = collect_jobs(args.source, args.out, seed=args.seed, sampler=overrides,
                         plots=args.plots)
-    table = run_batch(jobs, args.out, workers=args.workers, scheduler=args.scheduler,
-                      rerun=args.rerun)
+    results = Path(args.out) / RESULTS_FILE
+    try:
+        table = run_batch(jobs, args.out, workers=args.workers, scheduler=args.scheduler,
+                          rerun=args.rerun)
+    except KeyboardInterrupt:
+        print(f"massfit batch: interrupted; {results} lists the systems finished and "
+              f"marks the others '{NOT_RUN}' (run the same command to fit them)",
+              file=sys.stderr)
+        return EXIT_INTERRUPTED
     counts = {status: int(sum(table["status"] == status))
               for status in ("converged", "not converged", "failed")}
     print(f"massfit batch: {len(table)} system(s): {counts['converged']} converged, "
           f"{counts['not converged']} not converged, {counts['failed']} failed; "
-          f"table in {Path(args.out) / 'results.ecsv'}")
+          f"table in {results}")
     for row in table:
         if row["status"] == "failed":
             print(f"  {row['system']}: {row['failure']}", file=sys.stderr)
