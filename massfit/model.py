@@ -299,6 +299,11 @@ class OrbitModel:
         Validated observations (:func:`massfit.read_observations`).
     spec : SystemSpec, optional
         Assumptions; defaults for everything not stated.
+    distinct_epochs : bool, optional
+        Count a companion's astrometric epochs as distinct times (the default: rows at
+        one time measure one position) when checking that its data can fix an orbit.
+        The planner's Fisher forecast passes False: it asks of any schedule how well it
+        fixes the mass, and says "undetermined" itself.
 
     Notes
     -----
@@ -306,8 +311,10 @@ class OrbitModel:
     log-posterior per walker (``-inf`` outside the prior's support).
     """
 
-    def __init__(self, observations: Observations, spec: SystemSpec | None = None):
+    def __init__(self, observations: Observations, spec: SystemSpec | None = None, *,
+                 distinct_epochs: bool = True):
         self.observations = observations
+        self._distinct_epochs = distinct_epochs
         self.spec = spec if spec is not None else SystemSpec()
         if self.spec.trend not in TRENDS:
             raise ConfigError(f"unknown trend {self.spec.trend!r}; accepted: "
@@ -424,7 +431,8 @@ class OrbitModel:
         for name in astrometric:
             rows = observations.astrometry.body == name
             # Rows at one time are one epoch however many there are.
-            n_epochs = len(np.unique(observations.astrometry.time[rows].jd))
+            times = observations.astrometry.time[rows].jd
+            n_epochs = len(np.unique(times)) if self._distinct_epochs else len(times)
             if 2 * n_epochs < 7 and not primary_rv and name not in spectroscopic:
                 raise ModelError(
                     f"{_files(observations.astrometry.file[rows])}: "

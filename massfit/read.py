@@ -41,6 +41,7 @@ from astropy.time.formats import TimeNumeric, TimeString
 
 from .errors import ConfigError, InputError
 from .observations import AstrometryData, Observations, Rejection, VelocityData
+from .timescales import LEAP_SECOND_NOTE, quiet_leap_seconds
 
 __all__ = ["read_observations", "read_table"]
 
@@ -256,10 +257,13 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
     observations = Observations(primary=options.primary)
     groups: dict[str, list] = {"astrometry": [], "velocities": []}
     columns: set[str] = set()
-    for file in _file_names(paths):
-        group, rows, names = _read_one(file, options, observations)
-        groups[group].append(rows)
-        columns.update(names)
+    with quiet_leap_seconds() as leap_seconds:
+        for file in _file_names(paths):
+            group, rows, names = _read_one(file, options, observations)
+            groups[group].append(rows)
+            columns.update(names)
+    if leap_seconds.count:
+        observations.notes.append(LEAP_SECOND_NOTE)
     # One mapping may serve every kind of file, so a column massfit reads may be absent;
     # any other name that no file has is a slip (east_er for east_err) and is refused.
     unknown = [name for name in options.units if name not in columns | _UNIT_COLUMNS]

@@ -181,6 +181,7 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
     sensitivity = prior_sensitivity(model, chain.samples)
     warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
     warnings += [_modes_warning(m) for m in modes]
+    warnings += list(getattr(model.observations, "notes", []))
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
             f"the central mass depends on the prior: with a second prior "

@@ -209,3 +209,26 @@ def test_a_symlink_loop_in_a_batch_folder(tmp_path):
     assert proc.returncode == 3 and "Traceback" not in proc.stderr, proc.stderr
     results = (tmp_path / "b" / "results.ecsv").read_text()
     assert results.count("cannot read the config file") == 2
+
+
+def test_future_utc_is_converted_once_with_a_note_and_no_warning(tmp_path):
+    import massfit
+    from massfit.timescales import LEAP_SECOND_NOTE
+
+    # ISO dates of 2061-2063 in UTC: past any leap-second table, which ERFA flags as a
+    # "dubious year" (ERFA's dat(): more than a few years past the table's release).
+    rows = [(f"206{1 + k // 4}-0{1 + 2 * (k % 4)}-15T00:00:00", "Wren", 80.0 - 3 * k,
+             30.0 + 2 * k, 0.5, 0.5) for k in range(8)]
+    path = _plain_csv(tmp_path, rows)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        obs = massfit.read_observations(path, time_format="isot", time_scale="utc",
+                                        units={"east": "mas", "north": "mas",
+                                               "east_err": "mas", "north_err": "mas"})
+    assert not [w for w in caught if "dubious" in str(w.message)]
+    assert obs.notes == [LEAP_SECOND_NOTE]
+    # Negative control: TDB dates need no leap seconds and get no note.
+    tdb = massfit.read_observations(path, time_format="isot", time_scale="tdb",
+                                    units={"east": "mas", "north": "mas",
+                                           "east_err": "mas", "north_err": "mas"})
+    assert tdb.notes == []
