@@ -21,9 +21,13 @@ workers there need massfit installed and the input files on a path they can read
 
 from __future__ import annotations
 
+import contextlib
+import hashlib
 import json
 import os
+import signal
 import sys
+import threading
 import time
 import zlib
 from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -32,11 +36,15 @@ from pathlib import Path
 
 import numpy as np
 
+from massfit.config.fit import real_path
 from massfit.errors import ConfigError, MassfitError
 
-__all__ = ["BatchJob", "collect_jobs", "fit_job", "run_batch", "RESULTS_FILE"]
+__all__ = ["BatchJob", "collect_jobs", "fit_job", "run_batch", "folder_name",
+           "job_fingerprint", "RESULTS_FILE"]
 
 RESULTS_FILE = "results.ecsv"
+#: Status of a system an interrupted batch did not finish.
+NOT_RUN = "not run"
 SYSTEMS_DIR = "systems"
 _TABLE_OPTIONAL = ("config", "parallax", "parallax_err", "distance", "seed")
 _INTERVAL_KEYS = ("median", "lower_68", "upper_68", "lower_95", "upper_95")
@@ -95,8 +103,11 @@ def collect_jobs(source, out_dir, *, seed=None, sampler=None, plots=False) -> li
     -------
     list of BatchJob
     """
+    from massfit.sample.chain import check_seed
+
+    check_seed(seed, key="--seed")
     source = Path(source)
-    systems_dir = Path(out_dir).resolve() / SYSTEMS_DIR
+    systems_dir = real_path(out_dir) / SYSTEMS_DIR
     if source.is_dir():
         entries = _from_folder(source)
     elif source.is_file():
@@ -115,13 +126,14 @@ def collect_jobs(source, out_dir, *, seed=None, sampler=None, plots=False) -> li
             overrides["seed"] = int(entry["seed"])
         elif seed is not None and not _config_has_seed(entry.get("config")):
             overrides["seed"] = system_seed(seed, name)
-        jobs.append(BatchJob(system=name, output=str(systems_dir / _folder_name(name)),
+        jobs.append(BatchJob(system=name, output=str(systems_dir / folder_name(name)),
                              config=entry.get("config"), files=entry.get("files", []),
                              distance=entry.get("distance", {}), sampler=overrides,
                              plots=plots))
     if not jobs:
         raise ConfigError("the batch lists no systems (a folder needs *.toml configs, a "
                           "table needs rows)", key=str(source))
+    _refuse_shared_folders(jobs, source)
     return jobs
 
 
@@ -136,21 +148,43 @@ def _config_has_seed(config):
         return False
     from massfit.config.fit import load_config
 
-    return load_config(config).sampler.seed is not None
+    try:
+        return load_config(config).sampler.seed is not None
+    except MassfitError:
+        return False  # the system fails on its own, with this reason, when it is fitted
 
 
-def _folder_name(name):
+def folder_name(name: str) -> str:
+    """The system's folder name: the name itself where it is safe, else a safe slug
+    with a short hash of the full name (so ``a/b`` and ``a_b`` never share a folder)."""
     safe = "".join(c if c.isalnum() or c in "-_.+" else "_" for c in name).strip(".")
-    return safe or "system"
+    if safe == name:
+        return name
+    digest = hashlib.sha256(name.encode("utf-8")).hexdigest()[:10]
+    return f"{safe or 'system'}-{digest}"
+
+
+def _refuse_shared_folders(jobs, source):
+    # Case-insensitive file systems would still put "Wren" and "wren" in one folder.
+    seen = {}
+    for job in jobs:
+        folder = Path(job.output).name.casefold()
+        if folder in seen:
+            raise ConfigError(f"systems '{seen[folder]}' and '{job.system}' would share "
+                              f"the output folder '{Path(job.output).name}' (names that "
+                              f"differ only in case); rename one", key=str(source))
+        seen[folder] = job.system
 
 
 def _from_folder(folder):
     configs = sorted(folder.glob("*.toml"))
-    return [{"system": path.stem, "config": str(path.resolve())} for path in configs]
+    return [{"system": path.stem, "config": str(real_path(path))} for path in configs]
 
 
 def _from_table(path):
     from astropy.table import Table
+
+    from massfit.sample.chain import check_seed
 
     fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
     try:
@@ -167,12 +201,12 @@ def _from_table(path):
         raise ConfigError(f"unknown column(s) {sorted(unknown)} in the table of systems; "
                           f"accepted: system, files, {', '.join(_TABLE_OPTIONAL)}",
                           key=str(path))
-    base = path.parent.resolve()
+    base = real_path(path.parent)
     entries = []
     for k, row in enumerate(table):
         where = f"{path}, row {k + 1}"
         name = _cell(row, "system")
-        files = [str((base / part.strip()).resolve())
+        files = [str(real_path(base / part.strip()))
                  for part in (_cell(row, "files") or "").split(";") if part.strip()]
         if not name:
             raise ConfigError("a system needs a name", key=where)
@@ -180,7 +214,7 @@ def _from_table(path):
         if not files and not config:
             raise ConfigError(f"system '{name}' lists no files and no config", key=where)
         entry = {"system": name, "files": files,
-                 "config": str((base / config).resolve()) if config else None,
+                 "config": str(real_path(base / config)) if config else None,
                  "distance": {key: _cell(row, key) for key in
                               ("parallax", "parallax_err", "distance") if _cell(row, key)}}
         seed = _cell(row, "seed")
@@ -188,8 +222,8 @@ def _from_table(path):
             try:
                 entry["seed"] = int(seed)
             except ValueError:
-                raise ConfigError(f"seed '{seed}' is not a whole number",
-                                  key=f"{where}, column 'seed'") from None
+                entry["seed"] = seed
+            check_seed(entry["seed"], key=f"{where}, column 'seed'")
         entries.append(entry)
     return entries
 
@@ -246,6 +280,7 @@ def _fit_and_save(job):
     sampler = replace(setup.sampler, progress=False, **job.sampler)
     record = run_record(argv=["massfit batch", job.system], config=setup.source,
                         files=setup.files)
+    record["batch_job"] = job_fingerprint(job)
     result = fit(observations, system, sampler=sampler, record=record)
     result.save(job.output, plots=job.plots and setup.plots, force=True)
     return result.summary
@@ -282,14 +317,54 @@ def failed_row(job: BatchJob, reason: str, seconds: float) -> dict:
     return row
 
 
+def job_fingerprint(job: BatchJob) -> dict:
+    """What decides a system's result: its settings and the bytes of every input.
+
+    Stored in the system's run.json (``batch_job``); a rerun reuses a result only where
+    the stored fingerprint equals the job's (a changed seed, option, config or data
+    file is fitted again).
+    """
+    from massfit.config.fit import load_config
+    from massfit.write.run_record import sha256
+
+    files = list(job.files)
+    if job.config is not None and not files:
+        try:
+            files = [str(path) for path in load_config(job.config).files]
+        except MassfitError:
+            files = []  # the fit fails on its own and says why
+    hashes = {}
+    for path in ([job.config] if job.config else []) + files:
+        try:
+            hashes[str(path)] = sha256(path)
+        except OSError:
+            hashes[str(path)] = None
+    fingerprint = {"system": job.system, "config": job.config, "files": files,
+                   "sha256": hashes, "distance": job.distance, "sampler": job.sampler,
+                   "plots": job.plots}
+    return json.loads(json.dumps(fingerprint))  # as it reads back from run.json
+
+
+def not_run_row(job: BatchJob) -> dict:
+    """The results-table row of a system the batch stopped before fitting."""
+    row = _row_base(job, 0.0)
+    row.update(status=NOT_RUN, failure="the batch was interrupted before this system "
+                                        "finished")
+    return row
+
+
 def _finished_row(job):
-    path = Path(job.output) / "summary.json"
-    if not path.is_file():
+    folder = Path(job.output)
+    if not (folder / "summary.json").is_file():
         return None
     try:
-        summary = json.loads(path.read_text())
+        summary = json.loads((folder / "summary.json").read_text())
+        record = json.loads((folder / "run.json").read_text())
+        if record.get("batch_job") != job_fingerprint(job):
+            return None  # another seed, option or input: fit it again
         row = result_row(job, summary, 0.0)
-    except (OSError, ValueError, KeyError, TypeError):
+        row["seed"] = int(record["seed"])
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
         return None  # unreadable: fit it again
     row["seconds"] = float(summary["diagnostics"].get("sampling_seconds", 0.0))
     return row
@@ -342,6 +417,13 @@ def run_batch(jobs, out_dir, *, workers=None, scheduler=None, progress=None,
                 bar.update(1)
                 failed = sum(r["status"] == "failed" for r in rows.values())
                 bar.set_postfix_str(f"{failed} failed" if failed else "")
+    except KeyboardInterrupt:
+        # The systems done so far keep their rows; the others are listed as not run
+        # (a rerun fits them), and the caller hears of the interruption.
+        for job in jobs:
+            rows.setdefault(job.system, not_run_row(job))
+        _write_table(out, jobs, rows)
+        raise
     finally:
         if bar is not None:
             bar.close()
@@ -361,16 +443,61 @@ def _execute(jobs, workers, scheduler):
                           key="--workers")
     import multiprocessing
 
+    context = multiprocessing.get_context("spawn")
+    stop = context.Event()
     # One thread per worker process: the workers are the parallelism, and threaded
     # BLAS inside each would only fight over the same cores.
     with _single_threaded_children():
-        pool = ProcessPoolExecutor(max_workers=min(n, len(jobs)),
-                                   mp_context=multiprocessing.get_context("spawn"))
-    with pool:
-        futures = {pool.submit(fit_job, job): job for job in jobs}
+        pool = ProcessPoolExecutor(max_workers=min(n, len(jobs)), mp_context=context,
+                                   initializer=_worker_setup, initargs=(os.getpid(), stop))
+    finished = False
+    others = set(multiprocessing.active_children())
+    try:
+        with _sigint_ignored():  # the workers start here, and inherit the ignoring
+            futures = {pool.submit(fit_job, job): job for job in jobs}
+        workers = set(multiprocessing.active_children()) - others
         for future in as_completed(futures):
             job = futures[future]
             yield job, _outcome(job, future)
+        finished = True
+    finally:
+        if not finished:  # interrupted (or the caller stopped): end the running fits now
+            stop.set()
+            for process in workers:
+                process.terminate()
+        pool.shutdown(wait=True, cancel_futures=not finished)
+
+
+@contextlib.contextmanager
+def _sigint_ignored():
+    """Ignore Ctrl-C while worker processes start: an ignored signal stays ignored in a
+    new Python process from its first line, so a Ctrl-C never lands in a worker's
+    imports (the batch itself is told, through ``stop``)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _worker_setup(parent: int, stop) -> None:
+    """In each worker: leave Ctrl-C to the batch, and die with it.
+
+    The batch sets ``stop`` when interrupted; a batch killed outright cannot, so the
+    worker also leaves as soon as its parent process is gone.
+    """
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+    def watch():
+        while not stop.wait(0.2):
+            if os.getppid() != parent:
+                break
+        os._exit(1)
+
+    threading.Thread(target=watch, name="massfit-batch-watch", daemon=True).start()
 
 
 def _execute_dask(jobs, scheduler):
@@ -395,6 +522,7 @@ def _execute_dask(jobs, scheduler):
             job = futures[future]
             yield job, _outcome(job, future)
     finally:
+        client.cancel([future for future in futures if not future.done()])
         if own:
             client.close()
 

@@ -49,18 +49,29 @@ def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefi
             raise ConfigError("a parallax error needs a parallax",
                               key=f"{key_prefix}parallax-err")
         return None
-    plx = parse_quantity(parallax, expect=u.mas, key=f"{key_prefix}parallax")
-    value = float(plx.to_value(u.mas))
+    value = _angle_mas(parallax, f"{key_prefix}parallax")
     if value <= 0:
         raise ConfigError("the parallax must be positive", key=f"{key_prefix}parallax")
     if parallax_err is None:
         return Fixed(value)
-    err = float(parse_quantity(parallax_err, expect=u.mas,
-                               key=f"{key_prefix}parallax-err").to_value(u.mas))
+    err = _angle_mas(parallax_err, f"{key_prefix}parallax-err")
     if err <= 0:
         raise ConfigError("the parallax error must be positive",
                           key=f"{key_prefix}parallax-err")
     return Normal(value, err, low=0.0)
+
+
+def _angle_mas(text, key):
+    """A parallax (or its error) in mas; a length is refused, not read as a distance."""
+    import astropy.units as u
+
+    from massfit.constants import parse_quantity
+
+    quantity = parse_quantity(text, expect=u.mas, key=key)
+    if not quantity.unit.is_equivalent(u.mas):
+        raise ConfigError(f"'{text}' is not an angle; a parallax is an angle such as "
+                          f"'41.3 mas' (a distance goes in distance)", key=key)
+    return float(quantity.to_value(u.mas))
 
 
 def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
@@ -110,7 +121,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
                                        check_every=check_every,
                                        progress=progress).items() if v is not None}
     settings = replace(settings, **overrides)
-    _check_settings(settings)
+    settings.check()
     if settings.seed is None and not resume:
         # Draw the seed here so that the run record always holds one that repeats it.
         settings = replace(settings, seed=int(np.random.SeedSequence().generate_state(1)[0]))
@@ -171,6 +182,7 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
     sensitivity = prior_sensitivity(model, chain.samples)
     warnings = _warnings(chain, start) + _velocity_warnings(model)
     warnings += [_modes_warning(m) for m in modes]
+    warnings += list(getattr(model.observations, "notes", []))
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
             f"the central mass depends on the prior: with a second prior "
@@ -195,17 +207,6 @@ def _modes_warning(found):
                  "measured and the chain is not converged")
     return text
 
-
-def _check_settings(settings):
-    if settings.walkers is not None and (not isinstance(settings.walkers, int)
-                                         or settings.walkers < 4):
-        raise ConfigError("walkers must be a whole number of at least 4", key="walkers")
-    if not isinstance(settings.max_steps, int) or settings.max_steps < 100:
-        raise ConfigError("max_steps must be a whole number of at least 100",
-                          key="max_steps")
-    if not isinstance(settings.check_every, int) or settings.check_every < 50:
-        raise ConfigError("check_every must be a whole number of at least 50",
-                          key="check_every")
 
 
 def _velocity_warnings(model):

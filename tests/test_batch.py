@@ -5,6 +5,7 @@ numbers only need to be *the same* as a single fit with the same seed, not conve
 """
 
 import json
+from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -141,3 +142,98 @@ def test_bad_batch_input_is_a_user_error(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "systems.csv" in err and "'system' column" in err
     assert main(["batch", str(tmp_path / "missing"), "--out", str(tmp_path / "o")]) == 2
+
+
+# ------------------------------------------------------------------ stopping a batch
+def _long_batch(systems, tmp_path):
+    """A batch process whose fits would run for minutes, and its worker processes."""
+    import os
+    import subprocess
+    import sys
+    import time
+
+    psutil = pytest.importorskip("psutil")
+    root, _ = systems
+    configs = tmp_path / "long"
+    configs.mkdir()
+    for name in ("Arlo", "Brisk", "Cinder"):
+        (configs / f"{name}.toml").write_text(
+            f'[data]\nfiles = ["{root / "Arlo" / "Arlo.ecsv"}"]\n[sampler]\n'
+            f'max_steps = 1000000\ncheck_every = 1000000\nseed = 3\n')
+    proc = subprocess.Popen([sys.executable, "-m", "massfit", "batch", str(configs), "--out",
+                             str(tmp_path / "b"), "--workers", "2"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True, env={**os.environ, "MPLBACKEND": "Agg"})
+    parent, workers = psutil.Process(proc.pid), []
+    deadline = time.monotonic() + 240
+    while len(workers) < 2 and time.monotonic() < deadline:
+        workers = [child for child in parent.children(recursive=True)
+                   if "spawn_main" in " ".join(child.cmdline())]
+        time.sleep(0.2)
+    assert len(workers) == 2, "the batch started no workers"
+    time.sleep(1.0)
+    return proc, workers, psutil
+
+
+def test_ctrl_c_stops_a_batch_and_writes_what_is_done(systems, tmp_path):
+    import os
+    import signal
+
+    proc, workers, psutil = _long_batch(systems, tmp_path)
+    os.killpg(proc.pid, signal.SIGINT)  # what Ctrl-C in a terminal sends
+    _, err = proc.communicate(timeout=240)
+    assert proc.returncode == 130
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1 and "interrupted" in lines[0] and "Traceback" not in err, err
+    table = Table.read(tmp_path / "b" / batch.RESULTS_FILE, format="ascii.ecsv")
+    assert sorted(table["system"]) == ["Arlo", "Brisk", "Cinder"]
+    assert set(table["status"]) == {batch.NOT_RUN}
+    _, alive = psutil.wait_procs(workers, timeout=60)
+    assert not alive, "a worker outlived the interrupted batch"
+
+
+def test_workers_die_with_a_killed_batch(systems, tmp_path):
+    proc, workers, psutil = _long_batch(systems, tmp_path)
+    proc.kill()
+    proc.wait(timeout=60)
+    _, alive = psutil.wait_procs(workers, timeout=120)
+    assert not alive, "a worker outlived the killed batch"
+
+
+# ------------------------------------------------------------------ folders and reruns
+def test_system_folders_are_one_per_name(tmp_path):
+    data = tmp_path / "x.ecsv"
+    data.write_text("")
+    listing = tmp_path / "systems.csv"
+    listing.write_text("system,files\na/b,x.ecsv\na_b,x.ecsv\n../up,x.ecsv\n")
+    jobs = batch.collect_jobs(listing, tmp_path / "out")
+    folders = [job.output for job in jobs]
+    assert len(set(folders)) == 3
+    assert folders[1].endswith("/a_b")  # a safe name is kept as it is
+    for folder in folders:
+        assert Path(folder).parent == (tmp_path / "out" / "systems").resolve()
+    listing.write_text("system,files\nWren,x.ecsv\nwren,x.ecsv\n")
+    with pytest.raises(massfit.errors.ConfigError, match="share the output folder"):
+        batch.collect_jobs(listing, tmp_path / "out")
+
+
+def test_a_changed_seed_is_fitted_again(systems, tmp_path, monkeypatch):
+    root, _ = systems
+    calls = []
+
+    def in_process(todo, workers, scheduler):
+        calls.extend(job.system for job in todo)
+        return ((job, batch.fit_job(job)) for job in todo)
+
+    monkeypatch.setattr(batch, "_execute", in_process)
+    listing = tmp_path / "systems.csv"
+    sampler = {"walkers": 16, "max_steps": 200, "check_every": 100}
+    results = {}
+    for seed in (5, 5, 6):
+        listing.write_text(f"system,files,seed\nArlo,{root / 'Arlo' / 'Arlo.ecsv'},{seed}\n")
+        jobs = batch.collect_jobs(listing, tmp_path / "out", sampler=sampler)
+        table = batch.run_batch(jobs, tmp_path / "out", progress=False)
+        results.setdefault(seed, []).append(float(table["mass_median"][0]))
+        assert int(table["seed"][0]) == seed
+    assert calls == ["Arlo", "Arlo"]  # the same seed is read back, a new one refitted
+    assert results[5][0] == results[5][1] != results[6][0]

@@ -2,6 +2,8 @@
 
 import filecmp
 import json
+import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -28,6 +30,23 @@ def test_package_copy_agrees_with_example_obs(name):
         assert filecmp.cmp(here / file, there / file, shallow=False), file
 
 
+_NUMBER = re.compile(r"([-+]?(?:\d+\.\d*|\.\d+|\d+)(?:[eE][-+]?\d+)?)")
+
+
+def same_but_last_digits(first: str, second: str, rtol: float = 1e-12) -> bool:
+    """The texts agree word for word, and number for number to ``rtol``.
+
+    numpy and astropy releases may round the last binary digit of a simulated value
+    differently (1e-16 relative); anything larger is a change of the example.
+    """
+    a, b = _NUMBER.split(first), _NUMBER.split(second)
+    if len(a) != len(b):
+        return False
+    # re.split with a group alternates text (even indices) and numbers (odd indices).
+    return all(x == y if k % 2 == 0 else math.isclose(float(x), float(y), rel_tol=rtol)
+               for k, (x, y) in enumerate(zip(a, b)))
+
+
 def test_scenarios_regenerate_every_file(tmp_path, monkeypatch):
     import massfit.scenarios.examples as scenarios
 
@@ -35,8 +54,14 @@ def test_scenarios_regenerate_every_file(tmp_path, monkeypatch):
     scenarios.write_all(tmp_path / "obs")
     for name in SCENARIOS:
         for path in (EXAMPLES / name).iterdir():
-            assert filecmp.cmp(tmp_path / "obs" / name / path.name, path, shallow=False), path
-            assert filecmp.cmp(tmp_path / "pkg" / name / path.name, path, shallow=False), path
+            kept = path.read_text()
+            for again in (tmp_path / "obs" / name / path.name, tmp_path / "pkg" / name /
+                          path.name):
+                assert same_but_last_digits(again.read_text(), kept), path
+    # Negative control: a change in the sixth digit, or in a word, is seen.
+    assert not same_but_last_digits("east 56715.91074", "east 56715.91075")
+    assert not same_but_last_digits("body Pell 1.0", "body Doss 1.0")
+    assert same_but_last_digits("x 114621.04544112939", "x 114621.04544112936")
 
 
 def test_mirren_readme_and_config_state_the_truth():

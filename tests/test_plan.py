@@ -18,8 +18,6 @@ from massfit.plan.planner import (AssumedSystem, Posterior, Schedule, _EnsembleI
                           _FisherInformation, fit_scatter, forecast_precision,
                           plan_observations, simulated_observations)
 
-warnings.filterwarnings("ignore", message=".*dubious year")
-
 
 def calder(parallax_err=0.05 * u.mas):
     # A 0.9 M_sun star at 40 mas with a 6-year companion (a = 3.2 au = 128 mas).

@@ -117,3 +117,51 @@ def test_dates_are_printed_in_full():
 
     jd = dict(block(2461320.8581234, 0.0000025, 0.0000025), unit="JD (TDB)")
     assert format_interval(jd) == "2461320.8581234 +/- 0.0000025"
+
+
+# A body name made of every character TeX treats specially in text, and "^^5c", which
+# TeX reads as a backslash (so ^^5cinput{...} would read a file while typesetting).
+TEX_HOSTILE = "\\%_&#^$~{}^^5cinput{x}"
+# The escapes of the LaTeX manual's list of special characters (Lamport, "LaTeX: A
+# Document Preparation System", sec. 2.2.1; \textbackslash, \textasciicircum and
+# \textasciitilde from the LaTeX2e text commands of the same book, from memory).
+TEX_ESCAPED = (r"\textbackslash{}\%\_\&\#\textasciicircum{}\$\textasciitilde{}\{\}"
+               r"\textasciicircum{}\textasciicircum{}5cinput\{x\}")
+
+
+def _hostile_summary():
+    interval = dict(block(1.234, 0.012, 0.013), unit="d")
+    return {"central_gm": dict(block(1.3e11, 1e9, 1e9), unit="km3 / s2"),
+            "central_mass": dict(block(2e30, 1e28, 1e28), unit="kg"),
+            "central_mass_solar": dict(block(1.0, 0.01, 0.01), unit="M_sun"),
+            "companions": {TEX_HOSTILE: {"period": interval,
+                                         "mass_sin3i": dict(interval, unit="M_sun")}}}
+
+
+def test_every_tex_special_character_is_escaped():
+    from massfit.write.tables import tex_escape
+
+    assert tex_escape(TEX_HOSTILE) == TEX_ESCAPED
+    text = latex_table(_hostile_summary(), mass_unit="Msun")
+    assert rf"\textit{{Companion {TEX_ESCAPED}}}" in text
+    assert "^^" not in text and "5cinput{" not in text
+    # The row's words are text too ("sin^3" must not reach TeX raw).
+    assert r"sin\textasciicircum{}3 i" in text
+
+
+def test_the_escaped_table_compiles(tmp_path):
+    import shutil
+    import subprocess
+
+    latex, kpsewhich = shutil.which("pdflatex"), shutil.which("kpsewhich")
+    if latex is None or kpsewhich is None or not subprocess.run(
+            [kpsewhich, "booktabs.sty"], capture_output=True, text=True).stdout.strip():
+        pytest.skip("no pdflatex with booktabs here; the escaped string is checked "
+                    "exactly above")
+    document = (r"\documentclass{article}\usepackage{booktabs}\begin{document}"
+                + latex_table(_hostile_summary(), mass_unit="Msun") + r"\end{document}")
+    (tmp_path / "t.tex").write_text(document)
+    proc = subprocess.run([latex, "-interaction=nonstopmode", "-no-shell-escape", "t.tex"],
+                          cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stdout[-2000:]
+    assert "Undefined control sequence" not in proc.stdout

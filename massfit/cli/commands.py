@@ -294,16 +294,20 @@ def _units_option(text):
     for part in text.split(","):
         if "=" not in part:
             raise ConfigError(f"'{part}' is not COLUMN=UNIT", key="--units")
-        col, unit = part.split("=", 1)
-        units[col.strip()] = unit.strip()
+        col, unit = (piece.strip() for piece in part.split("=", 1))
+        if col in units:
+            raise ConfigError(f"column '{col}' is given twice ({col}={units[col]} and "
+                              f"{col}={unit}); give each column one unit", key="--units")
+        units[col] = unit
     return units
 
 
 def _setup_from_args(args):
     from massfit.config.fit import FitSetup, load_config
     from massfit.model.orbit_model import SystemSpec
-    from massfit.sample.chain import SamplerSettings
+    from massfit.sample.chain import SamplerSettings, check_seed
 
+    check_seed(args.seed, key="--seed")
     inputs = [Path(p) for p in args.inputs]
     if len(inputs) == 1 and inputs[0].suffix.lower() == ".toml":
         setup = load_config(inputs[0])
@@ -513,19 +517,26 @@ def _compare_with_truth(result, truth):
 
 
 def _cmd_batch(args):
-    from massfit.batch import collect_jobs, run_batch
+    from massfit.batch import NOT_RUN, RESULTS_FILE, collect_jobs, run_batch
 
     overrides = {k: getattr(args, k) for k in ("walkers", "max_steps")
                  if getattr(args, k) is not None}
     jobs = collect_jobs(args.source, args.out, seed=args.seed, sampler=overrides,
                         plots=args.plots)
-    table = run_batch(jobs, args.out, workers=args.workers, scheduler=args.scheduler,
-                      rerun=args.rerun)
+    results = Path(args.out) / RESULTS_FILE
+    try:
+        table = run_batch(jobs, args.out, workers=args.workers, scheduler=args.scheduler,
+                          rerun=args.rerun)
+    except KeyboardInterrupt:
+        print(f"massfit batch: interrupted; {results} lists the systems finished and "
+              f"marks the others '{NOT_RUN}' (run the same command to fit them)",
+              file=sys.stderr)
+        return EXIT_INTERRUPTED
     counts = {status: int(sum(table["status"] == status))
               for status in ("converged", "not converged", "failed")}
     print(f"massfit batch: {len(table)} system(s): {counts['converged']} converged, "
           f"{counts['not converged']} not converged, {counts['failed']} failed; "
-          f"table in {Path(args.out) / 'results.ecsv'}")
+          f"table in {results}")
     for row in table:
         if row["status"] == "failed":
             print(f"  {row['system']}: {row['failure']}", file=sys.stderr)

@@ -59,6 +59,7 @@ Layout (every key optional except ``data.files``)::
 
 from __future__ import annotations
 
+import os
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -127,6 +128,12 @@ class FitSetup:
     source: dict = field(default_factory=dict)
 
 
+def real_path(path) -> Path:
+    """The absolute path with symlinks followed; a symlink loop stays a path (reading it
+    then fails with a clean error) instead of raising as ``Path.resolve`` does."""
+    return Path(os.path.realpath(path))
+
+
 def load_config(path) -> FitSetup:
     """Read and check a TOML config; paths in it are relative to the file."""
     path = Path(path)
@@ -169,7 +176,7 @@ def _parse(raw, base, file):
         if not isinstance(name, str):
             raise ConfigError("each file is a string path", key=f"data.files[{k}]",
                               file=file)
-    files = [(base / name).resolve() for name in data["files"]]
+    files = [real_path(base / name) for name in data["files"]]
     read_options = {key: data[key] for key in ("time_format", "time_scale", "units",
                                                "skip_bad_rows") if key in data}
     for col, unit in read_options.get("units", {}).items():
@@ -181,9 +188,10 @@ def _parse(raw, base, file):
     _dynamics(system, raw.get("dynamics", {}), file)
     read_options["primary"] = system.primary
     sampler = SamplerSettings(**raw.get("sampler", {}))
+    sampler.check(key_prefix="sampler.", file=file)
     out = raw.get("output", {})
     return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
-                    output=(base / out["folder"]).resolve() if "folder" in out else None,
+                    output=real_path(base / out["folder"]) if "folder" in out else None,
                     plots=out.get("plots", True),
                     replace_existing=out.get("replace_existing", False), source=raw)
 

@@ -47,10 +47,11 @@ from pathlib import Path
 
 import astropy.units as u
 
-from massfit.config.fit import _check_keys, read_toml
+from massfit.config.fit import _check_keys, read_toml, real_path
 from massfit.constants import parse_quantity
 from massfit.errors import ConfigError
 from massfit.plan.planner import AssumedSystem, Schedule, _parse_time
+from massfit.sample.chain import check_seed
 
 __all__ = ["PlanSetup", "load_plan_config", "parse_plan_config", "plan_setup",
            "schedule_from_spec"]
@@ -118,7 +119,7 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
     if "assumed" in raw:
         source = _assumed(raw["assumed"], times, file)
     else:
-        source = (base / raw["fit_folder"]).resolve()
+        source = real_path(base / raw["fit_folder"])
     epochs = raw.get("epochs", {})
     error = epochs.get("error")
     unit = epochs.get("error_unit")
@@ -131,11 +132,12 @@ def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
         observed = schedule_from_spec(epochs["observed"], "epochs.observed", base, times,
                                       error, file, unit)
     check = raw.get("check", {})
+    check_seed(check.get("seed"), key="check.seed", file=file)
     out = raw.get("output", {})
     return PlanSetup(source=source, candidates=candidates, observed=observed,
                      n_next=epochs.get("next", 5), check=check.get("schedules", 0),
                      check_steps=check.get("max_steps", 2000), seed=check.get("seed", 0),
-                     output=(base / out["folder"]).resolve() if "folder" in out else None,
+                     output=real_path(base / out["folder"]) if "folder" in out else None,
                      plots=out.get("plots", True),
                      replace_existing=out.get("replace_existing", False), raw=raw)
 

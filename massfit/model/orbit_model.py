@@ -299,6 +299,11 @@ class OrbitModel:
         Validated observations (:func:`massfit.read_observations`).
     spec : SystemSpec, optional
         Assumptions; defaults for everything not stated.
+    distinct_epochs : bool, optional
+        Count a companion's astrometric epochs as distinct times (the default: rows at
+        one time measure one position) when checking that its data can fix an orbit.
+        The planner's Fisher forecast passes False: it asks of any schedule how well it
+        fixes the mass, and says "undetermined" itself.
 
     Notes
     -----
@@ -306,8 +311,10 @@ class OrbitModel:
     log-posterior per walker (``-inf`` outside the prior's support).
     """
 
-    def __init__(self, observations: Observations, spec: SystemSpec | None = None):
+    def __init__(self, observations: Observations, spec: SystemSpec | None = None, *,
+                 distinct_epochs: bool = True):
         self.observations = observations
+        self._distinct_epochs = distinct_epochs
         self.spec = spec if spec is not None else SystemSpec()
         if self.spec.trend not in TRENDS:
             raise ConfigError(f"unknown trend {self.spec.trend!r}; accepted: "
@@ -401,6 +408,13 @@ class OrbitModel:
             # Only the primary's velocities: the companions are those listed, or one.
             names = list(self.spec.companions) or ["companion"]
         primary_rv = velocities is not None and bool(np.any(velocities.body == primary))
+        # A listed companion without data is the first thing to say: an unlisted body
+        # in the data is often the same one under another name.
+        for name in self.spec.companions:
+            if name not in names:
+                raise ModelError(f"companion '{name}' is listed in the model ([companions."
+                                 f"{name}]) but no row of the data has body '{name}'; "
+                                 f"bodies in the data: {', '.join(names) or 'none'}")
         specs = {}
         for name in names:
             if name in self.spec.companions:
@@ -414,18 +428,17 @@ class OrbitModel:
                 comp = replace(comp, mass=DEFAULT_REFLEX_MASS_PRIOR if reflex
                                else Fixed(0.0))
             specs[name] = comp
-        for name in self.spec.companions:
-            if name not in specs:
-                raise ModelError(f"companion '{name}' is in the model but has no rows in "
-                                 f"the data")
         for name in astrometric:
-            n_rows = int(np.sum(observations.astrometry.body == name))
-            if 2 * n_rows < 7 and not primary_rv and name not in spectroscopic:
-                rows = observations.astrometry.body == name
+            rows = observations.astrometry.body == name
+            # Rows at one time are one epoch however many there are.
+            times = observations.astrometry.time[rows].jd
+            n_epochs = len(np.unique(times)) if self._distinct_epochs else len(times)
+            if 2 * n_epochs < 7 and not primary_rv and name not in spectroscopic:
                 raise ModelError(
                     f"{_files(observations.astrometry.file[rows])}: "
-                    f"companion '{name}' has {n_rows} astrometric epoch(s); an orbit "
-                    f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
+                    f"companion '{name}' has {n_epochs} astrometric epoch(s) (distinct "
+                    f"times) in {int(rows.sum())} row(s); an orbit and the central mass "
+                    f"need at least 4 (7 numbers for 7 unknowns)")
         return specs
 
     def _unlisted_body(self, observations, name):

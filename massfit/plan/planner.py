@@ -30,7 +30,6 @@ from __future__ import annotations
 
 import math
 import os
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -44,6 +43,8 @@ from massfit.errors import ConfigError, InputError, ModelError
 from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.read.observations import AstrometryData, Observations
 from massfit.priors import Fixed, Normal
+from massfit.sample.chain import check_seed
+from massfit.read.timescales import quiet_leap_seconds, tdb_jd
 
 __all__ = ["AssumedSystem", "Schedule", "Posterior", "PlanResult", "forecast_precision",
            "plan_observations", "read_posterior"]
@@ -128,7 +129,7 @@ class AssumedSystem:
         for name, el in self.companions.items():
             period = float(el["period"])
             t_ref = model.epoch_jd + model.reference_epoch(name)
-            mean_ref = 2 * np.pi * (t_ref - _tdb_jd(el["periapsis_time"])) / period
+            mean_ref = 2 * np.pi * (t_ref - tdb_jd(el["periapsis_time"])) / period
             values[name] = {"period": period, "ecc": float(el["ecc"]),
                             "omega": math.radians(el["omega"]),
                             "inc": math.radians(el["inc"]),
@@ -151,7 +152,7 @@ class AssumedSystem:
         for name in dict.fromkeys(names.tolist()):
             rows = names == name
             el = dict(self.companions[name], mass=self._companion_mass(name),
-                      periapsis_time=_tdb_jd(self.companions[name]["periapsis_time"]))
+                      periapsis_time=tdb_jd(self.companions[name]["periapsis_time"]))
             t = t_jd[rows]
             d = distance_pc[rows]
             has_d = np.isfinite(d) & (not length)
@@ -201,10 +202,7 @@ class Schedule:
         n = len(self.time)
         err = u.Quantity(self.error)
         self.error = u.Quantity(np.broadcast_to(err.value, (n,)).copy(), err.unit)
-        with warnings.catch_warnings():
-            # UTC of future dates has no leap-second table yet; astropy warns on each
-            # conversion. A second is far below any cadence that is planned.
-            warnings.filterwarnings("ignore", message=".*dubious year")
+        with quiet_leap_seconds():  # a second is far below any planned cadence
             #: JD (TDB) and ISO UTC of each epoch, converted once.
             self.tdb_jd = np.atleast_1d(self.time.tdb.jd).astype(float)
             self.utc_isot = np.atleast_1d(self.time.utc.isot).astype(str)
@@ -248,15 +246,14 @@ class Schedule:
         dt = parse_quantity(step, expect=u.day, key=f"{key_prefix}every").to_value(u.day)
         if dt <= 0:
             raise ConfigError("the cadence must be positive", key=f"{key_prefix}every")
-        span = float(_tdb_jd(t1) - _tdb_jd(t0))
+        span = float(tdb_jd(t1) - tdb_jd(t0))
         if span < 0:
             raise ConfigError("the schedule stops before it starts", key=f"{key_prefix}stop")
         n = int(math.floor(span / dt + 1e-9)) + 1
         if n > 20000:
             raise ConfigError(f"{n} epochs is more than the planner takes (20000); "
                               f"choose a longer cadence", key=f"{key_prefix}every")
-        with warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message=".*dubious year")
+        with quiet_leap_seconds():
             times = t0 + np.arange(n) * dt * u.day
         err = _error_quantity(error, f"{key_prefix}error")
         schedule = cls(times, err, bodies=bodies)
@@ -310,13 +307,6 @@ class Schedule:
                         lines=np.concatenate([self.lines, other.lines]))
 
 
-def _tdb_jd(time):
-    """JD (TDB) of a Time, without astropy's warning about future leap seconds."""
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message=".*dubious year")
-        return time.tdb.jd
-
-
 def _distance_pc(schedule):
     if schedule.distance is None:
         return np.full(len(schedule), np.nan)
@@ -340,8 +330,7 @@ def _parse_time(value, time_format, time_scale, *, key):
         raise ConfigError(f"the time {value!r} is a number: give its format (jd, mjd, "
                           f"jyear, ...) or write it as an ISO date", key=key)
     try:
-        with warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message=".*dubious year")
+        with quiet_leap_seconds():
             return Time(value, format=fmt, scale=time_scale)
     except (ValueError, TypeError) as exc:
         raise ConfigError(f"cannot read the time {value!r} ({exc}); write an ISO date such "
@@ -563,7 +552,7 @@ class _FisherInformation:
         if len(schedule) == 0:
             raise ConfigError("the schedule has no epochs", key=schedule.source)
         self.model = OrbitModel(simulated_observations(system, schedule, noise=False),
-                                system.spec())
+                                system.spec(), distinct_epochs=False)
         values = system.physical(self.model)
         self.theta = self.model.recentre(self.model.from_physical(values))
         if "central.log10_mass" not in self.model.names:
@@ -1250,6 +1239,7 @@ def plan_observations(source, candidates: Schedule, *, observed: Schedule | None
     if not isinstance(check_steps, int) or isinstance(check_steps, bool) or check_steps < 100:
         raise ConfigError("the check's step cap must be a whole number of at least 100",
                           key="--check-steps")
+    check_seed(seed, key="--seed")
     if len(candidates) == 0:
         raise ConfigError("there are no candidate epochs", key="--candidates")
     if isinstance(source, (str, os.PathLike)):

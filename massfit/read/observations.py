@@ -141,6 +141,9 @@ class Observations:
         For each file, the columns that were present but not used.
     primary : str
         The name under which the primary's own velocities are listed.
+    notes : list of str
+        What the reading did that a user should know and the rows do not show (UTC
+        dates converted outside the leap-second table); the fit's warnings repeat them.
     """
 
     astrometry: AstrometryData | None = None
@@ -150,6 +153,7 @@ class Observations:
     rejected: list = field(default_factory=list)
     unused_columns: dict = field(default_factory=dict)
     primary: str = "primary"
+    notes: list = field(default_factory=list)
 
     @property
     def rows_used(self) -> int:

@@ -41,6 +41,7 @@ from astropy.time.formats import TimeNumeric, TimeString
 
 from massfit.errors import ConfigError, InputError
 from massfit.read.observations import AstrometryData, Observations, Rejection, VelocityData
+from massfit.read.timescales import LEAP_SECOND_NOTE, quiet_leap_seconds
 
 __all__ = ["read_observations", "read_table"]
 
@@ -94,6 +95,9 @@ _OPTIONAL = {
     "polar": {"distance": (_DISTANCE,)},
     "rv": {},
 }
+#: Every column that takes a unit, in any kind of file.
+_UNIT_COLUMNS = frozenset(name for table in (*_SETS.values(), *_OPTIONAL.values())
+                          for name in table)
 _KIND_NAMES = {"cartesian": "east/north astrometry", "polar": "sep/pa astrometry",
                "rv": "radial velocities"}
 _ALWAYS = ("time", "body")
@@ -223,7 +227,9 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
         Units of columns, by column name, for files that do not carry them (plain CSV).
         Where an ECSV column has a unit in its header and ``units`` names the column
         too, the two must be the same unit (``mas`` and ``0.001 arcsec`` are); if they
-        conflict the read is refused rather than picking one. ECSV written from an
+        conflict the read is refused rather than picking one. One mapping may cover
+        every kind of file; a name that is neither a column of some file nor a column
+        massfit reads is refused (a misspelt column would otherwise go unused). ECSV written from an
         astropy QTable (Quantity columns, serialized in the header) is read the same
         way: each Quantity column's unit is that column's unit.
     skip_bad_rows : bool, optional
@@ -250,9 +256,21 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
     options = _options(time_format, time_scale, units, skip_bad_rows, primary)
     observations = Observations(primary=options.primary)
     groups: dict[str, list] = {"astrometry": [], "velocities": []}
-    for file in _file_names(paths):
-        group, rows = _read_one(file, options, observations)
-        groups[group].append(rows)
+    columns: set[str] = set()
+    with quiet_leap_seconds() as leap_seconds:
+        for file in _file_names(paths):
+            group, rows, names = _read_one(file, options, observations)
+            groups[group].append(rows)
+            columns.update(names)
+    if leap_seconds.count:
+        observations.notes.append(LEAP_SECOND_NOTE)
+    # One mapping may serve every kind of file, so a column massfit reads may be absent;
+    # any other name that no file has is a slip (east_er for east_err) and is refused.
+    unknown = [name for name in options.units if name not in columns | _UNIT_COLUMNS]
+    if unknown:
+        raise ConfigError(f"names column(s) {', '.join(map(repr, unknown))}, which no file "
+                          f"has and massfit does not read; the files' columns are "
+                          f"{', '.join(sorted(columns))}", key="units")
     merged = {group: _without_duplicates(_concatenate(parts), group, options,
                                          observations.rejected)
               for group, parts in groups.items()}
@@ -333,8 +351,9 @@ def _file_names(paths) -> list[str]:
 
 # ----------------------------------------------------------------------------- one file
 
-def _read_one(file: str, options: _Options, observations: Observations) -> tuple[str, dict]:
-    """Read one file, record what it contributes and return its usable rows."""
+def _read_one(file: str, options: _Options,
+              observations: Observations) -> tuple[str, dict, list[str]]:
+    """Read one file, record what it contributes; return its usable rows and columns."""
     cells = _split_file(file)
     kind = _kind(cells)
     group, rows, issues = _validated_rows(cells, kind, options)
@@ -343,7 +362,7 @@ def _read_one(file: str, options: _Options, observations: Observations) -> tuple
     observations.unused_columns[file] = [name for name in cells.names
                                          if name not in _used_columns(cells, kind)]
     _settle(issues, options, observations.rejected)
-    return group, rows
+    return group, rows, list(cells.names)
 
 
 def _split_file(file: str) -> _Cells:
@@ -447,6 +466,13 @@ def _csv_names(file: str, line: str, number: int) -> list[str]:
     if problem:
         raise InputError(f"the header {problem}", file=file, line=number)
     names = [token.strip() for token in tokens]
+    if not set(names) & set(_ALWAYS):
+        # Perhaps not a table at all (a path slip to some other file): say so without
+        # quoting it, as its first line may hold anything.
+        raise InputError("is not an observation table: its first line names no 'time' or "
+                         "'body' column (a CSV table starts with a line of column names "
+                         "such as time,body,east,north,east_err,north_err)", file=file,
+                         line=number)
     if "" in names:
         raise InputError(f"column {names.index('') + 1} of the header has no name",
                          file=file, line=number)
@@ -505,6 +531,12 @@ def _ecsv_cells(file: str, lines: list[str], comments: list[int], names_at: int,
     try:
         reader, empty = _ecsv_parse(head, [])
     except _AstropyRefused as exc:
+        # The YAML parser counts lines of the header text, not of the file: a tab (the
+        # usual culprit, which YAML refuses) is found and named at its own line.
+        tabbed = [index for index in comments if "\t" in lines[index]]
+        if tabbed:
+            raise InputError("holds a tab in the ECSV header; the header is YAML, which "
+                             "takes spaces only", file=file, line=tabbed[0] + 1) from None
         raise InputError(f"has a malformed ECSV header: {exc}", file=file) from None
     _require_rows(file, data)
     rows = [(index + 1, lines[index]) for index in data]
@@ -820,10 +852,11 @@ def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.nda
     if converted is None:
         rows = range(len(column))
     else:
-        scaled = converted * factor
-        with np.errstate(invalid="ignore"):
+        with np.errstate(invalid="ignore", over="ignore"):
+            scaled = converted * factor
             suspect = ~np.isfinite(converted) | ~np.isfinite(scaled)
             suspect |= _SUSPECT.get(check, lambda values: False)(converted)
+            suspect |= _out_of_range(scaled, check is _positive)
         out = np.where(suspect, np.nan, scaled)
         rows = np.flatnonzero(suspect).tolist()
     for row in rows:
@@ -832,13 +865,37 @@ def _numbers(cells: _Cells, issues: _Issues, name: str, factor: float) -> np.nda
             continue
         value, reason = _number(cell)
         reason = reason or check(value)
-        if reason is None and not math.isfinite(value * factor):
-            reason = "is too large to convert to massfit's internal units"
+        if reason is None:
+            reason = _range_problem(value, factor, check is _positive)
         if reason:
             issues.add(row, name, reason)
         else:
             out[row] = value * factor
     return out
+
+
+#: Largest magnitude, and smallest error or distance, in internal units (arcsec, au,
+#: rad, km/s, pc): squares and ratios of values within these stay finite doubles, and
+#: no measurement comes near either.
+_LARGEST = 1e100
+_SMALLEST = 1e-100
+
+
+def _out_of_range(scaled: np.ndarray, positive: bool) -> np.ndarray:
+    outside = np.abs(scaled) > _LARGEST
+    return outside | (scaled < _SMALLEST) if positive else outside
+
+
+def _range_problem(value: float, factor: float, positive: bool) -> str | None:
+    with np.errstate(over="ignore"):
+        scaled = float(np.float64(value) * factor)
+    if not math.isfinite(scaled) or abs(scaled) > _LARGEST:
+        return (f"is too large ({_shown(value)}): massfit takes magnitudes up to "
+                f"{_LARGEST:.0e} of its internal units")
+    if positive and scaled < _SMALLEST:
+        return (f"is too small ({_shown(value)}): an error or distance must be at least "
+                f"{_SMALLEST:.0e} of massfit's internal units")
+    return None
 
 
 def _as_floats(column: list) -> np.ndarray | None:
@@ -874,6 +931,12 @@ def _times(cells: _Cells, options: _Options, issues: _Issues) -> tuple[np.ndarra
         masked, issues,
         lambda row: f"{_shown(raw[row])} is not a valid time in format '{time_format}' "
                     f"and scale '{time_scale}'")
+
+
+_J2000_JD = 2451545.0
+#: Times further than this from J2000 are refused: their spans would make nonsense of
+#: the period search (periods up to 1e9 d), and no observation is that old.
+_TIME_RANGE_DAYS = 1e8
 
 
 def _native_time(cells: _Cells) -> Time:
@@ -922,8 +985,15 @@ def _tdb_dates(make: Callable[[list[int]], Time], masked: np.ndarray, issues: _I
     rows = np.flatnonzero(~masked).tolist()
     for done, time in _converted(make, rows, issues, why):
         dates[:, done] = np.array([time.jd1, time.jd2]).reshape(2, -1)
-    for row in np.flatnonzero(~np.isfinite(dates.sum(axis=0))):
+    jd = dates.sum(axis=0)
+    for row in np.flatnonzero(~np.isfinite(jd) & ~masked):
         issues.add(row, "time", "is not a finite time")
+    with np.errstate(invalid="ignore"):
+        far = np.abs(jd - _J2000_JD) > _TIME_RANGE_DAYS
+    for row in np.flatnonzero(far):
+        issues.add(row, "time", f"is JD {jd[row]:.6g} (TDB), more than {_TIME_RANGE_DAYS:.0e} "
+                                f"days (about 270 000 years) from J2000; massfit takes "
+                                f"times within that range")
     return dates[0], dates[1]
 
 

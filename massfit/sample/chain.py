@@ -19,7 +19,7 @@ import emcee
 import numpy as np
 import scipy.fft
 
-__all__ = ["SamplerSettings", "Chain", "run_sampler"]
+__all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed"]
 
 #: Required chain length in autocorrelation times.
 TAU_MULTIPLE = 50.0
@@ -55,9 +55,41 @@ class SamplerSettings:
     seed: int | None = None
     progress: bool | None = None
 
+    def check(self, *, key_prefix: str = "", file=None) -> None:
+        """Raise a ConfigError naming the key of the first setting massfit cannot use."""
+        from massfit.errors import ConfigError
+
+        limits = (("walkers", self.walkers, 4), ("max_steps", self.max_steps, 100),
+                  ("check_every", self.check_every, 50))
+        for name, value, least in limits:
+            if value is None and name == "walkers":
+                continue
+            if not isinstance(value, int) or isinstance(value, bool) or value < least:
+                raise ConfigError(f"{name} must be a whole number of at least {least}",
+                                  key=f"{key_prefix}{name}", file=file)
+        check_seed(self.seed, key=f"{key_prefix}seed", file=file)
+
     def n_walkers(self, n_dim: int) -> int:
         n = self.walkers if self.walkers is not None else max(32, 2 * n_dim + 2)
         return int(n + (n % 2))
+
+
+def check_seed(seed, *, key="seed", file=None) -> None:
+    """Refuse a seed numpy's SeedSequence cannot take (None is fine: a fresh seed).
+
+    Raises
+    ------
+    massfit.errors.ConfigError
+        For anything but None or a whole number of at least zero.
+    """
+    from massfit.errors import ConfigError
+
+    if seed is None:
+        return
+    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) \
+            or seed < 0:
+        raise ConfigError(f"the seed must be a whole number of at least 0 (got {seed!r})",
+                          key=key, file=file)
 
 
 @dataclass

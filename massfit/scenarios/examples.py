@@ -33,6 +33,7 @@ from astropy.time import Time
 
 from massfit.constants import GM_SUN_KM3_S2, MASS_UNITS
 from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.read.timescales import quiet_leap_seconds
 
 __all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "planning_system",
            "DEMO_DIR", "PACKAGE_DATA", "SCENARIOS"]
@@ -182,7 +183,8 @@ def mirren(seed=20261202):
     north = exact["north"].to_value(u.mas)
     sep_err, pa_err = 1.8, 0.25  # mas, deg
     polar = Table()
-    polar["time"] = Time(exact["time"].tdb.jd, format="jd", scale="tdb").tt.isot
+    with quiet_leap_seconds():
+        polar["time"] = Time(exact["time"].tdb.jd, format="jd", scale="tdb").tt.isot
     polar["body"] = exact["body"]
     polar["sep"] = np.round(np.hypot(east, north) + sep_err * rng.standard_normal(len(t_a)),
                             2) * u.mas

@@ -17,6 +17,7 @@ from astropy.time import Time
 
 from massfit.orbits import kepler
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
+from massfit.read.timescales import tdb_jd
 
 __all__ = ["Elements", "simulate_astrometry", "simulate_velocities", "write_scenario",
            "read_back"]
@@ -77,7 +78,7 @@ def simulate_astrometry(times, elements, central_mass, *, parallax=None, distanc
     rng = np.random.default_rng(seed)
     rows = []
     for name, t in times.items():
-        t_jd = t.tdb.jd
+        t_jd = tdb_jd(t)
         dist_pc = None
         if distance is not None:
             dist_pc = distance[name].to_value(u.pc)
@@ -150,11 +151,11 @@ def simulate_velocities(times, elements, central_mass, *, primary="primary",
     rng = np.random.default_rng(seed)
     err = error.to_value(u.km / u.s)
     scatter = np.hypot(err, jitter.to_value(u.km / u.s))
-    all_jd = np.concatenate([t.tdb.jd for t in times.values()])
+    all_jd = np.concatenate([tdb_jd(t) for t in times.values()])
     t_mid = float(np.mean(all_jd))
     rows = []
     for name, t in times.items():
-        t_jd = t.tdb.jd
+        t_jd = tdb_jd(t)
         v = gamma.to_value(u.km / u.s) + slope.to_value(u.km / u.s / u.day) * (t_jd - t_mid)
         for other, el in elements.items():
             vz = _orbit_au(el, t_jd, central_mass)[3] * KM_S_PER_AU_DAY

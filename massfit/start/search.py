@@ -377,7 +377,9 @@ def _candidate_periods(t, series, comp):
     min_period = max(low_p, 0.5 * spacing, span / 2e4 if span > 0 else low_p, 1e-3)
     max_period = min(high_p, 20.0 * span)
     periods = []
-    if span > 0 and min_period < span:
+    # A period prior entirely below the shortest period the search may look at leaves
+    # no band to search (f_max < f_min): the prior's own periods are tried below.
+    if span > 0 and min_period < min(span, max_period):
         f_min = 1.0 / min(max_period, 3.0 * span)
         f_max = 1.0 / min_period
         n_freq = int(min(2e5, 10 * span * (f_max - f_min) + 100))

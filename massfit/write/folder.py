@@ -89,13 +89,15 @@ def _check_place(out: Path, inputs, key):
         ancestor = ancestor.parent
     if not ancestor.is_dir():
         _refuse(out, f"cannot be made: '{ancestor}' is a file, not a folder", key)
-    resolved = out.resolve()
-    cwd = Path.cwd().resolve()
+    # os.path.realpath, not Path.resolve: a symlink loop among the inputs stays a path
+    # here and is reported by the reader, not raised as a RuntimeError.
+    resolved = Path(os.path.realpath(out))
+    cwd = Path(os.path.realpath(Path.cwd()))
     if resolved == cwd or resolved in cwd.parents:
         _refuse(out, "is the working folder or holds it; give a new folder for the output",
                 key)
     for path in inputs:
-        input_path = Path(path).resolve()
+        input_path = Path(os.path.realpath(path))
         if resolved == input_path or resolved in input_path.parents:
             _refuse(out, f"holds the input '{path}'; give a new folder for the output",
                     key)

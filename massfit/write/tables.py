@@ -117,9 +117,17 @@ def _groups(rows):
             yield row.group, False, row
 
 
-def _tex_escape(text):
-    return (text.replace("\\", r"\textbackslash{}").replace("_", r"\_")
-            .replace("&", r"\&").replace("%", r"\%").replace("#", r"\#"))
+#: Every character TeX treats specially in text, as text (one pass: no escape is
+#: escaped again). ``^^5c`` would otherwise be read by TeX as a backslash.
+_TEX_SPECIAL = str.maketrans({
+    "\\": r"\textbackslash{}", "{": r"\{", "}": r"\}", "$": r"\$", "&": r"\&",
+    "#": r"\#", "%": r"\%", "_": r"\_", "^": r"\textasciicircum{}",
+    "~": r"\textasciitilde{}"})
+
+
+def tex_escape(text: str) -> str:
+    """``text`` as LaTeX that prints it character for character."""
+    return str(text).translate(_TEX_SPECIAL)
 
 
 def latex_table(summary: dict, *, mass_unit: str | None = None,
@@ -135,13 +143,14 @@ def latex_table(summary: dict, *, mass_unit: str | None = None,
               r"Parameter & Symbol & Value & Unit \\", r"\midrule"]
     for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
         if first:
-            title = "Central body" if not group else f"Companion {_tex_escape(group)}"
+            title = "Central body" if not group else f"Companion {tex_escape(group)}"
             if group:
                 lines.append(r"\midrule")
             lines.append(rf"\multicolumn{{4}}{{l}}{{\textit{{{title}}}}} \\")
         rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else f"${rounded.latex()}$"
-        lines.append(f"{row.name} & ${row.symbol}$ & {value} & {row.unit_latex} \\\\")
+        lines.append(f"{tex_escape(row.name)} & ${row.symbol}$ & {value} & "
+                     f"{row.unit_latex} \\\\")
     lines += [r"\bottomrule", r"\end{tabular}",
               r"\par\smallskip{\footnotesize Medians with 68.27\,\% credible intervals.}",
               r"\end{table}"]
