@@ -162,14 +162,24 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
     flagged as prior-sensitive. Both go into the summary and its warnings.
     """
     from .diagnose import posterior_modes, prior_sensitivity
+    from .modes import chain_census, unexplored, unexplored_warning
 
+    # The step-count warning first: it speaks of the autocorrelation test alone.
+    warnings = _warnings(chain, start)
     modes = posterior_modes(model, chain)
     unmixed = [m for m in modes if not m["walkers_cross"]]
     if unmixed:
         chain.converged = False
+    candidates = getattr(start, "candidate_modes", [])
+    census = chain_census(model, candidates, chain.samples)
+    missing = unexplored(census)
+    if missing:
+        chain.converged = False
     sensitivity = prior_sensitivity(model, chain.samples)
-    warnings = _warnings(chain, start) + _velocity_warnings(model) + _fit_quality(model, start)
+    warnings += _velocity_warnings(model) + _fit_quality(model, start)
     warnings += [_modes_warning(m) for m in modes]
+    if missing:
+        warnings.append(unexplored_warning(census, candidates, missing))
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
             f"the central mass depends on the prior: with a second prior "
@@ -182,6 +192,7 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
             f"more of the orbit")
     return FitResult(model, chain, start, settings=settings, warnings=warnings,
                      record=record, checks={"posterior_modes": modes,
+                                            "candidate_modes": census,
                                             "prior_sensitivity": sensitivity})
 
 
@@ -251,6 +262,8 @@ def _warnings(chain, start):
                    f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "
                    f"long (50 needed); raise max_steps")
     for mode in start.modes:
+        if "weight" in mode:
+            continue  # weighed: the candidate modes' census reports it
         out.append(f"another solution fits nearly as well: {mode['body']} with "
                    f"P = {mode['period']:.6g} d (delta chi2 = {mode['delta_chi2']:.1f}); "
                    f"the sampler explored only the best one")
