@@ -11,10 +11,8 @@ import json
 import subprocess
 import sys
 
-import astropy.units as u
 import numpy as np
 import pytest
-from astropy.time import Time
 from scipy.stats import multivariate_normal
 
 import massfit
@@ -23,28 +21,25 @@ from massfit.model import OrbitModel
 from massfit.modes import (MIN_WEIGHT, chain_census, laplace_log_mass, laplace_weights,
                            merge_same_modes, unexplored)
 from massfit.priors import LogUniform
-from massfit.simulate import Elements, simulate_astrometry, write_scenario
+from massfit.scenarios import TAMSIN_CADENCE, TAMSIN_PERIOD, tamsin
+from massfit.simulate import write_scenario
 from massfit.start import find_start
 
 from conftest import invented_binary
 
-YEAR = 365.25
-#: The invented system: 'Tamsin' about a 1.15 M_sun star at 25 mas, P = 305 d, seen
-#: on 12 nights one year apart (dates wander by 8 d); errors of 3.5 mas on an orbit of
-#: about 23 mas. The cadence's aliases of 1/305 d are 1/1825 d and 1/166 d.
-TRUE_PERIOD = 305.0
+YEAR = TAMSIN_CADENCE
+#: The invented system (massfit.scenarios.tamsin): 'Tamsin' about a 1.15 M_sun star at
+#: 25 mas, P = 305 d, seen on 12 nights one year apart (dates wander by 8 d); errors of
+#: 3.5 mas on an orbit of about 23 mas. The cadence's aliases of 1/305 d are 1/1849 d
+#: and 1/166 d.
+TRUE_PERIOD = TAMSIN_PERIOD
 ALIASES = (TRUE_PERIOD, 1.0 / (1.0 / TRUE_PERIOD - 1.0 / YEAR),
            1.0 / (1.0 / TRUE_PERIOD + 1.0 / YEAR))
 
 
-def write_yearly(folder, *, seed=4, error=3.5, wander=8.0):
-    rng = np.random.default_rng(seed)
-    t = 2458500.0 + YEAR * np.arange(12) + rng.normal(0.0, wander, 12)
-    elements = {"Tamsin": Elements(period=TRUE_PERIOD, ecc=0.18, inc=62.0, omega=120.0,
-                                   node=35.0, periapsis_time=2458610.0)}
-    table = simulate_astrometry({"Tamsin": Time(t, format="jd", scale="tdb")}, elements,
-                                1.15, parallax=25 * u.mas, error=error * u.mas, seed=seed)
-    write_scenario(folder, table, {"central_mass_Msun": 1.15}, name="tamsin.ecsv")
+def write_yearly(folder):
+    table, truth = tamsin()
+    write_scenario(folder, table, truth, name="tamsin.ecsv")
     return folder / "tamsin.ecsv"
 
 
