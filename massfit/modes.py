@@ -33,7 +33,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["laplace_log_mass", "laplace_weights", "merge_same_modes", "mode_census",
-           "chain_census", "unexplored", "unexplored_warning", "period_box",
+           "chain_census", "in_mode", "unexplored", "unexplored_warning", "period_box",
            "report_lines", "MIN_WEIGHT", "SAME_MODE_SIGMAS", "WEIGHT_BASIS"]
 
 #: A mode with at least this Laplace weight must be visited for a converged fit.
@@ -129,8 +129,9 @@ def merge_same_modes(modes) -> list:
     return kept
 
 
-def _visited_fraction(mode, periods) -> float:
-    """Fraction of samples within the mode's neighbourhood in every period."""
+def in_mode(mode, periods):
+    """Boolean mask of the samples within the mode's neighbourhood in every period
+    (``periods``: companion name -> sampled periods, days); None if none applies."""
     inside = None
     for name, period in mode["periods"].items():
         if name not in periods:
@@ -139,6 +140,12 @@ def _visited_fraction(mode, periods) -> float:
                   np.log10(1.0 + VISIT_RELATIVE))
         near = np.abs(np.log10(periods[name] / period)) <= tol
         inside = near if inside is None else inside & near
+    return inside
+
+
+def _visited_fraction(mode, periods) -> float:
+    """Fraction of samples within the mode's neighbourhood in every period."""
+    inside = in_mode(mode, periods)
     return 0.0 if inside is None or inside.size == 0 else float(np.mean(inside))
 
 
@@ -156,7 +163,7 @@ def mode_census(candidates, periods) -> list:
     -------
     list of dict
         JSON-ready, largest weight first: ``periods`` (d, per companion),
-        ``central_mass`` (M_sun, None where not sampled), ``chi2`` (at the mode's
+        ``log10_period_sd`` (the Laplace standard deviation of log10 P), ``central_mass`` (M_sun, None where not sampled), ``chi2`` (at the mode's
         least-squares peak), ``log_laplace_mass``, ``weight`` (Laplace), ``started``
         (the walkers started there), ``sample_fraction`` (of the chain's samples
         within the mode's neighbourhood) and ``visited``.
@@ -164,7 +171,8 @@ def mode_census(candidates, periods) -> list:
     out = []
     for mode in candidates:
         fraction = _visited_fraction(mode, periods)
-        entry = {key: mode[key] for key in ("periods", "central_mass", "chi2",
+        entry = {key: mode[key] for key in ("periods", "log10_period_sd", "central_mass",
+                                            "chi2",
                                             "log_laplace_mass", "weight", "started")
                  if key in mode}
         entry["sample_fraction"] = fraction
@@ -229,8 +237,9 @@ def unexplored_warning(census, candidates, missing) -> str:
             f"modes apart")
 
 
-def report_lines(census) -> list:
-    """Terminal lines: one per mode, with its weight and whether it was visited."""
+def report_lines(census, over_modes=None) -> list:
+    """Terminal lines: one per mode, with its weight and whether it was visited, and
+    (where each mode was sampled) its mass and the mass over all modes."""
     lines = ["  modes found by the start (weights: Laplace approximation):"]
     for mode in census:
         periods = ", ".join(f"{n} P = {p:.6g} d" for n, p in mode["periods"].items())
@@ -240,4 +249,18 @@ def report_lines(census) -> list:
                 if mode["visited"] else "NOT visited")
         lines.append(f"    {100 * mode['weight']:5.1f} %  {periods}{mass}, "
                      f"chi2 = {mode['chi2']:.1f}; {seen}")
+        if "chain" in mode:
+            block = mode["chain"]["central_mass_solar"]
+            lines.append(f"            its chain ({mode['chain']['sampled']}): central "
+                         f"mass {_block_text(block)} M_sun")
+    if over_modes:
+        lines.append(f"  central mass over the {over_modes['modes']} modes: "
+                     f"{_block_text(over_modes['central_mass_solar'])} M_sun "
+                     f"({over_modes['approximation']})")
     return lines
+
+
+def _block_text(block) -> str:
+    return (f"{block['median']:.4g} (68 %: {block['lower_68']:.4g} .. "
+            f"{block['upper_68']:.4g}; 95 %: {block['lower_95']:.4g} .. "
+            f"{block['upper_95']:.4g})")

@@ -189,6 +189,8 @@ class FitResult:
 
             summary["candidate_modes_basis"] = {"weight": WEIGHT_BASIS,
                                                 "must_visit_above": MIN_WEIGHT}
+        if self.checks.get("central_mass_over_modes") is not None:
+            summary["central_mass_over_modes"] = self.checks["central_mass_over_modes"]
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
         summary["warnings"] = list(self.warnings)
         summary["inputs"] = {
@@ -259,7 +261,8 @@ class FitResult:
         if len(s.get("candidate_modes", [])) > 1:
             from .modes import report_lines
 
-            lines.extend(report_lines(s["candidate_modes"]))
+            lines.extend(report_lines(s["candidate_modes"],
+                                      s.get("central_mass_over_modes")))
         else:
             for mode in s["modes"]:
                 mass = ("" if mode["central_mass"] is None

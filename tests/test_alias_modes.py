@@ -235,3 +235,79 @@ def test_one_ridge_polished_twice_is_one_mode():
     assert len(same) == 1 and same[0]["periods"]["b"] == 101.0
     apart = merge_same_modes([mode(100.0, 0.001, 1.0), mode(110.0, 0.001, 1.0)])
     assert [m["weight"] for m in apart] == pytest.approx([0.5, 0.5])
+
+
+# ------------------------------------------------- each mode sampled on its own
+def _points_in_modes(model, start, per_mode, rng):
+    """Samples near each mode's least-squares solution (model coordinates)."""
+    points = []
+    for mode in start.candidate_modes:
+        theta = model.from_physical({"central_mass": mode["central_mass"], "Tamsin": {
+            "period": mode["periods"]["Tamsin"], "ecc": 0.2, "omega": 1.0, "inc": 1.0,
+            "node": 0.5, "mean_anomaly_ref": 0.0}})
+        points.append(theta + 1e-9 * rng.standard_normal((per_mode, theta.size)))
+    return np.concatenate(points)
+
+
+def test_mass_over_modes_is_the_weighted_mixture(yearly_start):
+    """Every mode visited, each a near point mass M_k of weight w_k: the mixture's
+    quantiles are where the cumulative weights, ordered by mass, cross them."""
+    from massfit.modechains import weigh_modes
+    from massfit.sample import SamplerSettings
+
+    model, start = yearly_start
+    samples = _points_in_modes(model, start, 500, np.random.default_rng(3))
+    census = chain_census(model, start.candidate_modes, samples)
+    heavy = [m for m in census if m["weight"] >= MIN_WEIGHT]
+    over = weigh_modes(model, samples, census, start.candidate_modes, None,
+                       SamplerSettings(seed=1))
+    weights = np.array([m["weight"] for m in heavy]) / sum(m["weight"] for m in heavy)
+    assert over["weights"] == pytest.approx(list(weights))
+    masses = np.array([m["central_mass"] for m in heavy])
+    order = np.argsort(masses)
+    cdf = np.cumsum(weights[order])
+    block = over["central_mass_solar"]
+    for key, q in (("lower_95", 0.02275), ("lower_68", 0.15865), ("median", 0.5),
+                   ("upper_68", 0.84135), ("upper_95", 0.97725)):
+        expected = masses[order][np.searchsorted(cdf, q)]
+        assert block[key] == pytest.approx(expected, rel=1e-6), key
+    assert "approximation" in over["approximation"]
+    # Negative control: with equal weights the 16th percentile would be the lightest
+    # mode's mass, not the heaviest-weight mode's.
+    equal_cdf = np.cumsum(np.full(len(heavy), 1.0 / len(heavy)))
+    assert masses[order][np.searchsorted(equal_cdf, 0.15865)] != pytest.approx(
+        block["lower_68"], rel=1e-3)
+
+
+def test_an_unvisited_mode_gets_its_own_chain_in_its_box(yearly_start, yearly_file):
+    from massfit.modechains import boxed_spec, weigh_modes
+    from massfit.sample import SamplerSettings
+
+    model, start = yearly_start
+    rng = np.random.default_rng(4)
+    started = start.candidate_modes[0]
+    samples = _points_in_modes(model, start, 300, rng)[:300]  # the started mode only
+    census = chain_census(model, start.candidate_modes, samples)
+    observations = massfit.read_observations(yearly_file)
+    over = weigh_modes(model, samples, census, start.candidate_modes, observations,
+                       SamplerSettings(seed=2, max_steps=400, check_every=200,
+                                       progress=False))
+    for mode, full in zip(census, start.candidate_modes):
+        if mode["weight"] < MIN_WEIGHT:
+            continue
+        chain = mode["chain"]
+        assert chain["sampled"] == ("main chain" if full is started
+                                    else "own chain in its period box")
+        period = chain["period"]["Tamsin"]
+        assert period["lower_95"] <= full["periods"]["Tamsin"] <= period["upper_95"]
+        if full is not started:
+            low, high = chain["boxes_days"]["Tamsin"]
+            others = [c["periods"]["Tamsin"] for c in start.candidate_modes if c is not full]
+            assert low < full["periods"]["Tamsin"] < high
+            assert not any(low < p < high for p in others)
+            spec = boxed_spec(model, full, [c for c in start.candidate_modes
+                                            if c is not full])
+            assert spec.companions["Tamsin"].period.low == pytest.approx(low)
+    assert over["modes"] == 3
+    assert over["central_mass_solar"]["lower_95"] < 0.1 < 3.0 < \
+        over["central_mass_solar"]["upper_95"]
