@@ -33,8 +33,8 @@ import warnings
 import numpy as np
 from astropy.timeseries import LombScargle
 
-__all__ = ["candidate_periods", "sampling_cadences", "window_power", "PERIOD_FLOOR", "WINDOW_POWER",
-           "MAX_HARMONIC", "ALIASES_KEPT"]
+__all__ = ["candidate_periods", "sampling_cadences", "window_power", "PERIOD_FLOOR",
+           "WINDOW_POWER", "MAX_HARMONIC", "ALIASES_KEPT"]
 
 #: No period below this (days) is searched, whatever the prior allows (86 s).
 PERIOD_FLOOR = 1e-3

@@ -109,11 +109,13 @@ def weigh_modes(model, samples, census, candidates, observations, settings, *,
     dict or None
         ``central_mass_solar`` (interval block, M_sun), ``modes`` (how many were
         mixed), ``approximation`` (what the numbers rest on), ``all_modes_converged``;
-        None where fewer than two weighty modes exist or a mode could not be sampled.
+        None where fewer than two weighty modes exist, a mode could not be sampled,
+        or the modes come from the two-body search of a perturbed model.
     """
     heavy = [m for m in census if m["weight"] >= MIN_WEIGHT]
-    if len(heavy) < 2 or model.velocity_only:
-        return None
+    if len(heavy) < 2 or model.velocity_only or any(c.get("searched_with")
+                                                    for c in candidates):
+        return None  # a perturbed model's modes have two-body periods: no boxes for it
     parts = []
     for mode in heavy:
         if mode["visited"]:

@@ -187,12 +187,23 @@ def unexplored(census, *, min_weight=MIN_WEIGHT) -> list:
 
 
 def chain_census(model, candidates, samples) -> list:
-    """:func:`mode_census` of the samples (model coordinates) of a finished chain."""
+    """:func:`mode_census` of the samples (model coordinates) of a finished chain.
+
+    Modes found by the two-body search of a perturbed model (``searched_with``) have
+    two-body periods, which the perturbed model's periods differ from by its own
+    corrections: they are scaled by the ratio of the chain's median period to the
+    started mode's, companion by companion, before the comparison.
+    """
     if not candidates or samples is None or len(samples) == 0:
         return []
     phys = model.physical(samples, lenient=True)
     periods = {name: np.asarray(phys["companions"][name]["period"])
                for name in model.companions}
+    started = next((c for c in candidates if c.get("started")), None)
+    if started is not None and any(c.get("searched_with") for c in candidates):
+        scale = {n: float(np.median(p)) / started["periods"][n]
+                 for n, p in periods.items() if n in started["periods"]}
+        periods = {n: p / scale.get(n, 1.0) for n, p in periods.items()}
     return mode_census(candidates, periods)
 
 
