@@ -2,17 +2,19 @@
 
 For each companion on its own:
 
-1. Lomb-Scargle periodograms (astropy) of the east and north offsets give candidate
-   periods; periods longer than the time span are added for short arcs.
+1. Candidate periods (:mod:`massfit.aliases`): Lomb-Scargle peaks of the east and north
+   offsets, the aliases the sampling cadence makes of the best peaks (below half the
+   spacing of the data too), and periods longer than the time span for short arcs.
 2. For each candidate period, a grid of eccentricities and periapsis times makes the
    offsets linear in the Thiele-Innes constants, solved by weighted least squares.
 3. The best grid points are polished by non-linear least squares (scipy) on that
    companion alone, with its own central mass.
 
 Then all companions are joined with one central mass and polished together. Distinct
-solutions whose chi^2 is close to the best are kept as *modes* (period aliases, mostly)
-and reported; the walkers start in a small ball about the best one, shaped by the
-least-squares covariance.
+solutions whose chi^2 is close to the best are polished jointly as candidate *modes*
+(period aliases, mostly) and weighed by their posterior mass (the Laplace estimate of
+:mod:`massfit.modes`); the walkers start in a small ball about the heaviest one,
+shaped by the least-squares covariance.
 """
 
 from __future__ import annotations
