@@ -77,7 +77,7 @@ def _angle_mas(text, key):
 def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
         parallax=None, parallax_err=None, distance=None, seed=None, walkers=None,
         max_steps=None, check_every=None, progress=None, record=None, checkpoint=None,
-        resume=False) -> FitResult:
+        resume=False, weigh_modes=False) -> FitResult:
     """Fit every companion's orbit with one shared central mass and sample the posterior.
 
     Parameters
@@ -101,6 +101,11 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     resume : bool
         Continue the interrupted run saved in ``checkpoint``; with the same data,
         model and seed the result is the one an uninterrupted run gives.
+    weigh_modes : bool
+        Where the walkers missed modes of the posterior, sample each such mode in
+        its own period box and give the central mass over all modes, weighted by
+        the modes' Laplace weights (an approximation; see
+        :mod:`massfit.modechains`). The fit stays not converged.
 
     Returns
     -------
@@ -162,27 +167,48 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         run_record["resumed_utc"] = resumed
         run_record["resumed_from_step"] = chain.resumed_from
     run_record.update(record or {})
-    return assemble_result(model, chain, start, settings, record=run_record)
+    return assemble_result(model, chain, start, settings, record=run_record,
+                           weigh_with=observations if weigh_modes else None)
 
 
-def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
+def assemble_result(model, chain, start, settings, *, record=None,
+                    weigh_with=None) -> FitResult:
     """The FitResult of a finished chain, after the checks the 50-tau test cannot make.
 
     Walkers that sit in separated modes without ever crossing between them leave the
     modes' weights unmeasured: such a chain is marked not converged whatever its
     autocorrelation time. A central mass that moves under a second vague prior is
-    flagged as prior-sensitive. Both go into the summary and its warnings.
+    flagged as prior-sensitive. Both go into the summary and its warnings. Modes of
+    the start that the walkers never visited make it not converged too; given the
+    observations as ``weigh_with``, each is then sampled on its own
+    (:func:`massfit.modechains.weigh_modes`).
     """
     from massfit.summarise.posterior_checks import posterior_modes, prior_sensitivity
+    from massfit.start.modes import chain_census, unexplored, unexplored_warning
 
+    # The step-count warning first: it speaks of the autocorrelation test alone.
+    warnings = _warnings(chain, start)
     modes = posterior_modes(model, chain)
     unmixed = [m for m in modes if not m["walkers_cross"]]
     if unmixed:
         chain.converged = False
+    candidates = getattr(start, "candidate_modes", [])
+    census = chain_census(model, candidates, chain.samples)
+    missing = unexplored(census)
+    over_modes = None
+    if missing and weigh_with is not None:
+        from massfit.modechains import weigh_modes
+
+        over_modes = weigh_modes(model, chain.samples, census, candidates, weigh_with,
+                                 settings, main_converged=chain.converged)
+    if missing:
+        chain.converged = False
     sensitivity = prior_sensitivity(model, chain.samples)
-    warnings = _warnings(chain, start) + _velocity_warnings(model)
+    warnings += _velocity_warnings(model)
     warnings += [_modes_warning(m) for m in modes]
     warnings += list(getattr(model.observations, "notes", []))
+    if missing:
+        warnings.append(unexplored_warning(census, candidates, missing))
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
             f"the central mass depends on the prior: with a second prior "
@@ -195,6 +221,8 @@ def assemble_result(model, chain, start, settings, *, record=None) -> FitResult:
             f"more of the orbit")
     return FitResult(model, chain, start, settings=settings, warnings=warnings,
                      record=record, checks={"posterior_modes": modes,
+                                            "candidate_modes": census,
+                                            "central_mass_over_modes": over_modes,
                                             "prior_sensitivity": sensitivity})
 
 
@@ -230,6 +258,8 @@ def _warnings(chain, start):
                    f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "
                    f"long (50 needed); raise max_steps")
     for mode in start.modes:
+        if "weight" in mode:
+            continue  # weighed: the candidate modes' census reports it
         out.append(f"another solution fits nearly as well: {mode['body']} with "
                    f"P = {mode['period']:.6g} d (delta chi2 = {mode['delta_chi2']:.1f}); "
                    f"the sampler explored only the best one")

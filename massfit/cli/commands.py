@@ -74,6 +74,10 @@ def _parser() -> argparse.ArgumentParser:
     _sampler_options(fit)
     _dynamics_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
+    fit.add_argument("--weigh-modes", action="store_true",
+                     help="where the walkers missed modes of the posterior, sample each "
+                          "in its own period box and give the mass over all of them "
+                          "(Laplace weights: an approximation; exit status stays 3)")
     fit.add_argument("--force", action="store_true", help="replace a result massfit wrote "
                      "in the output folder (only its own files), or the checkpoint of an "
                      "interrupted run")
@@ -363,7 +367,8 @@ def _run(setup, args, *, record, force):
               file=sys.stderr)
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
-                 resume=getattr(args, "resume", False))
+                 resume=getattr(args, "resume", False),
+                 weigh_modes=getattr(args, "weigh_modes", False))
     _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
     discard(setup.output)
     return result

@@ -176,6 +176,14 @@ class FitResult:
         summary["adequacy"] = adequacy
         summary["modes"] = list(self.start.modes)
         summary["posterior_modes"] = list(self.checks.get("posterior_modes", []))
+        summary["candidate_modes"] = list(self.checks.get("candidate_modes", []))
+        if summary["candidate_modes"]:
+            from massfit.start.modes import MIN_WEIGHT, WEIGHT_BASIS
+
+            summary["candidate_modes_basis"] = {"weight": WEIGHT_BASIS,
+                                                "must_visit_above": MIN_WEIGHT}
+        if self.checks.get("central_mass_over_modes") is not None:
+            summary["central_mass_over_modes"] = self.checks["central_mass_over_modes"]
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
         summary["warnings"] = list(self.warnings) + quality_warnings(summary["fit_quality"])
         summary["inputs"] = {
@@ -202,8 +210,9 @@ class FitResult:
         s = self.summary
         lines = []
         if not self.converged:
-            lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times",
-                      "*** or their estimate has not settled; do not quote these numbers.", ""]
+            lines += ["*** NOT CONVERGED: the chain is shorter than 50 autocorrelation times,",
+                      "*** their estimate has not settled, or the walkers missed a mode of",
+                      "*** the posterior (see the warnings); do not quote these numbers.", ""]
         quality = s["fit_quality"]
         if quality["verdict"] == "poor":
             lines += [f"*** POOR FIT: chi2 = {quality['chi2']:.4g} for {quality['n_values']} "
@@ -249,12 +258,18 @@ class FitResult:
         lines.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
-        for mode in s["modes"]:
-            mass = ("" if mode["central_mass"] is None
-                    else f", central mass {mode['central_mass']:.4g} M_sun")
-            lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
-                         f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
-                         f"{mode['delta_chi2']:.1f}")
+        if len(s.get("candidate_modes", [])) > 1:
+            from massfit.start.modes import report_lines
+
+            lines.extend(report_lines(s["candidate_modes"],
+                                      s.get("central_mass_over_modes")))
+        else:
+            for mode in s["modes"]:
+                mass = ("" if mode["central_mass"] is None
+                        else f", central mass {mode['central_mass']:.4g} M_sun")
+                lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
+                             f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
+                             f"{mode['delta_chi2']:.1f}")
         for text in s["warnings"]:
             lines.append(f"  warning: {text}")
         inputs = s["inputs"]

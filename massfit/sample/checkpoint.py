@@ -244,7 +244,8 @@ def write_meta(path, *, model, start, initial, settings, started_utc) -> None:
         "centres": model.centres,
         "start": {"theta": start.theta.tolist(), "chi2": start.chi2,
                   "covariance": np.asarray(start.covariance).tolist(),
-                  "modes": start.modes, "per_companion": start.per_companion},
+                  "modes": start.modes, "per_companion": start.per_companion,
+                  "candidate_modes": start.candidate_modes},
         # Floats survive JSON exactly (shortest round-trip repr).
         "initial": np.asarray(initial, dtype=float).tolist(),
     }
@@ -304,7 +305,8 @@ def read_meta(path, *, model, settings) -> dict:
     s = meta["start"]
     start = Start(theta=np.array(s["theta"]), chi2=float(s["chi2"]),
                   covariance=np.array(s["covariance"]), modes=list(s["modes"]),
-                  per_companion=dict(s["per_companion"]))
+                  per_companion=dict(s["per_companion"]),
+                  candidate_modes=list(s.get("candidate_modes", [])))
     return {"start": start, "initial": initial, "started_utc": meta["started_utc"],
             "settings": saved}
 

@@ -21,6 +21,11 @@ brightness (a prior), so the relative orbit gives the star's own mass.
 the velocities of both stars from two invented spectrographs (Halden and Quillon, whose
 zero points differ by 0.9 km/s). No parallax is given: the visual orbit in mas and the
 velocity orbit in km/s give the distance, and both masses follow.
+
+*Tamsin* (tests and validation only, not in ``example_obs``): a companion of an
+invented 1.15 M_sun star at 25 mas on a 305-day orbit, imaged on twelve nights one
+year apart. Its period aliases with the yearly cadence (1/P -+ 1/yr: about 1825 and
+166 days, with central masses 25 times smaller and 3 times larger) fit nearly as well.
 """
 
 from __future__ import annotations
@@ -35,7 +40,7 @@ from massfit.constants import GM_SUN_KM3_S2, MASS_UNITS
 from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
 from massfit.read.timescales import quiet_leap_seconds
 
-__all__ = ["orvane", "mirren", "sorrel", "demo_setup", "write_all", "planning_system",
+__all__ = ["orvane", "mirren", "sorrel", "tamsin", "demo_setup", "write_all", "planning_system",
            "DEMO_DIR", "PACKAGE_DATA", "SCENARIOS"]
 
 PACKAGE_DATA = Path(__file__).parents[1] / "data"
@@ -88,6 +93,24 @@ def orvane(seed=20261201):
         "east_north_correlation": 0.1,
         "seed": seed,
     }
+    return table, truth
+
+
+#: Tamsin's true period (days) and the sampling cadence (days) that aliases it.
+TAMSIN_PERIOD = 305.0
+TAMSIN_CADENCE = 365.25
+
+
+def tamsin(seed=4, *, error=3.5 * u.mas, wander=8.0, epochs=12):
+    """Tamsin seen once a year: (table, truth); the nights wander by ``wander`` days."""
+    rng = np.random.default_rng(seed)
+    t = 2458500.0 + TAMSIN_CADENCE * np.arange(epochs) + rng.normal(0.0, wander, epochs)
+    elements = {"Tamsin": Elements(period=TAMSIN_PERIOD, ecc=0.18, inc=62.0, omega=120.0,
+                                   node=35.0, periapsis_time=2458610.0)}
+    table = simulate_astrometry({"Tamsin": Time(t, format="jd", scale="tdb")}, elements,
+                                1.15, parallax=25 * u.mas, error=error, seed=seed)
+    truth = {"central_mass_Msun": 1.15, "parallax_mas": 25.0,
+             "companions": {k: dict(v) for k, v in elements.items()}}
     return table, truth
 
 

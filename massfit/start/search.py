@@ -2,34 +2,36 @@
 
 For each companion on its own:
 
-1. Lomb-Scargle periodograms (astropy) of the east and north offsets give candidate
-   periods; periods longer than the time span are added for short arcs.
+1. Candidate periods (:mod:`massfit.start.aliases`): Lomb-Scargle peaks of the east and north
+   offsets, the aliases the sampling cadence makes of the best peaks (below half the
+   spacing of the data too), and periods longer than the time span for short arcs.
 2. For each candidate period, a grid of eccentricities and periapsis times makes the
    offsets linear in the Thiele-Innes constants, solved by weighted least squares.
 3. The best grid points are polished by non-linear least squares (scipy) on that
    companion alone, with its own central mass.
 
 Then all companions are joined with one central mass and polished together. Distinct
-solutions whose chi^2 is close to the best are kept as *modes* (period aliases, mostly)
-and reported; the walkers start in a small ball about the best one, shaped by the
-least-squares covariance.
+solutions whose chi^2 is close to the best are polished jointly as candidate *modes*
+(period aliases, mostly) and weighed by their posterior mass (the Laplace estimate of
+:mod:`massfit.start.modes`); the walkers start in a small ball about the heaviest one,
+shaped by the least-squares covariance.
 """
 
 from __future__ import annotations
 
 import itertools
-import warnings
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from astropy.timeseries import LombScargle
 from scipy.optimize import least_squares
 
 from massfit.orbits import kepler
+from massfit.start.aliases import candidate_periods
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ModelError
 from massfit.model.orbit_model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel, SystemSpec
+from massfit.start.modes import laplace_log_mass, merge_same_modes
 from massfit.priors import Fixed, Normal
 
 __all__ = ["Start", "find_start"]
@@ -37,9 +39,14 @@ __all__ = ["Start", "find_start"]
 #: Modes whose chi^2 is within this of the best are reported as comparable. A
 #: difference of 2 ln L = 25 is decisive by common practice (a "5 sigma" step).
 COMPARABLE_DELTA_CHI2 = 25.0
+#: Single-companion solutions within this chi^2 of the best are polished jointly and
+#: weighed: beyond it a mode would need a prior volume e^20 / 100 (5e6) times the
+#: best one's to reach a weight of 1 %.
+WEIGH_DELTA_CHI2 = 40.0
+#: Runner-up solutions of each companion weighed at most.
+_ALTERNATIVES = 4
 _ECC_GRID = (0.0, 0.25, 0.5, 0.75, 0.9)
 _PHASE_GRID = 12
-_MAX_PEAKS = 12
 _POLISH = 6
 _COMBINE = 5
 _JOINT_TRIES = 4
@@ -67,7 +74,12 @@ class Start:
         Least-squares covariance at ``theta`` (a Laplace approximation).
     modes : list of dict
         Other solutions with comparable chi^2: ``body``, ``period`` (d),
-        ``central_mass`` (M_sun), ``delta_chi2``.
+        ``central_mass`` (M_sun), ``delta_chi2``, ``best_period``, ``weight``.
+    candidate_modes : list of dict
+        Every distinct joint solution found, largest posterior mass first (see
+        :mod:`massfit.start.modes`): ``periods`` and ``log10_period_sd`` per companion,
+        ``central_mass`` (M_sun), ``chi2``, ``log_laplace_mass``, ``weight`` and
+        ``started`` (the walkers start in that one).
     per_companion : dict
         name -> best single-companion solution (``period``, ``central_mass``, and
         ``chi2`` over the ``rows`` it was searched on: a random subset of
@@ -79,6 +91,7 @@ class Start:
     covariance: np.ndarray
     modes: list = field(default_factory=list)
     per_companion: dict = field(default_factory=dict)
+    candidate_modes: list = field(default_factory=list)
 
     def walkers(self, model: OrbitModel, n_walkers: int, rng) -> np.ndarray:
         """A ball of ``n_walkers`` starting points, all inside the prior's support."""
@@ -146,35 +159,70 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
         return _perturbed_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best, joint = _best_combination(model, singles)
-    modes = []
-    # Each companion's comparable runner-ups, swapped into the joint solution, are
-    # candidate modes; clearly worse single solutions are not worth a joint polish.
+    found = [_mode_record(model, joint, best)]
+    # Each companion's runner-ups, swapped into the joint solution, are candidate
+    # modes. They are weighed by their posterior mass, not by chi^2: a worse fit in a
+    # wider stretch of the log-uniform priors can hold more of the posterior.
     for name, candidates in singles.items():
-        for alt in _comparable(candidates)[1:3]:
+        for alt in _comparable(candidates, WEIGH_DELTA_CHI2)[:_ALTERNATIVES + 1]:
+            if alt is best[name]:
+                continue
             trial = dict(best, **{name: alt})
-            theta, chi2, _ = _joint_polish(model, trial)
-            if theta is None:
-                continue
-            delta = chi2 - joint[1]
-            if delta < -1e-6:  # the runner-up wins jointly: adopt it
-                joint = (theta, chi2, _)
-                best = trial
-                continue
-            if delta < COMPARABLE_DELTA_CHI2:
-                phys = model.physical(theta)
-                modes.append({"body": name,
-                              "period": float(phys["companions"][name]["period"][0]),
-                              "central_mass": float(phys["central_mass"][0]),
-                              "delta_chi2": float(delta)})
+            result = _joint_polish(model, trial)
+            if result[0] is not None:
+                found.append(_mode_record(model, result, trial))
+    weighed = merge_same_modes(found)
+    chosen = weighed[0]  # the walkers start in the mode of largest weight
+    theta, chi2, covariance = chosen.pop("_joint")
+    chosen_values = chosen.pop("_values")
+    model.recentre(theta)
+    modes = []
+    for mode in weighed[1:]:
+        mode.pop("_joint"), mode.pop("_values")
+        delta = mode["chi2"] - chi2
+        if delta < COMPARABLE_DELTA_CHI2:
+            body = _differing_body(mode, chosen)
+            modes.append({"body": body, "period": mode["periods"][body],
+                          "central_mass": mode["central_mass"], "delta_chi2": float(delta),
+                          "best_period": chosen["periods"][body],
+                          "weight": mode["weight"]})
+    chosen["started"] = True
+    for mode in weighed[1:]:
+        mode["started"] = False
+    per = {name: {"period": m["period"], "central_mass": m["central_mass"],
+                  "chi2": m["chi2"], "rows": m["rows"]} for name, m in chosen_values.items()}
+    return Start(theta=theta, chi2=chi2, covariance=covariance, modes=modes,
+                 per_companion=per, candidate_modes=weighed)
+
+
+def _mode_record(model, joint, values):
+    """A joint solution as a candidate mode: periods, mass, Laplace mass.
+
+    Evaluated right after its polish, while the angle windows are centred on it.
+    """
     theta, chi2, covariance = joint
     model.recentre(theta)
-    per = {name: {"period": m["period"], "central_mass": m["central_mass"],
-                  "chi2": m["chi2"], "rows": m["rows"]} for name, m in best.items()}
-    best_phys = model.physical(theta)
-    for mode in modes:
-        mode["best_period"] = float(best_phys["companions"][mode["body"]]["period"][0])
-    return Start(theta=theta, chi2=chi2, covariance=covariance, modes=modes,
-                 per_companion=per)
+    low, high = _bounds(model)
+    phys = model.physical(theta[None, :])
+    names = model.names
+    periods, sd = {}, {}
+    for name in model.companions:
+        periods[name] = float(phys["companions"][name]["period"][0])
+        k = names.index(f"{name}.log10_period") if f"{name}.log10_period" in names else None
+        sd[name] = 0.0 if k is None else float(np.sqrt(max(covariance[k, k], 0.0)))
+    mass = phys["central_mass"]
+    return {"periods": periods, "log10_period_sd": sd,
+            "central_mass": None if mass is None else float(mass[0]),
+            "chi2": float(chi2),
+            "log_laplace_mass": laplace_log_mass(model.log_prob, theta, covariance,
+                                                 widths=high - low),
+            "_joint": joint, "_values": values}
+
+
+def _differing_body(mode, other):
+    """The companion whose period differs most between two modes."""
+    return max(mode["periods"],
+               key=lambda n: abs(np.log10(mode["periods"][n] / other["periods"][n])))
 
 
 def _perturbed_start(model):
@@ -219,8 +267,9 @@ def _perturbed_start(model):
     modes = [dict(mode, searched_with="keplerian") for mode in found.modes]
     per = {name: dict(sol, searched_with="keplerian")
            for name, sol in found.per_companion.items()}
+    weighed = [dict(mode, searched_with="keplerian") for mode in found.candidate_modes]
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
-                 modes=modes, per_companion=per)
+                 modes=modes, per_companion=per, candidate_modes=weighed)
 
 
 def two_body_start(model):
@@ -239,9 +288,10 @@ def two_body_start(model):
     return two_body, found, _values_from_theta(two_body, found.theta)
 
 
-def _comparable(modes):
-    """Single solutions (best first) whose chi^2 is close enough to the best one's."""
-    limit = modes[0]["chi2"] + max(COMPARABLE_DELTA_CHI2, 0.1 * modes[0]["chi2"])
+def _comparable(modes, delta=COMPARABLE_DELTA_CHI2):
+    """Single solutions (best first) whose chi^2 is within ``delta`` of the best one's
+    (or 10 % of it, for fits poorer than their errors)."""
+    limit = modes[0]["chi2"] + max(delta, 0.1 * modes[0]["chi2"])
     return [m for m in modes if m["chi2"] <= limit]
 
 
@@ -280,7 +330,7 @@ def _single_companion_modes(model, name):
     t, east, north, sig_e, sig_n = _offsets_au(sub, name)
     by_period = {}
     series = [(east, sig_e), (north, sig_n)]
-    for period in _candidate_periods(t, series, model.companions[name]):
+    for period in candidate_periods(t, series, model.companions[name].period):
         for chi2, values in _linear_scan(t, east, north, sig_e, sig_n, period):
             if period not in by_period or chi2 < by_period[period][0]:
                 by_period[period] = (chi2, values)
@@ -357,46 +407,6 @@ def _offsets_au(sub, name):
     sig = np.maximum(rows.sep_err, rows.sep * rows.pa_err)
     sig_e[p] = sig_n[p] = sig
     return rows.t, east / scale, north / scale, sig_e / scale, sig_n / scale
-
-
-def _candidate_periods(t, series, comp):
-    """Periods worth a closer look: periodogram peaks of the series, and long ones.
-
-    ``series`` is a list of (values, errors) sampled at the times ``t``.
-    """
-    span = float(np.ptp(t))
-    low_p, high_p = comp.period.low, comp.period.high
-    if comp.period.is_fixed:
-        return [comp.period.value]
-    # Search below the sampling interval (moons seen once every few nights often
-    # have periods shorter than the spacing; only the least squares can choose among
-    # such aliases), but not far below it: with few epochs, periods much shorter than
-    # the spacing can always be made to fit. The grid is capped at 2e5 frequencies.
-    dt = np.diff(np.unique(np.round(t, 6)))
-    spacing = float(np.min(dt)) if dt.size else low_p
-    min_period = max(low_p, 0.5 * spacing, span / 2e4 if span > 0 else low_p, 1e-3)
-    max_period = min(high_p, 20.0 * span)
-    periods = []
-    # A period prior entirely below the shortest period the search may look at leaves
-    # no band to search (f_max < f_min): the prior's own periods are tried below.
-    if span > 0 and min_period < min(span, max_period):
-        f_min = 1.0 / min(max_period, 3.0 * span)
-        f_max = 1.0 / min_period
-        n_freq = int(min(2e5, 10 * span * (f_max - f_min) + 100))
-        freq = np.linspace(f_min, f_max, n_freq)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            power = sum(LombScargle(t, values, sig).power(freq) for values, sig in series)
-        peaks = np.flatnonzero((power[1:-1] > power[:-2]) & (power[1:-1] >= power[2:])) + 1
-        peaks = peaks[np.argsort(power[peaks])[::-1]][:_MAX_PEAKS]
-        for k in peaks:
-            periods.extend([1.0 / freq[k], 2.0 / freq[k]])
-    # Short arcs: the orbit may be much longer than the data span.
-    periods.extend(span * np.array([1.0, 1.5, 2.5, 4.0, 7.0, 12.0, 20.0]))
-    periods = [p for p in periods if low_p <= p <= high_p]
-    if not periods:
-        periods = [float(np.sqrt(low_p * min(high_p, 1e6)))]
-    return periods
 
 
 def _linear_scan(t, east, north, sig_e, sig_n, period):
@@ -814,7 +824,7 @@ def _velocity_candidates(sub, name, found):
     t = vel.t - sub.reference_epoch(name)
     comp = sub.companions[name]
     candidates = []
-    for period in _candidate_periods(t[rows], series, comp):
+    for period in candidate_periods(t[rows], series, comp.period):
         for ecc in _ECC_GRID:
             if comp.eccentricity.is_fixed:
                 ecc = comp.eccentricity.value
