@@ -44,7 +44,7 @@ def _parser() -> argparse.ArgumentParser:
         description="Measure the mass of a central body from the orbits of its "
                     "companions (relative astrometry and radial velocities), sampled "
                     "with emcee.",
-        epilog=_FIT_EXIT_STATUS)
+        epilog="massfit fit: " + _FIT_EXIT_STATUS)
     from . import __version__
 
     parser.add_argument("--version", action="version", version=f"massfit {__version__}")
