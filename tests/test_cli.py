@@ -74,9 +74,13 @@ def test_existing_result_needs_force(binary_file, tmp_path):
     path, _ = binary_file
     out = tmp_path / "o"
     out.mkdir()
-    # What an earlier massfit result holds: its record lists the files massfit wrote.
     (out / "summary.json").write_text("{}")
-    (out / "run.json").write_text('{"files_written": ["summary.json", "run.json"]}')
+    # A summary alone does not make a massfit result: never replaced, even with --force.
+    proc = run_cli("fit", str(path), "--out", str(out), "--parallax", "25 mas", "--force")
+    assert proc.returncode == 2
+    assert "not written by massfit" in proc.stderr and "Traceback" not in proc.stderr
+    # With its run record (a result written before files_written existed) it is one.
+    (out / "run.json").write_text("{}")
     proc = run_cli("fit", str(path), "--out", str(out), "--parallax", "25 mas")
     assert proc.returncode == 2
     assert "--force" in proc.stderr and "Traceback" not in proc.stderr

@@ -312,3 +312,22 @@ def test_a_refused_run_leaves_no_folder_behind(work):
     assert run.returncode == 2
     _one_error_line(run, "bad.ecsv")
     assert _tree(work) == before
+
+
+def test_a_result_from_before_the_file_list_is_recognised_by_its_names(tmp_path):
+    from massfit.errors import ConfigError
+    from massfit.outfolder import check_output_folder, massfit_files
+
+    old = tmp_path / "old"
+    old.mkdir()
+    for name in ("summary.json", "run.json", "samples.ecsv", "corner.png", "notes.txt"):
+        (old / name).write_text("{}")
+    assert massfit_files(old) == {"summary.json", "run.json", "samples.ecsv",
+                                  "corner.png"}
+    with pytest.raises(ConfigError, match="--force"):
+        check_output_folder(old)
+    check_output_folder(old, force=True)
+    (old / "run.json").unlink()  # no record: not massfit's, whatever the names
+    assert massfit_files(old) is None
+    with pytest.raises(ConfigError, match="not written by massfit"):
+        check_output_folder(old, force=True)

@@ -17,6 +17,7 @@ import json
 import sys
 from pathlib import Path
 
+from massfit.model.fit_quality import POOR_FIT_P_VALUE
 from massfit.errors import ConfigError, MassfitError, WriteError
 
 __all__ = ["main", "EXIT_OK", "EXIT_WRITE_FAILED", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED",
@@ -30,16 +31,21 @@ EXIT_POOR_FIT = 4
 EXIT_INTERRUPTED = 130
 
 
+_FIT_EXIT_STATUS = (
+    "Exit status: 0 converged and a good fit; 1 the checkpoint or the result could not be "
+    "written (a full disc; --resume continues); 2 bad input, option or output folder; 3 "
+    f"not converged; 4 a poor fit (chi^2 improbable for the stated errors, p < "
+    f"{POOR_FIT_P_VALUE:g}; wins over 3); 130 interrupted.")
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="massfit",
         description="Measure the mass of a central body from the orbits of its "
                     "companions (relative astrometry and radial velocities), sampled "
                     "with emcee.",
-        epilog="Exit status: 0 converged and a good fit, 1 the checkpoint or result could "
-               "not be written (disc full), 2 bad input, option or output folder, 3 not "
-               "converged, 4 a poor fit (chi^2 improbable for the errors; wins over 3).")
-    from massfit import __version__
+        epilog="massfit fit: " + _FIT_EXIT_STATUS)
+    from massfit.version import __version__
 
     parser.add_argument("--version", action="version", version=f"massfit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
@@ -48,7 +54,8 @@ def _parser() -> argparse.ArgumentParser:
         "fit", help="fit observation files or a TOML config",
         description="Fit all companions with one shared central mass. Give a TOML config, "
                     "or observation files (CSV/ECSV): every body in them becomes a "
-                    "companion of one primary, with default priors.")
+                    "companion of one primary, with default priors.",
+        epilog=_FIT_EXIT_STATUS)
     fit.add_argument("inputs", nargs="+", metavar="CONFIG.toml | FILE",
                      help="a TOML config, or one or more observation tables")
     fit.add_argument("--out", metavar="DIR", help="output folder (required unless the "

@@ -326,7 +326,7 @@ def read_blocks(path) -> dict | None:
     parts, steps = [], 0
     for block in _block_files(Path(path)):
         try:
-            with np.load(block) as data:
+            with np.load(block, allow_pickle=False) as data:
                 part = {key: data[key] for key in data.files}
         except (OSError, ValueError, KeyError, zipfile.BadZipFile):
             break
