@@ -316,7 +316,7 @@ def test_a_refused_run_leaves_no_folder_behind(work):
 
 def test_a_result_from_before_the_file_list_is_recognised_by_its_names(tmp_path):
     from massfit.errors import ConfigError
-    from massfit.outfolder import check_output_folder, massfit_files
+    from massfit.write.folder import check_output_folder, massfit_files
 
     old = tmp_path / "old"
     old.mkdir()

@@ -237,9 +237,7 @@ def _perturbed_start(model):
     candidate until one fits acceptably (the poor-fit criterion of the summary). The
     two-body model's comparable modes are reported as found.
     """
-    from scipy.stats import chi2 as chi2_dist
-
-    from massfit.summarise.adequacy import POOR_FIT_P_VALUE
+    from massfit.model.fit_quality import is_poor
 
     _, found, values = two_body_start(model)
     best, best_chi2 = None, np.inf
@@ -256,8 +254,8 @@ def _perturbed_start(model):
         chi2 = _chi2(model, theta)
         if chi2 < best_chi2:
             best, best_chi2 = model.recentre(theta), chi2
-        dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
-        if dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE:
+        n_values = model.residuals(theta[None, :]).shape[1]
+        if n_values > model.n_dim and not is_poor(chi2, n_values, model.n_dim):
             break  # good enough: the other candidates are for harder cases
     if best is None:
         raise ModelError(f"the {model.dynamics.label} model's least-squares fit failed "

@@ -26,13 +26,13 @@ from dataclasses import replace
 
 import numpy as np
 
+from massfit.model.fit_quality import POOR_FIT_P_VALUE, chi2_block
+
 __all__ = ["assess", "report_lines", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
            "POOR_FIT_P_VALUE"]
 
 #: False-alarm probability below which a residual peak is called significant.
 FAP_THRESHOLD = 1e-3
-#: Below this chi^2 p-value the best fit is called poor (about 3.7 sigma).
-POOR_FIT_P_VALUE = 1e-4
 _MAX_FREQUENCIES = 50_000
 
 
@@ -71,11 +71,11 @@ def assess(model, theta, *, compare=None) -> dict:
         chi2_astrometry += chi2
         n_astrometry += n_values
         out["companions"][name] = {
-            **_chi2_block(chi2, n_values, own),
+            **chi2_block(chi2, n_values, own),
             "n_own_parameters": own,
             "periodogram": _periodogram(rows, part, model, theta, name),
         }
-    out["total"] = _chi2_block(chi2_astrometry, n_astrometry, model.n_dim)
+    out["total"] = chi2_block(chi2_astrometry, n_astrometry, model.n_dim)
     out["total"]["n_parameters"] = model.n_dim
     if compare is None:
         compare = bool(getattr(model.spec, "compare_keplerian", True))
@@ -83,15 +83,6 @@ def assess(model, theta, *, compare=None) -> dict:
     out["comparison"] = _compare(model, theta) if perturbed and compare else None
     out["verdicts"] = _verdicts(out)
     return out
-
-
-def _chi2_block(chi2, n_values, n_params):
-    from scipy.stats import chi2 as chi2_dist
-
-    dof = n_values - n_params
-    return {"chi2": chi2, "n_values": int(n_values),
-            "reduced_chi2": chi2 / dof if dof > 0 else None,
-            "p_value": float(chi2_dist.sf(chi2, dof)) if dof > 0 else None}
 
 
 def _periodogram(rows, part, model, theta, name):
