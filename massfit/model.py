@@ -71,7 +71,7 @@ from pathlib import Path
 import numpy as np
 
 from . import kepler
-from .constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
+from .constants import AU_PER_PC, GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
 from .dynamics import Keplerian, observed_offsets
 from .errors import ConfigError, InputError, ModelError
 from .observations import Observations
@@ -260,6 +260,8 @@ class _AstrometryRows:
     sep_err: np.ndarray
     pa: np.ndarray
     pa_err: np.ndarray
+    sight: object | None = None  # viewing.Sight of these rows, or None (fixed plane)
+    reference: np.ndarray | None = None  # per row the body measured from ("" primary)
 
 
 @dataclass
@@ -334,6 +336,15 @@ class OrbitModel:
             raise ModelError(f"the {self.dynamics.label} model fits astrometry only; radial "
                              f"velocities need the keplerian model for now")
         self.dynamics.prepare(self)
+        #: The primary's line of sight per astrometric row (a :class:`viewing.Sight`),
+        #: or None for a distant primary on one fixed sky plane.
+        self.sight = (_sight_of(astrometry) if has_astrometry and astrometry.has_sight
+                      else None)
+        if has_astrometry:
+            self._check_references(astrometry)
+        if self.sight is not None and self.has_velocities:
+            raise ModelError("radial velocities with a moving line of sight (primary_ra, "
+                             "primary_dec) are not modelled yet; fit the astrometry alone")
         if self.needs_parallax and self.spec.parallax is None:
             if self._vel is not None and np.any(self._vel.owner >= 0):
                 self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
@@ -428,6 +439,23 @@ class OrbitModel:
                     f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
         return specs
 
+    def _check_references(self, astrometry):
+        """Offsets measured from another body name a companion of this fit."""
+        reference = astrometry.reference_body
+        if reference is None:
+            return
+        for row in np.flatnonzero(reference != ""):
+            if reference[row] not in self.companions:
+                raise InputError(
+                    f"names '{reference[row]}', which is neither the primary "
+                    f"('{self.observations.primary}') nor a companion with astrometry "
+                    f"({', '.join(self.companions)})", file=astrometry.file[row],
+                    line=int(astrometry.line[row]), column="reference_body")
+        if type(self.dynamics) is not Keplerian:
+            raise ModelError(f"offsets measured from another companion (reference_body) "
+                             f"need the keplerian model for now, not the "
+                             f"{self.dynamics.label} one")
+
     def _unlisted_body(self, observations, name):
         message = (f"the data have a body '{name}' that the model does not list; add "
                    f"it under [companions] or remove its rows")
@@ -493,6 +521,10 @@ class OrbitModel:
             corr=corr[~polar], corr_factor=1.0 / np.sqrt(1.0 - corr[~polar] ** 2),
             sep=data.sep[index][polar], sep_err=data.sep_err[index][polar],
             pa=data.pa[index][polar], pa_err=data.pa_err[index][polar],
+            sight=None if self.sight is None else self.sight.select(index),
+            reference=(None if data.reference_body is None
+                       or not np.any(data.reference_body[index] != "")
+                       else data.reference_body[index]),
         )
 
     def _pack_for_kernel(self):
@@ -503,7 +535,8 @@ class OrbitModel:
         from the residual arrays).
         """
         if (self._vel is not None or type(self.dynamics) is not Keplerian
-                or getattr(self.spec, "romer_delay", False)):
+                or getattr(self.spec, "romer_delay", False) or self.sight is not None
+                or any(rows.reference is not None for rows in self._rows.values())):
             return None
         packs = {}
         for name, rows in self._rows.items():
@@ -1096,6 +1129,14 @@ def _scale_parameter(name, prior) -> _Parameter:
         body, kind = name.rsplit(".", 1)
         return _Parameter(f"{body}.log10_{kind}", "", prior, "log10")
     return _Parameter(name, "", prior, "identity", 0.0, np.inf)
+
+
+def _sight_of(astrometry):
+    """The rows' lines of sight from their primary_ra, primary_dec and distance."""
+    from .viewing import sight_from_angles
+
+    return sight_from_angles(astrometry.primary_ra, astrometry.primary_dec,
+                             astrometry.distance * AU_PER_PC)
 
 
 def _file_stem(path) -> str:

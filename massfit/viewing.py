@@ -1,0 +1,230 @@
+"""The line of sight to a primary whose direction changes from row to row.
+
+For a primary inside the solar system (a planet and its moons) the orbits live in an
+inertial frame with ICRS axes (x towards RA = 0, Dec = 0; z towards Dec = +90 deg) and
+each astrometric row is projected onto the tangent plane at the primary's direction at
+that row's time. This module holds that projection and the ways to get the direction:
+
+* :func:`sight_from_angles`: per-row right ascension, declination and distance (the
+  ``primary_ra``, ``primary_dec`` and ``distance`` columns);
+* :func:`ephemeris_sight`: a solar-system body by name, from astropy's ephemerides,
+  for a geocentric observer or an observatory site;
+* :func:`differential_aberration`: what the observer's velocity does to small offsets
+  (for simulations and for judging whether it matters).
+
+The projection is the exact gnomonic one: with d the unit vector towards the primary,
+D its distance and r the companion's position relative to the primary,
+
+    east = e.r / (D + d.r),   north = n.r / (D + d.r)   (radians)
+
+so the companion's own distance (D + d.r, perspective) is part of it. The offsets are
+*astrometric*: light time is included (the primary at t - D/c, the companion later or
+earlier by d.r/c), the aberration due to the observer's velocity is not.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Sight", "sight_from_angles", "sky_basis", "project", "ephemeris_sight",
+           "differential_aberration", "EPHEMERIS_DEFAULT"]
+
+#: The ephemeris used when a body is named without one (astropy's built-in ERFA one).
+EPHEMERIS_DEFAULT = "builtin"
+
+
+@dataclass
+class Sight:
+    """The primary's direction and distance at each astrometric row.
+
+    Attributes
+    ----------
+    toward : ndarray, shape (n, 3)
+        Unit vector from the observer towards the primary (ICRS axes).
+    east, north : ndarray, shape (n, 3)
+        Unit vectors of the tangent plane there (the conventions' east and north).
+    distance : ndarray, shape (n,)
+        Distance from the observer to the primary, au.
+    """
+
+    toward: np.ndarray
+    east: np.ndarray
+    north: np.ndarray
+    distance: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.distance)
+
+    def select(self, index) -> "Sight":
+        """The rows ``index`` (an integer array or a mask)."""
+        return Sight(self.toward[index], self.east[index], self.north[index],
+                     self.distance[index])
+
+
+def sky_basis(ra, dec):
+    """Unit vectors towards (ra, dec) and of the tangent plane's east and north there.
+
+    Parameters
+    ----------
+    ra, dec : array_like
+        Right ascension and declination, radians.
+
+    Returns
+    -------
+    toward, east, north : ndarray, shape (n, 3)
+        ``east`` = (-sin a, cos a, 0), ``north`` = (-sin d cos a, -sin d sin a, cos d).
+    """
+    ra = np.atleast_1d(np.asarray(ra, dtype=float))
+    dec = np.atleast_1d(np.asarray(dec, dtype=float))
+    ca, sa, cd, sd = np.cos(ra), np.sin(ra), np.cos(dec), np.sin(dec)
+    toward = np.column_stack([cd * ca, cd * sa, sd])
+    east = np.column_stack([-sa, ca, np.zeros_like(ra)])
+    north = np.column_stack([-sd * ca, -sd * sa, cd])
+    return toward, east, north
+
+
+def sight_from_angles(ra, dec, distance) -> Sight:
+    """A :class:`Sight` from per-row right ascension, declination (rad) and distance (au)."""
+    toward, east, north = sky_basis(ra, dec)
+    return Sight(toward, east, north, np.atleast_1d(np.asarray(distance, dtype=float)))
+
+
+def _dot(basis, position):
+    """basis (n_rows, 3) . position (x, y, z each (n_walkers, n_rows))."""
+    x, y, z = position
+    return basis[:, 0] * x + basis[:, 1] * y + basis[:, 2] * z
+
+
+def along_sight(sight: Sight, position):
+    """d . r: how much farther than the primary each companion is (au, (n, n_rows))."""
+    return _dot(sight.toward, position)
+
+
+def project(sight: Sight, position):
+    """Observed offsets of relative positions, as angles times the primary's distance.
+
+    Parameters
+    ----------
+    sight : Sight
+        The rows' lines of sight.
+    position : tuple of ndarray
+        (x, y, z) of the companion relative to the primary, ICRS axes, au, each of
+        shape (n_walkers, n_rows) (or broadcastable to it).
+
+    Returns
+    -------
+    east, north : ndarray
+        The angular offsets times D (au): divided by D they are the gnomonic
+        standard coordinates in radians; the per-row distance then turns them into
+        arcsec exactly as for a fixed sky plane (1 au at 1 pc is 1 arcsec).
+    """
+    depth = sight.distance + along_sight(sight, position)
+    factor = sight.distance / depth
+    return factor * _dot(sight.east, position), factor * _dot(sight.north, position)
+
+
+def differential_aberration(sight: Sight, velocity_km_s, east, north):
+    """Apparent minus astrometric offsets caused by the observer's velocity.
+
+    Parameters
+    ----------
+    sight : Sight
+        The rows' lines of sight (the primary's astrometric direction).
+    velocity_km_s : ndarray, shape (n, 3)
+        The observer's barycentric velocity, km/s, ICRS axes.
+    east, north : ndarray, shape (n,)
+        Astrometric offsets, radians.
+
+    Returns
+    -------
+    d_east, d_north : ndarray
+        What aberration adds to the offsets (radians), from the exact relativistic
+        aberration of both directions (the primary's and the companion's).
+    """
+    from astropy.constants import c
+
+    beta = np.asarray(velocity_km_s, dtype=float) / c.to_value("km/s")
+    # Directions of the companion from its tangent-plane coordinates (gnomonic).
+    companion = (sight.toward + east[:, None] * sight.east + north[:, None] * sight.north)
+    companion /= np.linalg.norm(companion, axis=1)[:, None]
+    seen_primary = _aberrated(sight.toward, beta)
+    seen_companion = _aberrated(companion, beta)
+    # Offsets of the apparent companion on the apparent primary's tangent plane.
+    ra = np.arctan2(seen_primary[:, 1], seen_primary[:, 0])
+    dec = np.arcsin(np.clip(seen_primary[:, 2], -1.0, 1.0))
+    toward, e_vec, n_vec = sky_basis(ra, dec)
+    depth = np.sum(seen_companion * toward, axis=1)
+    app_east = np.sum(seen_companion * e_vec, axis=1) / depth
+    app_north = np.sum(seen_companion * n_vec, axis=1) / depth
+    return app_east - east, app_north - north
+
+
+def _aberrated(direction, beta):
+    """Apparent direction of light arriving from ``direction`` for an observer moving
+    at ``beta`` = v/c (special relativity, e.g. the Explanatory Supplement's formula)."""
+    b2 = np.sum(beta * beta, axis=1)[:, None]
+    gamma_inv = np.sqrt(1.0 - b2)
+    dot = np.sum(direction * beta, axis=1)[:, None]
+    seen = (gamma_inv * direction + beta + dot * beta / (1.0 + gamma_inv)) / (1.0 + dot)
+    return seen / np.linalg.norm(seen, axis=1)[:, None]
+
+
+def ephemeris_sight(body: str, time, *, site=None, ephemeris: str | None = None,
+                    with_velocity: bool = False):
+    """The astrometric direction and distance of a solar-system body, per time.
+
+    Parameters
+    ----------
+    body : str
+        A body astropy's ephemerides know (``"jupiter"``, ``"saturn"``, ...).
+    time : astropy.time.Time
+        Times of observation (as received at the observer).
+    site : astropy.coordinates.EarthLocation, optional
+        The observatory; None for the Earth's centre.
+    ephemeris : str, optional
+        ``"builtin"`` (the default), a JPL kernel name astropy knows (``"de421"``,
+        ...) or the path or URL of a kernel file.
+    with_velocity : bool
+        Also return the observer's barycentric velocity (km/s, ICRS axes).
+
+    Returns
+    -------
+    ra, dec : ndarray
+        The body's astrometric direction (light-time corrected, no aberration), rad.
+    distance : ndarray
+        Its distance from the observer at the light-time-corrected epoch, au.
+    velocity : ndarray, shape (n, 3)
+        Only with ``with_velocity``.
+
+    Notes
+    -----
+    The light time is iterated three times from zero; each pass shrinks the error
+    by the body's speed over c (about 1e-4), far below any use here.
+    """
+    import astropy.units as u
+    from astropy.constants import c
+    from astropy.coordinates import get_body_barycentric, get_body_barycentric_posvel, \
+        solar_system_ephemeris
+
+    ephemeris = ephemeris or EPHEMERIS_DEFAULT
+    with solar_system_ephemeris.set(ephemeris):
+        earth, earth_velocity = get_body_barycentric_posvel("earth", time)
+        observer = earth.xyz.to_value(u.au).T
+        velocity = earth_velocity.xyz.to_value(u.km / u.s).T
+        if site is not None:
+            position, site_velocity = site.get_gcrs_posvel(time)
+            observer = observer + position.xyz.to_value(u.au).T
+            velocity = velocity + site_velocity.xyz.to_value(u.km / u.s).T
+        delay = np.zeros(len(np.atleast_1d(time.jd)))
+        for _ in range(3):
+            where = get_body_barycentric(body, time - delay * u.day).xyz.to_value(u.au).T
+            vector = where - observer
+            distance = np.linalg.norm(vector, axis=1)
+            delay = distance * (u.au / c).to_value(u.day)
+    ra = np.mod(np.arctan2(vector[:, 1], vector[:, 0]), 2.0 * np.pi)
+    dec = np.arcsin(vector[:, 2] / distance)
+    if with_velocity:
+        return ra, dec, distance, velocity
+    return ra, dec, distance
