@@ -23,7 +23,7 @@ import numpy as np
 from . import kepler, viewing
 from .constants import C_AU_PER_DAY
 
-__all__ = ["Keplerian", "orbit_state", "observed_offsets", "romer_factor", "make_dynamics",
+__all__ = ["Keplerian", "orbit_state", "orbit_axes", "observed_offsets", "romer_factor", "make_dynamics",
            "MODEL_OPTIONS"]
 
 TWO_PI = 2.0 * np.pi
@@ -60,7 +60,7 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     big_e = kepler.solve_kepler(mean_anomaly, ecc)
     cos_e, sin_e = np.cos(big_e), np.sin(big_e)
     root = np.sqrt(1.0 - ecc * ecc)
-    p_vec, q_vec = _pq(inc, omega, node)
+    p_vec, q_vec = orbit_axes(inc, omega, node)
     x = cos_e - ecc
     y = root * sin_e
     position = tuple(a * (x * p + y * q) for p, q in zip(p_vec, q_vec))
@@ -73,13 +73,18 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     return position, velocity
 
 
-def _pq(inc, omega, node):
+def orbit_axes(inc, omega, node):
+    """Unit vectors P (towards periapsis) and Q (a quarter-turn ahead), as the
+    triples (north, east, z) of the sky frame, or (x, y, z) of ICRS axes."""
     cw, sw = np.cos(omega), np.sin(omega)
     cn, sn = np.cos(node), np.sin(node)
     ci, si = np.cos(inc), np.sin(inc)
     p_vec = (cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si)
     q_vec = (-sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si)
     return p_vec, q_vec
+
+
+_pq = orbit_axes  # the name the perturbed models import
 
 
 class Keplerian:

@@ -360,8 +360,8 @@ class OrbitModel:
         self._rows = ({} if self.velocity_only else
                       {name: self._prepare_rows(name) for name in self.companions})
         self.node_width = self.dynamics.node_widths(
-            self, {name: TWO_PI if self._has_velocity_of(name) else np.pi
-                   for name in self.companions})
+            self, {name: TWO_PI if self._has_velocity_of(name) or self.sight is not None
+                   else np.pi for name in self.companions})
         self.centres = {name: {"node": 0.5 * np.pi, "phase": np.pi} for name in self.companions}
         self.parameters = self._layout()
         self.n_dim = len(self.parameters)

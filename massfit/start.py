@@ -144,6 +144,8 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
         return _velocity_only_start(model)
     if type(model.dynamics) is not Keplerian:
         return _perturbed_start(model)
+    if model.sight is not None:
+        return _sight_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best, joint = _best_combination(model, singles)
     modes = []
@@ -221,6 +223,55 @@ def _perturbed_start(model):
            for name, sol in found.per_companion.items()}
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
                  modes=modes, per_companion=per)
+
+
+def _sight_start(model):
+    """Start a model whose line of sight moves: the fixed-plane search, then ICRS.
+
+    The periodograms and linear scans run on a fixed sky plane (the same rows, the
+    offsets from the primary only, each row's distance kept). Each orbit found there
+    is turned into ICRS elements about the rows' mean line of sight, in both of its
+    mirror images (a fixed plane cannot tell which way the orbit tilts; the moving
+    line of sight can), and least squares in the full model picks the better.
+    """
+    from .viewing import mean_direction, orientation_in_icrs
+
+    data = model.observations.astrometry
+    own = np.ones(len(data), dtype=bool) if data.reference_body is None else (
+        data.reference_body == "")
+    plane_rows = replace(data.select(own), primary_ra=None, primary_dec=None,
+                         reference_body=None)
+    plane = OrbitModel(replace(model.observations, astrometry=plane_rows),
+                       replace(model.spec, companions=dict(model.companions),
+                               strict_companions=True))
+    found = find_start(plane)
+    values = _values_from_theta(plane, found.theta)
+    toward = mean_direction(model.sight)
+    best, best_chi2 = None, np.inf
+    for mirror in itertools.product((0.0, np.pi), repeat=len(model.companions)):
+        trial = dict(values)
+        for turn, name in zip(mirror, model.companions):
+            orbit = dict(values[name])
+            inc, omega, node = orientation_in_icrs(
+                orbit["inc"], orbit["omega"] + turn, orbit["node"] + turn, toward)
+            # The same mean anomaly, carried to this model's reference epoch.
+            shift = (model.epoch_jd + model.reference_epoch(name)
+                     - plane.epoch_jd - plane.reference_epoch(name))
+            orbit.update(inc=inc, omega=omega, node=node, mean_anomaly_ref=(
+                orbit["mean_anomaly_ref"] + 2.0 * np.pi * shift / orbit["period"]))
+            trial[name] = orbit
+        theta = _least_squares(model, trial, rounds=3)
+        if theta is not None and _chi2(model, theta) < best_chi2:
+            best, best_chi2 = theta, _chi2(model, theta)
+    if best is None:
+        raise ModelError("the least-squares fit with the moving line of sight failed from "
+                         "the fixed-plane solution; check the primary_ra, primary_dec and "
+                         "distance columns")
+    theta = model.recentre(best)
+    return Start(theta=theta, chi2=best_chi2, covariance=_covariance(model, theta),
+                 modes=[dict(mode, searched_with="fixed sky plane") for mode in found.modes],
+                 per_companion={name: dict(sol, searched_with="fixed sky plane")
+                                for name, sol in found.per_companion.items()})
 
 
 def two_body_start(model):

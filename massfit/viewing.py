@@ -28,7 +28,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Sight", "sight_from_angles", "sky_basis", "project", "ephemeris_sight",
+__all__ = ["Sight", "sight_from_angles", "sky_basis", "project", "along_sight",
+           "orientation_in_icrs", "mean_direction", "ephemeris_sight",
            "differential_aberration", "EPHEMERIS_DEFAULT"]
 
 #: The ephemeris used when a body is named without one (astropy's built-in ERFA one).
@@ -228,3 +229,49 @@ def ephemeris_sight(body: str, time, *, site=None, ephemeris: str | None = None,
     if with_velocity:
         return ra, dec, distance, velocity
     return ra, dec, distance
+
+
+def orientation_in_icrs(inc, omega, node, toward):
+    """An orbit's orientation on a fixed sky plane, turned into ICRS elements.
+
+    Parameters
+    ----------
+    inc, omega, node : float
+        Inclination, argument of periapsis and position angle of the ascending node
+        (rad) against the sky plane at ``toward`` (z away from the observer).
+    toward : array_like, shape (3,)
+        The line of sight of that sky plane (ICRS unit vector).
+
+    Returns
+    -------
+    inc, omega, node : float
+        The same orbit's elements against the ICRS equator and x axis (rad).
+
+    Notes
+    -----
+    The periapsis and quarter-turn unit vectors P, Q have sky components
+    (north, east, z); in ICRS they are north * n + east * e + z * d. The elements
+    follow from W = P x Q = (sin i sin node, -sin i cos node, cos i) and
+    P_z = sin w sin i, Q_z = cos w sin i.
+    """
+    toward = np.asarray(toward, dtype=float)
+    toward = toward / np.linalg.norm(toward)
+    ra = np.arctan2(toward[1], toward[0])
+    dec = np.arcsin(toward[2])
+    from .dynamics import orbit_axes
+
+    d_vec, e_vec, n_vec = (v[0] for v in sky_basis(ra, dec))
+    p_sky, q_sky = orbit_axes(inc, omega, node)
+    p_vec = p_sky[0] * n_vec + p_sky[1] * e_vec + p_sky[2] * d_vec
+    q_vec = q_sky[0] * n_vec + q_sky[1] * e_vec + q_sky[2] * d_vec
+    w_vec = np.cross(p_vec, q_vec)
+    inc_icrs = float(np.arccos(np.clip(w_vec[2], -1.0, 1.0)))
+    node_icrs = float(np.arctan2(w_vec[0], -w_vec[1]))
+    omega_icrs = float(np.arctan2(p_vec[2], q_vec[2]))
+    return inc_icrs, omega_icrs, node_icrs
+
+
+def mean_direction(sight: Sight):
+    """The unit vector of the rows' mean line of sight."""
+    mean = np.mean(sight.toward, axis=0)
+    return mean / np.linalg.norm(mean)
