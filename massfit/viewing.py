@@ -210,6 +210,7 @@ def ephemeris_sight(body: str, time, *, site=None, ephemeris: str | None = None,
         solar_system_ephemeris
 
     ephemeris = ephemeris or EPHEMERIS_DEFAULT
+    time = time.reshape((1,)) if time.isscalar else time
     with solar_system_ephemeris.set(ephemeris):
         earth, earth_velocity = get_body_barycentric_posvel("earth", time)
         observer = earth.xyz.to_value(u.au).T
