@@ -183,6 +183,11 @@ class SystemSpec:
         How the companions move: None or :class:`massfit.dynamics.Keplerian` for
         two-body orbits, :class:`massfit.oblateness.Oblate` for a J2 primary,
         :class:`massfit.nbody.NBody` for companions that perturb each other.
+    viewing : massfit.viewing.ViewingSpec or None
+        The line of sight to a primary inside the solar system: an ephemeris body
+        (resolved into per-row columns by :func:`massfit.viewing.with_ephemeris`),
+        astrometric or apparent offsets, the primary's pole. None: the rows'
+        ``primary_ra``/``primary_dec`` columns if any, astrometric offsets.
     compare_keplerian : bool
         With a perturbed ``dynamics``, the adequacy report also fits the two-body
         model and compares the two (an extra least-squares fit).
@@ -212,6 +217,7 @@ class SystemSpec:
     romer_delay: bool = False
     dynamics: object | None = None
     compare_keplerian: bool = True
+    viewing: object | None = None
 
 
 @dataclass
@@ -338,8 +344,8 @@ class OrbitModel:
         self.dynamics.prepare(self)
         #: The primary's line of sight per astrometric row (a :class:`viewing.Sight`),
         #: or None for a distant primary on one fixed sky plane.
-        self.sight = (_sight_of(astrometry) if has_astrometry and astrometry.has_sight
-                      else None)
+        self.sight = (_sight_of(astrometry, self.spec.viewing)
+                      if has_astrometry and astrometry.has_sight else None)
         if has_astrometry:
             self._check_references(astrometry)
         if self.sight is not None and self.has_velocities:
@@ -438,6 +444,20 @@ class OrbitModel:
                     f"companion '{name}' has {n_rows} astrometric epoch(s); an orbit "
                     f"and the central mass need at least 4 (7 numbers for 7 unknowns)")
         return specs
+
+    def viewing_description(self) -> dict:
+        """How the line of sight was known (summary key ``viewing``)."""
+        from .viewing import ViewingSpec
+
+        return (self.spec.viewing or ViewingSpec()).describe()
+
+    def primary_pole(self):
+        """(ra, dec) of the primary's pole in radians where given with a line of
+        sight, else None."""
+        viewing = self.spec.viewing
+        if self.sight is None or viewing is None or viewing.pole_ra is None:
+            return None
+        return viewing.pole_ra, viewing.pole_dec
 
     def _check_references(self, astrometry):
         """Offsets measured from another body name a companion of this fit."""
@@ -1131,12 +1151,18 @@ def _scale_parameter(name, prior) -> _Parameter:
     return _Parameter(name, "", prior, "identity", 0.0, np.inf)
 
 
-def _sight_of(astrometry):
-    """The rows' lines of sight from their primary_ra, primary_dec and distance."""
-    from .viewing import sight_from_angles
+def _sight_of(astrometry, viewing):
+    """The rows' lines of sight from their primary_ra, primary_dec and distance, with
+    the aberration maps where the offsets are apparent."""
+    from .viewing import aberration_maps, observer_velocity, sight_from_angles
 
-    return sight_from_angles(astrometry.primary_ra, astrometry.primary_dec,
-                             astrometry.distance * AU_PER_PC)
+    sight = sight_from_angles(astrometry.primary_ra, astrometry.primary_dec,
+                              astrometry.distance * AU_PER_PC)
+    if viewing is not None and viewing.offsets == "apparent":
+        velocity = observer_velocity(astrometry.time, site=viewing.site,
+                                     ephemeris=viewing.ephemeris)
+        sight.apparent = aberration_maps(sight, velocity)
+    return sight
 
 
 def _file_stem(path) -> str:

@@ -25,11 +25,14 @@ earlier by d.r/c), the aberration due to the observer's velocity is not.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
 __all__ = ["Sight", "sight_from_angles", "sky_basis", "project", "along_sight",
-           "orientation_in_icrs", "mean_direction", "ephemeris_sight",
+           "orientation_in_icrs", "mean_direction", "ephemeris_sight", "aberration_maps",
+           "observer_velocity", "ViewingSpec", "with_ephemeris", "OFFSET_KINDS",
+           "against_equator", "viewing_from_settings",
            "differential_aberration", "EPHEMERIS_DEFAULT"]
 
 #: The ephemeris used when a body is named without one (astropy's built-in ERFA one).
@@ -48,12 +51,16 @@ class Sight:
         Unit vectors of the tangent plane there (the conventions' east and north).
     distance : ndarray, shape (n,)
         Distance from the observer to the primary, au.
+    apparent : ndarray, shape (n, 2, 2), optional
+        Where the offsets are apparent: the linear map from astrometric (east, north)
+        to apparent ones (differential aberration); None for astrometric offsets.
     """
 
     toward: np.ndarray
     east: np.ndarray
     north: np.ndarray
     distance: np.ndarray
+    apparent: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.distance)
@@ -61,7 +68,8 @@ class Sight:
     def select(self, index) -> "Sight":
         """The rows ``index`` (an integer array or a mask)."""
         return Sight(self.toward[index], self.east[index], self.north[index],
-                     self.distance[index])
+                     self.distance[index],
+                     None if self.apparent is None else self.apparent[index])
 
 
 def sky_basis(ra, dec):
@@ -119,11 +127,16 @@ def project(sight: Sight, position):
     east, north : ndarray
         The angular offsets times D (au): divided by D they are the gnomonic
         standard coordinates in radians; the per-row distance then turns them into
-        arcsec exactly as for a fixed sky plane (1 au at 1 pc is 1 arcsec).
+        arcsec exactly as for a fixed sky plane (1 au at 1 pc is 1 arcsec). Apparent
+        where ``sight.apparent`` is set (the aberration map, linear in the offsets).
     """
     depth = sight.distance + along_sight(sight, position)
     factor = sight.distance / depth
-    return factor * _dot(sight.east, position), factor * _dot(sight.north, position)
+    east, north = factor * _dot(sight.east, position), factor * _dot(sight.north, position)
+    if sight.apparent is None:
+        return east, north
+    m = sight.apparent
+    return m[:, 0, 0] * east + m[:, 0, 1] * north, m[:, 1, 0] * east + m[:, 1, 1] * north
 
 
 def differential_aberration(sight: Sight, velocity_km_s, east, north):
@@ -276,3 +289,228 @@ def mean_direction(sight: Sight):
     """The unit vector of the rows' mean line of sight."""
     mean = np.mean(sight.toward, axis=0)
     return mean / np.linalg.norm(mean)
+
+
+def aberration_maps(sight: Sight, velocity_km_s):
+    """Per row, the 2x2 map from astrometric to apparent (east, north) offsets.
+
+    Differential aberration is linear in the offsets to first order in them (its
+    parts: the scale 1 - beta . d and the turn of north at the displaced tangent
+    point); the map is measured from :func:`differential_aberration` on two small
+    offsets. Its error is of order beta times the offset (radians), 1e-4 of the
+    aberration itself for moons a few arcminutes out.
+    """
+    step = 1e-4  # radians: small enough for linearity, far above rounding
+    n = len(sight)
+    zero, probe = np.zeros(n), np.full(n, step)
+    columns = []
+    for east, north in ((probe, zero), (zero, probe)):
+        d_east, d_north = differential_aberration(sight, velocity_km_s, east, north)
+        columns.append(np.column_stack([east + d_east, north + d_north]) / step)
+    return np.stack(columns, axis=2)
+
+
+def observer_velocity(time, *, site=None, ephemeris=None):
+    """The observer's barycentric velocity (km/s, ICRS axes): the Earth's, plus the
+    site's rotation where a site is given."""
+    import astropy.units as u
+    from astropy.coordinates import get_body_barycentric_posvel, solar_system_ephemeris
+
+    time = time.reshape((1,)) if time.isscalar else time
+    with solar_system_ephemeris.set(ephemeris or EPHEMERIS_DEFAULT):
+        _, velocity = get_body_barycentric_posvel("earth", time)
+    velocity = velocity.xyz.to_value(u.km / u.s).T
+    if site is not None:
+        velocity = velocity + site.get_gcrs_posvel(time)[1].xyz.to_value(u.km / u.s).T
+    return velocity
+
+
+#: Accepted values of :attr:`ViewingSpec.offsets`.
+OFFSET_KINDS = ("astrometric", "apparent")
+
+
+@dataclass
+class ViewingSpec:
+    """How the line of sight to the primary is known, and what the offsets are.
+
+    Parameters
+    ----------
+    ephemeris_body : str, optional
+        A solar-system primary by name: its direction and distance at every row come
+        from astropy's ephemerides (instead of ``primary_ra``/``primary_dec`` columns).
+    ephemeris : str
+        ``"builtin"`` or the path of a JPL kernel (``.bsp``).
+    site : astropy.coordinates.EarthLocation, optional
+        The observatory; None for the Earth's centre.
+    offsets : {"astrometric", "apparent"}
+        Apparent offsets carry the differential aberration of the observer's velocity
+        (the Earth's, plus the site's rotation); the model then applies it.
+    pole_ra, pole_dec : float, optional
+        The primary's north pole (rad, ICRS): the summary then also gives each orbit's
+        inclination and node against the primary's equator.
+    """
+
+    ephemeris_body: str | None = None
+    ephemeris: str = EPHEMERIS_DEFAULT
+    site: object | None = None
+    offsets: str = "astrometric"
+    pole_ra: float | None = None
+    pole_dec: float | None = None
+
+    def settings(self) -> dict:
+        """The settings as :func:`viewing_from_settings` takes them (for run.json)."""
+        out = {"ephemeris_body": self.ephemeris_body, "ephemeris": self.ephemeris,
+               "offsets": self.offsets}
+        if self.site is not None:
+            site = self.site
+            out["site"] = [f"{float(site.lon.deg)!r} deg", f"{float(site.lat.deg)!r} deg",
+                           f"{float(site.height.to_value('m'))!r} m"]
+        if self.pole_ra is not None:
+            out["pole_ra"] = f"{float(self.pole_ra)!r} rad"
+            out["pole_dec"] = f"{float(self.pole_dec)!r} rad"
+        return out
+
+    def describe(self) -> dict:
+        """The settings, for the summary and the run record."""
+        out = {"frame": "ICRS", "offsets": self.offsets,
+               "direction_from": ("ephemeris" if self.ephemeris_body else
+                                  "primary_ra/primary_dec columns")}
+        if self.ephemeris_body or self.offsets == "apparent":
+            out["ephemeris"] = self.ephemeris
+            out["site"] = "geocentre" if self.site is None else {
+                "longitude_deg": float(self.site.lon.deg),
+                "latitude_deg": float(self.site.lat.deg),
+                "height_m": float(self.site.height.to_value("m"))}
+        if self.ephemeris_body:
+            out["ephemeris_body"] = self.ephemeris_body
+        if self.pole_ra is not None:
+            out["pole_ra_deg"] = float(np.degrees(self.pole_ra))
+            out["pole_dec_deg"] = float(np.degrees(self.pole_dec))
+        return out
+
+
+def with_ephemeris(observations, viewing: ViewingSpec | None, *, key_prefix="viewing."):
+    """The observations with each astrometric row's primary direction and distance
+    filled in from the ephemeris, where ``viewing`` names a body; else unchanged."""
+    from dataclasses import replace
+
+    from .constants import AU_PER_PC
+    from .errors import ConfigError
+
+    data = observations.astrometry
+    if viewing is None or viewing.ephemeris_body is None or data is None:
+        return observations
+    key = f"{key_prefix}ephemeris_body" if key_prefix.endswith(".") else "--ephemeris-body"
+    if data.has_sight or np.any(np.isfinite(data.distance)):
+        raise ConfigError("the data already give the primary's direction or distance per "
+                          "row; use either those columns or an ephemeris body, not both",
+                          key=key)
+    try:
+        ra, dec, distance = ephemeris_sight(viewing.ephemeris_body, data.time,
+                                            site=viewing.site, ephemeris=viewing.ephemeris)
+    except (KeyError, ValueError, OSError) as exc:
+        from astropy.coordinates import solar_system_ephemeris
+
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise ConfigError(f"cannot place '{viewing.ephemeris_body}' with the ephemeris "
+                          f"'{viewing.ephemeris}' ({reason}); bodies: "
+                          f"{', '.join(solar_system_ephemeris.bodies)}; an ephemeris is "
+                          f"'builtin' or the path of a JPL .bsp kernel", key=key) from None
+    astrometry = replace(data, primary_ra=ra, primary_dec=dec, distance=distance / AU_PER_PC)
+    return replace(observations, astrometry=astrometry)
+
+
+def against_equator(inc, node, pole_ra, pole_dec):
+    """Inclination and node (deg) of orbits against a body's equator.
+
+    Parameters
+    ----------
+    inc, node : array_like
+        ICRS inclination and node (rad).
+    pole_ra, pole_dec : float
+        The body's north pole (rad).
+
+    Returns
+    -------
+    inclination, node : ndarray
+        The angle between the orbit's pole W = (sin i sin node, -sin i cos node, cos i)
+        and the body's, and the ascending node on the body's equator counted from
+        the ascending node of that equator on the ICRS equator (the IAU's origin of
+        planetocentric node longitudes), deg.
+    """
+    pole = sky_basis(pole_ra, pole_dec)[0][0]
+    inc, node = np.asarray(inc, dtype=float), np.asarray(node, dtype=float)
+    w_vec = np.stack([np.sin(inc) * np.sin(node), -np.sin(inc) * np.cos(node), np.cos(inc)],
+                     axis=-1)
+    inclination = np.degrees(np.arccos(np.clip(w_vec @ pole, -1.0, 1.0)))
+    origin = np.cross([0.0, 0.0, 1.0], pole)
+    origin /= np.linalg.norm(origin)
+    ahead = np.cross(pole, origin)
+    line = np.cross(pole, w_vec)  # towards the orbit's ascending node on the equator
+    node_eq = np.degrees(np.arctan2(line @ ahead, line @ origin)) % 360.0
+    return inclination, node_eq
+
+
+def viewing_from_settings(settings: dict, *, key_prefix="viewing.", file=None):
+    """A :class:`ViewingSpec` from config keys or command-line options (None if empty).
+
+    ``settings`` may hold ``ephemeris_body``, ``ephemeris``, ``site`` (longitude,
+    latitude and height, each ``"VALUE UNIT"``), ``offsets``, ``pole_ra`` and
+    ``pole_dec`` (``"VALUE UNIT"``); None values are ignored.
+    """
+    import astropy.units as u
+
+    from .constants import parse_quantity
+    from .errors import ConfigError
+
+    settings = {k: v for k, v in settings.items() if v is not None}
+    if not settings:
+        return None
+
+    def key(name):
+        return key_prefix + (name.replace("_", "-") if key_prefix == "--" else name)
+
+    offsets = settings.get("offsets", "astrometric")
+    if offsets not in OFFSET_KINDS:
+        raise ConfigError(f"unknown kind of offsets '{offsets}'; accepted: "
+                          f"{', '.join(OFFSET_KINDS)}", key=key("offsets"), file=file)
+    site = None
+    if "site" in settings:
+        site = _site(settings["site"], key("site"), file)
+    pole = [settings.get(name) for name in ("pole_ra", "pole_dec")]
+    if (pole[0] is None) != (pole[1] is None):
+        raise ConfigError("the pole needs both its right ascension and its declination",
+                          key=key("pole_dec" if pole[1] is None else "pole_ra"), file=file)
+    if pole[0] is not None:
+        pole = [float(parse_quantity(v, expect=u.rad, key=key(n), file=file).to_value(u.rad))
+                for v, n in zip(pole, ("pole_ra", "pole_dec"))]
+        if abs(pole[1]) > 0.5 * np.pi:
+            raise ConfigError("a declination lies between -90 and +90 deg",
+                              key=key("pole_dec"), file=file)
+    ephemeris = settings.get("ephemeris", EPHEMERIS_DEFAULT)
+    if ephemeris != EPHEMERIS_DEFAULT and not Path(ephemeris).is_file():
+        raise ConfigError(f"'{ephemeris}' is not a file; give 'builtin' or the path of a "
+                          f"JPL kernel (.bsp)", key=key("ephemeris"), file=file)
+    return ViewingSpec(ephemeris_body=settings.get("ephemeris_body"), ephemeris=ephemeris,
+                       site=site, offsets=offsets, pole_ra=pole[0], pole_dec=pole[1])
+
+
+def _site(values, key, file):
+    """An EarthLocation from [longitude, latitude, height], each "VALUE UNIT"."""
+    import astropy.units as u
+    from astropy.coordinates import EarthLocation
+
+    from .constants import parse_quantity
+    from .errors import ConfigError
+
+    if isinstance(values, str):
+        values = values.split(",")
+    if len(values) != 3:
+        raise ConfigError("a site is its longitude, latitude and height, e.g. "
+                          "['-70.7 deg', '-30.2 deg', '2200 m']", key=key, file=file)
+    lon, lat = (parse_quantity(str(v).strip(), expect=u.deg, key=key, file=file)
+                for v in values[:2])
+    height = parse_quantity(str(values[2]).strip(), expect=u.m, key=key, file=file)
+    if abs(lat.to_value(u.deg)) > 90:
+        raise ConfigError("the latitude lies between -90 and +90 deg", key=key, file=file)
+    return EarthLocation.from_geodetic(lon, lat, height)
