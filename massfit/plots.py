@@ -708,7 +708,8 @@ def equator_residual_plot(result, *, companions=None, width=None):
                             color=colour, ecolor="0.75", elinewidth=0.5, label=word,
                             gid=f"residuals-{word.replace(' ', '-')}")
             ax.axhline(0.0, color="k", lw=0.5)
-            lim = 1.1 * float(np.max(np.abs(np.concatenate([d_e, d_n])) + err)) * factor
+            lim = 1.1 * factor * float(np.max(np.abs(np.concatenate([d_e, d_n]))
+                                              + np.concatenate([err, err])))
             ax.set_ylim(-lim, 1.5 * lim)  # room for the name and the legend
             ax.set_ylabel(f"O$-$C [{unit}]")
             ax.text(0.01, 0.95, name, transform=ax.transAxes, ha="left", va="top",

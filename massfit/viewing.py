@@ -389,7 +389,7 @@ class ViewingSpec:
         return out
 
 
-def with_ephemeris(observations, viewing: ViewingSpec | None, *, key_prefix="viewing."):
+def with_ephemeris(observations, viewing: ViewingSpec | None):
     """The observations with each astrometric row's primary direction and distance
     filled in from the ephemeris, where ``viewing`` names a body; else unchanged."""
     from dataclasses import replace
@@ -400,7 +400,7 @@ def with_ephemeris(observations, viewing: ViewingSpec | None, *, key_prefix="vie
     data = observations.astrometry
     if viewing is None or viewing.ephemeris_body is None or data is None:
         return observations
-    key = f"{key_prefix}ephemeris_body" if key_prefix.endswith(".") else "--ephemeris-body"
+    key = "viewing.ephemeris_body (--ephemeris-body)"
     if data.has_sight or np.any(np.isfinite(data.distance)):
         raise ConfigError("the data already give the primary's direction or distance per "
                           "row; use either those columns or an ephemeris body, not both",

@@ -304,3 +304,96 @@ def test_real_outer_moon_gives_the_published_gm(outer_moon):
     mass, sigma, chi2, dof = _fit(_fixed_plane(outer_moon))
     assert abs(mass * GM_SUN_KM3_S2 / PUBLISHED_GM - 1) > 3e-3
     assert chi2 / dof > 100
+
+
+# ------------------------------------------------------------ settings and output
+def test_viewing_config_keys_and_their_errors(tmp_path):
+    from massfit.config import parse_config
+    from massfit.errors import ConfigError
+
+    raw = {"data": {"files": ["moons.ecsv"]},
+           "viewing": {"ephemeris_body": "jupiter", "site": ["-68.4 deg", "-24.1 deg",
+                                                             "2150 m"],
+                       "offsets": "apparent", "pole_ra": "251.3 deg",
+                       "pole_dec": "57.8 deg"}}
+    viewing = parse_config(raw, base=tmp_path).system.viewing
+    assert viewing.ephemeris_body == "jupiter" and viewing.offsets == "apparent"
+    assert viewing.pole_dec == pytest.approx(np.radians(57.8))
+    assert viewing.site.lat.deg == pytest.approx(-24.1)
+    raw["viewing"]["offsets"] = "topocentric"
+    with pytest.raises(ConfigError, match="viewing.offsets"):
+        parse_config(raw, base=tmp_path)
+
+
+def test_unknown_ephemeris_body_is_one_line_and_exit_2(tmp_path):
+    import subprocess
+
+    path = tmp_path / "plain.csv"
+    path.write_text("time,body,east,north,east_err,north_err\n" + "".join(
+        f"{2461000.5 + k},a,{k},1,0.1,0.1\n" for k in range(6)))
+    proc = subprocess.run(
+        [sys.executable, "-m", "massfit", "fit", str(path), "--out", str(tmp_path / "o"),
+         "--time-format", "jd", "--time-scale", "tdb", "--units",
+         "east=arcsec,north=arcsec,east_err=arcsec,north_err=arcsec",
+         "--ephemeris-body", "vulcan"], capture_output=True, text=True)
+    assert proc.returncode == 2
+    errors = [line for line in proc.stderr.splitlines() if "error" in line]
+    assert len(errors) == 1 and "Traceback" not in proc.stderr
+    assert "--ephemeris-body" in errors[0] and "vulcan" in errors[0]
+
+
+def test_ephemeris_body_fills_each_rows_direction(tmp_path):
+    from massfit.viewing import ViewingSpec, with_ephemeris
+
+    path = tmp_path / "plain.ecsv"
+    header = _HEADER.replace("# - {name: primary_ra, unit: deg, datatype: float64}\n", "")
+    header = header.replace("# - {name: primary_dec, unit: deg, datatype: float64}\n", "")
+    header = header.replace("# - {name: distance, unit: AU, datatype: float64}\n", "")
+    header = header.replace(" primary_ra primary_dec distance", "")
+    path.write_text(header + "".join(f"{2461000.5 + 20 * k} a {k} 1 10 10 \"\"\n"
+                                     for k in range(5)))
+    obs = with_ephemeris(read_observations(path), ViewingSpec(ephemeris_body="saturn"))
+    time = obs.astrometry.time
+    body = get_body("saturn", time)  # astropy's own (apparent) place
+    assert np.allclose(obs.astrometry.distance * 206264.806, body.distance.to_value(u.au),
+                       rtol=1e-6)
+    # Astrometric against apparent: within the ~20" of annual aberration.
+    assert np.allclose(np.degrees(obs.astrometry.primary_dec), body.dec.deg, atol=30 / 3600)
+
+
+def test_elements_against_the_primarys_equator():
+    from massfit.viewing import against_equator
+
+    pole_ra, pole_dec = np.radians(251.3), np.radians(57.8)
+    # An orbit whose pole is the planet's: i = 90 - dec, node = ra + 90 (ICRS).
+    inc, node = np.radians(90 - 57.8), np.radians(251.3 + 90)
+    i_eq, _ = against_equator(inc, node, pole_ra, pole_dec)
+    assert i_eq == pytest.approx(0.0, abs=1e-6)
+    i_eq, _ = against_equator(inc + np.radians(7.0), node, pole_ra, pole_dec)
+    assert i_eq == pytest.approx(7.0, abs=1e-6)
+
+
+def test_short_fit_is_saved_and_reloaded_with_its_line_of_sight(tmp_path):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from massfit.plots import equator_residual_plot
+    from massfit.run import fit
+    from massfit.saved import load_result
+    from massfit.viewing import ViewingSpec
+
+    obs, truth = _simulated(tmp_path)
+    spec = SystemSpec(viewing=ViewingSpec(pole_ra=np.radians(250.0),
+                                          pole_dec=np.radians(60.0)))
+    result = fit(obs, spec, max_steps=200, walkers=32, seed=3)
+    assert result.summary["viewing"]["frame"] == "ICRS"
+    assert "inclination_to_equator" in result.summary["companions"]["a"]
+    assert "ICRS" in result.report()
+    result.save(tmp_path / "out", plots=False)
+    back = load_result(tmp_path / "out")
+    assert back.model.sight is not None
+    assert back.model.spec.viewing.pole_dec == pytest.approx(np.radians(60.0))
+    fig = equator_residual_plot(back)
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert labels == ["along the equator", "towards the pole"]
+    assert "O$-$C" in fig.axes[0].get_ylabel()
