@@ -230,9 +230,10 @@ def _sight_start(model):
 
     The periodograms and linear scans run on a fixed sky plane (the same rows, the
     offsets from the primary only, each row's distance kept). Each orbit found there
-    is turned into ICRS elements about the rows' mean line of sight, in both of its
-    mirror images (a fixed plane cannot tell which way the orbit tilts; the moving
-    line of sight can), and least squares in the full model picks the better.
+    is turned into ICRS elements about the rows' mean line of sight, in the mirror
+    image that fits better (a fixed plane cannot tell which way the orbit tilts; the
+    moving line of sight can), and polished by least squares in the full model; the
+    other image of a companion is tried where the fit stays poor.
     """
     from .viewing import mean_direction, orientation_in_icrs
 
@@ -247,20 +248,39 @@ def _sight_start(model):
     found = find_start(plane)
     values = _values_from_theta(plane, found.theta)
     toward = mean_direction(model.sight)
-    best, best_chi2 = None, np.inf
-    for mirror in itertools.product((0.0, np.pi), repeat=len(model.companions)):
-        trial = dict(values)
-        for turn, name in zip(mirror, model.companions):
-            orbit = dict(values[name])
-            inc, omega, node = orientation_in_icrs(
-                orbit["inc"], orbit["omega"] + turn, orbit["node"] + turn, toward)
-            # The same mean anomaly, carried to this model's reference epoch.
-            shift = (model.epoch_jd + model.reference_epoch(name)
-                     - plane.epoch_jd - plane.reference_epoch(name))
-            orbit.update(inc=inc, omega=omega, node=node, mean_anomaly_ref=(
-                orbit["mean_anomaly_ref"] + 2.0 * np.pi * shift / orbit["period"]))
-            trial[name] = orbit
-        theta = _least_squares(model, trial, rounds=3)
+
+    def turned(trial, name, turn):
+        orbit = dict(values[name])
+        inc, omega, node = orientation_in_icrs(
+            orbit["inc"], orbit["omega"] + turn, orbit["node"] + turn, toward)
+        # The same mean anomaly, carried to this model's reference epoch.
+        shift = (model.epoch_jd + model.reference_epoch(name)
+                 - plane.epoch_jd - plane.reference_epoch(name))
+        orbit.update(inc=inc, omega=omega, node=node, mean_anomaly_ref=(
+            orbit["mean_anomaly_ref"] + 2.0 * np.pi * shift / orbit["period"]))
+        return dict(trial, **{name: orbit})
+
+    # Each companion's mirror image chosen by the chi^2 at the turned solution (the
+    # others held): the wrong one is off by the orbit's depth times the turn of the
+    # line of sight. Then least squares; the other image of each companion is
+    # polished too only where the first choice does not fit acceptably.
+    trial = dict(values)
+    for name in model.companions:
+        trial = turned(trial, name, 0.0)
+    chosen = {}
+    for name in model.companions:
+        scores = [_chi2(model, _theta_of(model, turned(trial, name, turn)))
+                  for turn in (0.0, np.pi)]
+        chosen[name] = (0.0, np.pi)[int(np.argmin(scores))]
+        trial = turned(trial, name, chosen[name])
+    best = _least_squares(model, trial, rounds=3)
+    best_chi2 = np.inf if best is None else _chi2(model, best)
+    for name in model.companions:
+        if best is not None and _acceptable(model, best, best_chi2):
+            break
+        other = turned(_values_from_theta(model, best) if best is not None else trial,
+                       name, np.pi - chosen[name])
+        theta = _least_squares(model, other, rounds=3)
         if theta is not None and _chi2(model, theta) < best_chi2:
             best, best_chi2 = theta, _chi2(model, theta)
     if best is None:
@@ -272,6 +292,22 @@ def _sight_start(model):
                  modes=[dict(mode, searched_with="fixed sky plane") for mode in found.modes],
                  per_companion={name: dict(sol, searched_with="fixed sky plane")
                                 for name, sol in found.per_companion.items()})
+
+
+def _theta_of(model, values):
+    """Sampled coordinates of physical values, with the windows centred on them."""
+    model.recentre(_centre_guess(model, values))
+    return model.from_physical(values)
+
+
+def _acceptable(model, theta, chi2):
+    """The summary's poor-fit criterion, passed."""
+    from scipy.stats import chi2 as chi2_dist
+
+    from .run import POOR_FIT_P_VALUE
+
+    dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
+    return dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE
 
 
 def two_body_start(model):
