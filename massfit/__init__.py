@@ -26,6 +26,7 @@ from .results import FitResult
 from .run import fit
 from .saved import load_result
 from .sample import SamplerSettings
+from .viewing import ViewingSpec
 
 try:
     __version__ = _metadata.version("massfit")
@@ -37,5 +38,5 @@ __all__ = [
     "CompanionSpec", "Keplerian", "Oblate", "NBody", "SamplerSettings", "Uniform",
     "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
-    "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",
+    "AssumedSystem", "Schedule", "forecast_precision", "plan_observations", "ViewingSpec",
 ]

@@ -245,8 +245,12 @@ def _sight_start(model):
     plane = OrbitModel(replace(model.observations, astrometry=plane_rows),
                        replace(model.spec, companions=dict(model.companions),
                                strict_companions=True))
-    found = find_start(plane)
-    values = _values_from_theta(plane, found.theta)
+    # Each companion's own search, and the combination whose masses agree; the
+    # runner-up swaps of the fixed-plane fit are skipped: on a turning line of sight
+    # every fixed-plane chi^2 is large, so they would all count as comparable.
+    singles = {name: _single_companion_modes(plane, name) for name in plane.companions}
+    chosen_modes, (plane_theta, _, _) = _best_combination(plane, singles)
+    values = _values_from_theta(plane, plane_theta)
     toward = mean_direction(model.sight)
 
     def turned(trial, name, turn):
@@ -288,10 +292,11 @@ def _sight_start(model):
                          "the fixed-plane solution; check the primary_ra, primary_dec and "
                          "distance columns")
     theta = model.recentre(best)
+    per = {name: {"period": m["period"], "central_mass": m["central_mass"],
+                  "chi2": m["chi2"], "rows": m["rows"], "searched_with": "fixed sky plane"}
+           for name, m in chosen_modes.items()}
     return Start(theta=theta, chi2=best_chi2, covariance=_covariance(model, theta),
-                 modes=[dict(mode, searched_with="fixed sky plane") for mode in found.modes],
-                 per_companion={name: dict(sol, searched_with="fixed sky plane")
-                                for name, sol in found.per_companion.items()})
+                 modes=[], per_companion=per)
 
 
 def _theta_of(model, values):
