@@ -25,6 +25,7 @@ from massfit.run import fit
 from massfit.result.loading import load_result
 from massfit.sample.chain import SamplerSettings
 from massfit.version import __version__
+from massfit.orbits.viewing import ViewingSpec
 
 
 __all__ = [
@@ -32,5 +33,5 @@ __all__ = [
     "CompanionSpec", "Keplerian", "Oblate", "NBody", "SamplerSettings", "Uniform",
     "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
-    "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",
+    "AssumedSystem", "Schedule", "forecast_precision", "plan_observations", "ViewingSpec",
 ]

@@ -13,7 +13,7 @@ import numpy as np
 
 __all__ = [
     "DAY_S", "AU_KM", "GM_SUN", "GM_SUN_KM3_S2", "C_AU_PER_DAY", "KM_S_PER_AU_DAY",
-    "LIGHT_DAYS_PER_PC", "G_SI", "G_REL_UNCERTAINTY", "MASS_UNITS", "parse_quantity",
+    "LIGHT_DAYS_PER_PC", "AU_PER_PC", "G_SI", "G_REL_UNCERTAINTY", "MASS_UNITS", "parse_quantity",
 ]
 
 DAY_S = 86400.0
@@ -24,6 +24,7 @@ GM_SUN_KM3_S2 = const.GM_sun.to_value(u.km ** 3 / u.s ** 2)
 C_AU_PER_DAY = (const.c * DAY_S * u.s / const.au).to_value(u.one)
 KM_S_PER_AU_DAY = AU_KM / DAY_S
 LIGHT_DAYS_PER_PC = (const.pc / const.c).to_value(u.day)
+AU_PER_PC = (const.pc / const.au).to_value(u.one)
 #: Newton's constant (CODATA 2018, as astropy ships it) and its relative uncertainty.
 G_SI = const.G.value
 G_REL_UNCERTAINTY = const.G.uncertainty / const.G.value

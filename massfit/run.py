@@ -131,6 +131,12 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         # Draw the seed here so that the run record always holds one that repeats it.
         settings = replace(settings, seed=int(np.random.SeedSequence().generate_state(1)[0]))
     started = _dt.datetime.now(_dt.timezone.utc).isoformat()
+    if spec.viewing is not None:
+        from massfit.orbits.viewing import with_ephemeris
+
+        # A named solar-system primary: each row's direction and distance, once.
+        observations = with_ephemeris(observations, spec.viewing)
+        record = dict(record or {}, viewing=spec.viewing.describe())
     model = OrbitModel(observations, spec)
     resumed = None
     if resume:

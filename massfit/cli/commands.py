@@ -80,6 +80,7 @@ def _parser() -> argparse.ArgumentParser:
                           "body)")
     _sampler_options(fit)
     _dynamics_options(fit)
+    _viewing_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
@@ -228,7 +229,7 @@ def _dynamics_options(parser):
                        help="how the companions move (default keplerian)")
     group.add_argument("--j2", type=float, metavar="J2", help="oblate: the primary's J2")
     group.add_argument("--equatorial-radius", metavar="'VALUE UNIT'",
-                       help="oblate: the reference radius of J2, e.g. '71492 km'")
+                       help="oblate: the reference radius of J2, e.g. '58300 km'")
     group.add_argument("--equator-inclination", metavar="'VALUE UNIT'",
                        help="oblate: the equator's inclination on the sky (with "
                             "--equator-node; default: each orbit lies in the equator)")
@@ -262,6 +263,56 @@ def _apply_dynamics_options(args, system):
     merged = dict(getattr(system.dynamics, "settings", {})) if model == current else {}
     merged.update(given)
     return replace(system, dynamics=make_dynamics(model, key_prefix="--", **merged))
+
+
+def _viewing_options(parser):
+    group = parser.add_argument_group("a primary inside the solar system (override the "
+                                      "config's [viewing])")
+    group.add_argument("--ephemeris-body", metavar="NAME",
+                       help="the primary's direction and distance per row from astropy's "
+                            "ephemeris, e.g. 'jupiter'")
+    group.add_argument("--ephemeris", metavar="KERNEL",
+                       help="'builtin' (default) or the path of a JPL kernel (.bsp)")
+    group.add_argument("--site", metavar="'LON, LAT, HEIGHT'",
+                       help="observatory, e.g. '-68.4 deg, -24.1 deg, 2150 m' (default: "
+                            "the Earth's centre)")
+    group.add_argument("--offsets", choices=("astrometric", "apparent"),
+                       help="apparent: the offsets carry the differential aberration of "
+                            "the observer's velocity (default astrometric)")
+    group.add_argument("--pole", metavar="'RA, DEC'",
+                       help="the primary's north pole, e.g. '251.3 deg, 57.8 deg': "
+                            "elements also against its equator")
+
+
+def _apply_viewing_options(args, system):
+    """The config's [viewing], changed where the command line says so."""
+    from dataclasses import replace
+
+    from massfit.orbits.viewing import viewing_from_settings
+
+    given = {k: getattr(args, k, None) for k in ("ephemeris_body", "ephemeris", "site",
+                                                  "offsets")}
+    pole = getattr(args, "pole", None)
+    if pole is not None:
+        parts = pole.split(",")
+        if len(parts) != 2:
+            raise ConfigError("give the pole as 'RA, DEC', e.g. '251.3 deg, 57.8 deg'",
+                              key="--pole")
+        given["pole_ra"], given["pole_dec"] = (p.strip() for p in parts)
+    given = {k: v for k, v in given.items() if v is not None}
+    if not given:
+        return system
+    current = system.viewing
+    merged = {} if current is None else {
+        "ephemeris_body": current.ephemeris_body, "ephemeris": current.ephemeris,
+        "offsets": current.offsets}
+    merged.update(given)
+    spec = viewing_from_settings(merged, key_prefix="--")
+    if current is not None and "site" not in given:
+        spec.site = current.site
+    if current is not None and "pole_ra" not in given:
+        spec.pole_ra, spec.pole_dec = current.pole_ra, current.pole_dec
+    return replace(system, viewing=spec)
 
 
 def _sampler_options(parser):
@@ -346,6 +397,7 @@ def _setup_from_args(args):
     if setup.output is None:
         raise ConfigError("say where to write the result with --out DIR", key="--out")
     setup.system = _apply_dynamics_options(args, setup.system)
+    setup.system = _apply_viewing_options(args, setup.system)
     return setup
 
 

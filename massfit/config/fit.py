@@ -38,12 +38,21 @@ Layout (every key optional except ``data.files``)::
 
     [dynamics]                        # how the companions move (default: keplerian)
     model = "oblate"                  # "keplerian", "oblate" (J2) or "n-body"
-    j2 = 0.0147                       # oblate: the primary's J2 ...
-    equatorial_radius = "71492 km"    #   ... at this reference radius
+    j2 = 0.0231                       # oblate: the primary's J2 ...
+    equatorial_radius = "58300 km"    #   ... at this reference radius
     equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
     equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
     rtol = 1e-12                      # n-body: the integrator's relative tolerance
     compare_keplerian = true          # adequacy: also fit the two-body model
+
+    [viewing]                         # a primary inside the solar system (moving line of sight)
+    ephemeris_body = "jupiter"        # its direction and distance per row from astropy
+    ephemeris = "builtin"             #   or the path of a JPL kernel (.bsp)
+    site = ["-68.4 deg", "-24.1 deg", "2150 m"]  # longitude, latitude, height (default:
+                                      #   the Earth's centre)
+    offsets = "astrometric"           # or "apparent" (differential aberration modelled)
+    pole_ra = "251.3 deg"             # the primary's north pole: elements are also given
+    pole_dec = "57.8 deg"             #   against its equator
 
     [sampler]
     walkers = 64
@@ -70,6 +79,7 @@ from massfit.errors import ConfigError
 from massfit.model.orbit_model import CompanionSpec, SystemSpec
 from massfit.priors import Fixed, prior_from_spec
 from massfit.sample.chain import SamplerSettings
+from massfit.orbits.viewing import viewing_from_settings
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -89,6 +99,8 @@ _SCHEMA = {
     "dynamics": {"model": str, "j2": float, "equatorial_radius": str,
                  "equator_inclination": str, "equator_node": str, "rtol": float,
                  "compare_keplerian": bool},
+    "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
+                "pole_ra": str, "pole_dec": str},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
     "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
@@ -186,6 +198,7 @@ def _parse(raw, base, file):
     system = _system(raw.get("system", {}), raw.get("companions"), file)
     _velocities(system, raw.get("velocities", {}), file)
     _dynamics(system, raw.get("dynamics", {}), file)
+    system.viewing = viewing_from_settings(raw.get("viewing", {}), file=file)
     read_options["primary"] = system.primary
     sampler = SamplerSettings(**raw.get("sampler", {}))
     sampler.check(key_prefix="sampler.", file=file)

@@ -71,7 +71,7 @@ from pathlib import Path
 import numpy as np
 
 from massfit.orbits import kepler
-from massfit.constants import GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
+from massfit.constants import AU_PER_PC, GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
 from massfit.orbits.dynamics import Keplerian, observed_offsets
 from massfit.errors import ConfigError, InputError, ModelError
 from massfit.read.observations import Observations
@@ -183,6 +183,11 @@ class SystemSpec:
         How the companions move: None or :class:`massfit.orbits.dynamics.Keplerian` for
         two-body orbits, :class:`massfit.orbits.oblate.Oblate` for a J2 primary,
         :class:`massfit.orbits.nbody.NBody` for companions that perturb each other.
+    viewing : massfit.orbits.viewing.ViewingSpec or None
+        The line of sight to a primary inside the solar system: an ephemeris body
+        (resolved into per-row columns by :func:`massfit.orbits.viewing.with_ephemeris`),
+        astrometric or apparent offsets, the primary's pole. None: the rows'
+        ``primary_ra``/``primary_dec`` columns if any, astrometric offsets.
     compare_keplerian : bool
         With a perturbed ``dynamics``, the adequacy report also fits the two-body
         model and compares the two (an extra least-squares fit).
@@ -212,6 +217,7 @@ class SystemSpec:
     romer_delay: bool = False
     dynamics: object | None = None
     compare_keplerian: bool = True
+    viewing: object | None = None
 
 
 @dataclass
@@ -260,6 +266,8 @@ class _AstrometryRows:
     sep_err: np.ndarray
     pa: np.ndarray
     pa_err: np.ndarray
+    sight: object | None = None  # viewing.Sight of these rows, or None (fixed plane)
+    reference: np.ndarray | None = None  # per row the body measured from ("" primary)
 
 
 @dataclass
@@ -341,6 +349,15 @@ class OrbitModel:
             raise ModelError(f"the {self.dynamics.label} model fits astrometry only; radial "
                              f"velocities need the keplerian model for now")
         self.dynamics.prepare(self)
+        #: The primary's line of sight per astrometric row (a :class:`viewing.Sight`),
+        #: or None for a distant primary on one fixed sky plane.
+        self.sight = (_sight_of(astrometry, self.spec.viewing)
+                      if has_astrometry and astrometry.has_sight else None)
+        if has_astrometry:
+            self._check_references(astrometry)
+        if self.sight is not None and self.has_velocities:
+            raise ModelError("radial velocities with a moving line of sight (primary_ra, "
+                             "primary_dec) are not modelled yet; fit the astrometry alone")
         if self.needs_parallax and self.spec.parallax is None:
             if self._vel is not None and np.any(self._vel.owner >= 0):
                 self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
@@ -356,8 +373,8 @@ class OrbitModel:
         self._rows = ({} if self.velocity_only else
                       {name: self._prepare_rows(name) for name in self.companions})
         self.node_width = self.dynamics.node_widths(
-            self, {name: TWO_PI if self._has_velocity_of(name) else np.pi
-                   for name in self.companions})
+            self, {name: TWO_PI if self._has_velocity_of(name) or self.sight is not None
+                   else np.pi for name in self.companions})
         self.centres = {name: {"node": 0.5 * np.pi, "phase": np.pi} for name in self.companions}
         self.parameters = self._layout()
         self.n_dim = len(self.parameters)
@@ -441,6 +458,37 @@ class OrbitModel:
                     f"need at least 4 (7 numbers for 7 unknowns)")
         return specs
 
+    def viewing_description(self) -> dict:
+        """How the line of sight was known (summary key ``viewing``)."""
+        from massfit.orbits.viewing import ViewingSpec
+
+        return (self.spec.viewing or ViewingSpec()).describe()
+
+    def primary_pole(self):
+        """(ra, dec) of the primary's pole in radians where given with a line of
+        sight, else None."""
+        viewing = self.spec.viewing
+        if self.sight is None or viewing is None or viewing.pole_ra is None:
+            return None
+        return viewing.pole_ra, viewing.pole_dec
+
+    def _check_references(self, astrometry):
+        """Offsets measured from another body name a companion of this fit."""
+        reference = astrometry.reference_body
+        if reference is None:
+            return
+        for row in np.flatnonzero(reference != ""):
+            if reference[row] not in self.companions:
+                raise InputError(
+                    f"names '{reference[row]}', which is neither the primary "
+                    f"('{self.observations.primary}') nor a companion with astrometry "
+                    f"({', '.join(self.companions)})", file=astrometry.file[row],
+                    line=int(astrometry.line[row]), column="reference_body")
+        if type(self.dynamics) is not Keplerian:
+            raise ModelError(f"offsets measured from another companion (reference_body) "
+                             f"need the keplerian model for now, not the "
+                             f"{self.dynamics.label} one")
+
     def _unlisted_body(self, observations, name):
         message = (f"the data have a body '{name}' that the model does not list; add "
                    f"it under [companions] or remove its rows")
@@ -506,6 +554,10 @@ class OrbitModel:
             corr=corr[~polar], corr_factor=1.0 / np.sqrt(1.0 - corr[~polar] ** 2),
             sep=data.sep[index][polar], sep_err=data.sep_err[index][polar],
             pa=data.pa[index][polar], pa_err=data.pa_err[index][polar],
+            sight=None if self.sight is None else self.sight.select(index),
+            reference=(None if data.reference_body is None
+                       or not np.any(data.reference_body[index] != "")
+                       else data.reference_body[index]),
         )
 
     def _pack_for_kernel(self):
@@ -516,7 +568,8 @@ class OrbitModel:
         from the residual arrays).
         """
         if (self._vel is not None or type(self.dynamics) is not Keplerian
-                or getattr(self.spec, "romer_delay", False)):
+                or getattr(self.spec, "romer_delay", False) or self.sight is not None
+                or any(rows.reference is not None for rows in self._rows.values())):
             return None
         packs = {}
         for name, rows in self._rows.items():
@@ -1109,6 +1162,20 @@ def _scale_parameter(name, prior) -> _Parameter:
         body, kind = name.rsplit(".", 1)
         return _Parameter(f"{body}.log10_{kind}", "", prior, "log10")
     return _Parameter(name, "", prior, "identity", 0.0, np.inf)
+
+
+def _sight_of(astrometry, viewing):
+    """The rows' lines of sight from their primary_ra, primary_dec and distance, with
+    the aberration maps where the offsets are apparent."""
+    from massfit.orbits.viewing import aberration_maps, observer_velocity, sight_from_angles
+
+    sight = sight_from_angles(astrometry.primary_ra, astrometry.primary_dec,
+                              astrometry.distance * AU_PER_PC)
+    if viewing is not None and viewing.offsets == "apparent":
+        velocity = observer_velocity(astrometry.time, site=viewing.site,
+                                     ephemeris=viewing.ephemeris)
+        sight.apparent = aberration_maps(sight, velocity)
+    return sight
 
 
 def _file_stem(path) -> str:

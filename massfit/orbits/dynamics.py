@@ -21,9 +21,11 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.orbits import kepler
+
+from massfit.orbits import viewing
 from massfit.constants import C_AU_PER_DAY
 
-__all__ = ["Keplerian", "orbit_state", "observed_offsets", "romer_factor", "make_dynamics",
+__all__ = ["Keplerian", "orbit_state", "orbit_axes", "observed_offsets", "romer_factor", "make_dynamics",
            "MODEL_OPTIONS"]
 
 TWO_PI = 2.0 * np.pi
@@ -60,7 +62,7 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     big_e = kepler.solve_kepler(mean_anomaly, ecc)
     cos_e, sin_e = np.cos(big_e), np.sin(big_e)
     root = np.sqrt(1.0 - ecc * ecc)
-    p_vec, q_vec = _pq(inc, omega, node)
+    p_vec, q_vec = orbit_axes(inc, omega, node)
     x = cos_e - ecc
     y = root * sin_e
     position = tuple(a * (x * p + y * q) for p, q in zip(p_vec, q_vec))
@@ -73,13 +75,18 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     return position, velocity
 
 
-def _pq(inc, omega, node):
+def orbit_axes(inc, omega, node):
+    """Unit vectors P (towards periapsis) and Q (a quarter-turn ahead), as the
+    triples (north, east, z) of the sky frame, or (x, y, z) of ICRS axes."""
     cw, sw = np.cos(omega), np.sin(omega)
     cn, sn = np.cos(node), np.sin(node)
     ci, si = np.cos(inc), np.sin(inc)
     p_vec = (cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si)
     q_vec = (-sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si)
     return p_vec, q_vec
+
+
+_pq = orbit_axes  # the name the perturbed models import
 
 
 class Keplerian:
@@ -134,23 +141,29 @@ class Keplerian:
         """
         out = {}
         for name, rows in model._rows.items():
+            if want_velocity:
+                out[name] = self.states_at(model, phys, name, rows.t)
+                continue
             orbit = phys["companions"][name]
-            t_ref = model.reference_epoch(name)
             with np.errstate(invalid="ignore", divide="ignore"):
-                if not want_velocity:
-                    east, north = kepler.sky_offsets(
-                        rows.t, orbit["period"], orbit["ecc"], orbit["mean_anomaly_ref"],
-                        orbit["semi_major_axis"], orbit["inc"], orbit["omega"],
-                        orbit["node"], t_ref=t_ref)
-                    out[name] = ((north, east, None), None)
-                    continue
-                column = {key: value[:, None] for key, value in orbit.items()}
-                n_motion = TWO_PI / column["period"]
-                mean = column["mean_anomaly_ref"] + n_motion * (rows.t[None, :] - t_ref)
-                out[name] = orbit_state(column["semi_major_axis"], column["ecc"],
-                                        column["inc"], column["omega"], column["node"], mean,
-                                        n_motion)
+                east, north = kepler.sky_offsets(
+                    rows.t, orbit["period"], orbit["ecc"], orbit["mean_anomaly_ref"],
+                    orbit["semi_major_axis"], orbit["inc"], orbit["omega"],
+                    orbit["node"], t_ref=model.reference_epoch(name))
+            out[name] = ((north, east, None), None)
         return out
+
+    def states_at(self, model, phys, name, t):
+        """Position and velocity of one companion at the times ``t`` (days since the
+        model's epoch): what an offset measured from that companion needs."""
+        orbit = phys["companions"][name]
+        column = {key: value[:, None] for key, value in orbit.items()}
+        n_motion = TWO_PI / column["period"]
+        mean = column["mean_anomaly_ref"] + n_motion * (
+            np.asarray(t)[None, :] - model.reference_epoch(name))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return orbit_state(column["semi_major_axis"], column["ecc"], column["inc"],
+                               column["omega"], column["node"], mean, n_motion)
 
 
 def romer_factor(central_mass, companion_mass):
@@ -166,8 +179,15 @@ def romer_factor(central_mass, companion_mass):
 
 
 def observed_offsets(model, phys) -> dict:
-    """East and north offsets (au) as observed: the dynamics plus the light time across
-    the system when ``model.spec.romer_delay`` is on.
+    """East and north offsets (au) as observed.
+
+    On a fixed sky plane: the dynamics' (north, east) plus, when
+    ``model.spec.romer_delay`` is on, the light time across the system along z. With
+    a per-row line of sight (``model.sight``): the dynamics' triple read as ICRS
+    (x, y, z), each companion seen at its own light time along the line of sight
+    (with ``model.spec.light_time``), projected onto the tangent plane at the
+    primary (:func:`massfit.orbits.viewing.project`). Rows measured from another companion
+    (``reference_body``) get the difference of the two bodies' offsets.
 
     The delay is applied to first order (position minus velocity times delay). The
     next term, half the acceleration times the delay squared, is smaller than the
@@ -177,22 +197,49 @@ def observed_offsets(model, phys) -> dict:
     Returns
     -------
     dict
-        name -> (east, north), arrays of shape (n_walkers, n_rows), au.
+        name -> (east, north), arrays of shape (n_walkers, n_rows), au (angles times
+        the primary's distance where a line of sight is given).
     """
-    dynamics = model.dynamics
-    delayed = bool(getattr(model.spec, "romer_delay", False))
-    states = dynamics.states(model, phys, want_velocity=delayed)
+    sight = getattr(model, "sight", None)
+    if sight is None:
+        delayed = bool(getattr(model.spec, "romer_delay", False))
+    else:
+        delayed = bool(getattr(model.spec, "light_time", True))
+    states = model.dynamics.states(model, phys,
+                                   want_velocity=delayed or sight is not None)
     out = {}
     for name, (position, velocity) in states.items():
-        north, east, z = position
-        if delayed:
-            orbit = phys["companions"][name]
-            factor = romer_factor(phys["central_mass"], orbit["mass"])[:, None]
-            delay = factor * z / C_AU_PER_DAY
-            north = north - velocity[0] * delay
-            east = east - velocity[1] * delay
+        rows = model._rows[name]
+        factor = romer_factor(phys["central_mass"], phys["companions"][name]["mass"])
+        east, north = _seen(position, velocity, factor if delayed else None,
+                            getattr(rows, "sight", None))
+        reference = getattr(rows, "reference", None)
+        if reference is not None:
+            east, north = east.copy(), north.copy()  # never write into the states
+        for other in ([] if reference is None else np.unique(reference[reference != ""])):
+            index = np.flatnonzero(reference == other)
+            position, velocity = model.dynamics.states_at(model, phys, other,
+                                                           rows.t[index])
+            factor = romer_factor(phys["central_mass"], phys["companions"][other]["mass"])
+            part = None if rows.sight is None else rows.sight.select(index)
+            east_ref, north_ref = _seen(position, velocity, factor if delayed else None,
+                                        part)
+            east[:, index] -= east_ref
+            north[:, index] -= north_ref
         out[name] = (east, north)
     return out
+
+
+def _seen(position, velocity, factor, sight):
+    """One body's (east, north) at its rows: light time (if ``factor`` is given) and
+    the projection (fixed plane where ``sight`` is None)."""
+    if factor is not None:
+        depth = position[2] if sight is None else viewing.along_sight(sight, position)
+        delay = factor[:, None] * depth / C_AU_PER_DAY
+        position = tuple(p - v * delay for p, v in zip(position, velocity))
+    if sight is None:
+        return position[1], position[0]
+    return viewing.project(sight, position)
 
 
 #: The names ``[dynamics] model`` accepts, and the settings each one takes.

@@ -433,9 +433,24 @@ def error_ellipses(east, north, cov, *, n_sigma=1.0, **kwargs):
     return patches
 
 
-def _track_points(orbit, k, n_points=361):
+def _track_points(orbit, k, n_points=361, sight=None):
+    """One orbit's track (au) on the sky; with a moving line of sight (``sight``, the
+    model's), the ICRS orbit seen along the rows' mean line of sight."""
     period = orbit["period"][k]
     t = np.linspace(0.0, period, n_points)
+    if sight is not None:
+        from massfit.orbits.dynamics import orbit_state
+        from massfit.orbits.viewing import mean_direction, sky_basis
+
+        toward = mean_direction(sight)
+        _, east_vec, north_vec = (v[0] for v in sky_basis(
+            np.arctan2(toward[1], toward[0]), np.arcsin(toward[2])))
+        position, _ = orbit_state(
+            orbit["semi_major_axis"][k], orbit["ecc"][k], orbit["inc"][k],
+            orbit["omega"][k], orbit["node"][k], 2.0 * np.pi * t / period, 0.0,
+            want_velocity=False)
+        return (sum(v * p for v, p in zip(east_vec, position)),
+                sum(v * p for v, p in zip(north_vec, position)))
     east, north, _ = kepler.relative_orbit(
         t, period, orbit["ecc"][k], 0.0, orbit["semi_major_axis"][k], orbit["inc"][k],
         orbit["omega"][k], orbit["node"][k])
@@ -532,12 +547,13 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, years, 
     east, north = east * frame.row_factor, north * frame.row_factor
     cov = cov * frame.row_factor[:, None, None] ** 2
     orbit_b = best["companions"][name]
-    tb_e, tb_n = (v * frame.track_factor(best, 0) for v in _track_points(orbit_b, 0))
+    tb_e, tb_n = (v * frame.track_factor(best, 0)
+                  for v in _track_points(orbit_b, 0, sight=model.sight))
     size = float(np.max(np.abs(np.concatenate([east, north, tb_e, tb_n]))))
     factor, unit = _SkyFrame.display(size, frame.angle)
     orbit_d = draws["companions"][name]
     for k in range(len(orbit_d["period"])):
-        te, tn = _track_points(orbit_d, k)
+        te, tn = _track_points(orbit_d, k, sight=model.sight)
         scale = frame.track_factor(draws, k) * factor
         sky.plot(te * scale, tn * scale, color="0.55", lw=0.4, alpha=0.35, zorder=1,
                  gid="posterior-track")
@@ -564,6 +580,11 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, years, 
         sky.set_ylabel(f"projected offset north [{unit}]")
     sky.text(0.03, 0.97, name, transform=sky.transAxes, ha="left", va="top",
              fontsize=8, fontweight="bold", gid="companion-name")
+    if model.sight is not None:
+        # Each row is seen from its own direction; the track from the mean one.
+        sky.text(0.97, 0.03, "orbit as seen along the mean line of sight",
+                 transform=sky.transAxes, ha="right", va="bottom", fontsize=6,
+                 color="0.3", gid="sight-note")
     sky.massfit_unit = unit
     if res_axes:
         _draw_offsets_residuals(res_axes, model, name, theta_best, frame, east, north,
@@ -647,6 +668,77 @@ def residual_plot(result, *, companions=None, width=None):
                       handletextpad=0.2, columnspacing=0.8)
         axes[-1, 0].set_xlabel("epoch [Julian year, TDB]")
     return fig
+
+
+def equator_residual_plot(result, *, companions=None, width=None):
+    """Each moon's O-C against time, along and across its planet's equator.
+
+    For fits with a moving line of sight. Where the primary's pole is given
+    (``ViewingSpec.pole_ra``/``pole_dec``) the residuals of every row are turned by
+    that row's position angle P of the pole: "along the equator" points to the
+    planet's east limb, (cos P, -sin P) in (east, north), "towards the pole" is
+    (sin P, cos P); without a pole, east and north. Residuals of the best posterior
+    sample, in km at the planet (or the fit's own unit), with 1-sigma bars.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    import matplotlib.pyplot as plt
+
+    model = result.model
+    if model.sight is None:
+        raise ConfigError("the O-C in the planet's frame needs a moving line of sight "
+                          "(primary_ra/primary_dec columns or an ephemeris body)",
+                          key="figures")
+    names = _chosen(list(model.companions), companions)
+    theta = best_sample(result)
+    best = model.physical(theta[None, :])
+    pole = model.primary_pole()
+    words = (("along the equator", "towards the pole") if pole is not None
+             else ("east", "north"))
+    width = width or COLUMN_WIDTH
+    with style():
+        fig, axes = plt.subplots(len(names), 1, sharex=True, squeeze=False,
+                                 figsize=(width, 0.4 + 1.3 * len(names)),
+                                 layout="constrained")
+        for ax, name in zip(axes[:, 0], names):
+            frame = _SkyFrame(model, name, best)
+            east, north, cov = _observed(model.observations.astrometry, frame.index)
+            pe, pn = (v[0] for v in model.predicted_offsets(theta, name))
+            d_e, d_n = (east - pe) * frame.row_factor, (north - pn) * frame.row_factor
+            err = np.sqrt(0.5 * (cov[:, 0, 0] + cov[:, 1, 1])) * frame.row_factor
+            if pole is not None:
+                angle = _pole_angle(model, frame.index, pole)
+                d_e, d_n = (d_e * np.cos(angle) - d_n * np.sin(angle),
+                            d_e * np.sin(angle) + d_n * np.cos(angle))
+            factor, unit = _SkyFrame.display(3 * float(np.median(err)), frame.angle)
+            years = _jyear(model.epoch_jd + model._rows[name].t)
+            for values, word, colour, marker in ((d_e, words[0], "C0", "o"),
+                                                 (d_n, words[1], "C1", "s")):
+                ax.errorbar(years, values * factor, yerr=err * factor, fmt=marker, ms=2.5,
+                            color=colour, ecolor="0.75", elinewidth=0.5, label=word,
+                            gid=f"residuals-{word.replace(' ', '-')}")
+            ax.axhline(0.0, color="k", lw=0.5)
+            lim = 1.1 * factor * float(np.max(np.abs(np.concatenate([d_e, d_n]))
+                                              + np.concatenate([err, err])))
+            ax.set_ylim(-lim, 1.5 * lim)  # room for the name and the legend
+            ax.set_ylabel(f"O$-$C [{unit}]")
+            ax.text(0.01, 0.95, name, transform=ax.transAxes, ha="left", va="top",
+                    fontsize=7, fontweight="bold")
+            ax.legend(loc="upper right", ncol=2, frameon=False, fontsize=6)
+        axes[-1, 0].set_xlabel("epoch [Julian year, TDB]")
+    return fig
+
+
+def _pole_angle(model, index, pole):
+    """Position angle (rad) of the primary's pole at each of the rows ``index``."""
+    data = model.observations.astrometry
+    ra, dec = data.primary_ra[index], data.primary_dec[index]
+    pole_ra, pole_dec = pole
+    return np.arctan2(np.cos(pole_dec) * np.sin(pole_ra - ra),
+                      np.sin(pole_dec) * np.cos(dec)
+                      - np.cos(pole_dec) * np.sin(dec) * np.cos(pole_ra - ra))
 
 
 #: Panel name of the radial velocities in the residual figures.
@@ -750,7 +842,8 @@ def _plain_log_ticks(axis):
 
 #: File stem in an output folder -> figure function.
 FIGURES = {"corner": corner_plot, "orbits": orbit_plot, "residuals": residual_plot,
-           "periodogram": periodogram_plot, "rv": None, "rv_time": None}
+           "periodogram": periodogram_plot, "rv": None, "rv_time": None,
+           "equator_residuals": equator_residual_plot}
 
 #: Figures that need relative astrometry.
 _SKY_FIGURES = ("orbits",)
@@ -763,7 +856,8 @@ def applicable_figures(result) -> list:
     model = result.model
     return [stem for stem in FIGURES
             if not (stem in _SKY_FIGURES and model.velocity_only)
-            and not (stem in _VELOCITY_FIGURES and not model.has_velocities)]
+            and not (stem in _VELOCITY_FIGURES and not model.has_velocities)
+            and not (stem == "equator_residuals" and getattr(model, "sight", None) is None)]
 
 
 _INSTRUMENT_MARKERS = ("o", "s", "D", "^", "v", "P", "X", "<", ">", "h")

@@ -58,6 +58,12 @@ class AstrometryData:
         The file each row came from.
     line : ndarray of int
         Its 1-based physical line number in that file.
+    primary_ra, primary_dec : ndarray of float or None
+        The primary's direction at the row's time (radians, ICRS); None where no
+        file gave it (a distant primary on a fixed sky plane).
+    reference_body : ndarray of str or None
+        The body the offset is measured from ("" for the primary); None where no
+        file has the column.
     """
 
     body: np.ndarray
@@ -76,6 +82,9 @@ class AstrometryData:
     distance: np.ndarray
     file: np.ndarray
     line: np.ndarray
+    primary_ra: np.ndarray | None = None
+    primary_dec: np.ndarray | None = None
+    reference_body: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.body)
@@ -83,8 +92,17 @@ class AstrometryData:
     def select(self, mask) -> "AstrometryData":
         """Return the rows where ``mask`` is true."""
         mask = np.asarray(mask)
-        return AstrometryData(**{name: getattr(self, name)[mask]
+        return AstrometryData(**{name: _rows_of(getattr(self, name), mask)
                                  for name in self.__dataclass_fields__})
+
+    @property
+    def has_sight(self) -> bool:
+        """True where the rows carry the primary's direction (a moving line of sight)."""
+        return self.primary_ra is not None
+
+
+def _rows_of(values, mask):
+    return None if values is None else values[mask]
 
 
 @dataclass

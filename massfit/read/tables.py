@@ -90,9 +90,11 @@ _SETS = {
               "pa": (_POSITION_ANGLE,), "pa_err": (_POSITION_ANGLE,)},
     "rv": {"rv": (_VELOCITY,), "rv_err": (_VELOCITY,)},
 }
+# The primary's direction per row (a moving line of sight): angles, stored in radians.
+_SIGHT = {"primary_ra": (_POSITION_ANGLE,), "primary_dec": (_POSITION_ANGLE,)}
 _OPTIONAL = {
-    "cartesian": {"corr": (_PURE_NUMBER,), "distance": (_DISTANCE,)},
-    "polar": {"distance": (_DISTANCE,)},
+    "cartesian": {"corr": (_PURE_NUMBER,), "distance": (_DISTANCE,), **_SIGHT},
+    "polar": {"distance": (_DISTANCE,), **_SIGHT},
     "rv": {},
 }
 #: Every column that takes a unit, in any kind of file.
@@ -123,7 +125,8 @@ _CHECKS: dict[str, Callable[[float], str | None]] = {
 _MAY_BE_EMPTY = frozenset({"distance"})
 
 _DUPLICATE_KEYS = {
-    "astrometry": ("body", "jd1", "jd2", "polar", "length", "east", "north", "sep", "pa"),
+    "astrometry": ("body", "jd1", "jd2", "polar", "length", "east", "north", "sep", "pa",
+                   "reference_body"),
     "velocities": ("body", "jd1", "jd2", "rv"),
 }
 
@@ -274,7 +277,7 @@ def read_observations(paths: PathLike | Iterable[PathLike], *, time_format: str 
     merged = {group: _without_duplicates(_concatenate(parts), group, options,
                                          observations.rejected)
               for group, parts in groups.items()}
-    observations.astrometry = _as_data(AstrometryData, merged["astrometry"])
+    observations.astrometry = _as_data(AstrometryData, _sight_or_none(merged["astrometry"]))
     observations.velocities = _as_data(VelocityData, merged["velocities"])
     return observations
 
@@ -702,7 +705,7 @@ def _measured_columns(cells: _Cells, kind: str) -> dict[str, tuple[_Dimension, .
 
 def _used_columns(cells: _Cells, kind: str) -> set[str]:
     used = set(_ALWAYS) | set(_measured_columns(cells, kind))
-    return used | {"instrument"} if kind == "rv" else used
+    return used | ({"instrument"} if kind == "rv" else {"reference_body"})
 
 
 def _given_unit(cells: _Cells, name: str, options: _Options) -> u.UnitBase | None:
@@ -783,17 +786,55 @@ def _validated_rows(cells: _Cells, kind: str, options: _Options):
         group, rows = "velocities", {"rv": values["rv"], "rv_err": values["rv_err"],
                                      "instrument": _instruments(cells, issues)}
     else:
+        _check_sight(cells, values, issues)
         group, rows = "astrometry", _astrometry_rows(kind, values, length, count)
+        rows["reference_body"] = _references(cells, issues, body, options.primary)
     rows.update(body=body, jd1=jd1, jd2=jd2, file=np.full(count, cells.file),
                 line=cells.lines)
     good = issues.good()
     return group, _rows_where(rows, good), issues.listed()
 
 
+def _check_sight(cells: _Cells, values: dict, issues: _Issues) -> None:
+    """The primary's direction: both angles or neither, a distance on every row."""
+    given = [name for name in _SIGHT if name in values]
+    if not given:
+        return
+    if len(given) == 1:
+        other = "primary_dec" if given[0] == "primary_ra" else "primary_ra"
+        raise InputError(f"has '{given[0]}' without '{other}'; the primary's direction "
+                         "needs both", file=cells.file, column=other)
+    if "distance" not in values:
+        raise InputError("gives the primary's direction (primary_ra, primary_dec) but no "
+                         "'distance' column; the projection needs the primary's distance "
+                         "on every row", file=cells.file, column="distance")
+    for row in np.flatnonzero(~np.isfinite(values["distance"])):
+        issues.add(row, "distance", "is empty; rows with the primary's direction need "
+                                    "its distance")
+    dec = values["primary_dec"]
+    with np.errstate(invalid="ignore"):
+        outside = np.abs(dec) > 0.5 * np.pi * (1.0 + 1e-12)
+    for row in np.flatnonzero(outside):
+        issues.add(row, "primary_dec", "must lie between -90 and +90 degrees")
+
+
+def _references(cells: _Cells, issues: _Issues, body: np.ndarray,
+                primary: str) -> np.ndarray:
+    """The body each offset is measured from; "" for the primary."""
+    if "reference_body" not in cells.names:
+        return np.full(len(cells.lines), "")
+    names = _texts(cells, issues, "reference_body", required=False)
+    names = np.where(names == primary, "", names)
+    for row in np.flatnonzero((names != "") & (names == body)):
+        issues.add(row, "reference_body", f"is the row's own body '{body[row]}'; an "
+                                          "offset is measured from another body")
+    return names
+
+
 def _astrometry_rows(kind: str, values: dict, length: bool, count: int) -> dict:
     missing = np.full(count, np.nan)
     names = ("east", "north", "east_err", "north_err", "sep", "sep_err", "pa", "pa_err",
-             "distance")
+             "distance", "primary_ra", "primary_dec")
     rows = {name: values.get(name, missing) for name in names}
     rows["corr"] = values.get("corr", np.zeros(count) if kind == "cartesian" else missing)
     rows["polar"] = np.full(count, kind == "polar")
@@ -1078,6 +1119,25 @@ def _without_duplicates(rows: dict | None, group: str, options: _Options,
         keep[row] = False
     _settle(issues, options, rejected)
     return _rows_where(rows, keep)
+
+
+def _sight_or_none(rows: dict | None) -> dict | None:
+    """Keep the primary's direction only where rows give it, and then on every row."""
+    if rows is None or not len(rows["line"]):
+        return rows
+    rows = dict(rows)
+    given = np.isfinite(rows["primary_ra"])
+    if not np.any(given):
+        rows["primary_ra"] = rows["primary_dec"] = None
+    elif not np.all(given):
+        row = int(np.flatnonzero(~given)[0])
+        raise InputError("has no primary direction while other astrometric rows have "
+                         "one; give primary_ra and primary_dec (and distance) for every "
+                         "astrometric row, or for none", file=str(rows["file"][row]),
+                         line=int(rows["line"][row]), column="primary_ra")
+    if not np.any(rows["reference_body"] != ""):
+        rows["reference_body"] = None
+    return rows
 
 
 def _as_data(cls, rows: dict | None):

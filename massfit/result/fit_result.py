@@ -31,7 +31,8 @@ _COMPANION_BLOCKS = (
     ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
     ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
     ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
-    ("mass_ratio", ""),
+    ("mass_ratio", ""), ("inclination_to_equator", "deg"),
+    ("node_on_equator", "deg"),
 )
 
 
@@ -43,6 +44,8 @@ _COMPANION_LINES = (
     ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
     ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (i = 90 deg)"),
     ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
+    ("inclination_to_equator", "i_eq", "deg (to the primary's equator)"),
+    ("node_on_equator", "Om_eq", "deg (on the primary's equator)"),
 )
 
 
@@ -171,6 +174,9 @@ class FitResult:
                 block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
                                                else 0.0)
             summary["companions"][name] = block
+        if self.model.sight is not None:
+            # Elements are then against the ICRS equator and x axis (conventions).
+            summary["viewing"] = self.model.viewing_description()
         if "rv" in s:
             summary["velocities"] = _velocity_summary(s["rv"])
         summary["adequacy"] = adequacy
@@ -237,6 +243,11 @@ class FitResult:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        if s.get("viewing"):
+            view = s["viewing"]
+            lines.append(f"Orbits in ICRS axes (i, node, omega against the ICRS equator); "
+                         f"line of sight per row from {view['direction_from']}, "
+                         f"{view['offsets']} offsets")
         by_period = sorted(s["companions"].items(),
                            key=lambda item: item[1]["period"]["median"] or 0.0)
         for name, comp in by_period:

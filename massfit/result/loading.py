@@ -48,6 +48,10 @@ def _encode(value):
         return {"prior": type(value).__name__, **body}
     if hasattr(value, "label") and hasattr(value, "settings"):  # a dynamics model
         return {"dynamics_model": value.label, **_encode(dict(value.settings))}
+    from massfit.orbits.viewing import ViewingSpec
+
+    if isinstance(value, ViewingSpec):
+        return {"viewing_spec": value.settings()}
     if dataclasses.is_dataclass(value):
         return {"dataclass": type(value).__name__,
                 **{f.name: _encode(getattr(value, f.name))
@@ -89,6 +93,8 @@ def write_observations(observations, folder) -> list:
         table = Table()
         for f in dataclasses.fields(cls):
             value = getattr(data, f.name)
+            if value is None:  # an optional part the data do not have
+                continue
             if isinstance(value, Time):
                 table[f.name] = value.tdb.jd
                 table.meta[f"{f.name}_scale"] = "tdb"
@@ -133,6 +139,10 @@ def _decode(value):
             if cls is None:
                 raise InputError(f"unknown prior {value['prior']!r} in the saved model")
             return cls(**{k: v for k, v in value.items() if k != "prior"})
+        if "viewing_spec" in value:
+            from massfit.orbits.viewing import viewing_from_settings
+
+            return viewing_from_settings(value["viewing_spec"])
         if "dynamics_model" in value:
             from massfit.orbits.dynamics import make_dynamics
 
@@ -164,10 +174,15 @@ def _read_data(folder, attr):
     table = Table.read(path, format="ascii.ecsv")
     values = {}
     for f in dataclasses.fields(cls):
+        if f.name not in table.colnames and f.default is None:
+            continue  # an optional part the data did not have
         if f.name not in table.colnames:
             raise InputError(f"column '{f.name}' is missing; the folder was written by "
                              f"another massfit version", file=str(path))
-        column = np.asarray(table[f.name])
+        column = table[f.name]
+        if hasattr(column, "filled") and column.dtype.kind in "US":
+            column = column.filled("")  # empty strings (reference_body) read as masked
+        column = np.asarray(column)
         if f.name == "time":
             values[f.name] = Time(column, format="jd", scale="tdb")
         elif column.dtype.kind in "US":

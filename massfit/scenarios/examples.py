@@ -4,10 +4,11 @@
 copy of the demo that ships inside the package). Nothing here describes a real object:
 the names and numbers are invented.
 
-The demo scenario, *Orvane*: a gas giant of 0.83 Jupiter masses in an invented planetary
+The demo scenario, *Orvane*: a gas giant of 0.61 Jupiter masses in an invented planetary
 system, with four moons (Pell, Ymra, Doss, Tirrin). The observer lives on an inner
-planet on a circular 1 au orbit, so the distance to Orvane changes from night to night
-(4.3 to 6.3 au) and each row carries it; the light time is in the simulated positions.
+planet on a tilted 0.93 au orbit, so Orvane's distance and direction change from night
+to night; each row carries both (a moving line of sight), and the offsets are made
+independently of the model (:mod:`massfit.scenarios.moving_observer`).
 
 *Mirren*: an invented K dwarf of 0.78 solar masses at 41.3 mas, with a directly imaged
 companion, Mirren-b, of 14 Jupiter masses on a 41-year orbit. Two invented imaging
@@ -47,50 +48,60 @@ PACKAGE_DATA = Path(__file__).parents[1] / "data"
 DEMO_DIR = PACKAGE_DATA / "orvane"
 
 
-def _observer_distance(t_jd):
-    """Distance (au) from an observer on a 1 au, 365.25 d orbit to a planet at 5.3 au."""
-    phase_obs = 2 * np.pi * (t_jd - 2461000.5) / 365.25
-    phase_planet = 2 * np.pi * (t_jd - 2461000.5) / 4457.0 + 1.1
-    obs = np.column_stack([np.cos(phase_obs), np.sin(phase_obs)])
-    planet = 5.3 * np.column_stack([np.cos(phase_planet), np.sin(phase_planet)])
-    return np.hypot(*(planet - obs).T)
+#: Orvane's path about its star and the observer's (invented; ICRS axes).
+ORVANE_PATH = dict(radius=6.1, period=5500.0, inclination=18.0, node=40.0, longitude=30.0,
+                   epoch_jd=2461000.5)
+OBSERVER_PATH = dict(radius=0.93, period=330.0, inclination=25.0, node=5.0,
+                     longitude=200.0, epoch_jd=2461000.5)
+#: Orvane's north pole (invented), ICRS right ascension and declination, deg.
+ORVANE_POLE = (251.3, 57.8)
 
 
 def orvane(seed=20261201):
-    """The Orvane system: (table, truth)."""
-    mass_mjup = 0.83
+    """The Orvane system: (table, truth). The offsets are made by
+    :func:`massfit.scenarios.moving_observer.observe_moons`, independently of the model."""
+    from massfit.scenarios.moving_observer import CircularPath, MoonOrbit, observe_moons
+
+    mass_mjup = 0.61
     central = mass_mjup * MASS_UNITS["Mjup"] / MASS_UNITS["Msun"]
+    # Near Orvane's equator: its pole (251.3, 57.8) puts that plane at i = 32.2 deg,
+    # node = 341.3 deg against the ICRS equator.
     elements = {
-        "Pell": Elements(period=1.9427, ecc=0.004, inc=84.1, omega=41.0, node=27.3,
+        "Pell": Elements(period=2.71, ecc=0.006, inc=32.0, omega=41.0, node=341.0,
                          periapsis_time=2461101.20),
-        "Ymra": Elements(period=4.1153, ecc=0.011, inc=84.6, omega=122.0, node=27.9,
+        "Ymra": Elements(period=5.93, ecc=0.014, inc=32.6, omega=122.0, node=341.8,
                          periapsis_time=2461102.75),
-        "Doss": Elements(period=8.7321, ecc=0.021, inc=83.8, omega=250.0, node=26.8,
+        "Doss": Elements(period=13.4, ecc=0.023, inc=31.9, omega=250.0, node=340.6,
                          periapsis_time=2461104.10),
-        "Tirrin": Elements(period=19.6014, ecc=0.035, inc=85.2, omega=318.0, node=28.4,
+        "Tirrin": Elements(period=37.8, ecc=0.041, inc=33.4, omega=318.0, node=342.5,
                            periapsis_time=2461111.60),
     }
     rng = np.random.default_rng(seed)
     # Some 70 clear nights over two observing seasons, a moon missed now and then.
     nights = 2461100.5 + np.sort(np.concatenate([rng.choice(120, 40, replace=False),
                                                  400 + rng.choice(100, 30, replace=False)]))
-    times, distance = {}, {}
+    times = {}
     for k, name in enumerate(elements):
         seen = rng.random(nights.size) > 0.12
         t = nights[seen] + 0.25 + 0.1 * rng.random(seen.sum()) + 0.02 * k
-        times[name] = Time(t, format="jd", scale="utc")
-        distance[name] = _observer_distance(t) * u.au
-    table = simulate_astrometry(times, elements, central, distance=distance,
-                                error=0.04 * u.arcsec, corr=0.1, seed=seed + 1)
-    table["time"] = table["time"].utc
+        times[name] = Time(t, format="jd", scale="tdb")
+    moons = {name: MoonOrbit(**el) for name, el in elements.items()}
+    table = observe_moons(times, moons, central, CircularPath(**ORVANE_PATH),
+                          CircularPath(**OBSERVER_PATH), error=0.03 * u.arcsec,
+                          seed=seed + 1)
+    table["time"] = Time(table["time"], format="jd", scale="tdb")
+    table["primary_ra"].info.format = table["primary_dec"].info.format = ".9f"
     truth = {
-        "scenario": "Orvane: an invented gas giant with four moons",
+        "scenario": "Orvane: an invented gas giant with four moons, seen from a moving "
+                    "observer",
         "central_mass_Mjup": mass_mjup,
         "central_mass_Msun": central,
         "central_gm_km3_s2": central * GM_SUN_KM3_S2,
         "companions": {name: dict(el) for name, el in elements.items()},
-        "astrometric_error_arcsec": 0.04,
-        "east_north_correlation": 0.1,
+        "elements_frame": "ICRS",
+        "pole_ra_deg": ORVANE_POLE[0], "pole_dec_deg": ORVANE_POLE[1],
+        "planet_path": ORVANE_PATH, "observer_path": OBSERVER_PATH,
+        "astrometric_error_arcsec": 0.03,
         "seed": seed,
     }
     return table, truth
@@ -119,9 +130,12 @@ def demo_setup():
     from massfit.config.fit import FitSetup
     from massfit.model.orbit_model import SystemSpec
     from massfit.sample.chain import SamplerSettings
+    from massfit.orbits.viewing import ViewingSpec
 
     return FitSetup(files=[DEMO_DIR / "moons.ecsv"], read_options={},
-                    system=SystemSpec(primary="Orvane"),
+                    system=SystemSpec(primary="Orvane", viewing=ViewingSpec(
+                        pole_ra=np.radians(ORVANE_POLE[0]),
+                        pole_dec=np.radians(ORVANE_POLE[1]))),
                     sampler=SamplerSettings(seed=7), source={"demo": "orvane"})
 
 
@@ -305,16 +319,22 @@ Invented for massfit's demo; no real object is described.
 
 - **Truth**: Orvane has {central_mass_Mjup} Jupiter masses (GM = {central_gm_km3_s2:.6g}
   km^3/s^2). Its moons Pell, Ymra, Doss and Tirrin have periods of {periods} days on
-  nearly circular orbits close to edge-on ({inclinations} deg); every element is in
-  `truth.json`.
-- **How it was made**: `massfit.scenarios.examples.orvane()` (seed {seed}). The observer sits
-  on a circular 1 au orbit, Orvane on a 5.3 au one, so the distance changes from night
-  to night; each row carries it (`distance`, au), and the positions include the light
-  time. Some 70 nights over two seasons, each moon missed on ~12 % of them; errors of
-  {astrometric_error_arcsec} arcsec in east and north with a correlation of
-  {east_north_correlation}.
-- **Files**: `moons.ecsv` (time UTC, body, east, north, errors, corr, distance).
-- **Fit**: `massfit demo`, or `massfit fit moons.ecsv --out fit-out`.
+  nearly circular orbits near Orvane's equator (ICRS inclinations {inclinations} deg;
+  Orvane's pole at RA {pole_ra_deg} deg, Dec {pole_dec_deg} deg); every element is in
+  `truth.json`, against the ICRS equator.
+- **How it was made**: `massfit.scenarios.examples.orvane()` (seed {seed}). Orvane circles its
+  star at 6.1 au; the observer circles it at 0.93 au on a tilted orbit, so both the
+  distance and the direction of Orvane change from night to night: each row carries
+  Orvane's direction (`primary_ra`, `primary_dec`) and distance (`distance`). The
+  offsets are the tangent-plane angles between the moon and the planet, each seen at
+  its own light time, made with 3-D vectors and astropy's sky-offset frame
+  (`massfit.scenarios.moving_observer`), not with the fitting model. Some 70 nights over two
+  seasons, each moon missed on ~12 % of them; errors of {astrometric_error_arcsec}
+  arcsec in east and north.
+- **Files**: `moons.ecsv` (time ISO TDB, body, east, north, errors, primary_ra,
+  primary_dec, distance).
+- **Fit**: `massfit demo`, or `massfit fit moons.ecsv --out fit-out --pole
+  '251.3 deg, 57.8 deg'`.
 """,
     "mirren": """# Mirren: a host star's mass from a partial orbit and a parallax
 
@@ -426,8 +446,8 @@ def _write_tables(folder, make, config):
 def _write_orvane(folder):
     table, truth = orvane()
     description = ("Invented example: relative astrometry of the four moons of the gas "
-                   "giant Orvane, with the observer-planet distance of each night. "
-                   "Made by massfit.scenarios.examples.orvane().")
+                   "giant Orvane, with the planet's direction and distance on each "
+                   "night (a moving observer). Made by massfit.scenarios.examples.orvane().")
     write_scenario(folder, table, truth, name="moons.ecsv", description=description)
     return truth
 

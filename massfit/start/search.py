@@ -157,6 +157,8 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
         return _velocity_only_start(model)
     if type(model.dynamics) is not Keplerian:
         return _perturbed_start(model)
+    if model.sight is not None:
+        return _sight_start(model)
     singles = {name: _single_companion_modes(model, name) for name in model.companions}
     best, joint = _best_combination(model, singles)
     found = [_mode_record(model, joint, best)]
@@ -268,6 +270,96 @@ def _perturbed_start(model):
     weighed = [dict(mode, searched_with="keplerian") for mode in found.candidate_modes]
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
                  modes=modes, per_companion=per, candidate_modes=weighed)
+
+
+def _sight_start(model):
+    """Start a model whose line of sight moves: the fixed-plane search, then ICRS.
+
+    The periodograms and linear scans run on a fixed sky plane (the same rows, the
+    offsets from the primary only, each row's distance kept). Each orbit found there
+    is turned into ICRS elements about the rows' mean line of sight, in the mirror
+    image that fits better (a fixed plane cannot tell which way the orbit tilts; the
+    moving line of sight can), and polished by least squares in the full model; the
+    other image of a companion is tried where the fit stays poor.
+    """
+    from massfit.orbits.viewing import mean_direction, orientation_in_icrs
+
+    data = model.observations.astrometry
+    own = np.ones(len(data), dtype=bool) if data.reference_body is None else (
+        data.reference_body == "")
+    plane_rows = replace(data.select(own), primary_ra=None, primary_dec=None,
+                         reference_body=None)
+    plane = OrbitModel(replace(model.observations, astrometry=plane_rows),
+                       replace(model.spec, companions=dict(model.companions),
+                               strict_companions=True))
+    # Each companion's own search, and the combination whose masses agree; the
+    # runner-up swaps of the fixed-plane fit are skipped: on a turning line of sight
+    # every fixed-plane chi^2 is large, so they would all count as comparable.
+    singles = {name: _single_companion_modes(plane, name) for name in plane.companions}
+    chosen_modes, (plane_theta, _, _) = _best_combination(plane, singles)
+    values = _values_from_theta(plane, plane_theta)
+    toward = mean_direction(model.sight)
+
+    def turned(trial, name, turn):
+        orbit = dict(values[name])
+        inc, omega, node = orientation_in_icrs(
+            orbit["inc"], orbit["omega"] + turn, orbit["node"] + turn, toward)
+        # The same mean anomaly, carried to this model's reference epoch.
+        shift = (model.epoch_jd + model.reference_epoch(name)
+                 - plane.epoch_jd - plane.reference_epoch(name))
+        orbit.update(inc=inc, omega=omega, node=node, mean_anomaly_ref=(
+            orbit["mean_anomaly_ref"] + 2.0 * np.pi * shift / orbit["period"]))
+        return dict(trial, **{name: orbit})
+
+    # Each companion's mirror image chosen by the chi^2 at the turned solution (the
+    # others held): the wrong one is off by the orbit's depth times the turn of the
+    # line of sight. Then least squares; the other image of each companion is
+    # polished too only where the first choice does not fit acceptably.
+    trial = dict(values)
+    for name in model.companions:
+        trial = turned(trial, name, 0.0)
+    chosen = {}
+    for name in model.companions:
+        scores = [_chi2(model, _theta_of(model, turned(trial, name, turn)))
+                  for turn in (0.0, np.pi)]
+        chosen[name] = (0.0, np.pi)[int(np.argmin(scores))]
+        trial = turned(trial, name, chosen[name])
+    best = _least_squares(model, trial, rounds=3)
+    best_chi2 = np.inf if best is None else _chi2(model, best)
+    for name in model.companions:
+        if best is not None and _acceptable(model, best, best_chi2):
+            break
+        other = turned(_values_from_theta(model, best) if best is not None else trial,
+                       name, np.pi - chosen[name])
+        theta = _least_squares(model, other, rounds=3)
+        if theta is not None and _chi2(model, theta) < best_chi2:
+            best, best_chi2 = theta, _chi2(model, theta)
+    if best is None:
+        raise ModelError("the least-squares fit with the moving line of sight failed from "
+                         "the fixed-plane solution; check the primary_ra, primary_dec and "
+                         "distance columns")
+    theta = model.recentre(best)
+    per = {name: {"period": m["period"], "central_mass": m["central_mass"],
+                  "chi2": m["chi2"], "rows": m["rows"], "searched_with": "fixed sky plane"}
+           for name, m in chosen_modes.items()}
+    return Start(theta=theta, chi2=best_chi2, covariance=_covariance(model, theta),
+                 modes=[], per_companion=per)
+
+
+def _theta_of(model, values):
+    """Sampled coordinates of physical values, with the windows centred on them."""
+    model.recentre(_centre_guess(model, values))
+    return model.from_physical(values)
+
+
+def _acceptable(model, theta, chi2):
+    """The summary's poor-fit criterion, passed."""
+    from scipy.stats import chi2 as chi2_dist
+
+    from massfit.run import POOR_FIT_P_VALUE
+
+    dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
+    return dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE
 
 
 def two_body_start(model):

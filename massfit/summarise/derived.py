@@ -257,6 +257,12 @@ def _companion_samples(model, name, orbit, parallax):
     a = orbit["semi_major_axis"]
     out.update(semi_major_axis=a, semi_major_axis_km=a * AU_KM,
                inclination=np.degrees(orbit["inc"]), ascending_node=np.degrees(node))
+    pole = model.primary_pole()
+    if pole is not None:
+        from massfit.orbits.viewing import against_equator
+
+        out["inclination_to_equator"], out["node_on_equator"] = against_equator(
+            orbit["inc"], orbit["node"], *pole)
     angular = _angular_scale(model, name, parallax)
     if angular is not None:
         out["semi_major_axis_mas"] = a * angular
