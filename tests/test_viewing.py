@@ -23,7 +23,7 @@ from massfit.errors import InputError
 from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.scenarios.moving_observer import CircularPath, MoonOrbit, moon_times, observe_moons
 from massfit.read.tables import read_observations
-from massfit.run import POOR_FIT_P_VALUE
+from massfit.model.fit_quality import POOR_FIT_P_VALUE
 from massfit.start.search import find_start
 from massfit.orbits.viewing import (differential_aberration, ephemeris_sight, orientation_in_icrs,
                              project, sight_from_angles, sky_basis)

@@ -70,7 +70,7 @@ def prior_transform(model, name, box):
     return transform
 
 
-def nested_box(model, name, box, seed, nlive):
+def nested_box(model, name, box, seed, nlive, dlogz=0.05):
     """(ln Z of the box with its prior probability, its error, mass samples, weights)."""
     import dynesty
 
@@ -78,11 +78,15 @@ def nested_box(model, name, box, seed, nlive):
         value = model.log_likelihood(theta[None, :])[0]
         return float(value) if np.isfinite(value) else -1e300
 
+    # Random walks from live points: dynesty's uniform draws within ellipsoids lose
+    # their efficiency on the narrow curved ridges of an orbit's posterior.
     sampler = dynesty.NestedSampler(log_like, prior_transform(model, name, box),
-                                    model.n_dim, nlive=nlive,
+                                    model.n_dim, nlive=nlive, sample="rwalk",
                                     rstate=np.random.default_rng(seed))
-    sampler.run_nested(dlogz=0.05, print_progress=False)
+    sampler.run_nested(dlogz=dlogz, print_progress=False)
     res = sampler.results
+    print(f"  box {box[0]:.5g}-{box[1]:.5g} d, seed {seed}: ln Z {res.logz[-1]:.3f} "
+          f"+- {res.logzerr[-1]:.3f}", flush=True)
     prior = model.companions[name].period
     log_share = np.log(np.log(box[1] / box[0]) / np.log(prior.high / prior.low))
     weights = np.exp(res.logwt - res.logz[-1])
@@ -96,7 +100,7 @@ def weighted_quantiles(x, w, q):
     return np.interp(q, cdf, x[order])
 
 
-def study(seed, nlive, repeats=2):
+def study(seed, nlive, repeats=2, dlogz=0.05):
     table, truth = tamsin(seed)
     model = OrbitModel(read_back(table), SystemSpec(parallax=Fixed(25.0)))
     started = time.perf_counter()
@@ -109,7 +113,7 @@ def study(seed, nlive, repeats=2):
         box = period_box(mode, others, "Tamsin")
         runs = []
         for rep in range(repeats):
-            runs.append(nested_box(model, "Tamsin", box, 1000 * seed + rep, nlive))
+            runs.append(nested_box(model, "Tamsin", box, 1000 * seed + rep, nlive, dlogz))
         rows.append({"period": mode["periods"]["Tamsin"], "box": box,
                      "central_mass": mode["central_mass"], "laplace_weight": mode["weight"],
                      "runs": runs})
@@ -143,8 +147,10 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, nargs="+", default=[4])
     parser.add_argument("--nlive", type=int, default=400)
+    parser.add_argument("--dlogz", type=float, default=0.05,
+                        help="dynesty's stopping tolerance on ln Z")
     args = parser.parse_args(argv)
-    results = [study(seed, args.nlive) for seed in args.seeds]
+    results = [study(seed, args.nlive, dlogz=args.dlogz) for seed in args.seeds]
     OUT.parent.mkdir(parents=True, exist_ok=True)
     OUT.write_text(json.dumps(results, indent=2))
     for res in results:
