@@ -16,16 +16,6 @@ def test_example_obs_matches_the_package_copy():
                            shallow=False)
 
 
-def test_scenarios_regenerate_byte_for_byte(tmp_path, monkeypatch):
-    import massfit.scenarios.examples as scenarios
-
-    monkeypatch.setattr(scenarios, "DEMO_DIR", tmp_path / "pkg")
-    write_all(tmp_path / "obs")
-    for name in ("moons.ecsv", "truth.json"):
-        assert filecmp.cmp(tmp_path / "obs" / "orvane" / name, DEMO_DIR / name,
-                           shallow=False)
-
-
 def test_demo_truth_describes_the_data():
     truth = json.loads((DEMO_DIR / "truth.json").read_text())
     obs = massfit.read_observations(DEMO_DIR / "moons.ecsv")
