@@ -63,10 +63,8 @@ def _main_chain_part(model, samples, mode):
             {n: p[mask] for n, p in periods.items()})
 
 
-def _own_chain(observations, model, mode, candidates, settings):
-    """A fit of the mode alone: (masses, periods, chain facts) or None."""
-    from massfit.run import fit
-
+def _own_chain(observations, model, mode, candidates, settings, fit):
+    """A fit of the mode alone (through ``fit``): (masses, periods, chain facts) or None."""
     full = next(c for c in candidates if c["periods"] == mode["periods"])
     spec = boxed_spec(model, full, [c for c in candidates if c is not full])
     if spec is None:
@@ -83,7 +81,7 @@ def _own_chain(observations, model, mode, candidates, settings):
     return np.asarray(samples["central_mass_Msun"]), periods, facts
 
 
-def weigh_modes(model, samples, census, candidates, observations, settings, *,
+def weigh_modes(model, samples, census, candidates, observations, settings, *, fit,
                 main_converged=True) -> dict | None:
     """Per-mode intervals and the central mass over the modes (an approximation).
 
@@ -101,6 +99,9 @@ def weigh_modes(model, samples, census, candidates, observations, settings, *,
     settings : SamplerSettings
         The main fit's settings (seed, walkers); the step cap is at most
         :data:`MODE_MAX_STEPS`.
+    fit : callable
+        :func:`massfit.run.fit`, passed in by its caller (so that this module, which
+        that function calls, does not import it back).
     main_converged : bool
         Whether the main chain passed the autocorrelation test (for its modes).
 
@@ -122,7 +123,7 @@ def weigh_modes(model, samples, census, candidates, observations, settings, *,
             masses, periods = _main_chain_part(model, samples, mode)
             facts = {"sampled": "main chain", "converged": bool(main_converged)}
         else:
-            own = _own_chain(observations, model, mode, candidates, settings)
+            own = _own_chain(observations, model, mode, candidates, settings, fit)
             if own is None:
                 return None
             masses, periods, facts = own

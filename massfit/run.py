@@ -206,7 +206,7 @@ def assemble_result(model, chain, start, settings, *, record=None,
         from massfit.modechains import weigh_modes
 
         over_modes = weigh_modes(model, chain.samples, census, candidates, weigh_with,
-                                 settings, main_converged=chain.converged)
+                                 settings, fit=fit, main_converged=chain.converged)
     if missing:
         chain.converged = False
     sensitivity = prior_sensitivity(model, chain.samples)

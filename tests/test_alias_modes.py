@@ -260,7 +260,7 @@ def test_mass_over_modes_is_the_weighted_mixture(yearly_start):
     census = chain_census(model, start.candidate_modes, samples)
     heavy = [m for m in census if m["weight"] >= MIN_WEIGHT]
     over = weigh_modes(model, samples, census, start.candidate_modes, None,
-                       SamplerSettings(seed=1))
+                       SamplerSettings(seed=1), fit=massfit.fit)
     weights = np.array([m["weight"] for m in heavy]) / sum(m["weight"] for m in heavy)
     assert over["weights"] == pytest.approx(list(weights))
     masses = np.array([m["central_mass"] for m in heavy])
@@ -291,7 +291,7 @@ def test_an_unvisited_mode_gets_its_own_chain_in_its_box(yearly_start, yearly_fi
     observations = massfit.read_observations(yearly_file)
     over = weigh_modes(model, samples, census, start.candidate_modes, observations,
                        SamplerSettings(seed=2, max_steps=400, check_every=200,
-                                       progress=False))
+                                       progress=False), fit=massfit.fit)
     for mode, full in zip(census, start.candidate_modes):
         if mode["weight"] < MIN_WEIGHT:
             continue

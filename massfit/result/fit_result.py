@@ -7,13 +7,11 @@ from pathlib import Path
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import MASS_UNITS, best_mass_unit, derived_samples, interval
+from massfit.summarise.derived import best_mass_unit, derived_samples, interval
 from massfit.summarise.rounding import format_interval
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
-SUMMARY_FILE = "summary.json"
-SAMPLES_FILE = "samples.ecsv"
 
 
 _CENTRAL_BLOCKS = (
@@ -475,7 +473,8 @@ class FitResult:
         :mod:`massfit.write.folder`).
         """
         from massfit.write.folder import atomic_folder, write_json
-        from massfit.result.loading import RUN_FILE, model_state, write_observations
+        from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
+                                              write_observations)
 
         out = Path(out_dir)
         record = {**self.record, "model": model_state(self.model)}
