@@ -356,7 +356,7 @@ def _acceptable(model, theta, chi2):
     """The summary's poor-fit criterion, passed."""
     from scipy.stats import chi2 as chi2_dist
 
-    from massfit.run import POOR_FIT_P_VALUE
+    from massfit.model.fit_quality import POOR_FIT_P_VALUE
 
     dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
     return dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE
