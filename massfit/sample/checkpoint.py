@@ -197,6 +197,8 @@ def fingerprint(model) -> str:
             if name in ("file", "line"):
                 continue  # moving a file does not change the fit
             value = getattr(data, name)
+            if value is None:  # an optional part the data do not have (e.g. no sight)
+                continue
             if name == "time":
                 value = value.tdb.jd
             digest.update(np.ascontiguousarray(value).tobytes())
