@@ -18,6 +18,7 @@ from .dynamics import Keplerian
 from .errors import ConfigError, InputError, MassfitError, ModelError
 from .model import CompanionSpec, SystemSpec
 from .nbody import NBody
+from .perturbed import Perturbed
 from .oblateness import Oblate
 from .plan import AssumedSystem, Schedule, forecast_precision, plan_observations
 from .priors import Fixed, LogUniform, Normal, Uniform
@@ -34,7 +35,8 @@ except _metadata.PackageNotFoundError:  # pragma: no cover - running from a chec
 
 __all__ = [
     "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",
-    "CompanionSpec", "Keplerian", "Oblate", "NBody", "SamplerSettings", "Uniform",
+    "CompanionSpec", "Keplerian", "Oblate", "NBody", "Perturbed", "SamplerSettings",
+    "Uniform",
     "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
     "AssumedSystem", "Schedule", "forecast_precision", "plan_observations",

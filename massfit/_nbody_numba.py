@@ -34,36 +34,74 @@ _jit = dict(cache=True, error_model="numpy", fastmath=False)
 
 
 @numba.njit(**_jit)
-def _derivative(y, gm_central, gm_bodies, out):  # pragma: no cover - compiled
-    """d/dt of the astrocentric state y (K*6: x, y, z, vx, vy, vz per companion)."""
+def _central_field(x, y, z, field, out):  # pragma: no cover - compiled
+    """Acceleration per unit GM of the primary at (x, y, z), into out[0:3].
+
+    ``field`` is (J2 R^2, J4 R^4, pole_x, pole_y, pole_z, mutual pulls on/off): the
+    point mass plus the zonal harmonics J2 and J4 about the pole (the gradient of
+    the zonal potential; see :mod:`massfit.perturbed`). Further terms of the primary's
+    own field (relativity, say) belong here, so that the direct and the indirect
+    terms of the equations of motion both get them.
+    """
+    r2 = x * x + y * y + z * z
+    r = math.sqrt(r2)
+    inv_r3 = 1.0 / (r2 * r)
+    ax = -x * inv_r3
+    ay = -y * inv_r3
+    az = -z * inv_r3
+    c2 = field[0]
+    c4 = field[1]
+    if c2 != 0.0 or c4 != 0.0:
+        s = x * field[2] + y * field[3] + z * field[4]  # along the pole
+        u2 = s * s / r2
+        inv_r5 = inv_r3 / r2
+        inv_r7 = inv_r5 / r2
+        radial = -1.5 * c2 * inv_r5 * (1.0 - 5.0 * u2) \
+            + c4 * inv_r7 * 1.875 * (1.0 - 14.0 * u2 + 21.0 * u2 * u2)
+        polar = s * (-3.0 * c2 * inv_r5 + c4 * inv_r7 * 2.5 * (3.0 - 7.0 * u2))
+        ax += radial * x + polar * field[2]
+        ay += radial * y + polar * field[3]
+        az += radial * z + polar * field[4]
+    out[0] = ax
+    out[1] = ay
+    out[2] = az
+
+
+@numba.njit(**_jit)
+def _derivative(y, gm_central, gm_bodies, field, g, out):  # pragma: no cover - compiled
+    """d/dt of the astrocentric state y (K*6: x, y, z, vx, vy, vz per companion);
+    ``g`` is scratch space of 3 K values."""
     k_bodies = gm_bodies.shape[0]
+    pulls = field[5] != 0.0
+    for k in range(k_bodies):
+        base = 6 * k
+        _central_field(y[base], y[base + 1], y[base + 2], field, g[3 * k:3 * k + 3])
     for k in range(k_bodies):
         base = 6 * k
         x, yy, z = y[base], y[base + 1], y[base + 2]
-        r2 = x * x + yy * yy + z * z
-        inv_r3 = 1.0 / (r2 * math.sqrt(r2))
-        g = gm_central + gm_bodies[k]
+        gk = gm_central + gm_bodies[k]
         out[base] = y[base + 3]
         out[base + 1] = y[base + 4]
         out[base + 2] = y[base + 5]
-        ax = -g * x * inv_r3
-        ay = -g * yy * inv_r3
-        az = -g * z * inv_r3
-        for j in range(k_bodies):
-            if j == k:
-                continue
-            other = 6 * j
-            xj, yj, zj = y[other], y[other + 1], y[other + 2]
-            dx, dy, dz = xj - x, yj - yy, zj - z
-            d2 = dx * dx + dy * dy + dz * dz
-            inv_d3 = 1.0 / (d2 * math.sqrt(d2))
-            rj2 = xj * xj + yj * yj + zj * zj
-            inv_rj3 = 1.0 / (rj2 * math.sqrt(rj2))
-            gj = gm_bodies[j]
-            # Direct pull of j, minus the primary's acceleration towards j.
-            ax += gj * (dx * inv_d3 - xj * inv_rj3)
-            ay += gj * (dy * inv_d3 - yj * inv_rj3)
-            az += gj * (dz * inv_d3 - zj * inv_rj3)
+        ax = gk * g[3 * k]
+        ay = gk * g[3 * k + 1]
+        az = gk * g[3 * k + 2]
+        if pulls:
+            for j in range(k_bodies):
+                if j == k:
+                    continue
+                other = 6 * j
+                dx = y[other] - x
+                dy = y[other + 1] - yy
+                dz = y[other + 2] - z
+                d2 = dx * dx + dy * dy + dz * dz
+                inv_d3 = 1.0 / (d2 * math.sqrt(d2))
+                gj = gm_bodies[j]
+                # Direct pull of j, plus the primary's own acceleration towards j
+                # (g is the field per unit GM of the primary: pointing at it).
+                ax += gj * (dx * inv_d3 + g[3 * j])
+                ay += gj * (dy * inv_d3 + g[3 * j + 1])
+                az += gj * (dz * inv_d3 + g[3 * j + 2])
         out[base + 3] = ax
         out[base + 4] = ay
         out[base + 5] = az
@@ -91,7 +129,7 @@ def _error_norm(stages, h, scale):  # pragma: no cover - compiled
 
 
 @numba.njit(**_jit)
-def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
+def _initial_step(y, f, gm_central, gm_bodies, field, g, direction, span, rtol, atol,
                   work, f1):  # pragma: no cover - compiled
     """scipy's empirical first step (Hairer, Norsett and Wanner, sec. II.4)."""
     n = y.shape[0]
@@ -107,7 +145,7 @@ def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
     h0 = min(h0, span)
     for i in range(n):
         work[i] = y[i] + h0 * direction * f[i]
-    _derivative(work, gm_central, gm_bodies, f1)
+    _derivative(work, gm_central, gm_bodies, field, g, f1)
     d2 = 0.0
     for i in range(n):
         sc = atol[i] + abs(y[i]) * rtol
@@ -121,7 +159,7 @@ def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
 
 
 @numba.njit(**_jit)
-def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # pragma: no cover
+def _integrate_one(y0, gm_central, gm_bodies, field, targets, rtol, atol, out):  # pragma: no cover
     """Integrate one system from t = 0 to each of ``targets`` (same sign, sorted by |t|).
 
     Writes the state at each target into the rows of ``out``; returns False where
@@ -137,10 +175,11 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
     f = np.empty(n)
     stages = np.empty((N_STAGES + 1, n))
     scale = np.empty(n)
-    _derivative(y, gm_central, gm_bodies, f)
+    g = np.empty(n // 2)
+    _derivative(y, gm_central, gm_bodies, field, g, f)
     t = 0.0
     span = abs(targets[targets.shape[0] - 1])
-    h_abs = _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
+    h_abs = _initial_step(y, f, gm_central, gm_bodies, field, g, direction, span, rtol, atol,
                           work, y_new)
     steps = 0
     for j in range(targets.shape[0]):
@@ -165,13 +204,13 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
                         for r in range(s):
                             acc += A[s, r] * stages[r, i]
                         work[i] = y[i] + h * acc
-                    _derivative(work, gm_central, gm_bodies, stages[s])
+                    _derivative(work, gm_central, gm_bodies, field, g, stages[s])
                 for i in range(n):
                     acc = 0.0
                     for r in range(N_STAGES):
                         acc += B[r] * stages[r, i]
                     y_new[i] = y[i] + h * acc
-                _derivative(y_new, gm_central, gm_bodies, stages[N_STAGES])
+                _derivative(y_new, gm_central, gm_bodies, field, g, stages[N_STAGES])
                 finite = True
                 for i in range(n):
                     scale[i] = atol[i] + max(abs(y[i]), abs(y_new[i])) * rtol
@@ -200,19 +239,20 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
     return True
 
 
-@numba.njit(**_jit)
-def integrate(y0, gm_central, gm_bodies, forward, backward, rtol, atol,
+@numba.njit(parallel=True, **_jit)
+def integrate(y0, gm_central, gm_bodies, field, forward, backward, rtol, atol,
               out):  # pragma: no cover - compiled
     """Every walker w: y0[w] (K*6) integrated to the times ``forward`` (ascending,
     >= 0) and ``backward`` (descending, < 0); out[w] is (len(forward) +
-    len(backward), K*6), forward rows first. Failed walkers are left NaN."""
+    len(backward), K*6), forward rows first. Failed walkers are left NaN. The
+    walkers are shared among numba's threads (each is independent of the others)."""
     n_walkers = y0.shape[0]
     n_fwd = forward.shape[0]
-    for w in range(n_walkers):
-        ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], forward, rtol, atol[w],
-                            out[w, :n_fwd])
+    for w in numba.prange(n_walkers):
+        ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], field[w], forward, rtol,
+                            atol[w], out[w, :n_fwd])
         if ok:
-            ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], backward, rtol,
-                                atol[w], out[w, n_fwd:])
+            ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], field[w], backward,
+                                rtol, atol[w], out[w, n_fwd:])
         if not ok:
             out[w, :, :] = np.nan

@@ -8,8 +8,9 @@
   primary (and optionally their velocities) at every row's time.
 
 :class:`Keplerian` is the default (two-body relative orbits). The perturbed models live
-in :mod:`massfit.oblateness` (a J2 primary) and :mod:`massfit.nbody` (companions that
-pull on each other). :func:`observed_offsets` adds the light time across the system
+in :mod:`massfit.oblateness` (secular J2, cheap) and :mod:`massfit.perturbed` (an
+integrated orbit with any of J2, J4 and the companions' pulls on each other;
+:mod:`massfit.nbody` holds its integrator and the pulls-only alias). :func:`observed_offsets` adds the light time across the system
 (the Romer delay along z) on top of whichever model is in use.
 
 Positions are in au as ``(north, east, z)`` triples of arrays shaped
@@ -199,7 +200,9 @@ def observed_offsets(model, phys) -> dict:
 MODEL_OPTIONS = {
     "keplerian": (),
     "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
-    "n-body": ("rtol",),
+    "n-body": ("rtol", "start_evaluations"),
+    "perturbed": ("j2", "j4", "equatorial_radius", "equator_inclination", "equator_node",
+                  "mutual_pulls", "rtol", "start_evaluations"),
 }
 
 
@@ -220,6 +223,10 @@ def make_dynamics(model="keplerian", *, key_prefix="dynamics.", file=None, **opt
     Returns
     -------
     Keplerian or a subclass
+        ``"oblate"`` is the secular J2 model (:class:`massfit.oblateness.Oblate`),
+        ``"perturbed"`` the integrated one with any of J2, J4 and mutual pulls
+        (:class:`massfit.perturbed.Perturbed`), ``"n-body"`` the latter with mutual
+        pulls only.
     """
     from .errors import ConfigError
 
@@ -248,9 +255,10 @@ def make_dynamics(model="keplerian", *, key_prefix="dynamics.", file=None, **opt
             raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix),
                               file=file) from None
     from .nbody import NBody
+    from .perturbed import Perturbed
 
     try:
-        return NBody(**options)
+        return Perturbed(**options) if model == "perturbed" else NBody(**options)
     except ConfigError as exc:
         raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix), file=file) from None
 

@@ -1,0 +1,334 @@
+"""One perturbed model: the primary's zonal harmonics and the companions' mutual pulls.
+
+The sampled elements of each companion are its **astrocentric osculating elements**
+(position and velocity relative to the primary, with GM = G (M1 + m_k) in Kepler's
+third law, as in the two-body model) at the model's epoch, the mean time of all the
+astrometry. Each companion's phase is sampled at its own mid-data epoch and carried to
+the common epoch with its osculating mean motion. From there the astrocentric
+equations of motion are integrated numerically (DOP853, :mod:`massfit.nbody`) forward
+and backward to the observation times, with any set of these forces:
+
+* **zonal harmonics J2 and J4** of the primary, at its equatorial radius R, about its
+  pole: the gradient of the axisymmetric potential
+  V = -GM/r [1 - J2 (R/r)^2 P2(sin phi) - J4 (R/r)^4 P4(sin phi)], written in terms of
+  the pole vector so that no frame rotation is needed
+  (:func:`massfit.nbody.zonal_field`);
+* **mutual pulls** between the companions, with the indirect term of the primary's own
+  acceleration (which also carries the harmonics: the companions pull on the oblate
+  primary as it pulls on them).
+
+Relativity is not modelled yet: it would be one more term of the primary's own field,
+in :func:`massfit.nbody.zonal_field` and its compiled twin, with its switch in
+:data:`FORCES`.
+
+Which pole
+----------
+With ``equator_inclination`` and ``equator_node`` (in the model's frame, in the
+convention of an orbit's i and Omega: an orbit with these elements lies in the
+equator), the pole is fixed. Without them, the pole is the mean of the companions'
+orbit normals, walker by walker (regular moons lie near their planet's equator).
+
+Versus :class:`massfit.oblateness.Oblate`
+-----------------------------------------
+The secular J2 model costs about twice a two-body evaluation and needs no integration;
+it is first order in J2 and has no short-period terms, no J4 and no pulls. This model
+has all of them, at the cost of an integration per walker and call.
+
+The start (:func:`massfit.start.find_start`) fits the two-body model first, maps its
+solution here (:meth:`Perturbed.from_two_body`), and polishes it in stages of growing
+time span about the epoch, each least-squares pass bounded by ``start_evaluations``.
+"""
+
+from __future__ import annotations
+
+import copy
+import itertools
+from dataclasses import replace
+
+import numpy as np
+
+from .constants import AU_KM, GM_SUN
+from .dynamics import Keplerian, orbit_state
+from .errors import ConfigError
+from .oblateness import primary_figure
+from .priors import Fixed, LogUniform
+
+__all__ = ["Perturbed", "FORCES", "DEFAULT_MASS_PRIOR"]
+
+TWO_PI = 2.0 * np.pi
+#: The forces the model can switch on, as named in ``describe()``.
+FORCES = ("zonal harmonics", "mutual pulls")
+#: Prior for companion masses the user left unstated (nominal solar masses).
+DEFAULT_MASS_PRIOR = LogUniform(1e-12, 10.0)
+
+
+class Perturbed(Keplerian):
+    """Companions integrated in the primary's zonal field and each other's pulls.
+
+    Parameters
+    ----------
+    j2, j4 : float
+        The primary's zonal harmonics (0 switches each off).
+    equatorial_radius : str or Quantity, optional
+        Their reference radius (needed where J2 or J4 is not zero).
+    equator_inclination, equator_node : str or Quantity, optional
+        The primary's equator (both or neither; see the module notes).
+    mutual_pulls : bool
+        Whether the companions pull on each other (and their masses become parameters).
+    rtol : float
+        Relative tolerance of the integrator, from 1e-14 to 1e-6.
+    start_evaluations : int
+        Cap on the residual evaluations of each least-squares pass of the start (at
+        least 20); a start that reaches it says so in the summary's warnings.
+    mass_prior : Prior, optional
+        Prior for the masses of companions whose mass is left unstated (with mutual
+        pulls); :data:`DEFAULT_MASS_PRIOR` by default.
+    compiled : bool, optional
+        Which integrator (None: the compiled one where numba is installed); for checks
+        and benchmarks, not a config setting.
+    """
+
+    label = "perturbed"
+    #: Companion masses tried at the start, as shares of the system's mass (lightest
+    #: first: weak pulls keep the two-body solution near the perturbed one).
+    START_SHARES = (1e-4, 1e-3, 1e-2)
+
+    def __init__(self, *, j2=0.0, j4=0.0, equatorial_radius=None, equator_inclination=None,
+                 equator_node=None, mutual_pulls=True, rtol=1e-12, start_evaluations=300,
+                 mass_prior=None, compiled=None):
+        if isinstance(rtol, bool) or not isinstance(rtol, (int, float)) \
+                or not 1e-14 <= rtol <= 1e-6:
+            raise ConfigError(f"the integrator's relative tolerance must be a number "
+                              f"from 1e-14 to 1e-6, got {rtol!r}", key="dynamics.rtol")
+        if not isinstance(mutual_pulls, bool):
+            raise ConfigError(f"mutual_pulls must be true or false, got {mutual_pulls!r}",
+                              key="dynamics.mutual_pulls")
+        if isinstance(start_evaluations, bool) or not isinstance(start_evaluations, int) \
+                or start_evaluations < 20:
+            raise ConfigError(f"start_evaluations must be a whole number of at least 20, "
+                              f"got {start_evaluations!r}", key="dynamics.start_evaluations")
+        figure = primary_figure(j2, j4, equatorial_radius, equator_inclination, equator_node)
+        if not (figure["j2"] or figure["j4"] or mutual_pulls):
+            raise ConfigError("the perturbed model needs at least one force: J2 or J4 with "
+                              "the equatorial radius, or mutual_pulls = true",
+                              key="dynamics.mutual_pulls")
+        self.figure = figure
+        self.mutual_pulls = mutual_pulls
+        self.rtol = float(rtol)
+        self.start_evaluations = start_evaluations
+        self.mass_prior = mass_prior if mass_prior is not None else DEFAULT_MASS_PRIOR
+        self.compiled = compiled
+        #: Absolute JD of the osculating elements (None: the model's epoch); the staged
+        #: start sets it so that models of part of the data share the full one's epoch.
+        self.epoch_jd = None
+        self.settings = {k: v for k, v in dict(
+            j2=j2, j4=j4, equatorial_radius=equatorial_radius,
+            equator_inclination=equator_inclination, equator_node=equator_node,
+            mutual_pulls=mutual_pulls, rtol=rtol,
+            start_evaluations=start_evaluations).items() if v is not None}
+
+    @property
+    def has_harmonics(self) -> bool:
+        return bool(self.figure["j2"] or self.figure["j4"])
+
+    def at_epoch(self, epoch_jd):
+        """A copy whose osculating elements refer to the absolute epoch ``epoch_jd``."""
+        out = copy.copy(self)
+        out.epoch_jd = float(epoch_jd)
+        return out
+
+    def describe(self) -> dict:
+        out = {"model": self.label, "rtol": self.rtol,
+               "forces": [f for f, on in zip(FORCES, (self.has_harmonics, self.mutual_pulls))
+                          if on],
+               "coordinates": "astrocentric osculating elements at the model epoch"}
+        if self.has_harmonics:
+            out.update(j2=self.figure["j2"], j4=self.figure["j4"],
+                       equatorial_radius_km=self.figure["radius_km"])
+            if self.figure["pole"] is None:
+                out["pole"] = "mean of the orbit normals"
+            else:
+                out["equator_inclination_deg"], out["equator_node_deg"] = \
+                    self.figure["pole_deg"]
+        return out
+
+    def prepare(self, model) -> None:
+        """With mutual pulls, give companions with an unstated (zero, fixed) mass the
+        mass prior."""
+        if not self.mutual_pulls:
+            return
+        for name, comp in model.companions.items():
+            if isinstance(comp.mass, Fixed) and comp.mass.value == 0.0:
+                model.companions[name] = replace(comp, mass=self.mass_prior)
+
+    def node_widths(self, model, widths) -> dict:
+        """The full circle for the nodes the sky's mirror image does not leave alone.
+
+        On the sky alone, (omega, node) and (omega + pi, node + pi) look the same: the
+        orbit mirrored through the sky plane. Mirroring *every* orbit leaves the
+        mutual pulls as they were (and a pole taken from the orbits turns with them),
+        so the first companion keeps its half window; mirroring one orbit and not
+        another changes the mutual inclination. A pole that is given is not
+        mirrored, so then every node needs the full circle.
+        """
+        fixed_pole = self.has_harmonics and self.figure["pole"] is not None
+        return {name: widths[name] if (k == 0 and not fixed_pole) else TWO_PI
+                for k, name in enumerate(widths)}
+
+    # ------------------------------------------------------------------ the start
+    def from_two_body(self, model, values) -> list:
+        """Starting values from a two-body solution: same states, new mass, candidates.
+
+        A two-body fit follows each companion's mean path: its position and velocity
+        at the epoch are close to the perturbed orbit's (for a near-circular orbit in
+        a J2 field the speed n r that fits the observed mean motion is the circular
+        speed of that field). They are kept, and turned into osculating elements with
+        the central mass the perturbed model needs: where there are harmonics, the GM
+        a J2 primary needs for each orbit's size and mean motion (first-order secular
+        theory, :func:`massfit.oblateness.oblate_gm`), weighted by rows. With mutual
+        pulls, companions whose mass is sampled are put at 1e-4, 1e-3 and 1e-2 of the
+        system's mass, each after the first as fitted or mirrored through the sky
+        plane (:meth:`node_widths`).
+        """
+        names = list(model.companions)
+        central = self._start_central_mass(model, values)
+        shares = self.START_SHARES if self.mutual_pulls else (None,)
+        flips_all = (itertools.product((False, True), repeat=len(names) - 1)
+                     if self.mutual_pulls else [()])
+        flips_all = list(flips_all)
+        out = []
+        for share in shares:
+            for flips in flips_all:
+                candidate = {key: value for key, value in values.items()
+                             if key not in names}
+                masses = {name: self._start_mass(model, name, share, central)
+                          for name in names}
+                candidate["central_mass"] = central - float(np.mean(list(masses.values())))
+                for name, flip in zip(names, (False,) + tuple(flips)):
+                    candidate[name] = self._osculating(model, values, name, flip,
+                                                       candidate["central_mass"],
+                                                       masses[name])
+                out.append(candidate)
+        return out
+
+    def _start_central_mass(self, model, values):
+        """M1 + m (nominal solar masses) for the start: the two-body value, or the one
+        a J2 primary needs for each orbit's size and mean motion, weighted by rows."""
+        names = list(model.companions)
+        if not self.figure["j2"]:
+            return float(np.mean([values["central_mass"] + values[n].get("mass", 0.0)
+                                  for n in names]))
+        from .oblateness import oblate_gm
+
+        pole = self._pole(model, {n: {k: np.atleast_1d(v) for k, v in values[n].items()}
+                                  for n in names})
+        logs, weights = [], []
+        for name in names:
+            orbit = values[name]
+            normal = _normal(orbit["inc"], orbit["node"])
+            cos_i = float(np.clip(np.dot(normal, pole[0]), -1.0, 1.0))
+            gm = oblate_gm(orbit["semi_major_axis"], orbit["period"], orbit["ecc"],
+                           np.arccos(cos_i), self.figure["j2"],
+                           self.figure["radius_km"] / AU_KM)
+            logs.append(np.log(gm / GM_SUN))
+            weights.append(len(model._rows[name].t))
+        return float(np.exp(np.average(logs, weights=weights)))
+
+    def _start_mass(self, model, name, share, total):
+        prior = model.companions[name].mass
+        if prior.is_fixed:
+            return prior.value
+        return float(np.clip(share * total, prior.low * 1.001, prior.high * 0.999))
+
+    def _osculating(self, model, values, name, flip, central, mass):
+        """The two-body orbit's state at the epoch, as osculating elements under the
+        new masses (mirrored through the sky plane when ``flip``)."""
+        from .coordinates import elements_of_state
+
+        orbit = values[name]
+        t0 = self._epoch_shift(model)
+        n_motion = TWO_PI / orbit["period"]
+        mean = orbit["mean_anomaly_ref"] + n_motion * (t0 - model.reference_epoch(name))
+        omega, node = orbit["omega"], orbit["node"]
+        if flip:
+            omega, node = omega + np.pi, node + np.pi
+        position, velocity = orbit_state(orbit["semi_major_axis"], orbit["ecc"],
+                                         orbit["inc"], omega, node, mean, n_motion)
+        gm = np.array([GM_SUN * (central + mass)])
+        (period, ecc, cos_i, node, omega, mean0), _ = elements_of_state(
+            np.array([position]), np.array([velocity]), gm)
+        period = float(period[0])
+        return dict(orbit, period=period, ecc=float(ecc[0]), inc=float(np.arccos(cos_i[0])),
+                    node=float(node[0]), omega=float(omega[0]), mass=mass,
+                    mean_anomaly_ref=float(mean0[0] + TWO_PI / period * (
+                        model.reference_epoch(name) - t0)))
+
+    # --------------------------------------------------------------- the orbits
+    def _epoch_shift(self, model):
+        """Days from the model's epoch to the epoch of the osculating elements."""
+        return 0.0 if self.epoch_jd is None else self.epoch_jd - model.epoch_jd
+
+    def _pole(self, model, orbits):
+        """The pole per walker, (n, 3): given, or the mean of the orbit normals."""
+        if self.figure["pole"] is not None:
+            size = len(next(iter(orbits.values()))["inc"])
+            return np.broadcast_to(self.figure["pole"], (size, 3))
+        total = sum(np.column_stack(_normal(o["inc"], o["node"])) for o in orbits.values())
+        norm = np.linalg.norm(total, axis=1, keepdims=True)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return total / norm
+
+    def _field(self, model, orbits, size):
+        radius_au = (self.figure["radius_km"] or 0.0) / AU_KM
+        field = np.empty((size, 6))
+        field[:, 0] = self.figure["j2"] * radius_au ** 2
+        field[:, 1] = self.figure["j4"] * radius_au ** 4
+        field[:, 2:5] = self._pole(model, orbits) if self.has_harmonics else (0, 0, 1)
+        field[:, 5] = 1.0 if self.mutual_pulls else 0.0
+        return field
+
+    def states(self, model, phys, *, want_velocity=False) -> dict:
+        from .nbody import integrate_system
+
+        names = list(model._rows)
+        orbits = {name: phys["companions"][name] for name in names}
+        masses = np.column_stack([orbits[name]["mass"] for name in names])
+        t0 = self._epoch_shift(model)
+        pos0 = np.empty(masses.shape + (3,))
+        vel0 = np.empty_like(pos0)
+        for k, name in enumerate(names):
+            orbit = orbits[name]
+            n_motion = TWO_PI / orbit["period"]
+            # Osculating mean anomaly at the epoch of the elements.
+            mean0 = orbit["mean_anomaly_ref"] - n_motion * (model.reference_epoch(name) - t0)
+            with np.errstate(invalid="ignore"):
+                position, velocity = orbit_state(orbit["semi_major_axis"], orbit["ecc"],
+                                                 orbit["inc"], orbit["omega"],
+                                                 orbit["node"], mean0, n_motion)
+            pos0[:, k] = np.column_stack(position)
+            vel0[:, k] = np.column_stack(velocity)
+        field = self._field(model, orbits, masses.shape[0])
+        all_t = np.concatenate([model._rows[name].t for name in names]) - t0
+        unique_t, where = np.unique(all_t, return_inverse=True)
+        positions = np.full(masses.shape + (unique_t.size, 3), np.nan)
+        velocities = np.full_like(positions, np.nan)
+        good = np.flatnonzero(np.all(np.isfinite(pos0) & np.isfinite(vel0), axis=(1, 2))
+                              & np.all(np.isfinite(field), axis=1))
+        if good.size:
+            positions[good], velocities[good] = integrate_system(
+                unique_t, phys["central_mass"][good], masses[good], pos0[good], vel0[good],
+                rtol=self.rtol, compiled=self.compiled, field=field[good])
+        out, start = {}, 0
+        for k, name in enumerate(names):
+            rows = where[start:start + model._rows[name].t.size]
+            start += rows.size
+            pos = positions[:, k][:, rows]
+            vel = velocities[:, k][:, rows]
+            out[name] = ((pos[..., 0], pos[..., 1], pos[..., 2]),
+                         (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
+        return out
+
+
+def _normal(inc, node):
+    """The orbit normal as (north, east, z) components (:func:`dynamics.orbit_state`)."""
+    return np.array([np.sin(node) * np.sin(inc), -np.cos(node) * np.sin(inc), np.cos(inc)])
