@@ -89,7 +89,8 @@ def write_meta(path, *, model, start, initial, settings, started_utc) -> None:
         "centres": model.centres,
         "start": {"theta": start.theta.tolist(), "chi2": start.chi2,
                   "covariance": np.asarray(start.covariance).tolist(),
-                  "modes": start.modes, "per_companion": start.per_companion},
+                  "modes": start.modes, "per_companion": start.per_companion,
+                  "notes": list(start.notes)},
     }
     with h5py.File(path, "w") as handle:
         group = handle.create_group(META_GROUP)
@@ -147,7 +148,7 @@ def read_meta(path, *, model, settings) -> dict:
     s = meta["start"]
     start = Start(theta=np.array(s["theta"]), chi2=float(s["chi2"]),
                   covariance=np.array(s["covariance"]), modes=list(s["modes"]),
-                  per_companion=dict(s["per_companion"]))
+                  per_companion=dict(s["per_companion"]), notes=list(s.get("notes", [])))
     return {"start": start, "initial": initial, "started_utc": meta["started_utc"],
             "settings": saved}
 

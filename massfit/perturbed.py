@@ -332,3 +332,108 @@ class Perturbed(Keplerian):
 def _normal(inc, node):
     """The orbit normal as (north, east, z) components (:func:`dynamics.orbit_state`)."""
     return np.array([np.sin(node) * np.sin(inc), -np.cos(node) * np.sin(inc), np.cos(inc)])
+
+
+#: The invented planet *Corrabel* and three moons (two near a 2:1 period ratio): GM
+#: (km^3/s^2), equatorial radius (km), J2, J4, the equator on the sky (deg), and each
+#: moon's share of the planet's mass, semi-major axis (planet radii), eccentricity,
+#: inclination to the equator, periapsis, node on the equator and mean anomaly at the
+#: epoch (deg): astrocentric osculating elements referred to the equator.
+MOONS_TRUTH = {"gm_km3_s2": 8.3e7, "radius_km": 58300.0, "j2": 0.0138, "j4": -5.2e-4,
+               "equator_inclination_deg": 72.0, "equator_node_deg": 140.0,
+               "moons": {"Tarn": dict(share=3.1e-5, a=4.3, ecc=0.004, inc=0.3, omega=20.0,
+                                      node=60.0, mean=10.0),
+                         "Ossel": dict(share=2.2e-5, a=6.86, ecc=0.009, inc=0.5, omega=200.0,
+                                       node=250.0, mean=300.0),
+                         "Wend": dict(share=5.5e-5, a=12.1, ecc=0.002, inc=0.2, omega=90.0,
+                                      node=10.0, mean=150.0)}}
+
+
+def moons_initial_state(truth=None):
+    """The moons' astrocentric state at the epoch in the sky frame (north, east, z):
+    (central mass and masses in nominal solar masses, positions au, velocities au/day,
+    the field array of :func:`massfit.nbody.integrate_system`)."""
+    truth = MOONS_TRUTH if truth is None else truth
+    central = truth["gm_km3_s2"] * 86400.0 ** 2 / AU_KM ** 3 / GM_SUN
+    radius = truth["radius_km"] / AU_KM
+    inc_eq, node_eq = np.radians(truth["equator_inclination_deg"]), np.radians(
+        truth["equator_node_deg"])
+    # Equator frame -> sky frame: the unit vectors along the equator's ascending node,
+    # a quarter-turn ahead of it in the equator (as dynamics.orbit_state's P and Q at
+    # omega = 0), and the pole.
+    x_eq = np.array([np.cos(node_eq), np.sin(node_eq), 0.0])
+    y_eq = np.array([-np.sin(node_eq) * np.cos(inc_eq), np.cos(node_eq) * np.cos(inc_eq),
+                     np.sin(inc_eq)])
+    pole = _normal(inc_eq, node_eq)
+    rotation = np.column_stack([x_eq, y_eq, pole])
+    masses, pos, vel = [], [], []
+    for el in truth["moons"].values():
+        mass = el["share"] * central
+        a = el["a"] * radius
+        n_motion = np.sqrt(GM_SUN * (central + mass) / a ** 3)
+        p, v = orbit_state(a, el["ecc"], *np.radians([el["inc"], el["omega"], el["node"],
+                                                       el["mean"]]), n_motion)
+        masses.append(mass)
+        pos.append(rotation @ np.array(p))
+        vel.append(rotation @ np.array(v))
+    field = np.array([truth["j2"] * radius ** 2, truth["j4"] * radius ** 4, *pole, 1.0])
+    return central, np.array(masses), np.array(pos), np.array(vel), field
+
+
+def simulate_perturbed_moons(path, *, seed=5, n_obs=60, span=360.0, err_km=150.0):
+    """Write astrometry of the invented moons of :data:`MOONS_TRUTH` (offsets in km
+    from the planet, east and north) as an ECSV table.
+
+    The orbits are integrated with J2, J4 and the mutual pulls by
+    :func:`massfit.nbody.integrate_system` at rtol 1e-13 (its agreement with REBOUND
+    and REBOUNDx is in ``tests/test_perturbed.py``).
+
+    Parameters
+    ----------
+    path : path
+        The ECSV file to write.
+    seed : int
+        Seed of the observing times and the noise.
+    n_obs : int
+        Epochs per moon, uniform over ``span`` days about the epoch.
+    span : float
+        Days.
+    err_km : float
+        1-sigma error of east and north, km.
+
+    Returns
+    -------
+    path
+    """
+    import astropy.units as u
+    from astropy.table import Table
+    from astropy.time import Time
+
+    from .nbody import integrate_system
+
+    rng = np.random.default_rng(seed)
+    central, masses, pos0, vel0, field = moons_initial_state()
+    names = list(MOONS_TRUTH["moons"])
+    times = [np.sort(rng.uniform(-span / 2, span / 2, n_obs)) for _ in names]
+    # The elements' epoch is the mid-time of all rows, as the model's is.
+    shift = np.mean(np.concatenate(times))
+    times = [t - shift for t in times]
+    all_t, where = np.unique(np.concatenate(times), return_inverse=True)
+    positions, _ = integrate_system(all_t, np.array([central]), masses[None], pos0[None],
+                                    vel0[None], rtol=1e-13, field=field[None])
+    east, north, start = [], [], 0
+    for k, t in enumerate(times):
+        km = positions[0, k, where[start:start + t.size]] * AU_KM
+        start += t.size
+        north.append(km[:, 0] + err_km * rng.standard_normal(t.size))
+        east.append(km[:, 1] + err_km * rng.standard_normal(t.size))
+    table = Table()
+    table["time"] = Time(2462400.0 + np.concatenate(times), format="jd", scale="tdb")
+    table["body"] = np.concatenate([[name] * t.size for name, t in zip(names, times)])
+    table["east"] = np.concatenate(east) * u.km
+    table["north"] = np.concatenate(north) * u.km
+    table["east_err"] = table["north_err"] = np.full(len(table), err_km) * u.km
+    table.meta["description"] = ("Invented moons of an invented oblate planet with J2, J4 "
+                                 "and mutual pulls (massfit validation)")
+    table.write(path, format="ascii.ecsv", overwrite=True)
+    return path
