@@ -7,7 +7,7 @@ walkers scattered about the truth is evaluated, in the same run, with
 
 * massfit's compiled integrator (numba, DOP853, rtol 1e-12, the default), on one
   thread and on every core;
-* REBOUND (IAS15, adaptive, epsilon 1e-9, its default) with REBOUNDx's
+* REBOUND (IAS15, adaptive, at its default precision) with REBOUNDx's
   ``gravitational_harmonics`` for J2 and J4, one simulation per walker (the same
   astrocentric initial state, moved to the barycentre, and rotated so that REBOUNDx's
   z axis is the pole);
@@ -81,7 +81,7 @@ def _truth_theta(model, central, orbits):
 
 
 def rebound_integrate(times, central_mass, masses, position0, velocity0, *, field=None,
-                      epsilon=1e-9, **_):
+                      **_):
     """:func:`massfit.nbody.integrate_system`'s job done by REBOUND (+ REBOUNDx)."""
     import rebound
     import reboundx
@@ -102,7 +102,6 @@ def rebound_integrate(times, central_mass, masses, position0, velocity0, *, fiel
             sim = rebound.Simulation()
             sim.G = GM_SUN
             sim.integrator = "ias15"
-            sim.ri_ias15.epsilon = epsilon
             sim.add(m=central_mass[w])
             for j in range(k):
                 p = rotation @ position0[w, j]
