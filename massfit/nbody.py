@@ -48,7 +48,7 @@ from .dynamics import orbit_state
 from .perturbed import DEFAULT_MASS_PRIOR, Perturbed
 
 __all__ = ["NBody", "integrate_system", "total_energy", "zonal_field", "zonal_potential",
-           "POINT_MASS_FIELD", "DEFAULT_MASS_PRIOR",
+           "POINT_MASS_FIELD", "DEFAULT_MASS_PRIOR", "write_offsets",
            "PAIR_TRUTH", "simulate_interacting_pair"]
 
 TWO_PI = 2.0 * np.pi
@@ -331,10 +331,6 @@ def simulate_interacting_pair(path, *, seed=11, n_obs=60, span=1000.0, err_au=2e
     -------
     path
     """
-    import astropy.units as u
-    from astropy.table import Table
-    from astropy.time import Time
-
     rng = np.random.default_rng(seed)
     bodies = PAIR_TRUTH["companions"]
     names = list(bodies)
@@ -352,19 +348,34 @@ def simulate_interacting_pair(path, *, seed=11, n_obs=60, span=1000.0, err_au=2e
     # Every companion's rows share the mid-time of all rows as the epoch of the elements.
     shift = np.mean(np.concatenate(times))
     times = [t - shift for t in times]
-    table = Table()
     east, north = [], []
     for k, t in enumerate(times):
         positions, _ = integrate_system(t, np.array([central]), masses, pos0, vel0,
                                         rtol=1e-12)
         north.append(positions[0, k, :, 0] + err_au * rng.standard_normal(t.size))
         east.append(positions[0, k, :, 1] + err_au * rng.standard_normal(t.size))
-    table["time"] = Time(2461500.0 + np.concatenate(times), format="jd", scale="tdb")
-    table["body"] = np.concatenate([[name] * t.size for name, t in zip(names, times)])
-    table["east"] = np.concatenate(east) * u.au
-    table["north"] = np.concatenate(north) * u.au
-    table["east_err"] = table["north_err"] = np.full(len(table), err_au) * u.au
-    table.meta["description"] = ("Invented interacting pair of companions, integrated "
-                                 "with DOP853 (massfit validation)")
+    return write_offsets(path, 2461500.0, names, times, east, north, err_au, "au",
+                         "Invented interacting pair of companions, integrated with "
+                         "DOP853 (massfit validation)")
+
+
+def write_offsets(path, t0_jd, names, times, east, north, err, unit, description):
+    """Write simulated offsets as an ECSV table (one list entry per body).
+
+    ``times`` are days from ``t0_jd`` (TDB); ``east``, ``north`` and the error ``err``
+    are in ``unit`` (``"au"``, ``"km"``). Returns ``path``.
+    """
+    import astropy.units as u
+    from astropy.table import Table
+    from astropy.time import Time
+
+    unit = u.Unit(unit)
+    table = Table()
+    table["time"] = Time(t0_jd + np.concatenate(times), format="jd", scale="tdb")
+    table["body"] = np.concatenate([[name] * len(t) for name, t in zip(names, times)])
+    table["east"] = np.concatenate(east) * unit
+    table["north"] = np.concatenate(north) * unit
+    table["east_err"] = table["north_err"] = np.full(len(table), err) * unit
+    table.meta["description"] = description
     table.write(path, format="ascii.ecsv", overwrite=True)
     return path

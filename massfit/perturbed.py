@@ -405,11 +405,7 @@ def simulate_perturbed_moons(path, *, seed=5, n_obs=60, span=360.0, err_km=150.0
     -------
     path
     """
-    import astropy.units as u
-    from astropy.table import Table
-    from astropy.time import Time
-
-    from .nbody import integrate_system
+    from .nbody import integrate_system, write_offsets
 
     rng = np.random.default_rng(seed)
     central, masses, pos0, vel0, field = moons_initial_state()
@@ -427,13 +423,6 @@ def simulate_perturbed_moons(path, *, seed=5, n_obs=60, span=360.0, err_km=150.0
         start += t.size
         north.append(km[:, 0] + err_km * rng.standard_normal(t.size))
         east.append(km[:, 1] + err_km * rng.standard_normal(t.size))
-    table = Table()
-    table["time"] = Time(2462400.0 + np.concatenate(times), format="jd", scale="tdb")
-    table["body"] = np.concatenate([[name] * t.size for name, t in zip(names, times)])
-    table["east"] = np.concatenate(east) * u.km
-    table["north"] = np.concatenate(north) * u.km
-    table["east_err"] = table["north_err"] = np.full(len(table), err_km) * u.km
-    table.meta["description"] = ("Invented moons of an invented oblate planet with J2, J4 "
-                                 "and mutual pulls (massfit validation)")
-    table.write(path, format="ascii.ecsv", overwrite=True)
-    return path
+    return write_offsets(path, 2462400.0, names, times, east, north, err_km, "km",
+                         "Invented moons of an invented oblate planet with J2, J4 and "
+                         "mutual pulls (massfit validation)")

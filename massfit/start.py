@@ -187,7 +187,7 @@ def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
 
 
 def _perturbed_start(model):
-    """Start a perturbed model (J2, N-body) from the two-body search, then polish.
+    """Start the secular J2 model from the two-body search, then polish.
 
     The periodograms, linear scans and alias choice work on Keplerian ellipses, so they
     run on the two-body model of the same data and companions. Its solution is mapped
@@ -198,10 +198,6 @@ def _perturbed_start(model):
     candidate until one fits acceptably (the poor-fit criterion of the summary). The
     two-body model's comparable modes are reported as found.
     """
-    from scipy.stats import chi2 as chi2_dist
-
-    from .run import POOR_FIT_P_VALUE
-
     _, found, values = two_body_start(model)
     best, best_chi2 = None, np.inf
     for candidate in model.dynamics.from_two_body(model, values):
@@ -217,9 +213,23 @@ def _perturbed_start(model):
         chi2 = _chi2(model, theta)
         if chi2 < best_chi2:
             best, best_chi2 = model.recentre(theta), chi2
-        dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
-        if dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE:
+        if _acceptable(model, theta, chi2):
             break  # good enough: the other candidates are for harder cases
+    return _perturbed_result(model, best, found)
+
+
+def _acceptable(model, theta, chi2):
+    """Whether a fit passes the summary's poor-fit criterion."""
+    from scipy.stats import chi2 as chi2_dist
+
+    from .run import POOR_FIT_P_VALUE
+
+    dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
+    return dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE
+
+
+def _perturbed_result(model, best, found, notes=()):
+    """The Start of a perturbed model from its best polish and the two-body search."""
     if best is None:
         raise ModelError(f"the {model.dynamics.label} model's least-squares fit failed "
                          f"from the two-body solution; check its settings (or fit the "
@@ -229,7 +239,7 @@ def _perturbed_start(model):
     per = {name: dict(sol, searched_with="keplerian")
            for name, sol in found.per_companion.items()}
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
-                 modes=modes, per_companion=per)
+                 modes=modes, per_companion=per, notes=list(notes))
 
 
 #: Candidates of an integrated model's start kept after the first stage's screening.
@@ -251,10 +261,6 @@ def _staged_start(model, progress=None):
     ``start_evaluations``; a pass that stops there is reported in ``notes``.
     """
     import sys
-
-    from scipy.stats import chi2 as chi2_dist
-
-    from .run import POOR_FIT_P_VALUE
 
     show = sys.stderr.isatty() if progress is None else bool(progress)
     dynamics = model.dynamics
@@ -284,19 +290,9 @@ def _staged_start(model, progress=None):
         chi2 = _chi2(model, theta)
         if chi2 < best_chi2:
             best, best_chi2, notes = theta, chi2, capped
-        dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
-        if dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE:
+        if _acceptable(model, theta, chi2):
             break
-    if best is None:
-        raise ModelError(f"the {dynamics.label} model's least-squares fit failed from the "
-                         f"two-body solution; check its settings (or fit the two-body "
-                         f"model first)")
-    theta = model.recentre(best)
-    modes = [dict(mode, searched_with="keplerian") for mode in found.modes]
-    per = {name: dict(sol, searched_with="keplerian")
-           for name, sol in found.per_companion.items()}
-    return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
-                 modes=modes, per_companion=per, notes=notes)
+    return _perturbed_result(model, best, found, notes)
 
 
 def _run_stages(models, values, limit, say, rank):
