@@ -323,13 +323,13 @@ def _run_stages(models, values, limit, say, rank):
 def _stage_windows(model, values):
     """Half-widths (days) of the stages' windows about the model's epoch, the last one
     covering all rows: from 1/16 of the span (at least two of the longest periods),
-    doubling."""
+    doubling; a window of more than 3/4 of the whole is left to the last stage."""
     t = np.concatenate([rows.t for rows in model._rows.values()])
     full = float(np.max(np.abs(t)))
     longest = max(values[name]["period"] for name in model.companions)
     half = max(full / 16.0, 2.0 * longest)
     out = []
-    while half < full:
+    while half < 0.75 * full:
         if all(np.sum(np.abs(rows.t) <= half) >= _STAGE_ROWS
                for rows in model._rows.values()):
             out.append(half)
