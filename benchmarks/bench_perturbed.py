@@ -187,28 +187,36 @@ def run(report):
             model.dynamics.rtol = REFERENCE_RTOL
             reference = model.log_prob(theta)
             model.dynamics.rtol = rtol
-            for name, kind, threads in (("massfit compiled, 1 thread", "compiled", 1),
-                                        (f"massfit compiled, {cores} threads", "compiled",
-                                         cores),
-                                        ("REBOUND IAS15 + REBOUNDx", "rebound", 1)):
+            variants = (("massfit compiled, rtol 1e-12, 1 thread", "compiled", 1, rtol),
+                        (f"massfit compiled, rtol 1e-12, {cores} threads", "compiled", cores,
+                         rtol),
+                        ("massfit compiled, rtol 1e-13, 1 thread", "compiled", 1, 1e-13),
+                        ("REBOUND IAS15 + REBOUNDx", "rebound", 1, rtol))
+            for name, kind, threads, tol in variants:
+                model.dynamics.rtol = tol
                 with _integrator(kind, threads):
                     cpu, wall, lp = _seconds(model, theta, 1 if kind == "rebound" else
                                              REPEATS)
                 rows.append({"data": label, "integrator": name,
                              "cpu_ms_per_call": 1e3 * cpu, "wall_ms_per_call": 1e3 * wall,
                              "max_dlogp": float(np.max(np.abs(lp - reference)))})
+            model.dynamics.rtol = rtol
     report.table(f"log-posterior of {WALKERS} walkers per call (CPU and wall time, best "
                  f"of {REPEATS}; REBOUND once)", rows,
                  ["data", "integrator", "cpu_ms_per_call", "wall_ms_per_call", "max_dlogp"])
-    for label in {r["data"] for r in rows}:
-        ours = next(r for r in rows if r["data"] == label and "1 thread" in r["integrator"])
+    for label in sorted({r["data"] for r in rows}):
         theirs = next(r for r in rows if r["data"] == label and "REBOUND" in r["integrator"])
+        ours = [r for r in rows if r["data"] == label and "1 thread" in r["integrator"]]
+        # The cheapest of our single-thread settings at least as accurate as REBOUND
+        # (or the most accurate one where none is).
+        fair = [r for r in ours if r["max_dlogp"] <= theirs["max_dlogp"]]
+        ours = (min(fair, key=lambda r: r["cpu_ms_per_call"]) if fair
+                else min(ours, key=lambda r: r["max_dlogp"]))
         ratio = theirs["cpu_ms_per_call"] / ours["cpu_ms_per_call"]
-        report.target(f"compiled integrator no slower than REBOUND at no worse accuracy "
-                      f"({label})",
-                      ratio >= 1 and ours["max_dlogp"] <= max(theirs["max_dlogp"], 0.01),
-                      f"REBOUND / compiled CPU time {ratio:.1f}x; dlogp "
-                      f"{ours['max_dlogp']:.2g} vs {theirs['max_dlogp']:.2g}")
+        report.target(f"compiled integrator faster than REBOUND at equal accuracy "
+                      f"({label})", ratio >= 1 and bool(fair),
+                      f"REBOUND / compiled ({ours['integrator']}) CPU time {ratio:.1f}x; "
+                      f"dlogp {ours['max_dlogp']:.2g} vs {theirs['max_dlogp']:.2g}")
     report.note(f"max_dlogp: the largest difference of each log-posterior from the "
                 f"compiled integrator's at rtol {REFERENCE_RTOL:g}, over walkers "
                 f"scattered by 1e-5 about the truth (integration error only). The "
