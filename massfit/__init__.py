@@ -15,7 +15,7 @@ from massfit.config.fit import load_config
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ConfigError, InputError, MassfitError, ModelError
 from massfit.model.orbit_model import CompanionSpec, SystemSpec
-from massfit.orbits.nbody import NBody
+from massfit.orbits.perturbed import NBody
 from massfit.orbits.oblate import Oblate
 from massfit.plan.planner import AssumedSystem, Schedule, forecast_precision, plan_observations
 from massfit.priors import Fixed, LogUniform, Normal, Uniform
@@ -26,11 +26,13 @@ from massfit.result.loading import load_result
 from massfit.sample.chain import SamplerSettings
 from massfit.version import __version__
 from massfit.orbits.viewing import ViewingSpec
+from massfit.orbits.perturbed import Perturbed
 
 
 __all__ = [
     "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",
-    "CompanionSpec", "Keplerian", "Oblate", "NBody", "SamplerSettings", "Uniform",
+    "CompanionSpec", "Keplerian", "Oblate", "NBody", "Perturbed", "SamplerSettings",
+    "Uniform",
     "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",
     "AssumedSystem", "Schedule", "forecast_precision", "plan_observations", "ViewingSpec",

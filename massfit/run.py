@@ -150,7 +150,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         start, initial = saved["start"], saved["initial"]
         resumed, started = started, saved["started_utc"]
     else:
-        start = find_start(model)
+        start = find_start(model, progress=settings.progress)
         rng = np.random.default_rng(settings.seed)
         initial = start.walkers(model, settings.n_walkers(model.n_dim), rng)
         if checkpoint is not None:
@@ -258,7 +258,7 @@ def _velocity_warnings(model):
 
 
 def _warnings(chain, start):
-    out = []
+    out = list(start.notes)
     if not chain.converged:
         out.append(f"not converged after {chain.steps} steps: the chain is "
                    f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "

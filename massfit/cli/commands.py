@@ -225,31 +225,44 @@ def _cmd_redraw(args):
 
 def _dynamics_options(parser):
     group = parser.add_argument_group("beyond two-body orbits (override the config)")
-    group.add_argument("--dynamics", choices=("keplerian", "oblate", "n-body"),
-                       help="how the companions move (default keplerian)")
-    group.add_argument("--j2", type=float, metavar="J2", help="oblate: the primary's J2")
+    group.add_argument("--dynamics", choices=("keplerian", "oblate", "perturbed", "n-body"),
+                       help="how the companions move (default keplerian; oblate: secular "
+                            "J2; perturbed: integrated J2, J4 and mutual pulls; n-body: "
+                            "mutual pulls only)")
+    group.add_argument("--j2", type=float, metavar="J2",
+                       help="oblate, perturbed: the primary's J2")
+    group.add_argument("--j4", type=float, metavar="J4", help="perturbed: the primary's J4")
     group.add_argument("--equatorial-radius", metavar="'VALUE UNIT'",
-                       help="oblate: the reference radius of J2, e.g. '58300 km'")
+                       help="oblate, perturbed: the reference radius of the harmonics, "
+                            "e.g. '58300 km'")
     group.add_argument("--equator-inclination", metavar="'VALUE UNIT'",
-                       help="oblate: the equator's inclination on the sky (with "
-                            "--equator-node; default: each orbit lies in the equator)")
+                       help="oblate, perturbed: the equator's inclination on the sky (with "
+                            "--equator-node; default: oblate, each orbit in the equator; "
+                            "perturbed, the mean orbit normal)")
     group.add_argument("--equator-node", metavar="'VALUE UNIT'",
-                       help="oblate: position angle of the equator's ascending node")
+                       help="oblate, perturbed: position angle of the equator's "
+                            "ascending node")
+    group.add_argument("--mutual-pulls", action=argparse.BooleanOptionalAction, default=None,
+                       help="perturbed: the companions pull on each other (default on)")
     group.add_argument("--rtol", type=float, metavar="TOL",
-                       help="n-body: relative tolerance of the integrator (default 1e-12)")
+                       help="perturbed, n-body: relative tolerance of the integrator "
+                            "(default 1e-12)")
+    group.add_argument("--start-evaluations", type=int, metavar="N",
+                       help="perturbed, n-body: cap on the evaluations of each "
+                            "least-squares pass of the start (default 300)")
     group.add_argument("--romer-delay", action="store_true",
                        help="delay each companion by the light time across the system")
 
 
-_DYNAMICS_OPTIONS = ("j2", "equatorial_radius", "equator_inclination", "equator_node",
-                     "rtol")
+_DYNAMICS_OPTIONS = ("j2", "j4", "equatorial_radius", "equator_inclination",
+                     "equator_node", "mutual_pulls", "rtol", "start_evaluations")
 
 
 def _apply_dynamics_options(args, system):
     """The config's dynamics, changed where the command line says so."""
     from dataclasses import replace
 
-    from massfit.orbits.dynamics import make_dynamics
+    from massfit.orbits.registry import make_dynamics
 
     given = {k: getattr(args, k, None) for k in _DYNAMICS_OPTIONS}
     given = {k: v for k, v in given.items() if v is not None}

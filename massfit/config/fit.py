@@ -37,12 +37,16 @@ Layout (every key optional except ``data.files``)::
     jitter_prior = {kind = "fixed", value = "0 m/s"}
 
     [dynamics]                        # how the companions move (default: keplerian)
-    model = "oblate"                  # "keplerian", "oblate" (J2) or "n-body"
-    j2 = 0.0231                       # oblate: the primary's J2 ...
+    model = "perturbed"               # "keplerian", "oblate" (secular J2), "perturbed"
+                                      #   (integrated J2, J4, pulls) or "n-body" (pulls)
+    j2 = 0.0162                       # oblate, perturbed: the primary's J2 ...
+    j4 = -0.0007                      # perturbed: ... and J4 ...
     equatorial_radius = "58300 km"    #   ... at this reference radius
-    equator_inclination = "84 deg"    #   optional, with equator_node: the equator on
-    equator_node = "27 deg"           #   the sky (default: each orbit in the equator)
-    rtol = 1e-12                      # n-body: the integrator's relative tolerance
+    equator_inclination = "81 deg"    #   optional, with equator_node: the equator on
+    equator_node = "33 deg"           #   the sky (default: from the orbits)
+    mutual_pulls = true               # perturbed: the companions pull on each other
+    rtol = 1e-12                      # perturbed, n-body: the integrator's tolerance
+    start_evaluations = 300           # perturbed, n-body: cap per least-squares pass
     compare_keplerian = true          # adequacy: also fit the two-body model
 
     [viewing]                         # a primary inside the solar system (moving line of sight)
@@ -96,8 +100,9 @@ _SCHEMA = {
     "companions": dict,
     "velocities": {"trend": str, "slope_prior": dict, "curvature_prior": dict,
                    "jitter_prior": dict, "instruments": dict},
-    "dynamics": {"model": str, "j2": float, "equatorial_radius": str,
+    "dynamics": {"model": str, "j2": float, "j4": float, "equatorial_radius": str,
                  "equator_inclination": str, "equator_node": str, "rtol": float,
+                 "mutual_pulls": bool, "start_evaluations": int,
                  "compare_keplerian": bool},
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
@@ -295,7 +300,7 @@ def _jitter_prior(spec, key, file):
         raise ConfigError("a jitter cannot be negative", key=key, file=file)
     return prior
 def _dynamics(spec, table, file):
-    from massfit.orbits.dynamics import make_dynamics
+    from massfit.orbits.registry import make_dynamics
 
     options = {k: v for k, v in table.items() if k not in ("model", "compare_keplerian")}
     spec.dynamics = make_dynamics(table.get("model", "keplerian"), file=file, **options)

@@ -182,7 +182,7 @@ class SystemSpec:
     dynamics : object or None
         How the companions move: None or :class:`massfit.orbits.dynamics.Keplerian` for
         two-body orbits, :class:`massfit.orbits.oblate.Oblate` for a J2 primary,
-        :class:`massfit.orbits.nbody.NBody` for companions that perturb each other.
+        :class:`massfit.orbits.perturbed.NBody` for companions that perturb each other.
     viewing : massfit.orbits.viewing.ViewingSpec or None
         The line of sight to a primary inside the solar system: an ephemeris body
         (resolved into per-row columns by :func:`massfit.orbits.viewing.with_ephemeris`),

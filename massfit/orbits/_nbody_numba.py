@@ -1,5 +1,9 @@
 """Compiled N-body integrator (numba); imported by :mod:`massfit.orbits.nbody` only when numba is.
 
+The forces: the primary's point mass and zonal harmonics J2, J4 about its pole, and
+the companions' mutual pulls (with the indirect term), as ``field`` says per walker
+(see :func:`massfit.orbits.nbody.integrate_system`). Walkers are shared among numba's threads.
+
 The same method as the numpy path: DOP853 (Dormand and Prince's 8(5,3) Runge-Kutta
 pair, with scipy's coefficients and its step-size control), but each walker is
 integrated on its own with its own step size, in compiled loops. The stacked numpy
@@ -34,8 +38,51 @@ _jit = dict(cache=True, error_model="numpy", fastmath=False)
 
 
 @numba.njit(**_jit)
-def _derivative(y, gm_central, gm_bodies, out):  # pragma: no cover - compiled
-    """d/dt of the astrocentric state y (K*6: x, y, z, vx, vy, vz per companion)."""
+def _central_field(x, y, z, field):  # pragma: no cover - compiled
+    """Acceleration per unit GM of the primary at (x, y, z), as a tuple.
+
+    ``field`` is (J2 R^2, J4 R^4, pole_x, pole_y, pole_z, mutual pulls on/off): the
+    point mass plus the zonal harmonics J2 and J4 about the pole (the gradient of
+    the zonal potential; see :mod:`massfit.orbits.perturbed`). Further terms of the primary's
+    own field (relativity, say) belong here, so that the direct and the indirect
+    terms of the equations of motion both get them.
+    """
+    r2 = x * x + y * y + z * z
+    r = math.sqrt(r2)
+    inv_r3 = 1.0 / (r2 * r)
+    ax = -x * inv_r3
+    ay = -y * inv_r3
+    az = -z * inv_r3
+    c2 = field[0]
+    c4 = field[1]
+    if c2 != 0.0 or c4 != 0.0:
+        s = x * field[2] + y * field[3] + z * field[4]  # along the pole
+        u2 = s * s / r2
+        inv_r5 = inv_r3 / r2
+        inv_r7 = inv_r5 / r2
+        radial = -1.5 * c2 * inv_r5 * (1.0 - 5.0 * u2) \
+            + c4 * inv_r7 * 1.875 * (1.0 - 14.0 * u2 + 21.0 * u2 * u2)
+        polar = s * (-3.0 * c2 * inv_r5 + c4 * inv_r7 * 2.5 * (3.0 - 7.0 * u2))
+        ax += radial * x + polar * field[2]
+        ay += radial * y + polar * field[3]
+        az += radial * z + polar * field[4]
+    return ax, ay, az
+
+
+@numba.njit(**_jit)
+def _derivative(y, gm_central, gm_bodies, field, out):  # pragma: no cover - compiled
+    """d/dt of the astrocentric state y (K*6: x, y, z, vx, vy, vz per companion),
+    in the primary's field with the companions' pulls as ``field`` says."""
+    if field[0] == 0.0 and field[1] == 0.0 and field[5] != 0.0:
+        _derivative_point(y, gm_central, gm_bodies, out)
+    else:
+        _derivative_zonal(y, gm_central, gm_bodies, field, out)
+
+
+@numba.njit(**_jit)
+def _derivative_point(y, gm_central, gm_bodies, out):  # pragma: no cover - compiled
+    """A point-mass primary with pulls: the general form below without the zonal
+    terms, written out because it runs 1.5 times faster (measured)."""
     k_bodies = gm_bodies.shape[0]
     for k in range(k_bodies):
         base = 6 * k
@@ -70,6 +117,44 @@ def _derivative(y, gm_central, gm_bodies, out):  # pragma: no cover - compiled
 
 
 @numba.njit(**_jit)
+def _derivative_zonal(y, gm_central, gm_bodies, field, out):  # pragma: no cover - compiled
+    """The general form: the primary's zonal field, pulls on or off. The field at
+    each other companion is evaluated again for each k (K is small)."""
+    k_bodies = gm_bodies.shape[0]
+    pulls = field[5] != 0.0
+    for k in range(k_bodies):
+        base = 6 * k
+        x, yy, z = y[base], y[base + 1], y[base + 2]
+        gk = gm_central + gm_bodies[k]
+        gx, gy, gz = _central_field(x, yy, z, field)
+        ax = gk * gx
+        ay = gk * gy
+        az = gk * gz
+        if pulls:
+            for j in range(k_bodies):
+                if j == k:
+                    continue
+                other = 6 * j
+                xj, yj, zj = y[other], y[other + 1], y[other + 2]
+                dx, dy, dz = xj - x, yj - yy, zj - z
+                d2 = dx * dx + dy * dy + dz * dz
+                inv_d3 = 1.0 / (d2 * math.sqrt(d2))
+                # Direct pull of j, plus the primary's own acceleration towards j
+                # (the field per unit GM of the primary, which points at it).
+                hx, hy, hz = _central_field(xj, yj, zj, field)
+                gj = gm_bodies[j]
+                ax += gj * (dx * inv_d3 + hx)
+                ay += gj * (dy * inv_d3 + hy)
+                az += gj * (dz * inv_d3 + hz)
+        out[base] = y[base + 3]
+        out[base + 1] = y[base + 4]
+        out[base + 2] = y[base + 5]
+        out[base + 3] = ax
+        out[base + 4] = ay
+        out[base + 5] = az
+
+
+@numba.njit(**_jit)
 def _error_norm(stages, h, scale):  # pragma: no cover - compiled
     """scipy's DOP853 error norm: the 5th-order estimate, damped by the 3rd."""
     n = scale.shape[0]
@@ -91,7 +176,7 @@ def _error_norm(stages, h, scale):  # pragma: no cover - compiled
 
 
 @numba.njit(**_jit)
-def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
+def _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, atol,
                   work, f1):  # pragma: no cover - compiled
     """scipy's empirical first step (Hairer, Norsett and Wanner, sec. II.4)."""
     n = y.shape[0]
@@ -107,7 +192,7 @@ def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
     h0 = min(h0, span)
     for i in range(n):
         work[i] = y[i] + h0 * direction * f[i]
-    _derivative(work, gm_central, gm_bodies, f1)
+    _derivative(work, gm_central, gm_bodies, field, f1)
     d2 = 0.0
     for i in range(n):
         sc = atol[i] + abs(y[i]) * rtol
@@ -121,7 +206,7 @@ def _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
 
 
 @numba.njit(**_jit)
-def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # pragma: no cover
+def _integrate_one(y0, gm_central, gm_bodies, field, targets, rtol, atol, out):  # pragma: no cover
     """Integrate one system from t = 0 to each of ``targets`` (same sign, sorted by |t|).
 
     Writes the state at each target into the rows of ``out``; returns False where
@@ -137,10 +222,10 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
     f = np.empty(n)
     stages = np.empty((N_STAGES + 1, n))
     scale = np.empty(n)
-    _derivative(y, gm_central, gm_bodies, f)
+    _derivative(y, gm_central, gm_bodies, field, f)
     t = 0.0
     span = abs(targets[targets.shape[0] - 1])
-    h_abs = _initial_step(y, f, gm_central, gm_bodies, direction, span, rtol, atol,
+    h_abs = _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, atol,
                           work, y_new)
     steps = 0
     for j in range(targets.shape[0]):
@@ -165,13 +250,13 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
                         for r in range(s):
                             acc += A[s, r] * stages[r, i]
                         work[i] = y[i] + h * acc
-                    _derivative(work, gm_central, gm_bodies, stages[s])
+                    _derivative(work, gm_central, gm_bodies, field, stages[s])
                 for i in range(n):
                     acc = 0.0
                     for r in range(N_STAGES):
                         acc += B[r] * stages[r, i]
                     y_new[i] = y[i] + h * acc
-                _derivative(y_new, gm_central, gm_bodies, stages[N_STAGES])
+                _derivative(y_new, gm_central, gm_bodies, field, stages[N_STAGES])
                 finite = True
                 for i in range(n):
                     scale[i] = atol[i] + max(abs(y[i]), abs(y_new[i])) * rtol
@@ -200,19 +285,20 @@ def _integrate_one(y0, gm_central, gm_bodies, targets, rtol, atol, out):  # prag
     return True
 
 
-@numba.njit(**_jit)
-def integrate(y0, gm_central, gm_bodies, forward, backward, rtol, atol,
+@numba.njit(parallel=True, **_jit)
+def integrate(y0, gm_central, gm_bodies, field, forward, backward, rtol, atol,
               out):  # pragma: no cover - compiled
     """Every walker w: y0[w] (K*6) integrated to the times ``forward`` (ascending,
     >= 0) and ``backward`` (descending, < 0); out[w] is (len(forward) +
-    len(backward), K*6), forward rows first. Failed walkers are left NaN."""
+    len(backward), K*6), forward rows first. Failed walkers are left NaN. The
+    walkers are shared among numba's threads (each is independent of the others)."""
     n_walkers = y0.shape[0]
     n_fwd = forward.shape[0]
-    for w in range(n_walkers):
-        ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], forward, rtol, atol[w],
-                            out[w, :n_fwd])
+    for w in numba.prange(n_walkers):
+        ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], field[w], forward, rtol,
+                            atol[w], out[w, :n_fwd])
         if ok:
-            ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], backward, rtol,
-                                atol[w], out[w, n_fwd:])
+            ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], field[w], backward,
+                                rtol, atol[w], out[w, n_fwd:])
         if not ok:
             out[w, :, :] = np.nan

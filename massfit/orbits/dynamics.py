@@ -8,8 +8,9 @@
   primary (and optionally their velocities) at every row's time.
 
 :class:`Keplerian` is the default (two-body relative orbits). The perturbed models live
-in :mod:`massfit.orbits.oblate` (a J2 primary) and :mod:`massfit.orbits.nbody` (companions that
-pull on each other). :func:`observed_offsets` adds the light time across the system
+in :mod:`massfit.orbits.oblate` (secular J2, cheap) and :mod:`massfit.orbits.perturbed` (an
+integrated orbit with any of J2, J4 and the companions' pulls on each other;
+:mod:`massfit.orbits.nbody` holds its integrator and the pulls-only alias). :func:`observed_offsets` adds the light time across the system
 (the Romer delay along z) on top of whichever model is in use.
 
 Positions are in au as ``(north, east, z)`` triples of arrays shaped
@@ -25,8 +26,7 @@ from massfit.orbits import kepler
 from massfit.orbits import viewing
 from massfit.constants import C_AU_PER_DAY
 
-__all__ = ["Keplerian", "orbit_state", "orbit_axes", "observed_offsets", "romer_factor", "make_dynamics",
-           "MODEL_OPTIONS"]
+__all__ = ["Keplerian", "orbit_state", "orbit_axes", "observed_offsets", "romer_factor"]
 
 TWO_PI = 2.0 * np.pi
 
@@ -240,69 +240,3 @@ def _seen(position, velocity, factor, sight):
     if sight is None:
         return position[1], position[0]
     return viewing.project(sight, position)
-
-
-#: The names ``[dynamics] model`` accepts, and the settings each one takes.
-MODEL_OPTIONS = {
-    "keplerian": (),
-    "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
-    "n-body": ("rtol",),
-}
-
-
-def make_dynamics(model="keplerian", *, key_prefix="dynamics.", file=None, **options):
-    """The dynamics object for a config's ``[dynamics]`` table or the CLI options.
-
-    Parameters
-    ----------
-    model : str
-        One of :data:`MODEL_OPTIONS`.
-    key_prefix : str
-        Prefix of the names in error messages (``"dynamics."`` or ``"--"``).
-    file : str, optional
-        The config file, for error messages.
-    **options
-        The model's settings (None values are ignored).
-
-    Returns
-    -------
-    Keplerian or a subclass
-    """
-    from massfit.errors import ConfigError
-
-    options = {k: v for k, v in options.items() if v is not None}
-    if model not in MODEL_OPTIONS:
-        raise ConfigError(f"unknown dynamics model '{model}'; accepted: "
-                          f"{', '.join(MODEL_OPTIONS)}", key=f"{key_prefix}model", file=file)
-    for key in options:
-        if key not in MODEL_OPTIONS[model]:
-            allowed = ", ".join(MODEL_OPTIONS[model]) or "no settings"
-            raise ConfigError(f"this does not apply to the {model} model (it takes "
-                              f"{allowed})", key=_renamed(key, key_prefix), file=file)
-    if model == "keplerian":
-        return Keplerian()
-    if model == "oblate":
-        from massfit.orbits.oblate import Oblate
-
-        for key in ("j2", "equatorial_radius"):
-            if key not in options:
-                raise ConfigError("the oblate model needs J2 and the equatorial radius",
-                                  key=_renamed(key, key_prefix), file=file)
-        try:
-            return Oblate(options["j2"], options["equatorial_radius"],
-                          options.get("equator_inclination"), options.get("equator_node"))
-        except ConfigError as exc:
-            raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix),
-                              file=file) from None
-    from massfit.orbits.nbody import NBody
-
-    try:
-        return NBody(**options)
-    except ConfigError as exc:
-        raise ConfigError(exc.reason, key=_renamed(exc.key, key_prefix), file=file) from None
-
-
-def _renamed(key, prefix):
-    """A ``dynamics.x_y`` key as the caller names it (``--x-y`` on the command line)."""
-    name = key.split(".", 1)[-1] if key else ""
-    return prefix + (name.replace("_", "-") if prefix == "--" else name)

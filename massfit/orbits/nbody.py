@@ -41,16 +41,13 @@ unless stated).
 
 from __future__ import annotations
 
-from dataclasses import replace
-
 import numpy as np
 
 from massfit.constants import GM_SUN
-from massfit.orbits.dynamics import Keplerian, orbit_state
-from massfit.errors import ConfigError
-from massfit.priors import Fixed, LogUniform
+from massfit.orbits.dynamics import orbit_state
 
-__all__ = ["NBody", "integrate_system", "total_energy", "DEFAULT_MASS_PRIOR",
+__all__ = ["integrate_system", "total_energy", "zonal_field", "zonal_potential",
+           "POINT_MASS_FIELD", "write_offsets",
            "PAIR_TRUTH", "simulate_interacting_pair"]
 
 TWO_PI = 2.0 * np.pi
@@ -62,14 +59,57 @@ except ImportError:  # pragma: no cover - exercised where numba is absent
 
 #: True where the compiled integrator is available.
 HAVE_NUMBA = _fast is not None
-#: Prior for companion masses the user left unstated (nominal solar masses).
-DEFAULT_MASS_PRIOR = LogUniform(1e-12, 10.0)
 
 
-def _accelerations(pos, gm_central, gm_bodies):
-    """Astrocentric accelerations; pos (n, K, 3), gm_central (n,), gm_bodies (n, K)."""
-    r3 = np.sum(pos * pos, axis=-1) ** 1.5  # (n, K)
-    direct = -(gm_central[:, None] + gm_bodies)[..., None] * pos / r3[..., None]
+def zonal_field(pos, pole, c2=0.0, c4=0.0):
+    """Acceleration per unit GM of a primary with zonal harmonics, at ``pos``.
+
+    The gradient of the potential per unit GM
+
+        V = -1/r + c2 P2(u) / r^3 + c4 P4(u) / r^5,     u = (r . k) / r,
+
+    with c2 = J2 R^2, c4 = J4 R^4, k the pole and P2, P4 the Legendre polynomials
+    (the zonal expansion of an axisymmetric body; e.g. Murray & Dermott, *Solar
+    System Dynamics*, ch. 4.5, from memory): a = -grad V =
+
+        -r/r^3 - (3/2) c2 / r^5 [(1 - 5u^2) r + 2 (r . k) k]
+               + c4 / r^7 [(15/8)(1 - 14u^2 + 21u^4) r + (5/2)(3 - 7u^2) (r . k) k].
+
+    ``pos`` is (..., 3), ``pole`` broadcasts against it, c2 and c4 against
+    ``pos[..., 0]``. The compiled kernel writes the same sums out term by term
+    (:func:`massfit.orbits._nbody_numba._central_field`).
+    """
+    c2 = np.asarray(c2, dtype=float)[..., None]
+    c4 = np.asarray(c4, dtype=float)[..., None]
+    r2 = np.sum(pos * pos, axis=-1, keepdims=True)
+    r = np.sqrt(r2)
+    s = np.sum(pos * pole, axis=-1, keepdims=True)
+    u2 = s * s / r2
+    radial = (-1.5 * c2 * (1.0 - 5.0 * u2) / r ** 5
+              + 1.875 * c4 * (1.0 - 14.0 * u2 + 21.0 * u2 * u2) / r ** 7)
+    polar = s * (-3.0 * c2 / r ** 5 + 2.5 * c4 * (3.0 - 7.0 * u2) / r ** 7)
+    return -pos / (r2 * r) + radial * pos + polar * pole
+
+
+def zonal_potential(pos, pole, c2=0.0, c4=0.0):
+    """The potential per unit GM whose gradient :func:`zonal_field` is (for checks)."""
+    r = np.linalg.norm(pos, axis=-1)
+    u = np.sum(pos * pole, axis=-1) / r
+    p2 = 0.5 * (3.0 * u * u - 1.0)
+    p4 = (35.0 * u ** 4 - 30.0 * u * u + 3.0) / 8.0
+    return -1.0 / r + np.asarray(c2) * p2 / r ** 3 + np.asarray(c4) * p4 / r ** 5
+
+
+#: The field of a point-mass primary with mutual pulls on: (J2 R^2, J4 R^4, pole, pulls).
+POINT_MASS_FIELD = np.array([0.0, 0.0, 0.0, 0.0, 1.0, 1.0])
+
+
+def _accelerations(pos, gm_central, gm_bodies, field):
+    """Astrocentric accelerations; pos (n, K, 3), gm_central (n,), gm_bodies (n, K),
+    field (n, 6) as in :data:`POINT_MASS_FIELD`."""
+    pole = field[:, None, 2:5]
+    g = zonal_field(pos, pole, field[:, 0:1], field[:, 1:2])  # (n, K, 3) per unit GM
+    direct = (gm_central[:, None] + gm_bodies)[..., None] * g
     if pos.shape[1] == 1:
         return direct
     sep = pos[:, None, :, :] - pos[:, :, None, :]  # [w, k, j] = r_j - r_k
@@ -78,14 +118,15 @@ def _accelerations(pos, gm_central, gm_bodies):
     d3[:, np.arange(k), np.arange(k)] = np.inf  # no self-pull
     pull = np.sum(gm_bodies[:, None, :, None] * sep / d3[..., None], axis=2)
     # The primary's own acceleration towards every other companion (j != k; the
-    # j = k share is already in the direct term's m_k).
-    own = gm_bodies[..., None] * pos / r3[..., None]
+    # j = k share is already in the direct term's m_k): + G m_j g(r_j).
+    own = gm_bodies[..., None] * g
     indirect = np.sum(own, axis=1, keepdims=True) - own
-    return direct + pull - indirect
+    pulls = field[:, 5, None, None]
+    return direct + pulls * (pull + indirect)
 
 
 def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=1e-12,
-                     compiled=None):
+                     compiled=None, field=None):
     """Integrate primary plus companions from an astrocentric state at time 0.
 
     Parameters
@@ -104,6 +145,10 @@ def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=
         Use the compiled integrator (numba; each walker with its own steps) or the
         numpy one (scipy's solve_ivp on the stacked walkers). Default: compiled
         where numba is installed.
+    field : ndarray, shape (n, 6), optional
+        The primary's field and the pulls, per system: (J2 R^2 in au^2, J4 R^4 in
+        au^4, the pole's unit vector, 1 for mutual pulls or 0 without);
+        default :data:`POINT_MASS_FIELD` (a point mass, pulls on).
 
     Returns
     -------
@@ -114,16 +159,19 @@ def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=
     n, k = masses.shape
     gm_central = GM_SUN * np.asarray(central_mass, dtype=float)
     gm_bodies = GM_SUN * np.asarray(masses, dtype=float)
+    field = np.ascontiguousarray(np.broadcast_to(
+        POINT_MASS_FIELD if field is None else np.asarray(field, dtype=float), (n, 6)))
     use_compiled = _fast is not None if compiled is None else bool(compiled)
     if use_compiled:
         if _fast is None:
             raise RuntimeError("the compiled integrator needs numba, which is not installed")
         return _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0,
-                                   rtol)
-    return _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol)
+                                   rtol, field)
+    return _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol,
+                              field)
 
 
-def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol):
+def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol, field):
     n, k = gm_bodies.shape
     y0 = np.ascontiguousarray(np.concatenate([position0, velocity0], axis=-1).reshape(n, -1),
                               dtype=float)
@@ -140,7 +188,7 @@ def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol
     raw = np.empty((n, times.size, 6 * k))
     with np.errstate(all="ignore"):
         _fast.integrate(y0, np.ascontiguousarray(gm_central),
-                        np.ascontiguousarray(gm_bodies), times[forward].copy(),
+                        np.ascontiguousarray(gm_bodies), field, times[forward].copy(),
                         times[backward].copy(), float(rtol),
                         np.ascontiguousarray(atol.reshape(n, -1)), raw)
     out = np.empty_like(raw)
@@ -149,7 +197,7 @@ def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol
     return out[..., :3], out[..., 3:]
 
 
-def _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol):
+def _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol, field):
     from scipy.integrate import solve_ivp
 
     n, k = gm_bodies.shape
@@ -162,7 +210,7 @@ def _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol)
 
     def rhs(_, y):
         state = y.reshape(n, k, 6)
-        acc = _accelerations(state[..., :3], gm_central, gm_bodies)
+        acc = _accelerations(state[..., :3], gm_central, gm_bodies, field)
         return np.concatenate([state[..., 3:], acc], axis=-1).reshape(-1)
 
     out = np.full((n, k, times.size, 6), np.nan)
@@ -186,12 +234,15 @@ def _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol)
     return out[..., :3], out[..., 3:]
 
 
-def total_energy(central_mass, masses, positions, velocities):
+def total_energy(central_mass, masses, positions, velocities, field=None):
     """Total energy in the barycentric frame, M_sun au^2 / day^2 (for checks).
 
     ``positions`` and ``velocities`` are astrocentric, shape (..., K, 3) with
-    ``masses`` (..., K) and ``central_mass`` (...).
+    ``masses`` (..., K) and ``central_mass`` (...); ``field`` (6,) as in
+    :func:`integrate_system` adds the zonal potential of the primary (the pole held
+    fixed, so the energy is still conserved).
     """
+    field = POINT_MASS_FIELD if field is None else np.asarray(field, dtype=float)
     central_mass = np.asarray(central_mass, dtype=float)
     total = central_mass + np.sum(masses, axis=-1)
     weights = masses[..., None] / total[..., None, None]
@@ -200,8 +251,8 @@ def total_energy(central_mass, masses, positions, velocities):
     v_bodies = velocities - centre_v[..., None, :]
     kinetic = 0.5 * central_mass * np.sum(v_primary ** 2, axis=-1) + 0.5 * np.sum(
         masses * np.sum(v_bodies ** 2, axis=-1), axis=-1)
-    potential = -GM_SUN * central_mass * np.sum(masses / np.linalg.norm(positions, axis=-1),
-                                               axis=-1)
+    unit = zonal_potential(positions, field[2:5], field[0], field[1])
+    potential = GM_SUN * central_mass * np.sum(masses * unit, axis=-1)
     k = masses.shape[-1]
     for i in range(k):
         for j in range(i + 1, k):
@@ -210,143 +261,6 @@ def total_energy(central_mass, masses, positions, velocities):
     return kinetic + potential
 
 
-class NBody(Keplerian):
-    """Companions that perturb each other (and the primary), integrated directly.
-
-    Parameters
-    ----------
-    rtol : float
-        Relative tolerance of the integrator (DOP853), from 1e-14 to 1e-6.
-    mass_prior : Prior, optional
-        Prior for the masses of companions whose mass is left unstated;
-        :data:`DEFAULT_MASS_PRIOR` by default. A companion with a stated mass or mass
-        prior keeps it.
-    compiled : bool, optional
-        Which integrator :func:`integrate_system` uses (None: the compiled one where
-        numba is installed); for checks and benchmarks, not a config setting.
-
-    Notes
-    -----
-    Each log-posterior call integrates every walker over the whole time span: the cost
-    grows with the number of orbits of the fastest companion in the data span (the
-    step follows it) and with the number of walkers.
-    """
-
-    label = "n-body"
-
-    def __init__(self, rtol=1e-12, mass_prior=None, compiled=None):
-        if isinstance(rtol, bool) or not isinstance(rtol, (int, float)) \
-                or not 1e-14 <= rtol <= 1e-6:
-            raise ConfigError(f"the integrator's relative tolerance must be a number "
-                              f"from 1e-14 to 1e-6, got {rtol!r}", key="dynamics.rtol")
-        self.rtol = float(rtol)
-        self.mass_prior = mass_prior if mass_prior is not None else DEFAULT_MASS_PRIOR
-        self.settings = {"rtol": rtol}
-        self.compiled = compiled
-
-    def describe(self) -> dict:
-        return {"model": self.label, "rtol": self.rtol,
-                "coordinates": "astrocentric osculating elements at the model epoch"}
-
-    def prepare(self, model) -> None:
-        """Give companions with an unstated (zero, fixed) mass the mass prior."""
-        for name, comp in model.companions.items():
-            if isinstance(comp.mass, Fixed) and comp.mass.value == 0.0:
-                model.companions[name] = replace(comp, mass=self.mass_prior)
-
-    #: Companion masses tried at the start, as shares of the system's mass (lightest
-    #: first: weak pulls keep the two-body solution near the N-body one).
-    START_SHARES = (1e-4, 1e-3, 1e-2)
-
-    def node_widths(self, model, widths) -> dict:
-        """The full circle for every companion's node but the first.
-
-        On the sky alone, (omega, node) and (omega + pi, node + pi) look the same:
-        the orbit mirrored through the sky plane. Mirroring *every* orbit leaves the
-        mutual pulls as they were, so the first companion keeps its half window; but
-        mirroring one orbit and not another changes the mutual inclination, which
-        the N-body model sees.
-        """
-        names = list(widths)
-        return {name: widths[name] if k == 0 else TWO_PI for k, name in enumerate(names)}
-
-    def from_two_body(self, model, values) -> list:
-        """Starting values: both relative mirror images, several companion masses.
-
-        A two-body fit of astrometry alone fixes only M1 + m_k for each orbit, so its
-        companion masses say nothing, and it cannot tell an orbit from its mirror
-        image through the sky plane (see :meth:`node_widths`). Each candidate keeps
-        the mean M1 + m_k and puts every companion whose mass is sampled at 1e-4, 1e-3
-        or 1e-2 of it (inside its prior), with each companion after the first as
-        fitted or mirrored; the two-body solution as it came is tried last.
-        """
-        import itertools
-
-        names = list(model.companions)
-        total = float(np.mean([values["central_mass"] + values[name].get("mass", 0.0)
-                               for name in names]))
-        out = []
-        for share in self.START_SHARES:
-            for flips in itertools.product((False, True), repeat=len(names) - 1):
-                candidate = dict(values)
-                masses = {}
-                for name, flip in zip(names, (False,) + flips):
-                    prior = model.companions[name].mass
-                    masses[name] = (prior.value if prior.is_fixed else
-                                    float(np.clip(share * total, prior.low * 1.001,
-                                                  prior.high * 0.999)))
-                    orbit = dict(values[name], mass=masses[name])
-                    if flip:
-                        orbit["omega"] += np.pi
-                        orbit["node"] += np.pi
-                    candidate[name] = orbit
-                candidate["central_mass"] = total - float(np.mean(list(masses.values())))
-                out.append(candidate)
-        return out + [values]
-
-    def states(self, model, phys, *, want_velocity=False) -> dict:
-        names = list(model._rows)
-        central = phys["central_mass"]
-        orbits = [phys["companions"][name] for name in names]
-        masses = np.column_stack([o["mass"] for o in orbits])
-        pos0 = np.empty(masses.shape + (3,))
-        vel0 = np.empty_like(pos0)
-        for k, (name, orbit) in enumerate(zip(names, orbits)):
-            n_motion = TWO_PI / orbit["period"]
-            # Osculating mean anomaly at the common epoch (time 0).
-            mean0 = orbit["mean_anomaly_ref"] - n_motion * model.reference_epoch(name)
-            with np.errstate(invalid="ignore"):
-                position, velocity = orbit_state(orbit["semi_major_axis"], orbit["ecc"],
-                                                 orbit["inc"], orbit["omega"],
-                                                 orbit["node"], mean0, n_motion)
-            pos0[:, k] = np.column_stack(position)
-            vel0[:, k] = np.column_stack(velocity)
-        all_t = np.concatenate([model._rows[name].t for name in names])
-        unique_t, where = np.unique(all_t, return_inverse=True)
-        out = {}
-        bad = ~np.all(np.isfinite(pos0) & np.isfinite(vel0), axis=(1, 2))
-        positions = np.full(masses.shape + (unique_t.size, 3), np.nan)
-        velocities = np.full_like(positions, np.nan)
-        good = np.flatnonzero(~bad)
-        if good.size:
-            positions[good], velocities[good] = integrate_system(
-                unique_t, central[good], masses[good], pos0[good], vel0[good],
-                rtol=self.rtol, compiled=self.compiled)
-        start = 0
-        for k, name in enumerate(names):
-            rows = where[start:start + model._rows[name].t.size]
-            start += rows.size
-            pos = positions[:, k][:, rows]
-            vel = velocities[:, k][:, rows]
-            out[name] = ((pos[..., 0], pos[..., 1], pos[..., 2]),
-                         (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
-        return out
-
-
-#: The invented interacting pair *Tessaly*: a 1.0 M_sun star with two companions of
-#: 0.003 and 0.006 M_sun (about 3 and 6 Jupiter masses) near a 5:2 period ratio
-#: (astrocentric osculating elements at the data's mid-time; angles in degrees, mean
-#: anomaly in radians).
 PAIR_TRUTH = {"central_mass": 1.0, "companions": {
     "Arvel": dict(mass=0.003, period=100.0, ecc=0.08, inc=62.0, omega=40.0, node=110.0,
                   mean0=0.5),
@@ -375,10 +289,6 @@ def simulate_interacting_pair(path, *, seed=11, n_obs=60, span=1000.0, err_au=2e
     -------
     path
     """
-    import astropy.units as u
-    from astropy.table import Table
-    from astropy.time import Time
-
     rng = np.random.default_rng(seed)
     bodies = PAIR_TRUTH["companions"]
     names = list(bodies)
@@ -396,19 +306,34 @@ def simulate_interacting_pair(path, *, seed=11, n_obs=60, span=1000.0, err_au=2e
     # Every companion's rows share the mid-time of all rows as the epoch of the elements.
     shift = np.mean(np.concatenate(times))
     times = [t - shift for t in times]
-    table = Table()
     east, north = [], []
     for k, t in enumerate(times):
         positions, _ = integrate_system(t, np.array([central]), masses, pos0, vel0,
                                         rtol=1e-12)
         north.append(positions[0, k, :, 0] + err_au * rng.standard_normal(t.size))
         east.append(positions[0, k, :, 1] + err_au * rng.standard_normal(t.size))
-    table["time"] = Time(2461500.0 + np.concatenate(times), format="jd", scale="tdb")
-    table["body"] = np.concatenate([[name] * t.size for name, t in zip(names, times)])
-    table["east"] = np.concatenate(east) * u.au
-    table["north"] = np.concatenate(north) * u.au
-    table["east_err"] = table["north_err"] = np.full(len(table), err_au) * u.au
-    table.meta["description"] = ("Invented interacting pair of companions, integrated "
-                                 "with DOP853 (massfit validation)")
+    return write_offsets(path, 2461500.0, names, times, east, north, err_au, "au",
+                         "Invented interacting pair of companions, integrated with "
+                         "DOP853 (massfit validation)")
+
+
+def write_offsets(path, t0_jd, names, times, east, north, err, unit, description):
+    """Write simulated offsets as an ECSV table (one list entry per body).
+
+    ``times`` are days from ``t0_jd`` (TDB); ``east``, ``north`` and the error ``err``
+    are in ``unit`` (``"au"``, ``"km"``). Returns ``path``.
+    """
+    import astropy.units as u
+    from astropy.table import Table
+    from astropy.time import Time
+
+    unit = u.Unit(unit)
+    table = Table()
+    table["time"] = Time(t0_jd + np.concatenate(times), format="jd", scale="tdb")
+    table["body"] = np.concatenate([[name] * len(t) for name, t in zip(names, times)])
+    table["east"] = np.concatenate(east) * unit
+    table["north"] = np.concatenate(north) * unit
+    table["east_err"] = table["north_err"] = np.full(len(table), err) * unit
+    table.meta["description"] = description
     table.write(path, format="ascii.ecsv", overwrite=True)
     return path

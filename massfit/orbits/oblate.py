@@ -53,7 +53,7 @@ from massfit.constants import AU_KM, parse_quantity
 from massfit.orbits.dynamics import Keplerian, orbit_state
 from massfit.errors import ConfigError
 
-__all__ = ["Oblate", "secular_rates", "mean_and_geometric_axis", "oblate_gm",
+__all__ = ["Oblate", "primary_figure", "secular_rates", "mean_and_geometric_axis", "oblate_gm",
            "integrate_oblate_orbit", "j2_acceleration", "simulate_equatorial_moons"]
 
 TWO_PI = 2.0 * np.pi
@@ -167,6 +167,68 @@ def oblate_gm(a_geometric, sidereal_period, ecc, inc_eq, j2, radius):
                                xtol=1e-14)))
 
 
+def primary_figure(j2, j4, radius, equator_inclination=None, equator_node=None) -> dict:
+    """The primary's zonal harmonics, radius and pole from settings as a user gives them.
+
+    Parameters
+    ----------
+    j2, j4 : float
+        Second and fourth zonal harmonics (J2 from 0 to 0.1; J4 from -0.01 to 0.01,
+        negative for the giant planets).
+    radius : str or Quantity or None
+        The equatorial radius, the harmonics' reference radius (e.g. ``"64000 km"``).
+    equator_inclination, equator_node : str or Quantity, optional
+        The equator in the model's frame, in the convention of an orbit's inclination
+        and node (an orbit with these elements lies in the equator). Both or neither.
+
+    Returns
+    -------
+    dict
+        ``j2``, ``j4``, ``radius_km``, ``pole`` (unit vector as (north, east, z)
+        components, or None) and ``pole_deg`` ((inclination, node) or None).
+
+    Raises
+    ------
+    ConfigError
+        Naming the ``dynamics.*`` key at fault.
+    """
+    import astropy.units as u
+
+    for key, value, top in (("j2", j2, 0.1), ("j4", j4, 0.01)):
+        low = 0.0 if key == "j2" else -top
+        if not isinstance(value, (int, float)) or isinstance(value, bool) \
+                or not np.isfinite(value) or not low <= value <= top:
+            raise ConfigError(f"{key.upper()} must be a number from {low:g} to {top:g} "
+                              f"(giant planets have J2 about 0.015, J4 about -6e-4), got "
+                              f"{value!r}", key=f"dynamics.{key}")
+    out = {"j2": float(j2), "j4": float(j4), "radius_km": None, "pole": None,
+           "pole_deg": None}
+    if radius is None:
+        if j2 or j4:
+            raise ConfigError("the zonal harmonics need the equatorial radius they refer to",
+                              key="dynamics.equatorial_radius")
+    else:
+        r = parse_quantity(radius, expect=u.km, key="dynamics.equatorial_radius")
+        if not r.value > 0:
+            raise ConfigError("the equatorial radius must be positive",
+                              key="dynamics.equatorial_radius")
+        out["radius_km"] = float(r.to_value(u.km))
+    if (equator_inclination is None) != (equator_node is None):
+        raise ConfigError("give both the equator's inclination and its node, or "
+                          "neither (each orbit then lies in the equator)",
+                          key="dynamics.equator_inclination")
+    if equator_inclination is not None:
+        inc = parse_quantity(equator_inclination, expect=u.rad,
+                             key="dynamics.equator_inclination").to_value(u.rad)
+        node = parse_quantity(equator_node, expect=u.rad,
+                              key="dynamics.equator_node").to_value(u.rad)
+        # The equator's normal: the third column of the orbit rotation matrix.
+        out["pole"] = np.array([np.sin(node) * np.sin(inc), -np.cos(node) * np.sin(inc),
+                                np.cos(inc)])
+        out["pole_deg"] = (float(np.degrees(inc)), float(np.degrees(node)))
+    return out
+
+
 class Oblate(Keplerian):
     """Companions of an oblate primary (J2), with first-order secular precession.
 
@@ -191,37 +253,17 @@ class Oblate(Keplerian):
     label = "oblate"
 
     def __init__(self, j2, radius, equator_inclination=None, equator_node=None):
-        import astropy.units as u
-
-        if not isinstance(j2, (int, float)) or isinstance(j2, bool) or not np.isfinite(j2) \
-                or j2 < 0 or j2 > 0.1:
-            raise ConfigError(f"J2 must be a number from 0 to 0.1 (giant planets have "
-                              f"about 0.015), got {j2!r}", key="dynamics.j2")
-        self.j2 = float(j2)
         #: The settings as given (the command line changes them one by one).
         self.settings = {"j2": j2, "equatorial_radius": radius,
                          "equator_inclination": equator_inclination,
                          "equator_node": equator_node}
-        r = parse_quantity(radius, expect=u.km, key="dynamics.equatorial_radius")
-        if r.value <= 0:
-            raise ConfigError("the equatorial radius must be positive",
-                              key="dynamics.equatorial_radius")
-        self.radius_km = float(r.to_value(u.km))
+        figure = primary_figure(j2, 0.0, radius, equator_inclination, equator_node)
+        self.j2 = figure["j2"]
+        self.radius_km = figure["radius_km"]
         self.radius_au = self.radius_km / AU_KM
-        if (equator_inclination is None) != (equator_node is None):
-            raise ConfigError("give both the equator's inclination and its node, or "
-                              "neither (each orbit then lies in the equator)",
-                              key="dynamics.equator_inclination")
-        self.pole = None
-        if equator_inclination is not None:
-            inc = parse_quantity(equator_inclination, expect=u.rad,
-                                 key="dynamics.equator_inclination").to_value(u.rad)
-            node = parse_quantity(equator_node, expect=u.rad,
-                                  key="dynamics.equator_node").to_value(u.rad)
-            # The equator's normal: the third column of the orbit rotation matrix.
-            self.pole = np.array([np.sin(node) * np.sin(inc), -np.cos(node) * np.sin(inc),
-                                  np.cos(inc)])
-            self._pole_deg = (float(np.degrees(inc)), float(np.degrees(node)))
+        self.pole = figure["pole"]
+        if self.pole is not None:
+            self._pole_deg = figure["pole_deg"]
 
     def describe(self) -> dict:
         out = {"model": self.label, "j2": self.j2, "equatorial_radius_km": self.radius_km}
@@ -356,12 +398,9 @@ def j2_acceleration(position, gm, j2, radius):
     (the gradient of the J2 potential; e.g. Montenbruck & Gill, *Satellite Orbits*,
     ch. 3, from memory).
     """
-    r2 = np.sum(position * position, axis=-1, keepdims=True)
-    r = np.sqrt(r2)
-    z2 = position[..., 2:3] ** 2 / r2
-    factor = 1.5 * j2 * gm * radius ** 2 / r ** 5
-    weights = np.concatenate([1 - 5 * z2, 1 - 5 * z2, 3 - 5 * z2], axis=-1)
-    return -gm * position / r ** 3 - factor * position * weights
+    from massfit.orbits.nbody import zonal_field
+
+    return gm * zonal_field(position, np.array([0.0, 0.0, 1.0]), j2 * radius ** 2)
 
 
 def integrate_oblate_orbit(times, gm, j2, radius, position0, velocity0, *, rtol=1e-11):

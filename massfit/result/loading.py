@@ -51,7 +51,7 @@ def _decode(value):
 
             return viewing_from_settings(value["viewing_spec"])
         if "dynamics_model" in value:
-            from massfit.orbits.dynamics import make_dynamics
+            from massfit.orbits.registry import make_dynamics
 
             return make_dynamics(value["dynamics_model"],
                                  **{k: v for k, v in value.items() if k != "dynamics_model"})

@@ -247,7 +247,7 @@ def write_meta(path, *, model, start, initial, settings, started_utc) -> None:
         "start": {"theta": start.theta.tolist(), "chi2": start.chi2,
                   "covariance": np.asarray(start.covariance).tolist(),
                   "modes": start.modes, "per_companion": start.per_companion,
-                  "candidate_modes": start.candidate_modes},
+                  "candidate_modes": start.candidate_modes, "notes": list(start.notes)},
         # Floats survive JSON exactly (shortest round-trip repr).
         "initial": np.asarray(initial, dtype=float).tolist(),
     }
@@ -308,7 +308,8 @@ def read_meta(path, *, model, settings) -> dict:
     start = Start(theta=np.array(s["theta"]), chi2=float(s["chi2"]),
                   covariance=np.array(s["covariance"]), modes=list(s["modes"]),
                   per_companion=dict(s["per_companion"]),
-                  candidate_modes=list(s.get("candidate_modes", [])))
+                  candidate_modes=list(s.get("candidate_modes", [])),
+                  notes=list(s.get("notes", [])))
     return {"start": start, "initial": initial, "started_utc": meta["started_utc"],
             "settings": saved}
 

@@ -62,7 +62,7 @@ import numpy as np
 from massfit.constants import GM_SUN
 from massfit.orbits.dynamics import orbit_state
 
-__all__ = ["SamplerCoordinates", "ARC_FRACTION"]
+__all__ = ["SamplerCoordinates", "ARC_FRACTION", "elements_of_state"]
 
 TWO_PI = 2.0 * np.pi
 LN10 = np.log(10.0)
@@ -227,7 +227,7 @@ class SamplerCoordinates:
                 c = (state[:, 2] + 1j * state[:, 5]) * np.exp(1j * angle)
                 state[:, 2], state[:, 5] = c.real, c.imag / scale
                 log_jac -= np.log(scale)
-                elements, lj = _elements_of_state(state[:, :3], state[:, 3:], gm[body])
+                elements, lj = elements_of_state(state[:, :3], state[:, 3:], gm[body])
                 theta[:, cols] = self._model_columns(body, elements)
                 log_jac += lj
         bad = ~np.isfinite(log_jac) | np.any(~np.isfinite(theta), axis=1)
@@ -304,7 +304,7 @@ def _cross(a, b):
                             a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]])
 
 
-def _elements_of_state(r, v, gm):
+def elements_of_state(r, v, gm):
     """Two-body elements of relative states, and log |d(model coords) / d(r, v)|.
 
     ``r`` (au) and ``v`` (au/day) have rows of (north, east, z); ``gm`` is in

@@ -84,6 +84,9 @@ class Start:
         name -> best single-companion solution (``period``, ``central_mass``, and
         ``chi2`` over the ``rows`` it was searched on: a random subset of
         ``_SEARCH_ROWS`` where the companion has more).
+    notes : list of str
+        What the summary's warnings must say about the start (e.g. a least-squares
+        pass stopped at its cap of evaluations).
     """
 
     theta: np.ndarray
@@ -92,6 +95,7 @@ class Start:
     modes: list = field(default_factory=list)
     per_companion: dict = field(default_factory=dict)
     candidate_modes: list = field(default_factory=list)
+    notes: list = field(default_factory=list)
 
     def walkers(self, model: OrbitModel, n_walkers: int, rng) -> np.ndarray:
         """A ball of ``n_walkers`` starting points, all inside the prior's support."""
@@ -139,7 +143,7 @@ def _take_inside(model, trial, points, filled) -> int:
     return filled + take
 
 
-def find_start(model: OrbitModel, *, rng=None) -> Start:
+def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
     """Find the best joint solution and any comparable modes.
 
     Parameters
@@ -148,6 +152,9 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
         The joint model; its angle windows are re-centred on the result.
     rng : numpy.random.Generator, optional
         Used only to break ties in the walker ball later; the search is deterministic.
+    progress : bool, optional
+        Report the stages of an integrated model's start on stderr (default: when
+        stderr is a terminal).
 
     Returns
     -------
@@ -155,6 +162,8 @@ def find_start(model: OrbitModel, *, rng=None) -> Start:
     """
     if model.velocity_only:
         return _velocity_only_start(model)
+    if getattr(model.dynamics, "start_evaluations", None):
+        return _staged_start(model, progress)
     if type(model.dynamics) is not Keplerian:
         return _perturbed_start(model)
     if model.sight is not None:
@@ -228,7 +237,7 @@ def _differing_body(mode, other):
 
 
 def _perturbed_start(model):
-    """Start a perturbed model (J2, N-body) from the two-body search, then polish.
+    """Start the secular J2 model from the two-body search, then polish.
 
     The periodograms, linear scans and alias choice work on Keplerian ellipses, so they
     run on the two-body model of the same data and companions. Its solution is mapped
@@ -239,8 +248,6 @@ def _perturbed_start(model):
     candidate until one fits acceptably (the poor-fit criterion of the summary). The
     two-body model's comparable modes are reported as found.
     """
-    from massfit.model.fit_quality import is_poor
-
     _, found, values = two_body_start(model)
     best, best_chi2 = None, np.inf
     for candidate in model.dynamics.from_two_body(model, values):
@@ -256,9 +263,21 @@ def _perturbed_start(model):
         chi2 = _chi2(model, theta)
         if chi2 < best_chi2:
             best, best_chi2 = model.recentre(theta), chi2
-        n_values = model.residuals(theta[None, :]).shape[1]
-        if n_values > model.n_dim and not is_poor(chi2, n_values, model.n_dim):
+        if _acceptable(model, theta, chi2):
             break  # good enough: the other candidates are for harder cases
+    return _perturbed_result(model, best, found)
+
+
+def _acceptable(model, theta, chi2):
+    """Whether a fit passes the summary's poor-fit criterion (model/fit_quality.py)."""
+    from massfit.model.fit_quality import is_poor
+
+    n_values = model.residuals(theta[None, :]).shape[1]
+    return n_values > model.n_dim and not is_poor(chi2, n_values, model.n_dim)
+
+
+def _perturbed_result(model, best, found, notes=()):
+    """The Start of a perturbed model from its best polish and the two-body search."""
     if best is None:
         raise ModelError(f"the {model.dynamics.label} model's least-squares fit failed "
                          f"from the two-body solution; check its settings (or fit the "
@@ -269,7 +288,8 @@ def _perturbed_start(model):
            for name, sol in found.per_companion.items()}
     weighed = [dict(mode, searched_with="keplerian") for mode in found.candidate_modes]
     return Start(theta=theta, chi2=_chi2(model, theta), covariance=_covariance(model, theta),
-                 modes=modes, per_companion=per, candidate_modes=weighed)
+                 modes=modes, per_companion=per, candidate_modes=weighed,
+                 notes=list(notes))
 
 
 def _sight_start(model):
@@ -352,14 +372,124 @@ def _theta_of(model, values):
     return model.from_physical(values)
 
 
-def _acceptable(model, theta, chi2):
-    """The summary's poor-fit criterion, passed."""
-    from scipy.stats import chi2 as chi2_dist
+#: Candidates of an integrated model's start kept after the first stage's screening.
+_STAGED_CANDIDATES = 3
+#: Rows each companion needs inside a stage's time window.
+_STAGE_ROWS = 8
 
-    from massfit.model.fit_quality import POOR_FIT_P_VALUE
 
-    dof = model.residuals(theta[None, :]).shape[1] - model.n_dim
-    return dof > 0 and chi2_dist.sf(chi2, dof) >= POOR_FIT_P_VALUE
+def _staged_start(model, progress=None):
+    """Start an integrated model (J2, J4, pulls) from the two-body search, in stages.
+
+    The two-body solution follows each orbit's mean path; over a long span the
+    perturbed orbit drifts away from it (resonant pulls, precession), so a least
+    squares from there over all the data may not find its way. It is polished first
+    on the rows within a short time window about the model's epoch, where both paths
+    still agree, and the window is doubled stage by stage up to all the data. The
+    first stage screens the dynamics' candidates (companion masses, mirror images);
+    the best few go on. Every least-squares pass stops at the dynamics'
+    ``start_evaluations``; a pass that stops there is reported in ``notes``.
+    """
+    import sys
+
+    show = sys.stderr.isatty() if progress is None else bool(progress)
+    dynamics = model.dynamics
+    limit = dynamics.start_evaluations
+    _, found, values = two_body_start(model)
+    windows = _stage_windows(model, values)
+    models = [_window_model(model, half) for half in windows[:-1]] + [model]
+
+    def say(text):
+        if show:
+            print(f"start ({dynamics.label}): {text}", file=sys.stderr, flush=True)
+
+    say(f"two-body search done; {len(models)} stage(s), windows of +/- "
+        + ", ".join(f"{h:.4g}" for h in windows) + " d about the epoch")
+    screened = []
+    for candidate in dynamics.from_two_body(model, values):
+        candidate = _shift_phases(candidate, model, models[0])
+        theta = _least_squares(models[0], candidate, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
+        if theta is not None:
+            screened.append((_chi2(models[0], theta), _values_from_theta(models[0], theta)))
+    screened.sort(key=lambda c: c[0])
+    best, best_chi2, notes = None, np.inf, []
+    for rank, (_, trial) in enumerate(screened[:_STAGED_CANDIDATES]):
+        theta, capped = _run_stages(models, trial, limit, say, rank)
+        if theta is None:
+            continue
+        chi2 = _chi2(model, theta)
+        if chi2 < best_chi2:
+            best, best_chi2, notes = theta, chi2, capped
+        if _acceptable(model, theta, chi2):
+            break
+    return _perturbed_result(model, best, found, notes)
+
+
+def _run_stages(models, values, limit, say, rank):
+    """One candidate through every stage: (theta of the last model or None, notes)."""
+    notes = []
+    theta = None
+    for k, stage in enumerate(models):
+        if k:
+            values = _shift_phases(values, models[k - 1], stage)
+        capped = []
+        theta = _least_squares(stage, values, rounds=2, max_nfev=limit, capped=capped)
+        if theta is None:
+            say(f"candidate {rank + 1}, stage {k + 1}/{len(models)}: least squares failed")
+            return None, notes
+        if capped:
+            notes.append(f"the start's least squares stopped at its cap of {limit} "
+                         f"evaluations in stage {k + 1} of {len(models)} "
+                         f"({len(stage.observations.astrometry)} rows); the starting point "
+                         f"may not be the best fit: raise start_evaluations")
+        chi2 = _chi2(stage, theta)
+        say(f"candidate {rank + 1}, stage {k + 1}/{len(models)}: "
+            f"{len(stage.observations.astrometry)} rows, chi2 {chi2:.6g}"
+            + (" (stopped at the cap)" if capped else ""))
+        values = _values_from_theta(stage, theta)
+    return theta, notes
+
+
+def _stage_windows(model, values):
+    """Half-widths (days) of the stages' windows about the model's epoch, the last one
+    covering all rows: from 1/16 of the span (at least two of the longest periods),
+    doubling; a window of more than 3/4 of the whole is left to the last stage."""
+    t = np.concatenate([rows.t for rows in model._rows.values()])
+    full = float(np.max(np.abs(t)))
+    longest = max(values[name]["period"] for name in model.companions)
+    half = max(full / 16.0, 2.0 * longest)
+    out = []
+    while half < 0.75 * full:
+        if all(np.sum(np.abs(rows.t) <= half) >= _STAGE_ROWS
+               for rows in model._rows.values()):
+            out.append(half)
+        half *= 2.0
+    return out + [full]
+
+
+def _window_model(model, half):
+    """The model on the astrometry within +/- ``half`` days of its epoch, with the
+    elements still referred to that epoch."""
+    obs = model.observations
+    t = obs.astrometry.time.tdb.jd - model.epoch_jd
+    sub_obs = replace(obs, astrometry=obs.astrometry.select(np.abs(t) <= half),
+                      velocities=None)
+    spec = replace(model.spec, dynamics=model.dynamics.at_epoch(model.epoch_jd),
+                   companions=dict(model.companions), strict_companions=True)
+    return OrbitModel(sub_obs, spec)
+
+
+def _shift_phases(values, source, target):
+    """Physical values of ``source`` as ``target``'s: each mean anomaly moved from one
+    model's reference epoch to the other's (the elements' own epoch is shared)."""
+    out = dict(values)
+    for name in target.companions:
+        orbit = dict(values[name])
+        shift = (target.epoch_jd + target.reference_epoch(name)
+                 - source.epoch_jd - source.reference_epoch(name))
+        orbit["mean_anomaly_ref"] += 2.0 * np.pi * shift / orbit["period"]
+        out[name] = orbit
+    return out
 
 
 def two_body_start(model):
@@ -704,8 +834,10 @@ def _rows(model) -> int:
     return sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
 
 
-def _least_squares(model, values, *, rounds=2, max_nfev=None):
-    """Polish physical starting values; returns sampled coordinates or None."""
+def _least_squares(model, values, *, rounds=2, max_nfev=None, capped=None):
+    """Polish physical starting values; returns sampled coordinates or None.
+
+    ``capped``, a list, gets an entry for each pass that stopped at ``max_nfev``."""
     model.recentre(_centre_guess(model, values))
     theta = model.from_physical(values)
     fun = _residual_function(model)
@@ -720,6 +852,8 @@ def _least_squares(model, values, *, rounds=2, max_nfev=None):
                                 tr_solver=_trust_region_solver(model))
         except (ValueError, np.linalg.LinAlgError):
             return None
+        if capped is not None and fit.status == 0:
+            capped.append(fit.nfev)
         theta = model.recentre(fit.x)
         theta = model.from_physical(_values_from_theta(model, theta))
     if not np.isfinite(model.log_prob(theta[None, :])[0]):

@@ -1,0 +1,218 @@
+"""The perturbed model's forces and integrator: J2 and J4 of the primary, mutual pulls.
+
+External checks: the zonal potential of an axisymmetric body (Murray & Dermott,
+*Solar System Dynamics*, 1999, sec. 4.5, from memory) against its finite-difference
+gradient; the first-order secular J2 rates of the node and periapsis (Murray & Dermott
+ch. 6; Vallado, *Fundamentals of Astrodynamics and Applications*, J2 secular effects;
+both from memory) against the precession of the integrated orbit; REBOUND (IAS15) with
+REBOUNDx's ``gravitational_harmonics`` force as an independent integration of the same
+equations (open reference libraries, Rein & Liu 2012, Tamayo et al. 2020).
+"""
+
+import numpy as np
+import pytest
+
+from massfit.constants import GM_SUN
+from massfit.sample.reparameterisation import elements_of_state
+from massfit.orbits.dynamics import orbit_state
+from massfit.orbits.nbody import (HAVE_NUMBA, integrate_system, total_energy, zonal_field,
+                           zonal_potential)
+
+COMPILED = [False, True] if HAVE_NUMBA else [False]
+# An invented planet: 1e-3 M_sun, radius 4e-4 au (60 000 km), J2 0.016, J4 -6e-4.
+PLANET = 1e-3
+RADIUS = 4e-4
+J2, J4 = 0.016, -6e-4
+
+
+def _field(pole=(0.0, 0.0, 1.0), pulls=1.0, j2=J2, j4=J4):
+    return np.array([j2 * RADIUS ** 2, j4 * RADIUS ** 4, *pole, pulls])
+
+
+def _moon_state(a_radii, ecc, inc, omega, node, mean, mass=PLANET):
+    a = a_radii * RADIUS
+    n_motion = np.sqrt(GM_SUN * mass / a ** 3)
+    pos, vel = orbit_state(a, ecc, inc, omega, node, mean, n_motion)
+    return np.array(pos), np.array(vel), 2 * np.pi / n_motion
+
+
+def test_zonal_field_is_minus_the_gradient_of_the_textbook_potential():
+    # V = -GM/r [1 - J2 (R/r)^2 P2(u) - J4 (R/r)^4 P4(u)] (Murray & Dermott sec. 4.5,
+    # from memory), written out here independently of massfit's own potential.
+    rng = np.random.default_rng(3)
+    pole = rng.standard_normal(3)
+    pole /= np.linalg.norm(pole)
+    points = rng.standard_normal((20, 3)) * 3 * RADIUS
+
+    def textbook(p):
+        r = np.linalg.norm(p)
+        u = p @ pole / r
+        p2 = (3 * u * u - 1) / 2
+        p4 = (35 * u ** 4 - 30 * u * u + 3) / 8
+        return -1 / r * (1 - J2 * (RADIUS / r) ** 2 * p2 - J4 * (RADIUS / r) ** 4 * p4)
+
+    field = zonal_field(points, pole, J2 * RADIUS ** 2, J4 * RADIUS ** 4)
+    for p, acc in zip(points, field):
+        h = 1e-6 * np.linalg.norm(p)
+        grad = np.array([(textbook(p + h * e) - textbook(p - h * e)) / (2 * h)
+                         for e in np.eye(3)])
+        np.testing.assert_allclose(acc, -grad, rtol=1e-7, atol=1e-9 * np.linalg.norm(grad))
+        assert textbook(p) == pytest.approx(float(zonal_potential(
+            p, pole, J2 * RADIUS ** 2, J4 * RADIUS ** 4)), rel=1e-13)
+    # The harmonics matter here (negative control: the point mass alone is far off).
+    point = zonal_field(points, pole)
+    assert np.max(np.abs(point - field) / np.linalg.norm(field, axis=1)[:, None]) > 1e-3
+
+
+@pytest.mark.skipif(not HAVE_NUMBA, reason="numba not installed")
+def test_compiled_field_equals_numpy_field():
+    from massfit.orbits import _nbody_numba
+
+    rng = np.random.default_rng(4)
+    pole = np.array([0.3, -0.2, 0.9])
+    pole /= np.linalg.norm(pole)
+    field = np.array([J2 * RADIUS ** 2, J4 * RADIUS ** 4, *pole, 1.0])
+    for p in rng.standard_normal((10, 3)) * 2 * RADIUS:
+        out = np.array(_nbody_numba._central_field(p[0], p[1], p[2], field))
+        np.testing.assert_allclose(out, zonal_field(p, pole, field[0], field[1]),
+                                   rtol=1e-13)
+
+
+@pytest.mark.parametrize("compiled", COMPILED)
+def test_energy_and_polar_angular_momentum_are_conserved_with_j2_j4(compiled):
+    # One moon (massless limit): the energy per unit mass v^2/2 + GM V(r) and the
+    # angular momentum about the pole are integrals of an axisymmetric field.
+    pole = np.array([0.2, 0.1, 1.0])
+    pole /= np.linalg.norm(pole)
+    pos, vel, period = _moon_state(2.5, 0.1, 0.5, 1.0, 2.0, 0.3)
+    times = np.linspace(0, 60 * period, 200)
+    field = _field(pole)
+    p, v = integrate_system(times, np.array([PLANET]), np.array([[0.0]]), pos[None, None],
+                            vel[None, None], rtol=1e-12, compiled=compiled,
+                            field=field[None])
+    p, v = p[0, 0], v[0, 0]
+    gm = GM_SUN * PLANET
+    energy = 0.5 * np.sum(v * v, axis=1) + gm * zonal_potential(p, pole, field[0],
+                                                                field[1])
+    h_pole = np.cross(p, v) @ pole
+    assert np.max(np.abs(energy / energy[0] - 1)) < 1e-10
+    assert np.max(np.abs(h_pole / h_pole[0] - 1)) < 1e-10
+    # Negative control: the total angular momentum is not conserved (the orbit is
+    # tilted to the equator, so its node turns).
+    h = np.cross(p, v)
+    assert np.max(np.linalg.norm(h - h[0], axis=1)) / np.linalg.norm(h[0]) > 1e-3
+
+
+@pytest.mark.parametrize("compiled", COMPILED)
+def test_energy_is_conserved_with_pulls_and_harmonics(compiled):
+    masses = np.array([[3e-8, 5e-8, 2e-8]])
+    states = [_moon_state(a, 0.02, 0.05 * k, k, 2 * k, 1.5 * k)
+              for k, a in enumerate((3.0, 4.8, 7.6))]
+    pos = np.array([[s[0] for s in states]])
+    vel = np.array([[s[1] for s in states]])
+    times = np.linspace(-20 * states[0][2], 20 * states[0][2], 50)
+    field = _field((0.1, 0.0, 1.0) / np.linalg.norm((0.1, 0.0, 1.0)))
+    p, v = integrate_system(times, np.array([PLANET]), masses, pos, vel, rtol=1e-12,
+                            compiled=compiled, field=field[None])
+    energy = total_energy(PLANET, masses[0], np.moveaxis(p[0], 0, 1),
+                          np.moveaxis(v[0], 0, 1), field=field)
+    assert np.max(np.abs(energy / energy[0] - 1)) < 1e-10
+
+
+def test_secular_j2_rates_of_the_integrated_orbit():
+    # dOmega/dt = -3/2 n J2 (R/a)^2 cos i / (1 - e^2)^2,
+    # domega/dt = 3/4 n J2 (R/a)^2 (5 cos^2 i - 1) / (1 - e^2)^2
+    # (first order in J2; Murray & Dermott ch. 6, Vallado; from memory).
+    ecc, inc = 0.08, np.radians(35.0)
+    pos, vel, period = _moon_state(3.0, ecc, inc, 0.7, 1.1, 0.2)
+    times = np.linspace(0, 300 * period, 3001)
+    p, v = integrate_system(times, np.array([PLANET]), np.array([[0.0]]), pos[None, None],
+                            vel[None, None], rtol=1e-11, field=_field(j4=0.0)[None])
+    gm = np.full(times.size, GM_SUN * PLANET)
+    (per, e_osc, _, node, omega, _), _ = elements_of_state(p[0, 0], v[0, 0], gm)
+    a_mean = np.mean(np.cbrt(gm * (per / (2 * np.pi)) ** 2))
+    n_motion = np.sqrt(GM_SUN * PLANET / a_mean ** 3)
+    factor = n_motion * J2 * (RADIUS / a_mean) ** 2 / (1 - np.mean(e_osc) ** 2) ** 2
+    node_rate = np.polyfit(times, np.unwrap(node), 1)[0]
+    peri_rate = np.polyfit(times, np.unwrap(omega), 1)[0]
+    expected_node = -1.5 * factor * np.cos(inc)
+    expected_peri = 0.75 * factor * (5 * np.cos(inc) ** 2 - 1)
+    # First-order theory: agreement to O(J2 (R/a)^2) ~ 2e-3 plus short-period scatter.
+    assert node_rate == pytest.approx(expected_node, rel=0.01)
+    assert peri_rate == pytest.approx(expected_peri, rel=0.02)
+    # Negative control: without J2 neither turns.
+    p0, v0 = integrate_system(times[:200], np.array([PLANET]), np.array([[0.0]]),
+                              pos[None, None], vel[None, None], rtol=1e-11)
+    (_, _, _, node0, omega0, _), _ = elements_of_state(p0[0, 0], v0[0, 0], gm[:200])
+    assert abs(np.polyfit(times[:200], np.unwrap(node0), 1)[0]) < 1e-6 * abs(expected_node)
+
+
+@pytest.mark.parametrize("compiled", COMPILED)
+@pytest.mark.parametrize("harmonics", [False, True])
+def test_pulls_and_harmonics_agree_with_rebound_and_reboundx(compiled, harmonics):
+    rebound = pytest.importorskip("rebound")
+    reboundx = pytest.importorskip("reboundx")
+    masses = np.array([4e-8, 9e-8, 6e-8])  # heavy invented moons: strong pulls
+    states = [_moon_state(a, 0.01 + 0.01 * k, 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
+              for k, a in enumerate((3.0, 4.77, 7.6))]  # near 2:1 and 2:1
+    pos = np.array([s[0] for s in states])
+    vel = np.array([s[1] for s in states])
+    times = np.linspace(0.0, 40 * states[0][2], 25)[1:]
+    field = _field() if harmonics else _field(j2=0.0, j4=0.0)
+    ours, _ = integrate_system(times, np.array([PLANET]), masses[None], pos[None], vel[None],
+                               rtol=1e-13, compiled=compiled, field=field[None])
+    sim = rebound.Simulation()
+    sim.G = GM_SUN
+    sim.add(m=PLANET)
+    for m, p, v in zip(masses, pos, vel):
+        # Astrocentric state -> REBOUND's inertial frame (primary at rest at first).
+        sim.add(m=m, x=p[0], y=p[1], z=p[2], vx=v[0], vy=v[1], vz=v[2])
+    sim.move_to_com()
+    sim.integrator = "ias15"
+    if harmonics:
+        extras = reboundx.Extras(sim)
+        force = extras.load_force("gravitational_harmonics")
+        extras.add_force(force)
+        sim.particles[0].params["J2"] = J2
+        sim.particles[0].params["J4"] = J4
+        sim.particles[0].params["R_eq"] = RADIUS
+    theirs = np.empty_like(ours[0])
+    for j, t in enumerate(times):
+        sim.integrate(t, exact_finish_time=1)
+        centre = np.array(sim.particles[0].xyz)
+        for k in range(3):
+            theirs[k, j] = np.array(sim.particles[k + 1].xyz) - centre
+    scale = np.linalg.norm(pos, axis=1)[:, None, None]
+    assert np.max(np.abs(ours[0] - theirs) / scale) < 1e-9
+    # Negative control: the moons' pulls on each other are far above that tolerance.
+    alone, _ = integrate_system(times, np.array([PLANET]), masses[None], pos[None], vel[None],
+                                rtol=1e-13, compiled=compiled,
+                                field=np.array([*field[:5], 0.0])[None])
+    assert np.max(np.abs(alone[0] - theirs) / scale) > 1e-6
+
+
+def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
+    from massfit.orbits.registry import make_dynamics
+    from massfit.errors import ConfigError
+    from massfit.orbits.perturbed import NBody
+    from massfit.orbits.perturbed import Perturbed
+
+    model = make_dynamics("perturbed", j2=0.0138, j4=-5.2e-4, equatorial_radius="58300 km",
+                          mutual_pulls=False)
+    assert isinstance(model, Perturbed) and not model.mutual_pulls
+    again = make_dynamics(model.label, **model.settings)  # what a saved run does
+    assert again.describe() == model.describe()
+    assert again.describe()["forces"] == ["zonal harmonics"]
+    assert isinstance(make_dynamics("n-body", rtol=1e-11), NBody)
+    for options, key in (({"j2": 0.2, "equatorial_radius": "1 km"}, "dynamics.j2"),
+                         ({"j4": 0.5, "equatorial_radius": "1 km"}, "dynamics.j4"),
+                         ({"j2": 0.01}, "dynamics.equatorial_radius"),
+                         ({"mutual_pulls": False}, "dynamics.mutual_pulls"),
+                         ({"start_evaluations": 3}, "dynamics.start_evaluations"),
+                         ({"rtol": 0.1}, "dynamics.rtol")):
+        with pytest.raises(ConfigError) as err:
+            make_dynamics("perturbed", **options)
+        assert err.value.key == key
+    with pytest.raises(ConfigError) as err:
+        make_dynamics("n-body", j2=0.01)
+    assert err.value.key == "dynamics.j2"
