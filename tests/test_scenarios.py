@@ -6,6 +6,7 @@ from pathlib import Path
 
 import massfit
 from massfit.scenarios import DEMO_DIR, write_all
+from test_example_obs import same_but_last_digits
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -16,14 +17,16 @@ def test_example_obs_matches_the_package_copy():
                            shallow=False)
 
 
-def test_scenarios_regenerate_byte_for_byte(tmp_path, monkeypatch):
+def test_scenarios_regenerate_to_the_last_digits(tmp_path, monkeypatch):
     import massfit.scenarios as scenarios
 
-    monkeypatch.setattr(scenarios, "DEMO_DIR", tmp_path / "pkg")
+    # write_all writes the package copy to PACKAGE_DATA: point it away from the
+    # checkout, or the test rewrites the very files it compares with.
+    monkeypatch.setattr(scenarios, "PACKAGE_DATA", tmp_path / "pkg")
     write_all(tmp_path / "obs")
     for name in ("moons.ecsv", "truth.json"):
-        assert filecmp.cmp(tmp_path / "obs" / "orvane" / name, DEMO_DIR / name,
-                           shallow=False)
+        again = (tmp_path / "obs" / "orvane" / name).read_text()
+        assert same_but_last_digits(again, (DEMO_DIR / name).read_text()), name
 
 
 def test_demo_truth_describes_the_data():
