@@ -450,7 +450,7 @@ def _execute(jobs, workers, scheduler):
     with _single_threaded_children():
         pool = ProcessPoolExecutor(max_workers=min(n, len(jobs)), mp_context=context,
                                    initializer=_worker_setup, initargs=(os.getpid(), stop))
-    finished = False
+    finished, workers = False, set()
     others = set(multiprocessing.active_children())
     try:
         with _sigint_ignored():  # the workers start here, and inherit the ignoring

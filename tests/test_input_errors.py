@@ -48,7 +48,7 @@ def assert_one_line_error(proc, *needles):
 def test_negative_seed_on_the_command_line(binary_file, tmp_path):
     path, _ = binary_file
     proc = run_cli("fit", str(path), "--out", str(tmp_path / "o"), "--seed", "-5",
-                   "--no-plots")
+                   "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "--seed", "at least 0")
     assert not (tmp_path / "o").exists()
 
@@ -57,7 +57,7 @@ def test_negative_seed_in_a_config(binary_file, tmp_path):
     path, _ = binary_file
     config = tmp_path / "neg.toml"
     config.write_text(f'[data]\nfiles = ["{path.name}"]\n[sampler]\nseed = -7\n')
-    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "neg.toml", "sampler.seed")
 
 
@@ -77,7 +77,7 @@ def test_a_parallax_must_be_an_angle(binary_file, tmp_path, option, value):
     path, _ = binary_file
     extra = [] if option == "--parallax" else ["--parallax", "41.3 mas"]
     proc = run_main("fit", path, "--out", tmp_path / "o", option, value, *extra,
-                    "--no-plots")
+                    "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, option, "not an angle")
 
 
@@ -90,7 +90,8 @@ def _plain_csv(folder, rows):
     return path
 
 
-CSV_OPTIONS = ("--time-format", "jd", "--time-scale", "tdb", "--parallax", "25 mas",
+# A short chain: on code that wrongly accepts the input the test fails quickly.
+CSV_OPTIONS = ("--max-steps", "100", "--time-format", "jd", "--time-scale", "tdb", "--parallax", "25 mas",
                "--units", "east=mas,north=mas,east_err=mas,north_err=mas")
 
 
@@ -102,7 +103,7 @@ def _good_rows(n=8):
 def test_rows_all_at_one_time_are_one_epoch(tmp_path):
     rows = [(2458088.5, "Wren", 85.0 + k, 36.0 - k, 0.5, 0.5) for k in range(7)]
     proc = run_main("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
-                    tmp_path / "o", "--no-plots")
+                    tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "'Wren'", "1 astrometric epoch", "7 row(s)")
 
 
@@ -110,7 +111,7 @@ def test_listed_companion_without_data_is_named(binary_file, tmp_path):
     path, _ = binary_file
     config = tmp_path / "c.toml"
     config.write_text(f'[data]\nfiles = ["{path.name}"]\n[companions.C]\n')
-    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "companion 'C'", "[companions.C]", "bodies in the data: Wren")
 
 
@@ -119,14 +120,14 @@ def test_a_column_given_two_units_is_refused(tmp_path):
     proc = run_main("fit", _plain_csv(tmp_path, _good_rows()), "--time-format", "jd",
                     "--time-scale", "tdb", "--parallax", "25 mas", "--units",
                     "east=mas,north=mas,east_err=mas,north_err=mas,east=deg",
-                    "--out", tmp_path / "o", "--no-plots")
+                    "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "--units", "'east' is given twice")
 
 
 def test_a_unit_for_a_column_that_does_not_exist_is_refused(tmp_path):
     proc = run_main("fit", _plain_csv(tmp_path, _good_rows()), *CSV_OPTIONS[:-1],
                     "east=mas,north=mas,east_err=mas,north_err=mas,east_er=mas",
-                    "--out", tmp_path / "o", "--no-plots")
+                    "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "units", "'east_er'", "no file has")
 
 
@@ -137,7 +138,7 @@ def test_a_tab_in_an_ecsv_header_is_reported_at_its_own_line(binary_file, tmp_pa
     lines[at] = lines[at].replace("north, unit", "north,\tunit")
     tabbed = tmp_path / "tabbed.ecsv"
     tabbed.write_text("\n".join(lines) + "\n")
-    proc = run_main("fit", tabbed, "--out", tmp_path / "o", "--no-plots")
+    proc = run_main("fit", tabbed, "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, f"tabbed.ecsv, line {at + 1}: ", "tab")
 
 
@@ -151,7 +152,7 @@ def test_absurd_values_are_named_by_file_line_and_column(tmp_path, column, value
     rows = [list(row) for row in _good_rows()]
     rows[2][column] = value
     proc = run_main("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
-                    tmp_path / "o", "--no-plots")
+                    tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "plain.csv, line 4, ", needle)
 
 
@@ -159,7 +160,7 @@ def test_huge_times_in_a_real_process(tmp_path):
     rows = [list(row) for row in _good_rows()]
     rows[0][0] = "1e300"
     proc = run_cli("fit", _plain_csv(tmp_path, rows), *CSV_OPTIONS, "--out",
-                   tmp_path / "o", "--no-plots")
+                   tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "plain.csv, line 2, column 'time'")
 
 
@@ -177,7 +178,7 @@ def _secret_setup(tmp_path):
 
 def test_a_file_that_is_not_a_table_is_not_quoted(tmp_path):
     configs = _secret_setup(tmp_path)
-    proc = run_main("fit", configs / "slip.toml", "--out", tmp_path / "o", "--no-plots")
+    proc = run_main("fit", configs / "slip.toml", "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "secret.txt, line 1", "not an observation table")
     assert SECRET not in proc.stderr
 
@@ -196,7 +197,7 @@ def test_a_symlink_loop_listed_in_a_config(tmp_path):
     (tmp_path / "loop_b.csv").symlink_to(tmp_path / "loop_a.csv")
     config = tmp_path / "loop.toml"
     config.write_text('[data]\nfiles = ["loop_a.csv"]\n')
-    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots")
+    proc = run_main("fit", config, "--out", tmp_path / "o", "--no-plots", "--max-steps", "100")
     assert_one_line_error(proc, "loop_a.csv", "cannot be read")
 
 

@@ -113,7 +113,8 @@ def _parser() -> argparse.ArgumentParser:
                     "OUT/results.ecsv and OUT/systems/<system>/; systems already "
                     "finished are read back, not fitted again.",
         epilog="Exit status: 0 every system converged, 2 bad input or option, 3 some "
-               "system failed or did not converge (see results.ecsv).")
+               "system failed or did not converge (see results.ecsv), 130 interrupted "
+               "(results.ecsv marks the unfinished systems 'not run').")
     batch.add_argument("source", metavar="FOLDER | TABLE",
                        help="a folder of *.toml configs, or a table of systems")
     batch.add_argument("--out", metavar="DIR", required=True, help="output folder")
