@@ -75,8 +75,8 @@ def run(report):
     def naive_log_prob(theta):
         return model.log_prob(theta[None, :])[0]
 
-    saved = kepler._fast
-    kepler._fast = None  # pure numpy
+    saved = kepler.numba_kernel
+    kepler.numba_kernel = None  # pure numpy
     try:
         naive = emcee.EnsembleSampler(walkers, model.n_dim, naive_log_prob)
         naive.random_state = np.random.RandomState(17).get_state()
@@ -84,7 +84,7 @@ def run(report):
         naive.run_mcmc(initial, NAIVE_STEPS, progress=False)
         naive_step = (time.process_time() - t0) / NAIVE_STEPS
     finally:
-        kepler._fast = saved
+        kepler.numba_kernel = saved
 
     # The same stretch-move chain, fast, long enough to measure its tau.
     stretch = emcee.EnsembleSampler(walkers, model.n_dim, model.log_prob, vectorize=True)

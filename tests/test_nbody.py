@@ -151,7 +151,7 @@ def test_nbody_start_recovers_the_pair_masses(tmp_path):
     # companions (two-body orbits) the central mass lands far off and the fit is far
     # worse.
     from massfit.orbits.nbody import PAIR_TRUTH, simulate_interacting_pair
-    from massfit.start.search import _least_squares, _values_from_theta, find_start
+    from massfit.start.search import solve_least_squares, _values_from_theta, find_start
 
     obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=30))
     truth = {"central": PAIR_TRUTH["central_mass"],
@@ -179,7 +179,7 @@ def test_nbody_start_recovers_the_pair_masses(tmp_path):
     values["central_mass"] += np.mean([values[n]["mass"] for n in comps])
     for name in comps:
         values[name]["mass"] = 1e-12
-    theta = _least_squares(massless, values, rounds=3)
+    theta = solve_least_squares(massless, values, rounds=3)
     res = massless.residuals(theta[None])[0]
     mass = 10 ** theta[massless.names.index("central.log10_mass")]
     print(f"massless companions: central {mass:.6g}, chi2 {res @ res:.0f}")

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from massfit.constants import GM_SUN
-from massfit.sample.reparameterisation import elements_of_state
+from massfit.orbits.dynamics import elements_of_state
 from massfit.orbits.dynamics import orbit_state
 from massfit.orbits.nbody import (HAVE_NUMBA, integrate_system, total_energy, zonal_field,
                            zonal_potential)

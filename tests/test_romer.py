@@ -70,7 +70,7 @@ def test_first_order_delay_matches_the_light_time_equation(binary):
     theta = on.from_physical(values)
     east, north = observed_offsets(on, on.physical(theta[None]))["B"]
     east0, north0 = observed_offsets(off, off.physical(theta[None]))["B"]
-    exact = _exact_offsets(on._rows["B"].t, mean_ref, t_ref)
+    exact = _exact_offsets(on.rows["B"].t, mean_ref, t_ref)
     shift = np.hypot(exact[1] - east0[0], exact[0] - north0[0])
     error = np.hypot(exact[1] - east[0], exact[0] - north[0])
     # The delay moves the star by up to 1.8e-4 au here (a tenth of a light-day across

@@ -19,7 +19,7 @@ from massfit.model.orbit_model import CompanionSpec, OrbitModel
 from massfit.priors import Normal, Uniform
 from massfit.read.tables import read_observations
 from massfit.scenarios.examples import demo_setup
-from massfit.start.search import _bounds
+from massfit.start.search import parameter_bounds
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_obs"
 
@@ -43,7 +43,7 @@ def _model(example, *, fixed_plane=False, **companion_priors):
 
 
 def _straddling_points(model, n=4000, seed=0):
-    low, high = _bounds(model)
+    low, high = parameter_bounds(model)
     low = np.where(np.isfinite(low), low, -3.0)
     high = np.where(np.isfinite(high), high, 3.0)
     rng = np.random.default_rng(seed)
@@ -77,7 +77,7 @@ def test_prior_shortcut_equals_the_per_coordinate_sum(example, priors):
         assert model._prior_plan.varying, "non-flat priors must be evaluated one by one"
 
 
-@pytest.mark.skipif(kepler._fast is None, reason="the fused kernel needs numba")
+@pytest.mark.skipif(kepler.numba_kernel is None, reason="the fused kernel needs numba")
 @pytest.mark.parametrize("example", ["orvane", "mirren"])
 def test_fused_chi2_equals_the_residual_sum(example):
     # Orvane's rows carry a moving line of sight, which takes the general path (see
@@ -115,7 +115,7 @@ def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
     from massfit.start import search as start_module
 
     model = _model("mirren")
-    low, high = _bounds(model)
+    low, high = parameter_bounds(model)
     theta = np.where(np.isfinite(low + high), 0.5 * (low + high), 0.3)
     theta = theta[np.newaxis, :]
     assert np.isfinite(model.log_prior(theta)[0])

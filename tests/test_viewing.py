@@ -271,8 +271,8 @@ def test_offsets_from_another_moon_are_the_difference(tmp_path):
                             / moon.period)
     theta = model.from_physical(values)
     for name in moons:
-        model.centres[name] = {"node": theta[model._index[f"{name}.node"]],
-                               "phase": theta[model._index[f"{name}.phase"]]}
+        model.centres[name] = {"node": theta[model.column_of[f"{name}.node"]],
+                               "phase": theta[model.column_of[f"{name}.phase"]]}
     theta = model.from_physical(values)
     residuals = model.residuals(theta[None])[0]
     assert np.max(np.abs(residuals)) < 0.01  # in sigma: 10 micro-arcsec

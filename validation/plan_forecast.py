@@ -70,12 +70,12 @@ def profile_width(system, schedule, seed):
 
     from massfit.model.orbit_model import OrbitModel
     from massfit.priors import Fixed
-    from massfit.start.search import _chi2, _least_squares
+    from massfit.start.search import _chi2, solve_least_squares
 
     obs = simulated_observations(system, schedule, seed=seed)
     spec = system.simulated_spec(seed)
     full = OrbitModel(obs, spec)
-    best = _least_squares(full, system.physical(full))
+    best = solve_least_squares(full, system.physical(full))
     phys = full.physical(best)
     m_best = float(phys["central_mass"][0])
     chi_best = _chi2(full, best) + float(np.sum(_prior_terms(full, best) ** 2))
@@ -87,7 +87,7 @@ def profile_width(system, schedule, seed):
                   else float(phys["parallax"][0])}
         for name in fixed.companions:
             values[name] = {q: float(v[0]) for q, v in phys["companions"][name].items()}
-        theta = _least_squares(fixed, values)
+        theta = solve_least_squares(fixed, values)
         chi = _chi2(fixed, theta) + float(np.sum(_prior_terms(fixed, theta) ** 2))
         return chi - chi_best - 1.0
 

@@ -48,7 +48,7 @@ def fitted(observations):
     mass = float(phys["central_mass"][0])
     residuals = model.residuals(start.theta[None])[0]
     per_moon, offset = {}, 0
-    for name, rows in model._rows.items():
+    for name, rows in model.rows.items():
         count = 2 * len(rows.t)
         part = np.concatenate([residuals[offset:offset + len(rows.t)],
                                residuals[offset + len(rows.t):offset + count]])

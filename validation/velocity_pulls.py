@@ -40,8 +40,8 @@ def pull(seed: int, folder: Path) -> float:
     k1, k2 = orbit["k_primary"][0], orbit["k_companion"][0]
     ratio = k1 / k2
     grad = np.zeros(model.n_dim)
-    grad[model._index["Cass.k_primary"]] = 1.0 / k2
-    grad[model._index["Cass.k_companion"]] = -ratio / k2
+    grad[model.column_of["Cass.k_primary"]] = 1.0 / k2
+    grad[model.column_of["Cass.k_companion"]] = -ratio / k2
     return float((ratio - TRUTH["mass"] / PRIMARY) / np.sqrt(grad @ start.covariance @ grad))
 
 

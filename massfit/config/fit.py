@@ -184,7 +184,7 @@ def parse_config(raw: dict, *, base=".", file=None) -> FitSetup:
 
 
 def _parse(raw, base, file):
-    _check_keys(raw, _SCHEMA, "", file)
+    check_keys(raw, _SCHEMA, "", file)
     data = raw.get("data", {})
     if "files" not in data or not data["files"]:
         raise ConfigError("list the observation files, e.g. files = [\"moons.ecsv\"]",
@@ -214,7 +214,7 @@ def _parse(raw, base, file):
                     replace_existing=out.get("replace_existing", False), source=raw)
 
 
-def _check_keys(table, schema, prefix, file):
+def check_keys(table, schema, prefix, file):
     if not isinstance(table, dict):
         raise ConfigError("expected a table", key=prefix.rstrip(".") or None, file=file)
     for key, value in table.items():
@@ -224,7 +224,7 @@ def _check_keys(table, schema, prefix, file):
                               key=where, file=file)
         expected = schema[key]
         if isinstance(expected, dict):
-            _check_keys(value, expected, f"{where}.", file)
+            check_keys(value, expected, f"{where}.", file)
         elif not _is_type(value, expected):
             raise ConfigError(f"expected {_type_name(expected)}, got {type(value).__name__} "
                               f"{value!r}", key=where, file=file)
@@ -283,7 +283,7 @@ def _velocities(system, table, file):
         system.jitter = _jitter_prior(table["jitter_prior"], "velocities.jitter_prior", file)
     for label, body in table.get("instruments", {}).items():
         key = f"velocities.instruments.{label}"
-        _check_keys(body, _INSTRUMENT_KEYS, f"{key}.", file)
+        check_keys(body, _INSTRUMENT_KEYS, f"{key}.", file)
         spec = InstrumentSpec()
         if "offset_prior" in body:
             spec.offset = prior_from_spec(body["offset_prior"], unit=_KM_S,
@@ -313,7 +313,7 @@ def _mass_prior(spec, key, file):
 
 def _companion(name, body, file):
     key = f"companions.{name}"
-    _check_keys(body, _COMPANION_KEYS, f"{key}.", file)
+    check_keys(body, _COMPANION_KEYS, f"{key}.", file)
     comp = CompanionSpec(name)
     if "period_prior" in body:
         comp.period = prior_from_spec(body["period_prior"], unit=u.day,

@@ -47,10 +47,10 @@ from pathlib import Path
 
 import astropy.units as u
 
-from massfit.config.fit import _check_keys, read_toml, real_path
+from massfit.config.fit import check_keys, read_toml, real_path
 from massfit.constants import parse_quantity
 from massfit.errors import ConfigError
-from massfit.plan.planner import AssumedSystem, Schedule, _parse_time
+from massfit.plan.planner import AssumedSystem, Schedule, parse_time
 from massfit.sample.chain import check_seed
 
 __all__ = ["PlanSetup", "load_plan_config", "parse_plan_config", "plan_setup",
@@ -111,7 +111,7 @@ def load_plan_config(path) -> PlanSetup:
 def parse_plan_config(raw: dict, *, base=".", file=None) -> PlanSetup:
     """Check a plan config dictionary (as TOML gives it) and resolve it."""
     base = Path(base)
-    _check_keys(raw, _SCHEMA, "", file)
+    check_keys(raw, _SCHEMA, "", file)
     times = {"time_scale": raw.get("time_scale"), "time_format": raw.get("time_format")}
     if ("assumed" in raw) == ("fit_folder" in raw):
         raise ConfigError("give either an [assumed] system or a fit_folder to plan from",
@@ -153,7 +153,7 @@ def schedule_from_spec(spec, key, base, times, error, file=None,
     if not isinstance(spec, dict):
         raise ConfigError("give a schedule file name, or a table {start, stop, every, "
                           "error}", key=key, file=file)
-    _check_keys(spec, _RANGE, f"{key}.", file)
+    check_keys(spec, _RANGE, f"{key}.", file)
     for name in ("start", "stop", "every"):
         if name not in spec:
             raise ConfigError(f"an evenly spaced schedule needs '{name}'", key=key, file=file)
@@ -236,7 +236,7 @@ def _companion(name, body, times, file):
                           file=file)
     out = {"period": period, "ecc": ecc, "inc": inc, "omega": angle("periapsis_argument"),
            "node": angle("ascending_node"),
-           "periapsis_time": _parse_time(body["periapsis_time"], times.get("time_format"),
+           "periapsis_time": parse_time(body["periapsis_time"], times.get("time_format"),
                                          times.get("time_scale"),
                                          key=f"{key}.periapsis_time")}
     if "mass" in body:

@@ -339,7 +339,7 @@ class OrbitModel:
         times = astrometry.time if has_astrometry else velocities.time
         self.epoch_jd = float(np.mean(times.tdb.jd))
         self.companions = self._companion_specs(observations)
-        self._vel = self._prepare_velocities() if self.has_velocities else None
+        self.velocity_rows = self._prepare_velocities() if self.has_velocities else None
         self.needs_parallax = has_astrometry and bool(
             np.any(~astrometry.length & ~np.isfinite(astrometry.distance)))
         #: True where the parallax is sampled only because companion velocities fix it.
@@ -359,7 +359,7 @@ class OrbitModel:
             raise ModelError("radial velocities with a moving line of sight (primary_ra, "
                              "primary_dec) are not modelled yet; fit the astrometry alone")
         if self.needs_parallax and self.spec.parallax is None:
-            if self._vel is not None and np.any(self._vel.owner >= 0):
+            if self.velocity_rows is not None and np.any(self.velocity_rows.owner >= 0):
                 self.spec = replace(self.spec, parallax=DEFAULT_FREE_PARALLAX_PRIOR)
                 self.parallax_from_velocities = True
             else:
@@ -370,7 +370,7 @@ class OrbitModel:
                     "error) or a fixed distance, add a 'distance' column, give the "
                     "offsets in a length unit (km, au), or add a companion's radial "
                     "velocities (they fix the distance)")
-        self._rows = ({} if self.velocity_only else
+        self.rows = ({} if self.velocity_only else
                       {name: self._prepare_rows(name) for name in self.companions})
         self.node_width = self.dynamics.node_widths(
             self, {name: TWO_PI if self._has_velocity_of(name) or self.sight is not None
@@ -378,7 +378,7 @@ class OrbitModel:
         self.centres = {name: {"node": 0.5 * np.pi, "phase": np.pi} for name in self.companions}
         self.parameters = self._layout()
         self.n_dim = len(self.parameters)
-        self._index = {p.name: k for k, p in enumerate(self.parameters)}
+        self.column_of = {p.name: k for k, p in enumerate(self.parameters)}
         self._log_norm = self._gaussian_normalisation()
         self._kernel_rows = self._pack_for_kernel()
         self._prior_plan = self._plan_prior()
@@ -392,15 +392,15 @@ class OrbitModel:
     @property
     def primary_has_velocities(self) -> bool:
         """True where the primary's own velocities are among the data."""
-        return self._vel is not None and bool(np.any(self._vel.owner < 0))
+        return self.velocity_rows is not None and bool(np.any(self.velocity_rows.owner < 0))
 
     def _has_velocity_of(self, name) -> bool:
         # The primary's reflex carries every companion's signal; a companion's own
         # velocities carry its own.
-        if self._vel is None:
+        if self.velocity_rows is None:
             return False
         k = list(self.companions).index(name)
-        return bool(np.any(self._vel.owner == k) or np.any(self._vel.owner < 0))
+        return bool(np.any(self.velocity_rows.owner == k) or np.any(self.velocity_rows.owner < 0))
 
     def _companion_specs(self, observations):
         primary = observations.primary
@@ -567,12 +567,12 @@ class OrbitModel:
         dynamics and the Romer delay keep the general path (the same sums, assembled
         from the residual arrays).
         """
-        if (self._vel is not None or type(self.dynamics) is not Keplerian
+        if (self.velocity_rows is not None or type(self.dynamics) is not Keplerian
                 or getattr(self.spec, "romer_delay", False) or self.sight is not None
-                or any(rows.reference is not None for rows in self._rows.values())):
+                or any(rows.reference is not None for rows in self.rows.values())):
             return None
         packs = {}
-        for name, rows in self._rows.items():
+        for name, rows in self.rows.items():
             order = np.concatenate([rows.cart, rows.polar])
             n_polar = rows.polar.size
             packs[name] = _KernelRows(
@@ -591,8 +591,8 @@ class OrbitModel:
     def reference_epoch(self, name) -> float:
         """Reference epoch of a companion's phase, days since :attr:`epoch_jd`."""
         if self.velocity_only:
-            return float(self._vel.t_trend)
-        return float(np.mean(self._rows[name].t))
+            return float(self.velocity_rows.t_trend)
+        return float(np.mean(self.rows[name].t))
 
     def _layout(self):
         spec = self.spec
@@ -620,7 +620,7 @@ class OrbitModel:
                 prior = comp.semi_amplitude or DEFAULT_SEMI_AMPLITUDE_PRIOR
                 if self.primary_has_velocities:
                     params.append(_scale_parameter(f"{name}.k_primary", prior))
-                if np.any(self._vel.owner == k):
+                if np.any(self.velocity_rows.owner == k):
                     params.append(_scale_parameter(f"{name}.k_companion", prior))
                 continue
             if not (comp.inclination is not None and comp.inclination.is_fixed):
@@ -633,12 +633,12 @@ class OrbitModel:
                 prefix = "log10_" if transform == "log10" else ""
                 params.append(_Parameter(f"{name}.{prefix}mass", "", comp.mass, transform,
                                          0.0 if transform == "identity" else -np.inf))
-        if self._vel is not None:
+        if self.velocity_rows is not None:
             params.extend(self._velocity_layout())
         return params
 
     def _velocity_layout(self):
-        vel = self._vel
+        vel = self.velocity_rows
         params = []
         for label, offset, jitter in zip(vel.labels, vel.offsets, vel.jitters):
             if offset is None:
@@ -664,12 +664,12 @@ class OrbitModel:
 
     def _gaussian_normalisation(self) -> float:
         total = 0.0
-        for rows in self._rows.values():
+        for rows in self.rows.values():
             total -= np.sum(np.log(TWO_PI * rows.east_err * rows.north_err / rows.corr_factor))
             total -= np.sum(np.log(TWO_PI * rows.sep_err * rows.pa_err))
-        if self._vel is not None:
+        if self.velocity_rows is not None:
             # The jitter's share of the normalisation is in the residuals (see there).
-            total -= 0.5 * np.sum(np.log(TWO_PI * self._vel.err2))
+            total -= 0.5 * np.sum(np.log(TWO_PI * self.velocity_rows.err2))
         return float(total)
 
     # ------------------------------------------------------------- coordinates
@@ -747,7 +747,7 @@ class OrbitModel:
             # Kepler's third law, or its corrected form where the dynamics change it.
             a = self.dynamics.semi_major_axis(GM_SUN * (central + mass), period, orbit)
             orbit["semi_major_axis"] = a
-            if self._vel is not None:
+            if self.velocity_rows is not None:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     k_rel = KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
                         a, period, ecc, inc)
@@ -755,7 +755,7 @@ class OrbitModel:
                 orbit["k_primary"] = share * k_rel
                 orbit["k_companion"] = (1.0 - share) * k_rel
             out["companions"][name] = orbit
-        if self._vel is not None:
+        if self.velocity_rows is not None:
             out["rv"] = self._velocity_physical(col, n)
         return out
 
@@ -773,7 +773,7 @@ class OrbitModel:
                                for name, comp in self.companions.items()}}
 
     def _velocity_physical(self, col, n):
-        vel = self._vel
+        vel = self.velocity_rows
         n_inst = len(vel.labels)
         offset = np.zeros((n, n_inst))
         jitter = np.zeros((n, n_inst))
@@ -786,11 +786,11 @@ class OrbitModel:
             jitter[:, j] = self._scale_value(col, f"rv.{label}.jitter", vel.jitters[j], n)
         out = {"offset": offset, "jitter": jitter}
         for term in ("slope", "curvature"):
-            if f"rv.trend.{term}" in self._index:
+            if f"rv.trend.{term}" in self.column_of:
                 out[term] = col(f"rv.trend.{term}")
             else:
                 prior = getattr(self.spec, term)
-                used = self._trend_has(term) and prior is not None
+                used = self.trend_has(term) and prior is not None
                 out[term] = np.full(n, prior.value if used else 0.0)
         return out
 
@@ -799,7 +799,7 @@ class OrbitModel:
                 or term == "curvature" and self.spec.trend == "quadratic")
 
     def _has_name(self, *names) -> bool:
-        return any(name in self._index for name in names)
+        return any(name in self.column_of for name in names)
 
     def _scale_value(self, col, name, prior, n):
         """A positive quantity sampled directly, as log10, or fixed."""
@@ -812,7 +812,7 @@ class OrbitModel:
 
     def _column(self, theta):
         def col(name):
-            return theta[:, self._index[name]]
+            return theta[:, self.column_of[name]]
         return col
 
     # ----------------------------------------------------------------- priors
@@ -860,7 +860,7 @@ class OrbitModel:
             elif kind == "disc" and param.name.endswith("sqrt_e_sin_w"):
                 value, box = 0.0, (param.low, param.high)  # counted with its partner
             elif kind == "disc" and type(prior) is Uniform:
-                partner = self._index[param.name.replace("cos_w", "sin_w")]
+                partner = self.column_of[param.name.replace("cos_w", "sin_w")]
                 discs.append((k, partner, prior.low, prior.high))
                 value = -np.log(prior.high - prior.low) - np.log(np.pi)
                 box = (param.low, param.high)
@@ -909,7 +909,7 @@ class OrbitModel:
         elif param.transform == "disc":
             if param.name.endswith("sqrt_e_sin_w"):
                 return np.where(inside, 0.0, -np.inf)  # counted with its partner
-            k = theta[:, self._index[param.name.replace("cos_w", "sin_w")]]
+            k = theta[:, self.column_of[param.name.replace("cos_w", "sin_w")]]
             ecc = u * u + k * k
             # Uniform on the disc is uniform in e and omega: p(h, k) = p(e) / pi.
             value = param.prior.log_pdf(ecc) - np.log(np.pi)
@@ -935,9 +935,9 @@ class OrbitModel:
         phys = self.physical(theta, lenient=lenient)
         offsets = observed_offsets(self, phys)
         parts = []
-        for name, rows in self._rows.items():
+        for name, rows in self.rows.items():
             parts.append(self._astrometry_residuals(rows, offsets[name], phys["parallax"]))
-        if self._vel is not None:
+        if self.velocity_rows is not None:
             parts.append(self._velocity_residuals(phys))
         return np.concatenate(parts, axis=1)
 
@@ -956,7 +956,7 @@ class OrbitModel:
             companion's share: its reflex on the primary's rows, its own motion on its
             rows) and ``total``.
         """
-        vel = self._vel
+        vel = self.velocity_rows
         rv = phys["rv"]
         dt = vel.t[None, :] - vel.t_trend
         systemic = (rv["offset"][:, vel.instrument] + rv["slope"][:, None] * dt
@@ -964,7 +964,7 @@ class OrbitModel:
         total = systemic.copy()
         shares = {}
         for k, (name, orbit) in enumerate(phys["companions"].items()):
-            shape = self._velocity_shape(name, orbit)
+            shape = self.velocity_shape(name, orbit)
             k_primary = orbit.get("k_primary", np.zeros(shape.shape[0]))[:, None]
             k_companion = orbit.get("k_companion", np.zeros(shape.shape[0]))[:, None]
             # v_primary = gamma - K1 f; a companion's own = v_primary + (K1 + K2) f.
@@ -978,7 +978,7 @@ class OrbitModel:
     def _velocity_shape(self, name, orbit, t=None):
         """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
         column = {key: value[:, None] for key, value in orbit.items()}
-        t = self._vel.t if t is None else t
+        t = self.velocity_rows.t if t is None else t
         mean = column["mean_anomaly_ref"] + TWO_PI * (
             t[None, :] - self.reference_epoch(name)) / column["period"]
         ecc = column["ecc"]
@@ -992,7 +992,7 @@ class OrbitModel:
         return cos_w * (cos_nu + ecc) - sin_w * sin_nu
 
     def _velocity_residuals(self, phys):
-        vel = self._vel
+        vel = self.velocity_rows
         model = self.velocity_parts(phys)["total"]
         jitter2 = phys["rv"]["jitter"][:, vel.instrument] ** 2
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -1013,11 +1013,11 @@ class OrbitModel:
         -------
         east, north : ndarray, shape (n, n_rows)
             In each row's own units (arcsec, or au for length rows), rows in the order
-            of ``model._rows[name].index``.
+            of ``model.rows[name].index``.
         """
         phys = self.physical(np.atleast_2d(theta))
         east, north = observed_offsets(self, phys)[name]
-        return self._scaled(self._rows[name], east, north, phys["parallax"])
+        return self._scaled(self.rows[name], east, north, phys["parallax"])
 
     def _scaled(self, rows, east, north, parallax):
         scale = np.broadcast_to(rows.scale, east.shape)
@@ -1042,7 +1042,7 @@ class OrbitModel:
     def log_likelihood(self, theta):
         """Gaussian log-likelihood, normalisation included, shape (n,)."""
         theta = np.atleast_2d(theta)
-        if self._kernel_rows is not None and kepler._fast is not None:
+        if self._kernel_rows is not None and kepler.numba_kernel is not None:
             chi2 = self._chi2_fused(theta)
         else:
             res = self.residuals(theta)
@@ -1064,7 +1064,7 @@ class OrbitModel:
                         for key in ("period", "mean_anomaly_ref", "ecc", "semi_major_axis",
                                     "inc", "omega", "node")]
             period, m0, ecc, a, inc, omega, node = elements
-            kepler._fast.astrometry_chi2(
+            kepler.numba_kernel.astrometry_chi2(
                 pack.dt, period, m0, ecc, a, inc, omega, node, parallax_scale, pack.scale,
                 pack.uses_parallax, pack.n_cart, pack.obs1, pack.obs2, pack.err1,
                 pack.err2, pack.corr, pack.corr_factor, chi2)
@@ -1151,7 +1151,7 @@ class OrbitModel:
         kinds = ("phase",) if self.velocity_only else ("node", "phase")
         for name in self.companions:
             for kind in kinds:
-                k = self._index[f"{name}.{kind}"]
+                k = self.column_of[f"{name}.{kind}"]
                 self.centres[name][kind] = float(theta[k])
         return theta
 

@@ -22,13 +22,16 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.orbits import kepler
+from massfit.orbits.kepler import orbit_axes
 
 from massfit.orbits import viewing
 from massfit.constants import C_AU_PER_DAY
 
-__all__ = ["Keplerian", "orbit_state", "orbit_axes", "observed_offsets", "romer_factor"]
+__all__ = ["Keplerian", "orbit_state", "orbit_axes", "elements_of_state", "observed_offsets",
+           "romer_factor"]
 
 TWO_PI = 2.0 * np.pi
+LN10 = np.log(10.0)
 
 
 def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_velocity=True):
@@ -75,18 +78,53 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     return position, velocity
 
 
-def orbit_axes(inc, omega, node):
-    """Unit vectors P (towards periapsis) and Q (a quarter-turn ahead), as the
-    triples (north, east, z) of the sky frame, or (x, y, z) of ICRS axes."""
-    cw, sw = np.cos(omega), np.sin(omega)
+def _cross(a, b):
+    """Row-wise cross product, components in the order given (north, east, z)."""
+    return np.column_stack([a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1],
+                            a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2],
+                            a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]])
+
+
+def elements_of_state(r, v, gm):
+    """Two-body elements of relative states, and log |d(model coords) / d(r, v)|.
+
+    ``r`` (au) and ``v`` (au/day) have rows of (north, east, z); ``gm`` is in
+    au^3/day^2. Returns (period, ecc, cos i, node, omega, mean anomaly), each shape (n,),
+    and the log-Jacobian (-inf for unbound orbits).
+
+    The frame's unit vectors follow :func:`massfit.orbits.dynamics.orbit_state`: with the cross
+    product taken in the order (north, east, z), the orbit normal is
+    (sin node sin i, -cos node sin i, cos i), the ascending node lies along
+    (cos node, sin node, 0) and a quarter-turn ahead of it in the orbit is
+    (-cos i sin node, cos i cos node, sin i).
+    """
+    radius = np.sqrt(np.sum(r * r, axis=1))
+    speed2 = np.sum(v * v, axis=1)
+    energy = 0.5 * speed2 - gm / radius
+    a = -gm / (2.0 * energy)
+    h = _cross(r, v)
+    h_norm = np.sqrt(np.sum(h * h, axis=1))
+    cos_inc = h[:, 2] / h_norm
+    sin_inc = np.sqrt(np.maximum(1.0 - cos_inc * cos_inc, 0.0))
+    node = np.arctan2(h[:, 0], -h[:, 1])
+    e_vec = _cross(v, h) / gm[:, None] - r / radius[:, None]
+    ecc = np.sqrt(np.sum(e_vec * e_vec, axis=1))
     cn, sn = np.cos(node), np.sin(node)
-    ci, si = np.cos(inc), np.sin(inc)
-    p_vec = (cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si)
-    q_vec = (-sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si)
-    return p_vec, q_vec
-
-
-_pq = orbit_axes  # the name the perturbed models import
+    n_hat = np.column_stack([cn, sn, np.zeros_like(cn)])
+    m_hat = np.column_stack([-cos_inc * sn, cos_inc * cn, sin_inc])
+    omega = np.arctan2(np.sum(e_vec * m_hat, axis=1), np.sum(e_vec * n_hat, axis=1))
+    latitude = np.arctan2(np.sum(r * m_hat, axis=1), np.sum(r * n_hat, axis=1))
+    nu = latitude - omega
+    big_e = 2.0 * np.arctan2(np.sqrt(1.0 - ecc) * np.sin(0.5 * nu),
+                             np.sqrt(1.0 + ecc) * np.cos(0.5 * nu))
+    mean_anomaly = big_e - ecc * np.sin(big_e)
+    period = TWO_PI * np.sqrt(a ** 3 / gm)
+    # log |d theta / d(r, v)| = log[3 / (4 a ln10)] - log[mu^1.5 a^0.5 e / 2]
+    log_jac = (np.log(3.0 / (2.0 * LN10)) - 1.5 * np.log(gm) - 1.5 * np.log(a)
+               - np.log(ecc))
+    bound = (energy < 0) & (ecc < 1.0) & (h_norm > 0)
+    log_jac = np.where(bound, log_jac, -np.inf)
+    return (period, ecc, cos_inc, node, omega, mean_anomaly), log_jac
 
 
 class Keplerian:
@@ -140,7 +178,7 @@ class Keplerian:
         Without velocities the fused kernel gives east and north only (z is None).
         """
         out = {}
-        for name, rows in model._rows.items():
+        for name, rows in model.rows.items():
             if want_velocity:
                 out[name] = self.states_at(model, phys, name, rows.t)
                 continue
@@ -209,7 +247,7 @@ def observed_offsets(model, phys) -> dict:
                                    want_velocity=delayed or sight is not None)
     out = {}
     for name, (position, velocity) in states.items():
-        rows = model._rows[name]
+        rows = model.rows[name]
         factor = romer_factor(phys["central_mass"], phys["companions"][name]["mass"])
         east, north = _seen(position, velocity, factor if delayed else None,
                             getattr(rows, "sight", None))

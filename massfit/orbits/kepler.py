@@ -16,6 +16,7 @@ import numpy as np
 
 __all__ = [
     "solve_kepler",
+    "orbit_axes",
     "solve_kepler_numpy",
     "kepler_cs",
     "sky_offsets",
@@ -89,9 +90,9 @@ except ImportError:  # pragma: no cover - exercised where numba is absent
 HAVE_NUMBA = _numba is not None
 
 if HAVE_NUMBA:
-    from massfit.orbits import _kepler_numba as _fast
+    from massfit.orbits import _kepler_numba as numba_kernel
 else:  # pragma: no cover
-    _fast = None
+    numba_kernel = None
 
 
 def kepler_cs(mean_anomaly, ecc):
@@ -112,7 +113,7 @@ def kepler_cs(mean_anomaly, ecc):
     E, cos_E, sin_E : ndarray
         Broadcast shape of the inputs.
     """
-    if _fast is None:
+    if numba_kernel is None:
         return _kepler_cs_numpy(mean_anomaly, ecc)
     m, e = np.broadcast_arrays(np.asarray(mean_anomaly, dtype=float),
                                np.asarray(ecc, dtype=float))
@@ -120,7 +121,7 @@ def kepler_cs(mean_anomaly, ecc):
     m = np.ascontiguousarray(m).ravel()
     e = np.ascontiguousarray(e).ravel()
     big_e, cos_e, sin_e = np.empty_like(m), np.empty_like(m), np.empty_like(m)
-    _fast.solve(m, e, big_e, cos_e, sin_e)
+    numba_kernel.solve(m, e, big_e, cos_e, sin_e)
     return big_e.reshape(shape), cos_e.reshape(shape), sin_e.reshape(shape)
 
 
@@ -142,7 +143,7 @@ def solve_kepler(mean_anomaly, ecc):
     ndarray
         Eccentric anomaly in radians.
     """
-    if _fast is None:
+    if numba_kernel is None:
         return solve_kepler_numpy(mean_anomaly, ecc)
     return kepler_cs(mean_anomaly, ecc)[0]
 
@@ -179,13 +180,13 @@ def sky_offsets(t, period, ecc, mean_anomaly_ref, a, inc, omega, node, *, t_ref=
     big_a, big_b, big_f, big_g = thiele_innes(a, inc, omega, node)
     root = np.sqrt(1.0 - ecc * ecc)
     motion = TWO_PI / period
-    use_fast = _fast is not None if compiled is None else bool(compiled)
+    use_fast = numba_kernel is not None if compiled is None else bool(compiled)
     if use_fast:
-        if _fast is None:
+        if numba_kernel is None:
             raise RuntimeError("the compiled kernel needs numba, which is not installed")
         east = np.empty((period.size, t.size))
         north = np.empty_like(east)
-        _fast.sky(t - t_ref, motion, m0, ecc, root, big_a, big_b, big_f, big_g, east, north)
+        numba_kernel.sky(t - t_ref, motion, m0, ecc, root, big_a, big_b, big_f, big_g, east, north)
         return east, north
     col = (lambda v: v[:, None])
     _, cos_e, sin_e = _kepler_cs_numpy(col(m0) + col(motion) * (t[None, :] - t_ref),
@@ -281,3 +282,14 @@ def relative_orbit(t, period, ecc, mean_anomaly_ref, a, inc, omega, node,
     e_dot = (TWO_PI / period) / (1.0 - ecc * cos_e)
     vz = a * sin_i * e_dot * (-sin_e * np.sin(omega) + root * cos_e * np.cos(omega))
     return east, north, z, vz
+
+
+def orbit_axes(inc, omega, node):
+    """Unit vectors P (towards periapsis) and Q (a quarter-turn ahead), as the
+    triples (north, east, z) of the sky frame, or (x, y, z) of ICRS axes."""
+    cw, sw = np.cos(omega), np.sin(omega)
+    cn, sn = np.cos(node), np.sin(node)
+    ci, si = np.cos(inc), np.sin(inc)
+    p_vec = (cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si)
+    q_vec = (-sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si)
+    return p_vec, q_vec

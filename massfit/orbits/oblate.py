@@ -304,7 +304,7 @@ class Oblate(Keplerian):
             gm = oblate_gm(orbit["semi_major_axis"], orbit["period"], orbit["ecc"],
                            np.arccos(cos_i[name]), self.j2, self.radius_au)
             central.append(gm / GM_SUN - orbit.get("mass", 0.0))
-        weights = np.array([len(model._rows[name].t) for name in names], dtype=float)
+        weights = np.array([len(model.rows[name].t) for name in names], dtype=float)
         values["central_mass"] = float(np.exp(np.sum(weights * np.log(np.maximum(
             central, 1e-30))) / np.sum(weights)))
         for name in names:
@@ -330,7 +330,7 @@ class Oblate(Keplerian):
 
     def states(self, model, phys, *, want_velocity=False) -> dict:
         out = {}
-        for name, rows in model._rows.items():
+        for name, rows in model.rows.items():
             orbit = {key: value[:, None] for key, value in phys["companions"][name].items()}
             out[name] = self._state(orbit, rows.t[None, :] - model.reference_epoch(name),
                                     want_velocity)
@@ -476,14 +476,14 @@ def simulate_equatorial_moons(path, *, seed=7, half_span=90.0, n_obs=60, err_km=
     from astropy.table import Table
     from astropy.time import Time
 
-    from massfit.orbits.dynamics import _pq
+    from massfit.orbits.dynamics import orbit_axes
 
     rng = np.random.default_rng(seed)
     day = 86400.0
     gm = 1.05e8 * day ** 2  # km^3/day^2
     j2, radius = 0.018, 64_000.0
     inc, node = np.radians(63.0), np.radians(38.0)
-    p_vec, q_vec = (np.array(v) for v in _pq(inc, 0.0, node))
+    p_vec, q_vec = (np.array(v) for v in orbit_axes(inc, 0.0, node))
     rows, guesses = [], {}
     t0 = 2462000.0
     for k, (r0, ecc, phase) in enumerate([(2.6 * radius, 0.012, 0.4),

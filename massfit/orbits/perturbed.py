@@ -231,7 +231,7 @@ class Perturbed(Keplerian):
                            np.arccos(cos_i), self.figure["j2"],
                            self.figure["radius_km"] / AU_KM)
             logs.append(np.log(gm / GM_SUN))
-            weights.append(len(model._rows[name].t))
+            weights.append(len(model.rows[name].t))
         return float(np.exp(np.average(logs, weights=weights)))
 
     def _start_mass(self, model, name, share, total):
@@ -243,7 +243,7 @@ class Perturbed(Keplerian):
     def _osculating(self, model, values, name, flip, central, mass):
         """The two-body orbit's state at the epoch, as osculating elements under the
         new masses (mirrored through the sky plane when ``flip``)."""
-        from massfit.sample.reparameterisation import elements_of_state
+        from massfit.orbits.dynamics import elements_of_state
 
         orbit = values[name]
         t0 = self._epoch_shift(model)
@@ -290,7 +290,7 @@ class Perturbed(Keplerian):
     def states(self, model, phys, *, want_velocity=False) -> dict:
         from massfit.orbits.nbody import integrate_system
 
-        names = list(model._rows)
+        names = list(model.rows)
         orbits = {name: phys["companions"][name] for name in names}
         masses = np.column_stack([orbits[name]["mass"] for name in names])
         t0 = self._epoch_shift(model)
@@ -308,7 +308,7 @@ class Perturbed(Keplerian):
             pos0[:, k] = np.column_stack(position)
             vel0[:, k] = np.column_stack(velocity)
         field = self._field(model, orbits, masses.shape[0])
-        all_t = np.concatenate([model._rows[name].t for name in names]) - t0
+        all_t = np.concatenate([model.rows[name].t for name in names]) - t0
         unique_t, where = np.unique(all_t, return_inverse=True)
         positions = np.full(masses.shape + (unique_t.size, 3), np.nan)
         velocities = np.full_like(positions, np.nan)
@@ -320,7 +320,7 @@ class Perturbed(Keplerian):
                 rtol=self.rtol, compiled=self.compiled, field=field[good])
         out, start = {}, 0
         for k, name in enumerate(names):
-            rows = where[start:start + model._rows[name].t.size]
+            rows = where[start:start + model.rows[name].t.size]
             start += rows.size
             pos = positions[:, k][:, rows]
             vel = velocities[:, k][:, rows]

@@ -272,7 +272,7 @@ def orientation_in_icrs(inc, omega, node, toward):
     toward = toward / np.linalg.norm(toward)
     ra = np.arctan2(toward[1], toward[0])
     dec = np.arcsin(toward[2])
-    from massfit.orbits.dynamics import orbit_axes
+    from massfit.orbits.kepler import orbit_axes
 
     d_vec, e_vec, n_vec = (v[0] for v in sky_basis(ra, dec))
     p_sky, q_sky = orbit_axes(inc, omega, node)

@@ -144,7 +144,7 @@ class AssumedSystem:
         Arcsec through the per-row distance (pc) where it is finite, else through the
         parallax; au where ``length`` is true.
         """
-        from massfit.scenarios.simulate import _orbit_au
+        from massfit.scenarios.simulate import orbit_au
 
         names = np.asarray(names)
         east = np.empty(names.size)
@@ -158,7 +158,7 @@ class AssumedSystem:
             has_d = np.isfinite(d) & (not length)
             if light_time:
                 t = t - np.where(has_d, d * LIGHT_DAYS_PER_PC, 0.0)
-            e_au, n_au, _, _, _ = _orbit_au(el, t, self.mass_msun())
+            e_au, n_au, _, _, _ = orbit_au(el, t, self.mass_msun())
             if length:
                 scale = np.ones(t.size)
             else:
@@ -241,8 +241,8 @@ class Schedule:
         """
         from massfit.constants import parse_quantity
 
-        t0 = _parse_time(start, time_format, time_scale, key=f"{key_prefix}start")
-        t1 = _parse_time(stop, time_format, time_scale, key=f"{key_prefix}stop")
+        t0 = parse_time(start, time_format, time_scale, key=f"{key_prefix}start")
+        t1 = parse_time(stop, time_format, time_scale, key=f"{key_prefix}stop")
         dt = parse_quantity(step, expect=u.day, key=f"{key_prefix}every").to_value(u.day)
         if dt <= 0:
             raise ConfigError("the cadence must be positive", key=f"{key_prefix}every")
@@ -319,7 +319,7 @@ def _empty_schedule(unit) -> Schedule:
 
 
 # =============================================================== schedule files
-def _parse_time(value, time_format, time_scale, *, key):
+def parse_time(value, time_format, time_scale, *, key):
     if isinstance(value, Time):
         return value
     if time_scale is None:
@@ -620,7 +620,7 @@ def _jacobian(model, theta):
 def _residual_rows(model, width):
     """Observation row of each of the ``width`` whitened residual columns."""
     parts = []
-    for rows in model._rows.values():
+    for rows in model.rows.values():
         cart = rows.index[rows.cart]
         polar = rows.index[rows.polar]
         parts.extend([cart, cart, polar, polar])
@@ -1507,14 +1507,14 @@ def fit_scatter(system: AssumedSystem, schedule: Schedule, *, realisations: int 
         ``gm_relative_sigma`` (sample standard deviation of ln GM), ``its_error``
         (its own standard error, sigma / sqrt(2 (n - 1))), ``fits`` and ``failed``.
     """
-    from massfit.start.search import _least_squares
+    from massfit.start.search import solve_least_squares
 
     masses = []
     failed = 0
     for k in range(realisations):
         spec = system.simulated_spec(seed + k)
         model = OrbitModel(simulated_observations(system, schedule, seed=seed + k), spec)
-        theta = _least_squares(model, system.physical(model))
+        theta = solve_least_squares(model, system.physical(model))
         if theta is None:
             failed += 1
             continue

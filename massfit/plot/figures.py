@@ -360,7 +360,7 @@ class _SkyFrame:
 
     def __init__(self, model, name, best_phys):
         data = model.observations.astrometry
-        rows = model._rows[name]
+        rows = model.rows[name]
         idx = rows.index
         self.name = name
         self.index = idx
@@ -713,7 +713,7 @@ def equator_residual_plot(result, *, companions=None, width=None):
                 d_e, d_n = (d_e * np.cos(angle) - d_n * np.sin(angle),
                             d_e * np.sin(angle) + d_n * np.cos(angle))
             factor, unit = _SkyFrame.display(3 * float(np.median(err)), frame.angle)
-            years = _jyear(model.epoch_jd + model._rows[name].t)
+            years = _jyear(model.epoch_jd + model.rows[name].t)
             for values, word, colour, marker in ((d_e, words[0], "C0", "o"),
                                                  (d_n, words[1], "C1", "s")):
                 ax.errorbar(years, values * factor, yerr=err * factor, fmt=marker, ms=2.5,
@@ -876,7 +876,7 @@ class _VelocityView:
         if not model.has_velocities:
             raise ConfigError("this fit has no radial velocities to plot", key="figures")
         self.model = model
-        self.vel = vel = model._vel
+        self.vel = vel = model.velocity_rows
         self.names = list(model.companions)
         self.phys = model.physical(best_sample(result)[None, :])
         self.parts = model.velocity_parts(self.phys)
@@ -906,7 +906,7 @@ class _VelocityView:
         base = self.reference + rv["slope"][0] * dt + rv["curvature"][0] * dt * dt
         reflex, own = np.zeros_like(t), {}
         for name, orbit in self.phys["companions"].items():
-            shape = model._velocity_shape(name, orbit, t)[0]
+            shape = model.velocity_shape(name, orbit, t)[0]
             k1 = float(orbit.get("k_primary", np.zeros(1))[0])
             k2 = float(orbit.get("k_companion", np.zeros(1))[0])
             reflex -= k1 * shape
@@ -1062,7 +1062,7 @@ def _phase_curve(model, name, orbit, phase):
     # Times whose mean anomaly runs from 0 to 2 pi.
     t = model.reference_epoch(name) + (2 * np.pi * phase - orbit["mean_anomaly_ref"]) \
         * period / (2 * np.pi)
-    return model._velocity_shape(name, fake, t)[0]
+    return model.velocity_shape(name, fake, t)[0]
 
 
 FIGURES["rv"] = velocity_plot

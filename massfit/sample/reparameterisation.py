@@ -61,8 +61,10 @@ import numpy as np
 
 from massfit.constants import GM_SUN
 from massfit.orbits.dynamics import orbit_state
+from massfit.orbits.dynamics import elements_of_state
 
 __all__ = ["SamplerCoordinates", "ARC_FRACTION", "elements_of_state"]
+
 
 TWO_PI = 2.0 * np.pi
 LN10 = np.log(10.0)
@@ -141,7 +143,7 @@ class SamplerCoordinates:
         for name in model.companions:
             if not all(f"{name}.{c}" in model.names for c in _ELEMENTS):
                 continue
-            t = model._rows[name].t
+            t = model.rows[name].t
             span = float(np.max(t) - np.min(t)) if t.size else 0.0
             orbit = phys["companions"][name]
             if span < arc_fraction * float(orbit["period"][0]):
@@ -295,52 +297,3 @@ def _two_body_states(model, theta, bodies):
                                          TWO_PI / period)
         out[body] = (np.column_stack(position), np.column_stack(velocity))
     return out
-
-
-def _cross(a, b):
-    """Row-wise cross product, components in the order given (north, east, z)."""
-    return np.column_stack([a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1],
-                            a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2],
-                            a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]])
-
-
-def elements_of_state(r, v, gm):
-    """Two-body elements of relative states, and log |d(model coords) / d(r, v)|.
-
-    ``r`` (au) and ``v`` (au/day) have rows of (north, east, z); ``gm`` is in
-    au^3/day^2. Returns (period, ecc, cos i, node, omega, mean anomaly), each shape (n,),
-    and the log-Jacobian (-inf for unbound orbits).
-
-    The frame's unit vectors follow :func:`massfit.orbits.dynamics.orbit_state`: with the cross
-    product taken in the order (north, east, z), the orbit normal is
-    (sin node sin i, -cos node sin i, cos i), the ascending node lies along
-    (cos node, sin node, 0) and a quarter-turn ahead of it in the orbit is
-    (-cos i sin node, cos i cos node, sin i).
-    """
-    radius = np.sqrt(np.sum(r * r, axis=1))
-    speed2 = np.sum(v * v, axis=1)
-    energy = 0.5 * speed2 - gm / radius
-    a = -gm / (2.0 * energy)
-    h = _cross(r, v)
-    h_norm = np.sqrt(np.sum(h * h, axis=1))
-    cos_inc = h[:, 2] / h_norm
-    sin_inc = np.sqrt(np.maximum(1.0 - cos_inc * cos_inc, 0.0))
-    node = np.arctan2(h[:, 0], -h[:, 1])
-    e_vec = _cross(v, h) / gm[:, None] - r / radius[:, None]
-    ecc = np.sqrt(np.sum(e_vec * e_vec, axis=1))
-    cn, sn = np.cos(node), np.sin(node)
-    n_hat = np.column_stack([cn, sn, np.zeros_like(cn)])
-    m_hat = np.column_stack([-cos_inc * sn, cos_inc * cn, sin_inc])
-    omega = np.arctan2(np.sum(e_vec * m_hat, axis=1), np.sum(e_vec * n_hat, axis=1))
-    latitude = np.arctan2(np.sum(r * m_hat, axis=1), np.sum(r * n_hat, axis=1))
-    nu = latitude - omega
-    big_e = 2.0 * np.arctan2(np.sqrt(1.0 - ecc) * np.sin(0.5 * nu),
-                             np.sqrt(1.0 + ecc) * np.cos(0.5 * nu))
-    mean_anomaly = big_e - ecc * np.sin(big_e)
-    period = TWO_PI * np.sqrt(a ** 3 / gm)
-    # log |d theta / d(r, v)| = log[3 / (4 a ln10)] - log[mu^1.5 a^0.5 e / 2]
-    log_jac = (np.log(3.0 / (2.0 * LN10)) - 1.5 * np.log(gm) - 1.5 * np.log(a)
-               - np.log(ecc))
-    bound = (energy < 0) & (ecc < 1.0) & (h_norm > 0)
-    log_jac = np.where(bound, log_jac, -np.inf)
-    return (period, ecc, cos_inc, node, omega, mean_anomaly), log_jac

@@ -32,7 +32,7 @@ class Elements(dict):
     """
 
 
-def _orbit_au(elements, t_jd, central_mass):
+def orbit_au(elements, t_jd, central_mass):
     mass = elements.get("mass", 0.0)
     period = elements["period"]
     a = np.cbrt(GM_SUN * (central_mass + mass) * period ** 2 / (4 * np.pi ** 2))
@@ -84,7 +84,7 @@ def simulate_astrometry(times, elements, central_mass, *, parallax=None, distanc
             dist_pc = distance[name].to_value(u.pc)
             if light_time:
                 t_jd = t_jd - dist_pc * LIGHT_DAYS_PER_PC
-        east, north, _, _, _ = _orbit_au(elements[name], t_jd, central_mass)
+        east, north, _, _, _ = orbit_au(elements[name], t_jd, central_mass)
         if dist_pc is not None:
             unit, scale = u.arcsec, 1.0 / dist_pc
         elif parallax is not None:
@@ -158,7 +158,7 @@ def simulate_velocities(times, elements, central_mass, *, primary="primary",
         t_jd = tdb_jd(t)
         v = gamma.to_value(u.km / u.s) + slope.to_value(u.km / u.s / u.day) * (t_jd - t_mid)
         for other, el in elements.items():
-            vz = _orbit_au(el, t_jd, central_mass)[3] * KM_S_PER_AU_DAY
+            vz = orbit_au(el, t_jd, central_mass)[3] * KM_S_PER_AU_DAY
             mass = el.get("mass", 0.0)
             v = v - mass / (central_mass + mass) * vz
             if other == name:

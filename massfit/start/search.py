@@ -121,7 +121,7 @@ class Start:
         # The best fit can sit on the edge of several priors at once (short arcs run
         # to the largest period, mass and eccentricity allowed), where a ball about it
         # is mostly outside: fall back on a tiny box ball pulled inside the bounds.
-        low, high = _bounds(model)
+        low, high = parameter_bounds(model)
         width = np.where(np.isfinite(high - low), high - low, 1.0)
         for _ in range(20):
             trial = self.theta + 1e-6 * width * rng.standard_normal((4 * n_walkers,
@@ -213,7 +213,7 @@ def _mode_record(model, joint, values):
     """
     theta, chi2, covariance = joint
     model.recentre(theta)
-    low, high = _bounds(model)
+    low, high = parameter_bounds(model)
     phys = model.physical(theta[None, :])
     names = model.names
     periods, sd = {}, {}
@@ -257,7 +257,7 @@ def _perturbed_start(model):
                 if not comp.mass.low < mass < comp.mass.high:
                     candidate[name] = dict(candidate[name],
                                            mass=_inside(comp.mass, _prior_centre(comp.mass)))
-        theta = _least_squares(model, candidate, rounds=3)
+        theta = solve_least_squares(model, candidate, rounds=3)
         if theta is None:
             continue
         chi2 = _chi2(model, theta)
@@ -344,14 +344,14 @@ def _sight_start(model):
                   for turn in (0.0, np.pi)]
         chosen[name] = (0.0, np.pi)[int(np.argmin(scores))]
         trial = turned(trial, name, chosen[name])
-    best = _least_squares(model, trial, rounds=3)
+    best = solve_least_squares(model, trial, rounds=3)
     best_chi2 = np.inf if best is None else _chi2(model, best)
     for name in model.companions:
         if best is not None and _acceptable(model, best, best_chi2):
             break
         other = turned(_values_from_theta(model, best) if best is not None else trial,
                        name, np.pi - chosen[name])
-        theta = _least_squares(model, other, rounds=3)
+        theta = solve_least_squares(model, other, rounds=3)
         if theta is not None and _chi2(model, theta) < best_chi2:
             best, best_chi2 = theta, _chi2(model, theta)
     if best is None:
@@ -408,7 +408,7 @@ def _staged_start(model, progress=None):
     screened = []
     for candidate in dynamics.from_two_body(model, values):
         candidate = _shift_phases(candidate, model, models[0])
-        theta = _least_squares(models[0], candidate, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
+        theta = solve_least_squares(models[0], candidate, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
         if theta is not None:
             screened.append((_chi2(models[0], theta), _values_from_theta(models[0], theta)))
     screened.sort(key=lambda c: c[0])
@@ -433,7 +433,7 @@ def _run_stages(models, values, limit, say, rank):
         if k:
             values = _shift_phases(values, models[k - 1], stage)
         capped = []
-        theta = _least_squares(stage, values, rounds=2, max_nfev=limit, capped=capped)
+        theta = solve_least_squares(stage, values, rounds=2, max_nfev=limit, capped=capped)
         if theta is None:
             say(f"candidate {rank + 1}, stage {k + 1}/{len(models)}: least squares failed")
             return None, notes
@@ -454,14 +454,14 @@ def _stage_windows(model, values):
     """Half-widths (days) of the stages' windows about the model's epoch, the last one
     covering all rows: from 1/16 of the span (at least two of the longest periods),
     doubling; a window of more than 3/4 of the whole is left to the last stage."""
-    t = np.concatenate([rows.t for rows in model._rows.values()])
+    t = np.concatenate([rows.t for rows in model.rows.values()])
     full = float(np.max(np.abs(t)))
     longest = max(values[name]["period"] for name in model.companions)
     half = max(full / 16.0, 2.0 * longest)
     out = []
     while half < 0.75 * full:
         if all(np.sum(np.abs(rows.t) <= half) >= _STAGE_ROWS
-               for rows in model._rows.values()):
+               for rows in model.rows.values()):
             out.append(half)
         half *= 2.0
     return out + [full]
@@ -611,7 +611,7 @@ def _parallax_guess(prior):
 
 def _offsets_au(sub, name):
     """East/north offsets in au-equivalent units (for the linear stage only)."""
-    rows = sub._rows[name]
+    rows = sub.rows[name]
     parallax = sub.spec.parallax.value if sub.needs_parallax else 1.0
     scale = rows.scale * np.where(rows.uses_parallax, parallax * 1e-3, 1.0)
     n = len(rows.t)
@@ -706,10 +706,10 @@ def _polish_single(sub, name, values, *, give_up_above=np.inf):
     values = dict(values, **{name: orbit})
     values["central_mass"] = max(values["central_mass"] - orbit["mass"], 1e-30)
     if np.isfinite(give_up_above):
-        first = _least_squares(sub, values, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
+        first = solve_least_squares(sub, values, rounds=1, max_nfev=_SCREEN_EVALUATIONS)
         if first is None or _chi2(sub, first) > give_up_above:
             return None
-    theta = _least_squares(sub, values)
+    theta = solve_least_squares(sub, values)
     if theta is None:
         return None
     chi2 = _chi2(sub, theta)
@@ -742,7 +742,7 @@ def _distinct(solutions):
 
 
 # ------------------------------------------------------------- least squares
-def _bounds(model):
+def parameter_bounds(model):
     low = np.empty(model.n_dim)
     high = np.empty(model.n_dim)
     for k, param in enumerate(model.parameters):
@@ -770,7 +770,7 @@ def _prior_residuals(model, theta):
     return np.array(out)
 
 
-def _residual_function(model):
+def residual_function(model):
     def fun(theta):
         return _batch_residuals(model, theta[None, :])[0]
     return fun
@@ -834,15 +834,15 @@ def _rows(model) -> int:
     return sum(len(part) for part in (obs.astrometry, obs.velocities) if part is not None)
 
 
-def _least_squares(model, values, *, rounds=2, max_nfev=None, capped=None):
+def solve_least_squares(model, values, *, rounds=2, max_nfev=None, capped=None):
     """Polish physical starting values; returns sampled coordinates or None.
 
     ``capped``, a list, gets an entry for each pass that stopped at ``max_nfev``."""
     model.recentre(_centre_guess(model, values))
     theta = model.from_physical(values)
-    fun = _residual_function(model)
+    fun = residual_function(model)
     for _ in range(rounds):
-        low, high = _bounds(model)
+        low, high = parameter_bounds(model)
         width = np.where(np.isfinite(high - low), high - low, 1.0)
         theta = np.clip(theta, low + 1e-9 * width, high - 1e-9 * width)
         try:
@@ -866,8 +866,8 @@ def _centre_guess(model, values):
     for name in model.companions:
         orbit = values[name]
         if not model.velocity_only:
-            theta[model._index[f"{name}.node"]] = orbit["node"]
-        theta[model._index[f"{name}.phase"]] = orbit["mean_anomaly_ref"] + orbit["omega"]
+            theta[model.column_of[f"{name}.node"]] = orbit["node"]
+        theta[model.column_of[f"{name}.phase"]] = orbit["mean_anomaly_ref"] + orbit["omega"]
     return theta
 
 
@@ -885,7 +885,7 @@ def _values_from_theta(model, theta):
         values[name]["ecc"] = min(values[name]["ecc"], top)
     if "rv" in phys:
         rv = phys["rv"]
-        labels = model._vel.labels
+        labels = model.velocity_rows.labels
         values["rv"] = {"offset": dict(zip(labels, rv["offset"][0])),
                         "jitter": dict(zip(labels, rv["jitter"][0])),
                         "slope": float(rv["slope"][0]),
@@ -905,9 +905,9 @@ def _joint_polish(model, chosen):
         values["parallax"] = _parallax_guess(model.spec.parallax)
     for name, sol in chosen.items():
         values[name] = dict(sol["orbit"])
-    if model._vel is not None:
+    if model.velocity_rows is not None:
         values = _with_velocities(model, values)
-    theta = _least_squares(model, values, rounds=3)
+    theta = solve_least_squares(model, values, rounds=3)
     if theta is None:
         return None, np.inf, None
     return theta, _chi2(model, theta), _covariance(model, theta)
@@ -917,7 +917,7 @@ def _joint_mass(model, chosen):
     # Weight each companion's own mass estimate by its number of rows: a rough but
     # robust start; the joint least squares does the real combining.
     masses = np.array([sol["central_mass"] for sol in chosen.values()])
-    weights = np.array([len(model._rows[name].t) for name in chosen])
+    weights = np.array([len(model.rows[name].t) for name in chosen])
     return float(np.exp(np.sum(weights * np.log(masses)) / np.sum(weights)))
 
 
@@ -941,7 +941,7 @@ def _velocity_fit(model, bases):
     fitted velocities); coefficients are keyed ("offset", label), ("slope", None),
     ("curvature", None) and (name, "primary" or "own", index of the function).
     """
-    vel = model._vel
+    vel = model.velocity_rows
     sigma = np.sqrt(vel.err2)
     cols, keys = [], []
     for j, label in enumerate(vel.labels):
@@ -949,7 +949,7 @@ def _velocity_fit(model, bases):
         keys.append(("offset", label))
     dt = vel.t - vel.t_trend
     for term, power in (("slope", 1), ("curvature", 2)):
-        if model._trend_has(term):
+        if model.trend_has(term):
             cols.append(dt ** power)
             keys.append((term, None))
     primary = vel.owner < 0
@@ -983,7 +983,7 @@ def _inside(prior, value):
 
 def _velocity_nuisance(model, coef, fitted):
     """Starting offsets, trend and jitters from a linear fit."""
-    vel = model._vel
+    vel = model.velocity_rows
     rv = {"offset": {}, "jitter": {}, "slope": coef.get(("slope", None), 0.0),
           "curvature": coef.get(("curvature", None), 0.0)}
     for j, label in enumerate(vel.labels):
@@ -1040,8 +1040,8 @@ def _velocity_sub_model(model, names):
 
 def _velocity_candidates(sub, name, found):
     """Polished solutions for ``name`` with the companions in ``found`` kept in."""
-    vel = sub._vel
-    fixed = {n: [sub._velocity_shape(n, _one(orbit))[0]] for n, orbit in found.items()}
+    vel = sub.velocity_rows
+    fixed = {n: [sub.velocity_shape(n, _one(orbit))[0]] for n, orbit in found.items()}
     _, coef, fitted = _velocity_fit(sub, fixed)
     rows = vel.owner < 0 if np.any(vel.owner < 0) else vel.owner == list(sub.companions).index(name)
     series = [((vel.rv - fitted)[rows], np.sqrt(vel.err2[rows]))]
@@ -1073,7 +1073,7 @@ def _velocity_candidates(sub, name, found):
                         _inside(sub.companions[n].semi_amplitude
                                 or DEFAULT_SEMI_AMPLITUDE_PRIOR, abs(coef[(n, kind, 0)]))
         values[name] = _scan_orbit(sub, name, coef, period, ecc, m0)
-        theta = _least_squares(sub, values)
+        theta = solve_least_squares(sub, values)
         if theta is None:
             continue
         phys = sub.physical(theta)
@@ -1110,9 +1110,9 @@ def _with_velocities(model, values):
     the length scale (so the parallax) where the parallax is free, and the primary's
     reflex sets each companion's mass.
     """
-    vel = model._vel
+    vel = model.velocity_rows
     values = dict(values)
-    shapes = {n: [model._velocity_shape(n, _one(values[n]))[0]] for n in model.companions}
+    shapes = {n: [model.velocity_shape(n, _one(values[n]))[0]] for n in model.companions}
     _, coef, fitted = _velocity_fit(model, shapes)
     amplitude = {}
     for k, name in enumerate(model.companions):
@@ -1149,7 +1149,7 @@ def _relative_amplitude(orbit, total_mass):
 
 def _scale_from_velocities(model, values, amplitude):
     """Rescale lengths (parallax and masses) so a companion's own K is matched."""
-    vel = model._vel
+    vel = model.velocity_rows
     for k, name in enumerate(model.companions):
         k1, k2 = amplitude[name]
         if not np.any(vel.owner == k) or k2 <= 0:

@@ -62,7 +62,7 @@ def assess(model, theta, *, compare=None) -> dict:
            "companions": {}}
     start = 0
     chi2_astrometry, n_astrometry = 0.0, 0
-    for name, rows in model._rows.items():
+    for name, rows in model.rows.items():
         n_values = 2 * rows.t.size
         part = res[start:start + n_values]
         start += n_values
@@ -147,7 +147,7 @@ def _compare(model, theta):
     kepler_model.centres = {k: dict(v) for k, v in model.centres.items()}
     if kepler_model.names != model.names:
         return {"error": "the two models sample different parameters; not compared"}
-    n_values = int(sum(2 * rows.t.size for rows in model._rows.values()))
+    n_values = int(sum(2 * rows.t.size for rows in model.rows.values()))
     chi2 = {"perturbed": _least_squares_chi2(model, theta),
             "keplerian": _least_squares_chi2(kepler_model, theta)}
     # The two-body model also gets its own start: from the perturbed solution alone
@@ -155,7 +155,7 @@ def _compare(model, theta):
     # two-body ellipse needs, and over a long baseline the phases drift apart).
     # Its least squares re-centres the angle windows, so it runs after the first chi^2.
     try:
-        from massfit.start.search import _least_squares, two_body_start
+        from massfit.start.search import solve_least_squares, two_body_start
 
         _, _, values = two_body_start(model)
         # Its companions' masses are zero; give them the perturbed solution's (the
@@ -166,7 +166,7 @@ def _compare(model, theta):
             values[name] = dict(values[name], mass=mass)
         shared = np.mean([float(phys["companions"][n]["mass"][0]) for n in model.companions])
         values["central_mass"] = max(values["central_mass"] - shared, 1e-30)
-        own = _least_squares(kepler_model, values)
+        own = solve_least_squares(kepler_model, values)
         if own is not None:
             chi2["keplerian"] = min(chi2["keplerian"],
                                     _least_squares_chi2(kepler_model, own))
@@ -191,10 +191,10 @@ def _compare(model, theta):
 def _least_squares_chi2(model, theta):
     from scipy.optimize import least_squares
 
-    from massfit.start.search import _bounds, _residual_function
+    from massfit.start.search import parameter_bounds, residual_function
 
-    fun = _residual_function(model)
-    low, high = _bounds(model)
+    fun = residual_function(model)
+    low, high = parameter_bounds(model)
     width = np.where(np.isfinite(high - low), high - low, 1.0)
     x0 = np.clip(theta, low + 1e-9 * width, high - 1e-9 * width)
     best = float(np.sum(fun(x0) ** 2))

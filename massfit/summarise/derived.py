@@ -146,7 +146,7 @@ def _amplitude_samples(model, name, orbit) -> dict:
         out["rv_semi_amplitude"] = orbit["k_primary"]
         out["mass_function"] = mass_function(orbit["period"], orbit["k_primary"],
                                              orbit["ecc"])
-    if np.any(model._vel.owner == k):
+    if np.any(model.velocity_rows.owner == k):
         out["rv_semi_amplitude_companion"] = orbit["k_companion"]
         out["mass_function_companion"] = mass_function(orbit["period"],
                                                        orbit["k_companion"], orbit["ecc"])
@@ -154,11 +154,11 @@ def _amplitude_samples(model, name, orbit) -> dict:
 
 
 def _velocity_terms(model, rv) -> dict:
-    labels = model._vel.labels
+    labels = model.velocity_rows.labels
     out = {"offset": {lab: rv["offset"][:, j] for j, lab in enumerate(labels)},
            "jitter": {lab: rv["jitter"][:, j] for j, lab in enumerate(labels)}}
     for term in ("slope", "curvature"):
-        if model._trend_has(term):
+        if model.trend_has(term):
             out[term] = rv[term]
     return out
 
@@ -273,7 +273,7 @@ def _companion_samples(model, name, orbit, parallax):
 
 def _angular_scale(model, name, parallax):
     """mas per au for this companion: the parallax, or the median per-row distance."""
-    rows = model._rows[name]
+    rows = model.rows[name]
     if parallax is not None and np.any(rows.uses_parallax):
         return parallax
     distance = model.observations.astrometry.distance[rows.index]

@@ -70,7 +70,7 @@ def astrometric_residuals(result, theta=None) -> dict:
     theta = best_sample(result) if theta is None else np.asarray(theta)
     data = model.observations.astrometry
     out = {}
-    for name, rows in model._rows.items():
+    for name, rows in model.rows.items():
         east, north = (v[0] for v in model.predicted_offsets(theta, name))
         idx = rows.index
         polar = data.polar[idx]
@@ -103,7 +103,7 @@ def velocity_residuals(result, theta=None) -> Residuals:
     centres each instrument on its own mean.
     """
     model = result.model
-    vel = model._vel
+    vel = model.velocity_rows
     theta = best_sample(result) if theta is None else np.asarray(theta)
     phys = model.physical(np.atleast_2d(theta))
     total = model.velocity_parts(phys)["total"][0]
