@@ -27,6 +27,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+#: A statistical study of dozens of fits: in the slow set (.ci/run runs it as its second step).
+pytestmark = pytest.mark.slow
+
 ROOT = Path(__file__).resolve().parents[1]
 _spec = importlib.util.spec_from_file_location("calibration",
                                                ROOT / "validation" / "calibration.py")

@@ -76,6 +76,7 @@ def test_wrong_parallax_misses_the_truth():
     assert not _inside_95(result.summary["central_mass_solar"], truth["central_mass_Msun"])
 
 
+@pytest.mark.slow  # a full chain on the moving-observer path; .ci/run runs it second
 def test_four_moons_of_the_demo_recovered():
     import json
 

@@ -5,6 +5,9 @@ from pathlib import Path
 
 import pytest
 
+#: Every notebook run top to bottom: in the slow set (.ci/run runs it as its second step).
+pytestmark = pytest.mark.slow
+
 nbformat = pytest.importorskip("nbformat")
 nbclient = pytest.importorskip("nbclient")
 
