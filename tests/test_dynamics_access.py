@@ -65,7 +65,8 @@ def test_saved_model_state_rebuilds_the_dynamics():
     # A result folder keeps the assumptions in run.json; the dynamics must come back.
     import json
 
-    from massfit.result.loading import _decode, _encode
+    from massfit.result.loading import _decode
+    from massfit.write.saved_state import _encode
 
     for dynamics in (massfit.Oblate(0.015, "70000 km", "80 deg", "20 deg"),
                      massfit.NBody(rtol=1e-11), Keplerian()):
