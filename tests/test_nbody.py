@@ -67,6 +67,7 @@ def test_massless_limit_is_keplerian(compiled):
         assert np.max(np.abs(positions[0, k] - kep)) <= 1e-9 * a[k]
 
 
+@pytest.mark.slow  # every walker integrated twice at rtol 1e-14
 def test_both_integrators_agree_walker_by_walker():
     # Walkers of different masses and orbits in one call: the compiled path steps
     # each on its own, the numpy path steps the stack together. Both must land on

@@ -21,6 +21,9 @@ from massfit.sample.checkpoint import checkpoint_path, partial_dir, saved_steps
 from massfit.errors import ConfigError
 from conftest import write_one_companion
 
+#: Real processes killed and resumed, twice over: in the slow set (.ci/run runs it second).
+pytestmark = pytest.mark.slow
+
 ROOT = Path(__file__).resolve().parents[1]
 # Small on purpose: one companion, 14 epochs, 16 walkers, a check every 50 steps.
 OPTIONS = ["--seed", "11", "--walkers", "16", "--max-steps", "2400", "--check-every", "50",

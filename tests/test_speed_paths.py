@@ -146,7 +146,7 @@ def test_batched_autocorrelation_time_equals_emcee(shape):
 def test_observations_written_in_blocks_are_the_file_astropy_writes(tmp_path, monkeypatch):
     from astropy.table import Table
 
-    from massfit.result import loading as saved
+    from massfit.write import saved_state as saved
 
     rng = np.random.default_rng(0)
     table = Table({"east": rng.standard_normal(1234), "body": ["Ebbin", "Tor"] * 617,

@@ -794,7 +794,7 @@ class OrbitModel:
                 out[term] = np.full(n, prior.value if used else 0.0)
         return out
 
-    def _trend_has(self, term) -> bool:
+    def trend_has(self, term) -> bool:
         return (term == "slope" and self.spec.trend != "none"
                 or term == "curvature" and self.spec.trend == "quadratic")
 
@@ -975,7 +975,7 @@ class OrbitModel:
             total += share
         return {"systemic": systemic, "companions": shares, "total": total}
 
-    def _velocity_shape(self, name, orbit, t=None):
+    def velocity_shape(self, name, orbit, t=None):
         """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
         column = {key: value[:, None] for key, value in orbit.items()}
         t = self.velocity_rows.t if t is None else t
