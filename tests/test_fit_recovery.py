@@ -39,6 +39,7 @@ def binary_fit(wren_observations):
     return result, truth
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_one_companion_recovers_mass_and_elements(binary_fit):
     result, truth = binary_fit
     s = result.summary
@@ -109,6 +110,7 @@ def test_light_time_matters_for_the_moons():
     assert with_lt.chi2 < 2 * 2 * len(obs.astrometry)
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_same_seed_repeats_the_run(binary_file):
     path, _ = binary_file
     obs = massfit.read_observations(path)

@@ -81,6 +81,7 @@ def _gm_and_error(model, start):
     return gm, gm * np.log(10) * np.sqrt(start.covariance[k, k])
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_j2_start_recovers_gm_where_keplerian_is_biased(moons, starts):
     # End to end from the data alone: the J2 model's start step runs the two-body
     # search, maps its solution (sidereal rate -> anomalistic period, corrected third
@@ -166,6 +167,7 @@ def test_bad_oblateness_settings_are_config_errors():
         Oblate(0.01, "60000 km", equator_inclination="10 deg")
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_adequacy_flags_the_two_body_fit_and_clears_the_j2_fit(starts):
     from massfit.summarise.adequacy import assess, report_lines
 

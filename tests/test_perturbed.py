@@ -147,6 +147,7 @@ def test_secular_j2_rates_of_the_integrated_orbit():
     assert abs(np.polyfit(times[:200], np.unwrap(node0), 1)[0]) < 1e-6 * abs(expected_node)
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 @pytest.mark.parametrize("compiled", COMPILED)
 @pytest.mark.parametrize("harmonics", [False, True])
 def test_pulls_and_harmonics_agree_with_rebound_and_reboundx(compiled, harmonics):

@@ -203,6 +203,7 @@ def sb2_fit(tmp_path_factory):
     return massfit.fit(obs, system, **QUICK)
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_sb2_recovers_both_masses_given_the_inclination(sb2_fit):
     s = sb2_fit.summary
     cass = s["companions"]["Cass"]
@@ -244,6 +245,7 @@ def joint_cli_fit(tmp_path_factory):
     return status, folder / "out"
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_joint_fit_recovers_distance_and_both_masses(joint_cli_fit):
     status, out = joint_cli_fit
     assert status == 0
@@ -349,6 +351,7 @@ def test_config_velocity_keys(tmp_path):
             "kind": "uniform", "low": "-1 m/s", "high": "1 m/s"}}}, base=tmp_path)
 
 
+@pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 def test_primary_reflex_with_astrometry_separates_the_two_masses(tmp_path):
     # A single-lined binary with a visual orbit and a known parallax: astrometry fixes
     # M1 + m2, the primary's reflex fixes m2 / (M1 + m2).
