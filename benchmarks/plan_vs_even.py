@@ -18,8 +18,11 @@ import time
 import warnings
 from pathlib import Path
 
-from massfit.plan.planner import Schedule, _evenly_spaced, fit_scatter, forecast_precision, \
-    plan_observations
+from massfit.plan.checks import fit_scatter
+from massfit.plan.choice import evenly_spaced
+from massfit.plan.forecast import forecast_precision
+from massfit.plan.planner import plan_observations
+from massfit.plan.schedule import Schedule
 from massfit.scenarios.examples import planning_system
 
 warnings.filterwarnings("ignore", message=".*dubious year")
@@ -64,7 +67,7 @@ def main(argv=None):
         picked = sorted(int(c) for c in plan.ranking["candidate"][
             plan.ranking["planned_order"] > 0])
         planned = past.join(cand.select(picked))
-        even = past.join(cand.select(_evenly_spaced(cand.tdb_jd, n)))
+        even = past.join(cand.select(evenly_spaced(cand.tdb_jd, n)))
         f_plan = forecast_precision(system, planned)["gm_relative_sigma"]
         f_even = forecast_precision(system, even)["gm_relative_sigma"]
         s_plan = fit_scatter(system, planned, realisations=draws, seed=100 * k)

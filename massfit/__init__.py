@@ -17,7 +17,10 @@ from massfit.errors import ConfigError, InputError, MassfitError, ModelError
 from massfit.model.orbit_model import CompanionSpec, SystemSpec
 from massfit.orbits.perturbed import NBody
 from massfit.orbits.oblate import Oblate
-from massfit.plan.planner import AssumedSystem, Schedule, forecast_precision, plan_observations
+from massfit.plan.forecast import forecast_precision
+from massfit.plan.planner import plan_observations
+from massfit.plan.schedule import Schedule
+from massfit.plan.system import AssumedSystem
 from massfit.priors import Fixed, LogUniform, Normal, Uniform
 from massfit.read.tables import read_observations
 from massfit.result.fit_result import FitResult

@@ -14,9 +14,12 @@ from astropy.time import Time
 
 from massfit.cli.commands import main
 from massfit.errors import ConfigError, InputError
-from massfit.plan.planner import (AssumedSystem, Posterior, Schedule, _EnsembleInformation,
-                          _FisherInformation, fit_scatter, forecast_precision,
-                          plan_observations, simulated_observations)
+from massfit.plan.checks import fit_scatter
+from massfit.plan.forecast import FisherInformation, forecast_precision
+from massfit.plan.planner import plan_observations
+from massfit.plan.posterior import Posterior, EnsembleInformation
+from massfit.plan.schedule import Schedule
+from massfit.plan.system import AssumedSystem, simulated_observations
 
 
 def calder(parallax_err=0.05 * u.mas):
@@ -81,7 +84,7 @@ def test_one_night_is_undetermined_not_a_number():
 
 def _gaussian_posterior(system, sched, n, seed):
     """Samples of the Fisher posterior of ``sched`` as a fit's physical elements."""
-    info = _FisherInformation(system, sched)
+    info = FisherInformation(system, sched)
     model = info.model
     cov = np.linalg.inv(info.prior + info.blocks.sum(axis=0))
     rng = np.random.default_rng(seed)
@@ -108,8 +111,8 @@ def test_posterior_update_agrees_with_fisher_for_a_gaussian_posterior():
     past = schedule("2025-01-01T00:00:00", "2028-06-01T00:00:00", "60 d", "0.2 mas")
     new = schedule("2028-09-01T00:00:00", "2030-01-01T00:00:00", "100 d")
     posterior = _gaussian_posterior(system, past, 4000, seed=3)
-    ens = _EnsembleInformation(posterior, new, seed=0)
-    fisher = _FisherInformation(system, past.join(new))
+    ens = EnsembleInformation(posterior, new, seed=0)
+    fisher = FisherInformation(system, past.join(new))
     base = list(range(len(past)))
     now_f = fisher.variance(base)
     assert ens.variance([]) == pytest.approx(now_f, rel=0.1)
@@ -119,7 +122,7 @@ def test_posterior_update_agrees_with_fisher_for_a_gaussian_posterior():
     # Negative control: ignoring the new epochs' noise (errors 10x smaller in the
     # Fisher matrix) gives a clearly different answer.
     tight = schedule("2028-09-01T00:00:00", "2030-01-01T00:00:00", "100 d", "0.04 mas")
-    wrong = _FisherInformation(system, past.join(tight)).variance(
+    wrong = FisherInformation(system, past.join(tight)).variance(
         base + [len(past) + k for k in range(len(new))])
     assert ens.variance(list(range(len(new)))) > 1.5 * wrong
 

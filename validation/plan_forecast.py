@@ -25,7 +25,10 @@ from pathlib import Path
 import numpy as np
 
 import massfit
-from massfit.plan.planner import Schedule, fit_scatter, forecast_precision, simulated_observations
+from massfit.plan.checks import fit_scatter
+from massfit.plan.forecast import forecast_precision
+from massfit.plan.schedule import Schedule
+from massfit.plan.system import simulated_observations
 from massfit.scenarios.examples import planning_system
 
 warnings.filterwarnings("ignore", message=".*dubious year")

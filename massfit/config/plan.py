@@ -50,7 +50,8 @@ import astropy.units as u
 from massfit.config.fit import check_keys, read_toml, real_path
 from massfit.constants import parse_quantity
 from massfit.errors import ConfigError
-from massfit.plan.planner import AssumedSystem, Schedule, parse_time
+from massfit.plan.schedule import Schedule, parse_time
+from massfit.plan.system import AssumedSystem
 from massfit.sample.chain import check_seed
 
 __all__ = ["PlanSetup", "load_plan_config", "parse_plan_config", "plan_setup",

@@ -1,2 +1,1 @@
-"""The observation planner: which epochs shrink the central mass's uncertainty most.
-"""
+"""The observation planner: which epochs shrink the central mass's uncertainty most."""

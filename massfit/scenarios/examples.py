@@ -150,7 +150,7 @@ def planning_system(name, **elements):
     """
     import astropy.units as u
 
-    from massfit.plan.planner import AssumedSystem
+    from massfit.plan.system import AssumedSystem
 
     def tdb(text):
         return Time(text, scale="tdb")
