@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.orbits import kepler
-from massfit.orbits.kepler import orbit_axes
+from massfit.orbits.kepler import orbit_axes, orbit_state
 
 from massfit.orbits import viewing
 from massfit.constants import C_AU_PER_DAY
@@ -34,48 +34,6 @@ TWO_PI = 2.0 * np.pi
 LN10 = np.log(10.0)
 
 
-def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_velocity=True):
-    """Position and velocity on a Keplerian ellipse, in the sky frame.
-
-    Parameters
-    ----------
-    a, ecc, inc, omega, node : array_like
-        Semi-major axis (au), eccentricity, inclination, argument of periapsis and
-        position angle of the ascending node (rad), broadcast together.
-    mean_anomaly : array_like
-        Mean anomaly (rad).
-    mean_motion : array_like
-        dM/dt (rad/day), used for the velocity only.
-    want_velocity : bool
-        Also return the velocity.
-
-    Returns
-    -------
-    position : tuple of ndarray
-        (north, east, z), au.
-    velocity : tuple of ndarray or None
-        (d north/dt, d east/dt, dz/dt), au/day.
-
-    Notes
-    -----
-    The unit vectors are the Thiele-Innes constants divided by a, with the z row of
-    the conventions: P = (A, B, sin w sin i)/a along periapsis, Q = (F, G, cos w sin i)/a
-    a quarter-turn ahead.
-    """
-    big_e = kepler.solve_kepler(mean_anomaly, ecc)
-    cos_e, sin_e = np.cos(big_e), np.sin(big_e)
-    root = np.sqrt(1.0 - ecc * ecc)
-    p_vec, q_vec = orbit_axes(inc, omega, node)
-    x = cos_e - ecc
-    y = root * sin_e
-    position = tuple(a * (x * p + y * q) for p, q in zip(p_vec, q_vec))
-    if not want_velocity:
-        return position, None
-    e_dot = mean_motion / (1.0 - ecc * cos_e)
-    vx = -a * e_dot * sin_e
-    vy = a * e_dot * root * cos_e
-    velocity = tuple(vx * p + vy * q for p, q in zip(p_vec, q_vec))
-    return position, velocity
 
 
 def _cross(a, b):
