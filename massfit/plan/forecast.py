@@ -17,6 +17,7 @@ import numpy as np
 
 from massfit.constants import G_REL_UNCERTAINTY
 from massfit.errors import ConfigError, ModelError
+from massfit.model.derivatives import difference_jacobian
 from massfit.model.orbit_model import OrbitModel
 from massfit.plan.schedule import Schedule, epoch_rows
 from massfit.plan.system import AssumedSystem, simulated_observations
@@ -101,15 +102,12 @@ class FisherInformation:
 
 def _central_jacobian(model, theta):
     """Central-difference Jacobian of the whitened residuals, shape (n_res, n_dim)."""
-    n_dim = theta.size
     step = 1e-6 * np.maximum(1.0, np.abs(theta))
-    points = np.vstack([theta + np.diag(step), theta - np.diag(step)])
-    res = model.residuals(points)
-    jac = (res[:n_dim] - res[n_dim:]) / (2.0 * step[:, None])
+    jac = difference_jacobian(model.residuals, theta, step, central=True)
     if not np.all(np.isfinite(jac)):
         raise ModelError("the model cannot be evaluated near the assumed elements "
                          "(check the eccentricity and inclination)")
-    return jac.T
+    return jac
 
 
 def _residual_rows(model, width):

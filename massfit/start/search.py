@@ -30,6 +30,7 @@ from massfit.start.aliases import candidate_periods
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ModelError
+from massfit.model.derivatives import difference_jacobian
 from massfit.model.orbit_model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel, SystemSpec
 from massfit.start.modes import laplace_log_mass, merge_same_modes
 from massfit.priors import Fixed, Normal
@@ -801,17 +802,10 @@ def _jacobian_function(model, low=None, high=None, rel_step=None):
         step = rel * np.maximum(1.0, np.abs(theta))
         if high is not None:
             step = np.where(theta + step > high, -step, step)
-        points = np.vstack([theta, theta + np.diag(step)])
-        if len(points) * _rows(model) <= _CHUNK_ELEMENTS:
-            res = _batch_residuals(model, points)
-            return ((res[1:] - res[0]) / step[:, None]).T
-        # A big data set: one column at a time into one array (the same numbers),
-        # instead of a stack of every shifted residual vector and its differences.
-        base = _batch_residuals(model, points[:1])[0]
-        out = np.empty((base.size, step.size))
-        for k in range(step.size):
-            out[:, k] = (_batch_residuals(model, points[k + 1:k + 2])[0] - base) / step[k]
-        return out
+        # A big data set: one shifted point at a time into one array (the same numbers)
+        big = (theta.size + 1) * _rows(model) > _CHUNK_ELEMENTS
+        return difference_jacobian(lambda points: _batch_residuals(model, points), theta, step,
+                                   one_at_a_time=big)
     return jac
 
 
