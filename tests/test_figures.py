@@ -9,7 +9,7 @@ from astropy.time import Time
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-from massfit.plot import figures as plots  # noqa: E402
+import massfit.plot as plots  # noqa: E402
 from massfit.summarise.residuals import Residuals, residual_periodogram  # noqa: E402
 from massfit.errors import ConfigError  # noqa: E402
 
@@ -89,7 +89,7 @@ def test_error_ellipse_carries_the_correlation():
     (3.0, False, "au"), (0.004, False, r"$10^{3}$ km"), (0.01, False, r"$10^{6}$ km"),
 ])
 def test_display_units_read_well(size, angle, unit):
-    factor, label = plots._SkyFrame.display(size, angle)
+    factor, label = plots.sky.SkyFrame.display(size, angle)
     assert label == unit
     assert 0.5 <= size * factor < 1000.0 * 1.5
 
@@ -140,7 +140,7 @@ def test_narrow_posteriors_are_drawn_as_offsets():
     # P = 4.1152998 +/- 0.0000005 d: the axis shows P minus the printed median in
     # units of 10^-6 d, and the truth moves with it.
     rng = np.random.default_rng(1)
-    column = plots._Column("Ymra.period", 4.1152998 + 5e-7 * rng.standard_normal(4000),
+    column = plots.corner.Column("Ymra.period", 4.1152998 + 5e-7 * rng.standard_normal(4000),
                            r"P_\mathrm{Ymra}", r"\mathrm{d}", u.day)
     assert column.label() == r"$\Delta P_\mathrm{Ymra}$ [$10^{-6}\,\mathrm{d}$]"
     assert column.reference == float(column.rounded.median)

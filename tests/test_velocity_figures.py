@@ -7,7 +7,7 @@ import pytest
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-from massfit.plot import figures as plots  # noqa: E402
+import massfit.plot as plots  # noqa: E402
 
 
 @pytest.fixture(scope="module")
