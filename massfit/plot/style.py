@@ -14,7 +14,8 @@ import numpy as np
 from massfit.errors import ConfigError
 
 __all__ = ["COLUMN_WIDTH", "PAGE_WIDTH", "STYLE", "TIME_CMAP", "INSTRUMENT_MARKERS", "style",
-           "save_figure", "math_name", "plain_log_ticks", "jyear", "time_cmap", "chosen"]
+           "save_figure", "math_name", "plain_log_ticks", "jyear", "time_cmap", "chosen",
+           "TimeAxis", "time_axis", "by_period"]
 
 #: Width of one column of a two-column journal page, inches (ApJ, A&A and MNRAS all
 #: lie within 3.3-3.5 in; common practice), and of the full page.
@@ -106,3 +107,71 @@ def chosen(per_companion, companions):
         raise ConfigError(f"no companion {', '.join(missing)} in this fit; it has "
                           f"{', '.join(per_companion)}", key="companions")
     return {n: per_companion[n] for n in companions}
+
+
+#: Time formats drawn as calendar years (decimal years of the Gregorian calendar).
+_YEAR_FORMATS = ("isot", "iso", "fits", "datetime", "decimalyear", "byear", "yday")
+
+
+class TimeAxis:
+    """How a figure's time axis reads: the input's format and scale where every file
+    gave the same, else TDB Julian dates.
+
+    Julian dates are drawn less a round number of days, named in the label
+    (``JD - 2460000 (TDB)``), so that ticks stay short without a hidden offset; MJD as
+    they are; ISO dates and decimal or Besselian years as calendar years; Julian years
+    as Julian years. The scale of the input (UTC, TT, TDB) is named on the axis.
+    """
+
+    def __init__(self, form, jd_tdb):
+        time_format, scale = form if form is not None else ("jd", "tdb")
+        self.format, self.scale = time_format, scale
+        jd_tdb = np.asarray(jd_tdb, dtype=float)
+        self.offset = 0.0
+        scale_text = scale.upper()
+        if time_format == "mjd":
+            self.label = f"MJD ({scale_text})"
+        elif time_format == "jyear":
+            self.label = f"Julian year ({scale_text})"
+        elif time_format in _YEAR_FORMATS:
+            self.label = f"year ({scale_text})"
+        else:
+            self.format = "jd"
+            first = float(np.min(self._in_scale(jd_tdb))) if jd_tdb.size else 0.0
+            self.offset = 1000.0 * np.floor(first / 1000.0) if first > 1e5 else 0.0
+            self.label = (f"JD $-$ {self.offset:.0f} ({scale_text})" if self.offset
+                          else f"JD ({scale_text})")
+
+    def _in_scale(self, jd_tdb):
+        from astropy.time import Time
+
+        times = Time(np.asarray(jd_tdb, dtype=float), format="jd", scale="tdb")
+        return getattr(times, self.scale).jd if self.scale != "tdb" else times.jd
+
+    def __call__(self, jd_tdb):
+        """Axis values of TDB Julian dates."""
+        from astropy.time import Time
+
+        jd = np.asarray(jd_tdb, dtype=float)
+        if self.format in ("jd", "mjd"):
+            values = self._in_scale(jd) - self.offset
+            return values - 2400000.5 if self.format == "mjd" else values
+        times = getattr(Time(jd, format="jd", scale="tdb"), self.scale)
+        return times.jyear if self.format == "jyear" else times.decimalyear
+
+
+def time_axis(observations, jd_tdb) -> TimeAxis:
+    """The time axis of a fit's figures, for data at the TDB Julian dates ``jd_tdb``."""
+    form = observations.time_form() if hasattr(observations, "time_form") else None
+    return TimeAxis(form, jd_tdb)
+
+
+def by_period(result, names) -> list:
+    """Companion names in order of their median period (shortest first)."""
+    companions = result.summary.get("companions", {})
+
+    def period(name):
+        value = companions.get(name, {}).get("period", {}).get("median")
+        return float("inf") if value is None else float(value)
+
+    return sorted(names, key=period)
