@@ -14,7 +14,8 @@ import numpy as np
 from massfit.constants import AU_KM
 from massfit.errors import ConfigError
 from massfit.orbits import kepler
-from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, TIME_CMAP, style, time_cmap
+from massfit.plot.style import (COLUMN_WIDTH, PAGE_WIDTH, TIME_CMAP, by_period, style, time_axis,
+                                time_cmap)
 from massfit.summarise.residuals import best_sample
 
 __all__ = ["orbit_plot", "error_ellipses", "SkyFrame", "observed_offsets"]
@@ -168,7 +169,7 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
     from matplotlib.colors import Normalize
 
     model = result.model
-    names = list(model.companions) if companions is None else list(companions)
+    names = by_period(result, model.companions) if companions is None else list(companions)
     for name in names:
         if name not in model.companions:
             raise ConfigError(f"no companion {name!r} in this fit; it has "
@@ -180,13 +181,13 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
     theta_best = best_sample(result)
     draws = model.physical(chain.samples[picks])
     best = model.physical(theta_best[None, :])
-    data = model.observations.astrometry
-    years = data.time.tdb.jyear
-    norm = Normalize(years.min(), years.max())
+    jd = model.observations.astrometry.time.tdb.jd
+    axis = time_axis(model.observations, jd)
+    times = axis(jd)
+    norm = Normalize(times.min(), times.max())
     cols, blocks, per_block = _layout(len(names), residuals)
     width = width or (COLUMN_WIDTH if cols == 1 else PAGE_WIDTH)
-    panel = width / cols
-    height = blocks * panel * sum(per_block) / 3.0 * 0.95
+    height = blocks * width / cols * sum(per_block) / 3.0 * 0.95 + 0.3
     with style():
         fig = plt.figure(figsize=(width, height), layout="constrained")
         grid = fig.add_gridspec(blocks * len(per_block), cols,
@@ -199,18 +200,36 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
                          fig.add_subplot(grid[row0 + 2, col])] if residuals else [])
             if res_axes:
                 res_axes[0].sharex(res_axes[1])
+                res_axes[1].set_xlabel(axis.label)
             _draw_companion(sky, res_axes, model, name, draws, best, theta_best,
-                            years, norm)
-        mappable = plt.cm.ScalarMappable(norm=norm, cmap=TIME_CMAP)
-        bar = fig.colorbar(mappable, ax=fig.axes, location="top", shrink=0.6,
-                           aspect=40, pad=0.01)
-        bar.set_label("epoch [Julian year, TDB]")
-        bar.ax.tick_params(labelsize=7)
-        bar.formatter.set_useOffset(False)
+                            times, norm)
+        _orbit_keys(fig, norm, axis.label, len(picks))
     return fig
 
 
-def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, years, norm):
+def _orbit_keys(fig, norm, time_label, n_tracks):
+    """The colour bar of time above the panels and the legend of what is drawn below."""
+    import matplotlib.pyplot as plt
+    from matplotlib.lines import Line2D
+
+    mappable = plt.cm.ScalarMappable(norm=norm, cmap=TIME_CMAP)
+    bar = fig.colorbar(mappable, ax=fig.axes, location="top", shrink=0.6,
+                       aspect=40, pad=0.01)
+    bar.set_label(f"epoch of the data: {time_label}")
+    bar.ax.tick_params(labelsize=7)
+    bar.formatter.set_useOffset(False)
+    handles = [Line2D([], [], color=time_cmap()(0.5), marker="o", ms=3, ls="none",
+                      label=r"data (1$\sigma$ ellipse)"),
+               Line2D([], [], color="k", lw=0.9, label="best orbit")]
+    if n_tracks:
+        handles.append(Line2D([], [], color="0.55", lw=0.6,
+                              label=f"{n_tracks} orbits from the posterior"))
+    handles.append(Line2D([], [], color="k", marker="+", ms=6, ls="none", label="primary"))
+    fig.legend(handles=handles, loc="outside lower center", ncol=len(handles),
+               frameon=False, fontsize=7, handlelength=1.6, columnspacing=1.2)
+
+
+def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, norm):
     data = model.observations.astrometry
     frame = SkyFrame(model, name, best)
     idx = frame.index
@@ -231,13 +250,13 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, years, 
     sky.plot(tb_e * factor, tb_n * factor, color="k", lw=0.9, zorder=3, gid="best-orbit",
              label="best orbit")
     _motion_arrow(sky, tb_e * factor, tb_n * factor)
-    colours = time_cmap()(norm(years[idx]))
+    colours = time_cmap()(norm(times[idx]))
     from matplotlib.collections import PatchCollection
 
     patches = error_ellipses(east * factor, north * factor, cov * factor ** 2)
     sky.add_collection(PatchCollection(patches, facecolor="none", edgecolor=colours,
                                        linewidth=0.5, zorder=4, gid="error-ellipses"))
-    sky.scatter(east * factor, north * factor, s=5, c=years[idx], cmap=TIME_CMAP,
+    sky.scatter(east * factor, north * factor, s=5, c=times[idx], cmap=TIME_CMAP,
                 norm=norm, zorder=5, linewidths=0, gid="data")
     sky.plot([0], [0], marker="+", color="k", ms=7, mew=1.0, ls="none", zorder=6,
              gid="primary")
@@ -258,8 +277,12 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, years, 
                  color="0.3", gid="sight-note")
     sky.massfit_unit = unit
     if res_axes:
-        _draw_offsets_residuals(res_axes, model, name, theta_best, frame, east, north,
-                                cov, years[idx], norm)
+        panels = (_polar_residuals(model, name, theta_best, frame)
+                  if np.all(data.polar[idx]) else
+                  _offset_residuals(model, name, theta_best, frame, east, north, cov))
+        for ax, panel in zip(res_axes, panels):
+            _draw_residual_panel(ax, times[idx], norm, *panel)
+        res_axes[0].tick_params(labelbottom=False)
 
 
 def _motion_arrow(ax, east, north):
@@ -269,19 +292,32 @@ def _motion_arrow(ax, east, north):
                             "mutation_scale": 8}, zorder=3)
 
 
-def _draw_offsets_residuals(axes, model, name, theta_best, frame, east, north, cov,
-                            years, norm):
+def _offset_residuals(model, name, theta_best, frame, east, north, cov):
+    """(word, O-C, error, unit) in east and in north, in a unit that reads well."""
     pe, pn = (v[0] * frame.row_factor for v in model.predicted_offsets(theta_best, name))
     errors = np.sqrt(np.stack([cov[:, 0, 0], cov[:, 1, 1]]))
-    typical = float(np.median(errors)) * 3
-    factor, unit = SkyFrame.display(typical, frame.angle)
-    for ax, resid, err, word in ((axes[0], east - pe, errors[0], "east"),
-                                 (axes[1], north - pn, errors[1], "north")):
-        ax.errorbar(years, resid * factor, yerr=err * factor, fmt="none", ecolor="0.7",
-                    elinewidth=0.5, zorder=1)
-        ax.scatter(years, resid * factor, s=5, c=years, cmap=TIME_CMAP, norm=norm,
-                   linewidths=0, zorder=2, gid="residuals")
-        ax.axhline(0.0, color="k", lw=0.5, zorder=0)
-        ax.set_ylabel(f"O$-$C {word}\n[{unit}]", fontsize=7)
-    axes[0].tick_params(labelbottom=False)
-    axes[1].set_xlabel("epoch [Julian year]")
+    factor, unit = SkyFrame.display(float(np.median(errors)) * 3, frame.angle)
+    return (("east", (east - pe) * factor, errors[0] * factor, unit),
+            ("north", (north - pn) * factor, errors[1] * factor, unit))
+
+
+def _polar_residuals(model, name, theta_best, frame):
+    """(word, O-C, error, unit) in separation and in position angle (degrees), for a
+    companion given as separation and position angle."""
+    data = model.observations.astrometry
+    idx = frame.index
+    pe, pn = (v[0] for v in model.predicted_offsets(theta_best, name))
+    d_sep = (data.sep[idx] - np.hypot(pe, pn)) * frame.row_factor
+    sep_err = data.sep_err[idx] * frame.row_factor
+    factor, unit = SkyFrame.display(float(np.median(sep_err)) * 3, frame.angle)
+    d_pa = np.mod(data.pa[idx] - np.arctan2(pe, pn) + np.pi, 2 * np.pi) - np.pi
+    return (("sep", d_sep * factor, sep_err * factor, unit),
+            ("PA", np.degrees(d_pa), np.degrees(data.pa_err[idx]), "deg"))
+
+
+def _draw_residual_panel(ax, times, norm, word, resid, err, unit):
+    ax.errorbar(times, resid, yerr=err, fmt="none", ecolor="0.7", elinewidth=0.5, zorder=1)
+    ax.scatter(times, resid, s=5, c=times, cmap=TIME_CMAP, norm=norm, linewidths=0,
+               zorder=2, gid=f"residuals-{word}")
+    ax.axhline(0.0, color="k", lw=0.5, zorder=0)
+    ax.set_ylabel(f"O$-$C {word}\n[{unit}]", fontsize=7)
