@@ -85,7 +85,7 @@ class Schedule:
         key_prefix : str
             Prefix of the option or config key named in error messages.
         """
-        from massfit.constants import parse_quantity
+        from massfit.quantities import parse_quantity
 
         t0 = parse_time(start, time_format, time_scale, key=f"{key_prefix}start")
         t1 = parse_time(stop, time_format, time_scale, key=f"{key_prefix}stop")
@@ -184,7 +184,7 @@ def parse_time(value, time_format, time_scale, *, key):
 
 
 def _error_quantity(value, key):
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
 
     if value is None:
         raise ConfigError("give the expected 1-sigma error of each of east and north, "
