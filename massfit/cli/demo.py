@@ -42,6 +42,7 @@ def run(args):
 
 def compare_with_truth(result, truth):
     from massfit.result.fit_result import format_value
+    from massfit.summarise.rounding import WIDE_LABEL
 
     s = result.summary
     rows = [("GM [km^3/s^2]", s["central_gm"], truth["central_gm_km3_s2"]),
@@ -55,8 +56,8 @@ def compare_with_truth(result, truth):
     for label, block, true in rows:
         inside = block["lower_95"] <= true <= block["upper_95"]
         lines.append(f"  {label:<16} fitted {format_value(block):<34} true {true:<12.8g}"
-                     f" {'inside' if inside else 'OUTSIDE'} the 95% interval")
+                     f" {'inside' if inside else 'OUTSIDE'} the {WIDE_LABEL} interval")
     lines.append(f"  (of {len(rows)} quantities, about {0.0455 * len(rows):.1f} are expected "
-                 f"outside their 95% intervals by chance alone)")
+                 f"outside their {WIDE_LABEL} intervals by chance alone)")
     return "\n".join(lines)
 

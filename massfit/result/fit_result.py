@@ -8,7 +8,7 @@ import numpy as np
 from astropy.table import Table
 
 from massfit.summarise.derived import best_mass_unit, derived_samples, interval
-from massfit.summarise.rounding import format_interval
+from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
@@ -141,7 +141,9 @@ class FitResult:
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 
-        adequacy = self._adequacy()
+        companions = self._companion_blocks()
+        adequacy = self._adequacy({name: comp["period"]["median"]
+                                   for name, comp in companions.items()})
         summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
@@ -162,16 +164,7 @@ class FitResult:
             # Companions sampled as a position and velocity (massfit.sample.reparameterisation).
             "sampled_as_state": list(chain.state_bodies),
         }
-        summary["companions"] = {}
-        for name, comp in s["companions"].items():
-            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
-                     if key in comp}
-            if "semi_major_axis_mas" in comp:
-                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
-            if "ascending_node" in comp:
-                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
-                                               else 0.0)
-            summary["companions"][name] = block
+        summary["companions"] = companions
         if self.model.sight is not None:
             # Elements are then against the ICRS equator and x axis (conventions).
             summary["viewing"] = self.model.viewing_description()
@@ -199,14 +192,28 @@ class FitResult:
         }
         return summary
 
-    def _adequacy(self):
-        """Residual checks at the best sample, and the two-body comparison."""
+    def _companion_blocks(self) -> dict:
+        """The summary's interval blocks of each companion."""
+        out = {}
+        for name, comp in self.samples["companions"].items():
+            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
+                     if key in comp}
+            if "semi_major_axis_mas" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
+            if "ascending_node" in comp:
+                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
+                                               else 0.0)
+            out[name] = block
+        return out
+
+    def _adequacy(self, periods):
+        """Residual checks at the best sample, and the two-body comparison, for every
+        fit (velocities alone too); the periodograms search up to the figures' limit,
+        set by the summary's median periods."""
         from massfit.summarise.adequacy import assess
 
-        if self.model.velocity_only:
-            return None
         best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
-        return assess(self.model, best)
+        return assess(self.model, best, periods=periods)
 
     # --------------------------------------------------------------------- text
     def report(self) -> str:
@@ -228,15 +235,14 @@ class FitResult:
             lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
         else:
             lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
-                         f"(95%: {s['central_gm']['lower_95']:.6g} .. "
-                         f"{s['central_gm']['upper_95']:.6g})")
+                         f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
             unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
             key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
                    "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
-                         f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
+                         f"{format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
@@ -268,9 +274,9 @@ class FitResult:
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
         if len(s.get("candidate_modes", [])) > 1:
-            from massfit.start.modes import report_lines
+            from massfit.summarise.posterior_checks import mode_report_lines
 
-            lines.extend(report_lines(s["candidate_modes"],
+            lines.extend(mode_report_lines(s["candidate_modes"],
                                       s.get("central_mass_over_modes")))
         else:
             for mode in s["modes"]:
