@@ -8,7 +8,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from massfit.cli.options import (apply_dynamics_options, apply_viewing_options,
+from massfit.cli.options import (apply_central_mass_options, apply_dynamics_options,
+                                 apply_viewing_options, central_mass_options,
                                  dynamics_options, sampler_options, units_option,
                                  viewing_options)
 from massfit.cli.status import (EXIT_NOT_CONVERGED, EXIT_OK, EXIT_POOR_FIT, FIT_EXIT_STATUS,
@@ -35,6 +36,7 @@ def add_parser(sub):
                      help="1-sigma error of the parallax (Gaussian prior)")
     fit.add_argument("--distance", metavar="'VALUE UNIT'", help="fixed distance, e.g. "
                      "'20.7 pc'")
+    central_mass_options(fit)
     fit.add_argument("--time-format", metavar="NAME", help="astropy Time format of a plain "
                      "CSV 'time' column (jd, mjd, isot, jyear, ...)")
     fit.add_argument("--time-scale", metavar="NAME", help="its time scale (utc, tt, tdb, ...)")
@@ -105,6 +107,7 @@ def _setup_from_args(args):
     if setup.output is None:
         raise ConfigError("say where to write the result with --out DIR", key="--out")
     setup.system = apply_dynamics_options(args, setup.system)
+    setup.system = apply_central_mass_options(args, setup.system)
     setup.system = apply_viewing_options(args, setup.system)
     return setup
 
@@ -126,11 +129,7 @@ def _run(setup, args, *, record, force):
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
     if not args.quiet:
-        velocities = observations.velocities
-        n_rv = 0 if velocities is None else len(velocities)
-        print(f"massfit: read {observations.rows_used} rows ({n_rv} radial velocities) "
-              f"of {len(observations.companions)} companion(s) from "
-              f"{len(observations.files)} file(s); finding a starting orbit...",
+        print(f"massfit: {_read_text(observations)}; finding a starting orbit...",
               file=sys.stderr)
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
@@ -139,6 +138,17 @@ def _run(setup, args, *, record, force):
     _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
     discard(setup.output)
     return result
+
+
+def _read_text(observations) -> str:
+    """What was read, by body: the companions named in the data, or the primary alone."""
+    velocities = observations.velocities
+    n_rv = 0 if velocities is None else len(velocities)
+    bodies = observations.companions
+    whose = (f"of {len(bodies)} companion(s) ({', '.join(bodies)})" if bodies else
+             f"of the primary '{observations.primary}' alone (its companion is unseen)")
+    return (f"read {observations.rows_used} rows ({n_rv} radial velocities) {whose} "
+            f"from {len(observations.files)} file(s)")
 
 
 def _save(result, out, *, plots, force):

@@ -7,7 +7,8 @@ import argparse
 from massfit.errors import ConfigError
 
 __all__ = ["sampler_options", "dynamics_options", "apply_dynamics_options",
-           "viewing_options", "apply_viewing_options", "units_option"]
+           "viewing_options", "apply_viewing_options", "units_option", "central_mass_options",
+           "apply_central_mass_options"]
 
 
 def sampler_options(parser):
@@ -138,3 +139,37 @@ def units_option(text):
         units[col] = unit
     return units
 
+
+
+def central_mass_options(parser):
+    parser.add_argument("--central-mass", metavar="'VALUE UNIT'",
+                        help="the primary's mass as known from elsewhere, e.g. '0.95 Msun' "
+                             "(fixed unless --central-mass-err is given); radial velocities "
+                             "alone need it for the companions' minimum masses")
+    parser.add_argument("--central-mass-err", metavar="'VALUE UNIT'",
+                        help="1-sigma error of --central-mass (a Gaussian prior)")
+
+
+def apply_central_mass_options(args, system):
+    """The config's central-mass prior, replaced where the command line gives one."""
+    from dataclasses import replace
+
+    import astropy.units as u
+
+    from massfit.priors import prior_from_spec
+
+    value, err = getattr(args, "central_mass", None), getattr(args, "central_mass_err", None)
+    if value is None:
+        if err is not None:
+            raise ConfigError("an error needs a value: give --central-mass too",
+                              key="--central-mass-err")
+        return system
+    if err is None:
+        prior = prior_from_spec({"kind": "fixed", "value": value}, unit=u.M_sun,
+                                key="--central-mass")
+    else:
+        prior = prior_from_spec({"kind": "normal", "mean": value, "sd": err,
+                                 "low": "0 Msun"}, unit=u.M_sun, key="--central-mass")
+    if getattr(prior, "value", getattr(prior, "mean", None)) <= 0:
+        raise ConfigError("the central mass must be positive", key="--central-mass")
+    return replace(system, central_mass=prior)

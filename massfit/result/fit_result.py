@@ -7,7 +7,8 @@ from pathlib import Path
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import best_mass_unit, derived_samples, interval
+from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
+                                       in_best_mass_unit, interval)
 from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
@@ -37,10 +38,11 @@ _COMPANION_BLOCKS = (
 #: Terminal lines of a companion: (summary key, label, unit).
 _COMPANION_LINES = (
     ("period", "P", "d"), ("eccentricity", "e", ""), ("inclination", "i", "deg"),
-    ("periapsis_argument", "omega", "deg"), ("ascending_node", "Omega", "deg"),
+    ("periapsis_argument", "omega", "deg (the companion's; the primary's is omega + 180)"),
+    ("ascending_node", "Omega", "deg"),
     ("mass", "m", "M_sun"), ("rv_semi_amplitude", "K1", "km/s (primary)"),
     ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
-    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (i = 90 deg)"),
+    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (m sin i: i = 90 deg)"),
     ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
     ("inclination_to_equator", "i_eq", "deg (to the primary's equator)"),
     ("node_on_equator", "Om_eq", "deg (on the primary's equator)"),
@@ -54,8 +56,14 @@ def _companion_lines(comp) -> list:
             continue
         note = ""
         if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
-            note = " (or +180 with node +180)"
-        lines.append(f"  {label:<8}= {format_value(comp[key])} {unit}{note}".rstrip())
+            note = "; or +180 with node +180"
+        block = comp[key]
+        if key in SCALED_MASSES:
+            block, best = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", best, 1)
+        if note:
+            unit = unit[:-1] + note + ")"
+        lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
         if key == "period" and "semi_major_axis" in comp:
             a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
                       f" = {format_value(comp['semi_major_axis_km'])} km")
@@ -72,6 +80,19 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
+
+
+def _velocity_lines(rv) -> list:
+    """The systemic velocity, jitter and trend of each instrument, for the terminal."""
+    lines = ["Radial velocities (per instrument)"]
+    for label in rv["offset"]:
+        name = label or "(no instrument)"
+        lines.append(f"  {'gamma':<8}= {format_value(rv['offset'][label])} km/s   {name}")
+        lines.append(f"  {'jitter':<8}= {format_value(rv['jitter'][label])} km/s   {name}")
+    for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
+        if term in rv:
+            lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
+    return lines
 
 
 def format_value(block) -> str:
@@ -257,6 +278,8 @@ class FitResult:
         for name, comp in by_period:
             lines.append(f"Companion {name}")
             lines.extend(_companion_lines(comp))
+        if s.get("velocities"):
+            lines.extend(_velocity_lines(s["velocities"]))
         if s.get("adequacy"):
             from massfit.summarise.adequacy import report_lines
 

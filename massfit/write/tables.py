@@ -10,7 +10,8 @@ from dataclasses import dataclass
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit
+from massfit.summarise.derived import (MASS_UNIT_LABELS, SCALED_MASSES, best_mass_unit,
+                                       in_best_mass_unit)
 from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, format_interval, format_range,
                                         print_exponent, round_interval)
 
@@ -102,9 +103,14 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
              r"$M_\odot$", "M_sun")]
     for name, comp in summary["companions"].items():
         for key, words, symbol, unit_latex, unit_text in spec:
-            if key in comp:
-                rows.append(_Row(name, f"{name}.{key}", words, symbol, unit_latex,
-                                 unit_text, comp[key]))
+            if key not in comp:
+                continue
+            block = comp[key]
+            if key in SCALED_MASSES:  # M_sun, M_jup or M_earth, by size
+                block, best = in_best_mass_unit(block)
+                unit_latex, unit_text = rf"${MASS_UNIT_LABELS[best]}$", _MASS_TEXT[best]
+            rows.append(_Row(name, f"{name}.{key}", words, symbol, unit_latex, unit_text,
+                             block))
     return rows
 
 
