@@ -55,9 +55,13 @@ def run(args):
         return EXIT_INTERRUPTED
     counts = {status: int(sum(table["status"] == status))
               for status in ("converged", "not converged", "failed")}
-    print(f"massfit batch: {len(table)} system(s): {counts['converged']} converged, "
-          f"{counts['not converged']} not converged, {counts['failed']} failed; "
-          f"table in {results}")
+    open_mass = int(sum((table["status"] == "converged")
+                        & (table["measured"] == "mass function only")))
+    of_them = (f" ({open_mass} of them from velocities alone: mass function and minimum "
+               f"mass only)" if open_mass else "")
+    print(f"massfit batch: {len(table)} system(s): {counts['converged']} converged"
+          f"{of_them}, {counts['not converged']} not converged, {counts['failed']} "
+          f"failed; table in {results}")
     for row in table:
         if row["status"] == "failed":
             print(f"  {row['system']}: {row['failure']}", file=sys.stderr)
