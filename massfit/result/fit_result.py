@@ -8,9 +8,10 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import best_mass_unit, derived_samples, interval
+from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
+                                       in_best_mass_unit, interval)
 from massfit.summarise.quantities import CENTRAL, COMPANION
-from massfit.summarise.rounding import format_interval
+from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
@@ -25,10 +26,11 @@ _COMPANION_BLOCKS = tuple(key for key in COMPANION if key != "semi_major_axis_an
 
 #: Terminal lines of a companion: (summary key, a note after the unit).
 _COMPANION_LINES = (
-    ("period", ""), ("eccentricity", ""), ("inclination", ""), ("periapsis_argument", ""),
+    ("period", ""), ("eccentricity", ""), ("inclination", ""),
+    ("periapsis_argument", " (the companion's; the primary's is omega + 180)"),
     ("ascending_node", ""), ("mass", ""), ("rv_semi_amplitude", " (primary)"),
     ("rv_semi_amplitude_companion", " (companion)"), ("mass_function", ""),
-    ("minimum_mass", " (i = 90 deg)"), ("mass_sin3i", ""), ("primary_mass_sin3i", ""),
+    ("minimum_mass", " (m sin i: i = 90 deg)"), ("mass_sin3i", ""), ("primary_mass_sin3i", ""),
     ("inclination_to_equator", " (to the primary's equator)"),
     ("node_on_equator", " (on the primary's equator)"),
 )
@@ -43,8 +45,14 @@ def _companion_lines(comp) -> list:
         unit += unit_note
         note = ""
         if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
-            note = " (or +180 with node +180)"
-        lines.append(f"  {label:<8}= {format_value(comp[key])} {unit}{note}".rstrip())
+            note = "; or +180 with node +180"
+        block = comp[key]
+        if key in SCALED_MASSES:
+            block, best = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", best, 1)
+        if note:
+            unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
+        lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
         if key == "period" and "semi_major_axis" in comp:
             a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
                       f" = {format_value(comp['semi_major_axis_km'])} km")
@@ -61,6 +69,19 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
+
+
+def _velocity_lines(rv) -> list:
+    """The systemic velocity, jitter and trend of each instrument, for the terminal."""
+    lines = ["Radial velocities (per instrument)"]
+    for label in rv["offset"]:
+        name = label or "(no instrument)"
+        lines.append(f"  {'gamma':<8}= {format_value(rv['offset'][label])} km/s   {name}")
+        lines.append(f"  {'jitter':<8}= {format_value(rv['jitter'][label])} km/s   {name}")
+    for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
+        if term in rv:
+            lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
+    return lines
 
 
 def format_value(block) -> str:
@@ -130,7 +151,9 @@ class FitResult:
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 
-        adequacy = self._adequacy()
+        companions = self._companion_blocks()
+        adequacy = self._adequacy({name: comp["period"]["median"]
+                                   for name, comp in companions.items()})
         summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
@@ -151,16 +174,7 @@ class FitResult:
             # Companions sampled as a position and velocity (massfit.sample.reparameterisation).
             "sampled_as_state": list(chain.state_bodies),
         }
-        summary["companions"] = {}
-        for name, comp in s["companions"].items():
-            block = {key: interval(comp[key], COMPANION[key].unit_text)
-                     for key in _COMPANION_BLOCKS if key in comp}
-            if "semi_major_axis_angle" in comp:
-                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_angle"], "mas")
-            if "ascending_node" in comp:
-                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
-                                               else 0.0)
-            summary["companions"][name] = block
+        summary["companions"] = companions
         if self.model.sight is not None:
             # Elements are then against the ICRS equator and x axis (conventions).
             summary["viewing"] = self.model.viewing_description()
@@ -188,14 +202,28 @@ class FitResult:
         }
         return summary
 
-    def _adequacy(self):
-        """Residual checks at the best sample, and the two-body comparison."""
+    def _companion_blocks(self) -> dict:
+        """The summary's interval blocks of each companion."""
+        out = {}
+        for name, comp in self.samples["companions"].items():
+            block = {key: interval(comp[key], COMPANION[key].unit_text)
+                     for key in _COMPANION_BLOCKS if key in comp}
+            if "semi_major_axis_angle" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_angle"], "mas")
+            if "ascending_node" in comp:
+                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
+                                               else 0.0)
+            out[name] = block
+        return out
+
+    def _adequacy(self, periods):
+        """Residual checks at the best sample, and the two-body comparison, for every
+        fit (velocities alone too); the periodograms search up to the figures' limit,
+        set by the summary's median periods."""
         from massfit.summarise.adequacy import assess
 
-        if self.model.velocity_only:
-            return None
         best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
-        return assess(self.model, best)
+        return assess(self.model, best, periods=periods)
 
     # --------------------------------------------------------------------- text
     def report(self) -> str:
@@ -217,15 +245,14 @@ class FitResult:
             lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
         else:
             lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
-                         f"(95%: {s['central_gm']['lower_95']:.6g} .. "
-                         f"{s['central_gm']['upper_95']:.6g})")
+                         f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
             unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
             key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
                    "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
-                         f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
+                         f"{format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
@@ -240,6 +267,8 @@ class FitResult:
         for name, comp in by_period:
             lines.append(f"Companion {name}")
             lines.extend(_companion_lines(comp))
+        if s.get("velocities"):
+            lines.extend(_velocity_lines(s["velocities"]))
         if s.get("adequacy"):
             from massfit.summarise.adequacy import report_lines
 
@@ -257,9 +286,9 @@ class FitResult:
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
         if len(s.get("candidate_modes", [])) > 1:
-            from massfit.start.modes import report_lines
+            from massfit.summarise.posterior_checks import mode_report_lines
 
-            lines.extend(report_lines(s["candidate_modes"],
+            lines.extend(mode_report_lines(s["candidate_modes"],
                                       s.get("central_mass_over_modes")))
         else:
             for mode in s["modes"]:

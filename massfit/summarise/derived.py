@@ -12,8 +12,11 @@ from massfit.constants import AU_KM, DAY_S, G_REL_UNCERTAINTY, GM_SUN_KM3_S2, MA
 from massfit.model.orbit_model import DEFAULT_CENTRAL_MASS_PRIOR, OrbitModel
 from massfit.summarise.quantities import MASS_UNIT_KEYS, MASS_UNIT_LABELS
 
-__all__ = ["interval", "derived_samples", "mass_function", "PERCENTILES",
-           "MASS_UNIT_LABELS"]
+__all__ = ["interval", "derived_samples", "mass_function", "in_best_mass_unit",
+           "best_mass_unit", "PERCENTILES", "MASS_UNIT_LABELS", "SCALED_MASSES"]
+
+#: Companion masses that are given in the unit that reads best (M_sun, M_jup or M_earth).
+SCALED_MASSES = ("mass", "minimum_mass", "mass_sin3i")
 
 PERCENTILES = (2.275, 15.865, 50.0, 84.135, 97.725)
 
@@ -25,6 +28,18 @@ def best_mass_unit(mass_msun: float) -> str:
     if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
         return "Mjup"
     return "Mearth"
+
+
+def in_best_mass_unit(block: dict) -> tuple:
+    """An interval block in M_sun rescaled to the unit that reads best (as the central
+    mass's): ``(block, unit)`` with unit "Msun", "Mjup" or "Mearth"."""
+    if block.get("median") is None:
+        return block, "Msun"
+    unit = best_mass_unit(abs(block["median"]))
+    scale = MASS_UNITS["Msun"] / MASS_UNITS[unit]
+    scaled = {k: (v * scale if isinstance(v, float) else v) for k, v in block.items()}
+    scaled["unit"] = {"Msun": "M_sun", "Mjup": "M_jup", "Mearth": "M_earth"}[unit]
+    return scaled, unit
 
 
 def interval(values, unit) -> dict:

@@ -11,9 +11,11 @@ from dataclasses import dataclass
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import best_mass_unit
+from massfit.summarise.derived import (MASS_UNIT_LABELS, SCALED_MASSES, best_mass_unit,
+                                       in_best_mass_unit)
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
-from massfit.summarise.rounding import Rounded, format_interval, print_exponent, round_interval
+from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, format_interval,
+                                        format_range, print_exponent, round_interval)
 
 __all__ = ["Rounded", "round_interval", "format_interval", "parameter_rows", "latex_table",
            "markdown_table", "html_table", "ecsv_table", "TABLE_FORMATS"]
@@ -86,8 +88,13 @@ def _row(group, key, block):
         unit_latex = plain.group(1).replace(r"\ ", " ")
     else:
         unit_latex = f"${d.unit_latex}$" if d.unit_latex else ""
+    unit_text = d.unit_text
+    if group and key in SCALED_MASSES:  # M_sun, M_jup or M_earth, by size
+        block, best = in_best_mass_unit(block)
+        unit_latex = f"${MASS_UNIT_LABELS[best]}$"
+        unit_text = CENTRAL[MASS_UNIT_KEYS[best]].unit_text
     return _Row(group, f"{group}.{key}" if group else key, d.words, d.symbol, unit_latex,
-                d.unit_text, block)
+                unit_text, block)
 
 
 def _groups(rows):
@@ -166,7 +173,7 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
     out = ["<table>", "<thead><tr><th style='text-align:left'>parameter</th>"
            "<th style='text-align:right'>median and 68 % interval</th>"
            "<th style='text-align:left'>unit</th>"
-           "<th style='text-align:right'>95 % interval</th></tr></thead>", "<tbody>"]
+           f"<th style='text-align:right'>{WIDE_LABEL} interval</th></tr></thead>", "<tbody>"]
     for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
         if first:
             title = "Central body" if not group else f"Companion {escape(group)}"
@@ -174,7 +181,7 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
         rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else rounded.html()
         wide = ("" if row.block.get("lower_95") is None else
-                f"{row.block['lower_95']:.6g} &ndash; {row.block['upper_95']:.6g}")
+                format_range(row.block, separator=" &ndash; "))
         unit = _HTML_UNITS.get(row.unit_text, escape(row.unit_text))
         out.append(f"<tr><td style='text-align:left'>{escape(row.name)}</td>"
                    f"<td style='text-align:right'>{value}</td>"
@@ -198,7 +205,7 @@ def ecsv_table(summary: dict, *, mass_unit: str | None = None) -> Table:
         table[key] = np.array([np.nan if row.block.get(key) is None else row.block[key]
                                for row in rows], dtype=float)
     table["rounded"] = [format_interval(row.block) for row in rows]
-    table.meta["description"] = ("massfit parameter summary: medians with 68.27 % and "
-                                 "95.45 % central credible intervals")
+    table.meta["description"] = (f"massfit parameter summary: medians with {NARROW_LABEL} and "
+                                 f"{WIDE_LABEL} central credible intervals")
     table.meta["converged"] = bool(summary.get("converged", False))
     return table
