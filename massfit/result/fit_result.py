@@ -383,38 +383,38 @@ class FitResult:
 
     # -------------------------------------------------------------------- plots
     def corner_plot(self, **kwargs):
-        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.figures.corner_plot`."""
-        from massfit.plot.figures import corner_plot
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.corner_plot`."""
+        from massfit.plot import corner_plot
 
         return corner_plot(self, **kwargs)
 
     def velocity_plot(self, **kwargs):
-        """Radial velocities against phase, with residuals; see :func:`massfit.plot.figures.velocity_plot`."""
-        from massfit.plot.figures import velocity_plot
+        """Radial velocities against phase, with residuals; see :func:`massfit.plot.velocity_plot`."""
+        from massfit.plot import velocity_plot
 
         return velocity_plot(self, **kwargs)
 
     def velocity_time_plot(self, **kwargs):
-        """Radial velocities against time, with residuals; see :func:`massfit.plot.figures.velocity_time_plot`."""
-        from massfit.plot.figures import velocity_time_plot
+        """Radial velocities against time, with residuals; see :func:`massfit.plot.velocity_time_plot`."""
+        from massfit.plot import velocity_time_plot
 
         return velocity_time_plot(self, **kwargs)
 
     def orbit_plot(self, **kwargs):
-        """Sky-plane orbits with the data; see :func:`massfit.plot.figures.orbit_plot`."""
-        from massfit.plot.figures import orbit_plot
+        """Sky-plane orbits with the data; see :func:`massfit.plot.orbit_plot`."""
+        from massfit.plot import orbit_plot
 
         return orbit_plot(self, **kwargs)
 
     def residual_plot(self, **kwargs):
-        """Normalised residuals against time; see :func:`massfit.plot.figures.residual_plot`."""
-        from massfit.plot.figures import residual_plot
+        """Normalised residuals against time; see :func:`massfit.plot.residual_plot`."""
+        from massfit.plot import residual_plot
 
         return residual_plot(self, **kwargs)
 
     def periodogram_plot(self, **kwargs):
-        """Periodograms of the residuals; see :func:`massfit.plot.figures.periodogram_plot`."""
-        from massfit.plot.figures import periodogram_plot
+        """Periodograms of the residuals; see :func:`massfit.plot.periodogram_plot`."""
+        from massfit.plot import periodogram_plot
 
         return periodogram_plot(self, **kwargs)
 
@@ -436,7 +436,7 @@ class FitResult:
         """
         import matplotlib.pyplot as plt
 
-        from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+        from massfit.plot import FIGURES, applicable_figures, save_figure
 
         chosen = applicable_figures(self) if figures is None else list(figures)
         unknown = [f for f in chosen if f not in FIGURES]
