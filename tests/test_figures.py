@@ -201,7 +201,7 @@ def test_corner_plot_has_no_degenerate_or_fixed_panels(result):
     # The rank test that drops copies: GM against M is exactly monotonic.
     from massfit.plot.corner import _copies
 
-    mass = plots.corner.Column("mass", samples["central_mass_Msun"], "M", "", u.M_sun)
+    mass = plots.corner.Column("mass", samples["central_mass_solar"], "M", "", u.M_sun)
     gm = plots.corner.Column("gm", samples["central_gm"], "GM", "", u.km ** 3 / u.s ** 2)
     a = plots.corner.Column("Aster.semi_major_axis",
                             samples["companions"]["Aster"]["semi_major_axis"], "a", "", u.au)
