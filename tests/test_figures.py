@@ -229,7 +229,7 @@ def test_velocity_amplitudes_in_the_corner_use_the_input_unit():
     assert fig.massfit_parameters == ["Pell-b.period", "Pell-b.eccentricity",
                                       "Pell-b.rv_semi_amplitude"]
     axes = np.array(fig.axes).reshape(3, 3)
-    assert axes[-1, 2].get_xlabel() == r"$K^{(1)}_{\text{Pell-b}}$ [$\mathrm{m\,s^{-1}}$]"
+    assert axes[-1, 2].get_xlabel() == r"$K_{1,\text{Pell-b}}$ [$\mathrm{m\,s^{-1}}$]"
     k_kms = planet.summary["companions"]["Pell-b"]["rv_semi_amplitude"]["median"]
     assert np.mean(axes[2, 2].get_xlim()) == pytest.approx(1e3 * k_kms, rel=0.05)
 
@@ -345,3 +345,20 @@ def test_overlap_check_finds_overlaps():
     ax.set_title("short")
     ax.set_xlabel("x")
     assert overlapping_text(fig) == []
+
+
+def test_every_quantity_label_is_valid_math_text():
+    # A symbol with a subscript of its own (K_1, t_p, m_min) takes the body's name into
+    # that subscript: "K_1_{b}" is a double subscript, which math text refuses.
+    from matplotlib.mathtext import MathTextParser
+
+    from massfit.plot.corner import _with_body
+    from massfit.summarise.quantities import COMPANION
+
+    parser = MathTextParser("path")
+    for quantity in COMPANION.values():
+        label = _with_body(quantity.symbol, "Pell-b")
+        parser.parse(f"${label}$")  # raises ValueError on bad math text
+        assert "}_{" not in label.replace("}}_{", "") or label.startswith("{")
+    assert _with_body("K_1", "b") == r"K_{1,\text{b}}"
+    assert _with_body(r"t_\mathrm{p}", "b") == r"t_{\mathrm{p},\text{b}}"

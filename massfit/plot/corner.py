@@ -119,7 +119,7 @@ def _corner_columns(result, parameters, mass_unit):
             values = comps[body][quantity]
             if unit_astropy == u.km / u.s:  # velocities in the input's unit
                 values, unit, unit_astropy = _in_velocity_unit(result, values)
-            columns.append(Column(key, values, rf"{symbol}_{{{math_name(body)}}}", unit,
+            columns.append(Column(key, values, _with_body(symbol, body), unit,
                                   unit_astropy))
     return columns
 
@@ -157,6 +157,20 @@ def default_corner_parameters(result, companions=None, quantities=None, *,
     return out + [f"{name}.{q}" for name in by_period(result, names)
                   for q in quantities if q in comps[name]]
 
+
+
+def _with_body(symbol, body):
+    """The symbol with the body's name as subscript: ``K_{1,Pell-b}`` where the symbol
+    has a plain subscript of its own, ``{f(m)}_{Pell-b}`` otherwise (never a double
+    subscript, which math text refuses)."""
+    name = math_name(body)
+    base, _, sub = symbol.partition("_")
+    if sub and " " not in symbol and "(" not in symbol and base and "_" not in sub:
+        inner = sub[1:-1] if sub.startswith("{") and sub.endswith("}") else sub
+        return rf"{base}_{{{inner},{name}}}"
+    if not sub and " " not in symbol and "(" not in symbol:
+        return rf"{symbol}_{{{name}}}"
+    return rf"{{{symbol}}}_{{{name}}}"
 
 def _in_velocity_unit(result, values_kms):
     """(values, LaTeX unit, astropy unit) of velocities in the unit the input gave."""
