@@ -265,6 +265,25 @@ def test_residual_and_periodogram_panels(result):
     assert fig.axes[-1].get_xlabel() == "period of the residual signal [d]"
 
 
+def test_residual_figures_write_the_summarys_numbers(result):
+    # chi^2 and the residual peak are read from the summary's adequacy block and written
+    # by the report's own functions: one number, one wording, everywhere.
+    from massfit.summarise.adequacy import chi2_text, panels
+    from massfit.summarise.residuals import peak_text
+
+    entries = panels(result.summary["adequacy"])
+    texts = [t.get_text() for ax in plots.residual_plot(result).axes for t in ax.texts
+             if t.get_gid() == "chi2"]
+    assert texts == [f"{name}\n{chi2_text(entry)}" for name, entry in entries.items()]
+    report = result.report()
+    assert all(chi2_text(entry) in report for entry in entries.values())
+    fig = plots.periodogram_plot(result)
+    shown = " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
+    for name, entry in entries.items():
+        assert f"{name}: {peak_text(entry['periodogram'])}" in shown
+        assert fig.massfit_flags[name] == entry["periodogram"]["false_alarm_probability"]
+
+
 def test_periodogram_flags_a_leftover_signal():
     rng = np.random.default_rng(4)
     t = Time(2460000.0 + np.sort(rng.uniform(0, 600, 80)), format="jd", scale="tdb")

@@ -84,8 +84,6 @@ def test_chi2_and_periodogram_agree_in_terminal_summary_and_figures(tmp_path):
     assert load_result(tmp_path / "out").report() == text
 
 
-@pytest.mark.xfail(strict=False, reason="the residual figure still prints chi^2/N of its "
-                   "own; it is to read the summary's reduced chi^2 (plot/ is changing)")
 def test_residual_figure_shows_the_summarys_reduced_chi2():
     from figure_helpers import small_result
 

@@ -69,6 +69,12 @@ def test_residual_figures_add_a_velocity_panel(result):
     assert any(t.startswith("radial velocities") for t in texts)
     fig = plots.periodogram_plot(result)
     assert set(fig.massfit_flags) == {"Sorrel-B", "radial velocities"}
+    # The velocities' periodogram marks the orbital period too (the summary's median).
+    period = result.summary["companions"]["Sorrel-B"]["period"]["median"]
+    velocity_axis = [ax for ax in fig.axes
+                     if any(t.get_text().startswith("radial velocities") for t in ax.texts)][0]
+    marks = [ln.get_xdata()[0] for ln in velocity_axis.lines if ln.get_gid() == "orbital-period"]
+    assert marks == [pytest.approx(period)]
 
 
 def test_velocity_figures_are_written_for_velocity_fits(result):

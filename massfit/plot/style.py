@@ -80,11 +80,13 @@ def math_name(name: str) -> str:
     return r"\text{" + "".join(special.get(c, c) for c in name) + "}"
 
 
-def plain_log_ticks(axis):
-    """Ticks at 1, 2, 5 x 10^k written as plain numbers (``200``, not ``2 x 10^2``)."""
+def plain_log_ticks(axis, decades=None):
+    """Ticks at 1, 2, 5 x 10^k written as plain numbers (``200``, not ``2 x 10^2``); at
+    1, 2, 3, 5 x 10^k where the axis spans under one and a half ``decades``."""
     from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
-    axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+    subs = (1.0, 2.0, 3.0, 5.0) if decades is not None and decades < 1.5 else (1.0, 2.0, 5.0)
+    axis.set_major_locator(LogLocator(subs=subs))
     axis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
     axis.set_minor_formatter(NullFormatter())
 
