@@ -78,7 +78,8 @@ def test_rows_cover_the_central_body_and_each_companion(summary):
 
 def test_latex_table(summary):
     text = latex_table(summary, caption="Invented system.")
-    assert text.startswith(r"\begin{table}") and text.rstrip().endswith(r"\end{table}")
+    # A comment line naming the package it needs, then the table.
+    assert text.splitlines()[1] == r"\begin{table}" and text.rstrip().endswith(r"\end{table}")
     assert r"\toprule" in text and r"\bottomrule" in text
     assert r"\textit{Companion Aster}" in text
     # Every data line has four cells.
@@ -165,3 +166,34 @@ def test_the_escaped_table_compiles(tmp_path):
                           cwd=tmp_path, capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stdout[-2000:]
     assert "Undefined control sequence" not in proc.stdout
+
+
+def test_latex_table_has_a_caption_and_names_its_package(summary):
+    text = latex_table(summary)
+    first = text.splitlines()[0]
+    assert first.startswith("%") and r"\usepackage{booktabs}" in first
+    assert r"\toprule" in text  # the package is needed: booktabs rules are used
+    caption = [line for line in text.splitlines() if line.startswith(r"\caption{")]
+    assert len(caption) == 1 and "68.27" in caption[0] and "JD (TDB)" in caption[0]
+    assert r"\caption{Invented system.}" in latex_table(summary, caption="Invented system.")
+
+
+def test_times_of_periapsis_in_the_input_format_and_scale():
+    # The planet's table gave MJD in UTC: its time of periapsis is printed so, and the
+    # number is the summary's TDB Julian date converted by astropy.
+    from astropy.time import Time
+    from figure_helpers import planet_result
+
+    planet = planet_result()
+    block = planet.summary["companions"]["Pell-b"]["periapsis_time"]
+    expected = Time(block["median"], format="jd", scale="tdb").utc.mjd
+    for fmt in ("latex", "markdown"):
+        assert "MJD (UTC)" in planet.table(fmt)
+    row = [r for r in planet.table("ecsv") if r["parameter"] == "periapsis_time"][0]
+    assert row["unit"] == "MJD (UTC)"
+    assert row["median"] == pytest.approx(expected, abs=1e-8)
+    # UTC runs about 69 s behind TDB in these years: the conversion is not a relabelling.
+    assert abs(row["median"] - (block["median"] - 2400000.5)) > 5e-4
+    # Without the input's form (a summary alone) times stay JD (TDB).
+    plain = [r for r in ecsv_table(planet.summary) if r["parameter"] == "periapsis_time"][0]
+    assert plain["unit"] == "JD (TDB)" and plain["median"] == pytest.approx(block["median"])

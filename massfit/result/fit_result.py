@@ -346,6 +346,9 @@ class FitResult:
             the others return text.
         mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
             The unit of the central mass beside kg.
+
+        Times of periapsis are given in the input's time format and scale where every
+        file gave the same (JD in TDB otherwise).
         """
         from massfit.write import tables
 
@@ -356,7 +359,9 @@ class FitResult:
 
             raise ConfigError(f"unknown table format {fmt!r}; accepted: "
                               f"{', '.join(makers)}", key="fmt")
-        return makers[fmt](self.summary, mass_unit=mass_unit)
+        observations = self.model.observations
+        form = observations.time_form() if hasattr(observations, "time_form") else None
+        return makers[fmt](self.summary, mass_unit=mass_unit, time_form=form)
 
     # ----------------------------------------------------------------- samples
     def samples_table(self) -> Table:

@@ -18,6 +18,7 @@ from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, forma
                                         format_range, print_exponent, round_interval)
 
 __all__ = ["Rounded", "round_interval", "format_interval", "parameter_rows", "latex_table",
+           "LATEX_PACKAGES",
            "markdown_table", "html_table", "ecsv_table", "TABLE_FORMATS"]
 
 #: Table formats and the file each is written to in an output folder.
@@ -51,7 +52,8 @@ def _pick_mass_unit(summary, mass_unit):
     return best_mass_unit(summary["central_mass_solar"]["median"] or 1.0)
 
 
-def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
+def parameter_rows(summary: dict, *, mass_unit: str | None = None,
+                   time_form: tuple | None = None) -> list:
     """The rows of the parameter table, in print order.
 
     Parameters
@@ -61,6 +63,11 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
     mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
         The unit of the central mass beside the one in kg (by default the one that
         reads best).
+    time_form : (str, str), optional
+        The input's time format and scale (``Observations.time_form()``): times of
+        periapsis are given in it (JD or MJD in that scale; Julian years for
+        ``jyear``; JD in that scale for calendar dates, which cannot carry an error).
+        By default JD (TDB), as in the summary.
 
     Returns
     -------
@@ -77,7 +84,30 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
     rows = [_row("", key, summary[key]) for key in central]
     for name, comp in summary["companions"].items():
         rows += [_row(name, key, comp[key]) for key in COMPANION if key in comp]
+    if time_form is not None:
+        rows = [_in_time_form(row, time_form) if row.key.endswith(".periapsis_time") else row
+                for row in rows]
     return rows
+
+
+def _in_time_form(row, time_form):
+    """A time row in the input's format and scale (the summary has JD, TDB)."""
+    from dataclasses import replace
+
+    from astropy.time import Time
+
+    time_format, scale = time_form
+    name = {"mjd": "MJD", "jyear": "Julian year"}.get(time_format, "JD")
+    block = dict(row.block)
+    for key in ("median", "lower_68", "upper_68", "lower_95", "upper_95"):
+        if block.get(key) is None:
+            continue
+        time = getattr(Time(block[key], format="jd", scale="tdb"), scale)
+        block[key] = float(time.mjd if name == "MJD" else time.jyear if name != "JD"
+                           else time.jd)
+    unit = f"{name} ({scale.upper()})"
+    block["unit"] = unit
+    return replace(row, block=block, unit_latex=unit, unit_text=unit)
 
 
 def _row(group, key, block):
@@ -120,18 +150,33 @@ def tex_escape(text: str) -> str:
     return str(text).translate(_TEX_SPECIAL)
 
 
-def latex_table(summary: dict, *, mass_unit: str | None = None,
-                caption: str | None = None, label: str = "tab:massfit") -> str:
-    """The parameter summary as a LaTeX ``table`` (booktabs rules).
+#: The LaTeX packages the table needs, said in its first line.
+LATEX_PACKAGES = ("booktabs",)
 
-    Medians with their 68.27 % intervals, rounded by :func:`round_interval`.
+
+def latex_table(summary: dict, *, mass_unit: str | None = None,
+                caption: str | None = None, label: str = "tab:massfit",
+                time_form: tuple | None = None) -> str:
+    """The parameter summary as a LaTeX ``table`` with a caption (booktabs rules).
+
+    Medians with their 68.27 % intervals, rounded by :func:`round_interval`; times of
+    periapsis in ``time_form`` (see :func:`parameter_rows`). The first line is a
+    comment naming the packages the table needs (:data:`LATEX_PACKAGES`); ``caption``
+    replaces the default caption, which says what the numbers are.
     """
-    lines = [r"\begin{table}", r"\centering"]
-    if caption:
-        lines.append(rf"\caption{{{caption}}}")
-    lines += [rf"\label{{{label}}}", r"\begin{tabular}{llll}", r"\toprule",
-              r"Parameter & Symbol & Value & Unit \\", r"\midrule"]
-    for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
+    rows = parameter_rows(summary, mass_unit=mass_unit, time_form=time_form)
+    if caption is None:
+        caption = (r"Parameters of the fit: posterior medians with 68.27\,\% central "
+                   "credible intervals (from the 15.865th to the 84.135th percentile).")
+        times = sorted({row.unit_text for row in rows if row.key.endswith(".periapsis_time")})
+        if times:
+            caption += f" Times of periapsis are given as {tex_escape(times[0])}."
+    lines = ["% Needs \\usepackage{" + ",".join(LATEX_PACKAGES) + "} in the preamble "
+             "(\\toprule, \\midrule, \\bottomrule).",
+             r"\begin{table}", r"\centering", rf"\caption{{{caption}}}",
+             rf"\label{{{label}}}", r"\begin{tabular}{llll}", r"\toprule",
+             r"Parameter & Symbol & Value & Unit \\", r"\midrule"]
+    for group, first, row in _groups(rows):
         if first:
             title = "Central body" if not group else f"Companion {tex_escape(group)}"
             if group:
@@ -141,16 +186,15 @@ def latex_table(summary: dict, *, mass_unit: str | None = None,
         value = "undetermined" if rounded is None else f"${rounded.latex()}$"
         lines.append(f"{tex_escape(row.name)} & ${row.symbol}$ & {value} & "
                      f"{row.unit_latex} \\\\")
-    lines += [r"\bottomrule", r"\end{tabular}",
-              r"\par\smallskip{\footnotesize Medians with 68.27\,\% credible intervals.}",
-              r"\end{table}"]
+    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
     return "\n".join(lines) + "\n"
 
 
-def markdown_table(summary: dict, *, mass_unit: str | None = None) -> str:
+def markdown_table(summary: dict, *, mass_unit: str | None = None,
+                   time_form: tuple | None = None) -> str:
     """The parameter summary as a Markdown (pipe) table."""
     lines = ["| body | parameter | value | unit |", "| --- | --- | --- | --- |"]
-    for row in parameter_rows(summary, mass_unit=mass_unit):
+    for row in parameter_rows(summary, mass_unit=mass_unit, time_form=time_form):
         rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else rounded.text()
         lines.append(f"| {row.group or 'central'} | {row.name} | {value} | "
@@ -166,7 +210,8 @@ _HTML_UNITS = {"km3 / s2": "km<sup>3</sup>&thinsp;s<sup>&minus;2</sup>",
                "M_earth": "M<sub>&#8853;</sub>"}
 
 
-def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
+def html_table(summary: dict, *, mass_unit: str | None = None,
+               time_form: tuple | None = None) -> str:
     """The parameter summary as an HTML table (for notebooks)."""
     from html import escape
 
@@ -174,7 +219,8 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
            "<th style='text-align:right'>median and 68 % interval</th>"
            "<th style='text-align:left'>unit</th>"
            f"<th style='text-align:right'>{WIDE_LABEL} interval</th></tr></thead>", "<tbody>"]
-    for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
+    for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit,
+                                                    time_form=time_form)):
         if first:
             title = "Central body" if not group else f"Companion {escape(group)}"
             out.append(f"<tr><th colspan='4' style='text-align:left'>{title}</th></tr>")
@@ -191,12 +237,13 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
     return "\n".join(out)
 
 
-def ecsv_table(summary: dict, *, mass_unit: str | None = None) -> Table:
+def ecsv_table(summary: dict, *, mass_unit: str | None = None,
+               time_form: tuple | None = None) -> Table:
     """The parameter summary as an astropy Table (write it as ECSV).
 
     Full-precision medians and interval bounds, plus the rounded text of each.
     """
-    rows = parameter_rows(summary, mass_unit=mass_unit)
+    rows = parameter_rows(summary, mass_unit=mass_unit, time_form=time_form)
     table = Table()
     table["body"] = [row.group or "central" for row in rows]
     table["parameter"] = [row.key.split(".", 1)[-1] for row in rows]
