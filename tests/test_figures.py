@@ -381,3 +381,23 @@ def test_every_quantity_label_is_valid_math_text():
         assert "}_{" not in label.replace("}}_{", "") or label.startswith("{")
     assert _with_body("K_1", "b") == r"K_{1,\text{b}}"
     assert _with_body(r"t_\mathrm{p}", "b") == r"t_{\mathrm{p},\text{b}}"
+
+
+def test_corner_plot_colours_groups_of_samples(result):
+    # The hook for posterior modes: each group's samples in a colour of their own.
+    from figure_helpers import overlapping_text
+
+    period = result.samples["companions"]["Aster"]["period"]
+    short = period < np.median(period)
+    fig = plots.corner_plot(result, parameters=["mass", "Aster.period", "Aster.eccentricity"],
+                            groups={"short": short, "long": ~short})
+    axes = np.array(fig.axes).reshape(3, 3)
+    points = [ln for ln in axes[1, 0].lines if ln.get_gid() == "group-0"]
+    assert len(points) == 1 and len(points[0].get_xdata()) == short.sum()
+    assert points[0].get_color() == "C0"
+    legend = [t.get_text() for ax in fig.axes if ax.get_legend() for t in
+              ax.get_legend().get_texts()]
+    assert legend == ["short (50%)", "long (50%)"]
+    assert overlapping_text(fig) == []
+    with pytest.raises(ConfigError, match="flags"):
+        plots.corner_plot(result, parameters=["mass"], groups={"bad": short[:5]})

@@ -110,6 +110,8 @@ def test_velocities_are_drawn_in_the_input_unit_without_gamma(planet):
 
 def test_velocity_legend_names_instruments_not_files(planet, sorrel):
     # One file without an instrument column: no entry named after the file.
+    residuals = plots.residual_plot(planet).axes[0].get_legend()
+    assert [t.get_text() for t in residuals.get_texts()] == ["velocities"]
     top = plots.velocity_time_plot(planet).axes[0]
     legend = [t.get_text() for t in top.get_legend().get_texts()]
     assert legend == ["Pell"]

@@ -200,7 +200,7 @@ def _copies(columns) -> list:
 
 def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
                 quantities=None, truths=None, quantiles=(0.15865, 0.5, 0.84135),
-                titles=None, width=None, full=False, corner_kwargs=None):
+                titles=None, width=None, full=False, groups=None, corner_kwargs=None):
     """Corner plot of the central mass, the parallax and the companions' elements.
 
     Parameters
@@ -238,6 +238,10 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     full : bool, optional
         Every sampled element of each companion (:data:`FULL_COMPANION_QUANTITIES`)
         instead of P, a, e and i; written as ``corner_full`` on request.
+    groups : dict, optional
+        Label -> boolean array over the samples (e.g. the posterior's modes): each
+        group's samples are drawn over the plot in a colour of their own, with a
+        legend. Groups need not cover every sample.
     corner_kwargs : dict, optional
         Passed to :func:`corner.corner` last (overrides the choices above).
 
@@ -272,6 +276,8 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
             options["truths"] = [c.truth(truths.get(c.key)) for c in columns]
         options.update(corner_kwargs or {})
         corner.corner(data, **options)
+        if groups:
+            _overlay_groups(fig, data, groups)
         _tidy_corner(fig, columns, width, show_titles)
     fig.massfit_parameters = list(parameters)
     return fig
@@ -314,6 +320,43 @@ def _shown_columns(result, parameters, mass_unit, companions, quantities, truths
     return columns
 
 
+def _overlay_groups(fig, data, groups):
+    """Each group's samples in its own colour over the corner plot (a colouring hook
+    for modes or any other split of the samples), and a legend of the groups."""
+    from matplotlib.lines import Line2D
+
+    k = data.shape[1]
+    axes = np.array(fig.axes).reshape(k, k)
+    handles = []
+    for j, (label, mask) in enumerate(groups.items()):
+        mask = np.asarray(mask, dtype=bool)
+        if mask.shape != (len(data),):
+            raise ConfigError(f"group {label!r} has {mask.size} flags for {len(data)} "
+                              "samples", key="groups")
+        colour = f"C{j % 10}"
+        for row in range(k):
+            for col in range(row + 1):
+                ax = axes[row, col]
+                limits = ax.get_xlim(), ax.get_ylim()
+                if row == col:
+                    ax.hist(data[mask, col], bins=30, range=limits[0], histtype="step",
+                            color=colour, lw=0.6, gid=f"group-{j}")
+                else:
+                    ax.plot(data[mask, col], data[mask, row], ls="none", marker=".",
+                            ms=1.0, alpha=0.3, color=colour, rasterized=True,
+                            gid=f"group-{j}")
+                ax.set_xlim(limits[0])
+                if row != col:
+                    ax.set_ylim(limits[1])
+        handles.append(Line2D([], [], color=colour, marker="o", ms=3, ls="none",
+                              label=f"{label} ({mask.mean():.0%})"))
+    # In the empty upper triangle just above the last diagonal panel, below the list
+    # of values that starts at the top right.
+    home = axes[max(k - 2, 0), -1]
+    home.legend(handles=handles, loc="lower right" if k > 1 else "upper left",
+                frameon=False, fontsize=7, title="groups", title_fontsize=7)
+
+
 def _tidy_corner(fig, columns, width, show_titles):
     k = len(columns)
     axes = np.array(fig.axes).reshape(k, k)
@@ -324,13 +367,15 @@ def _tidy_corner(fig, columns, width, show_titles):
                         wspace=0.06, hspace=0.06)
     panel = (width - margin_left - 0.08) / k
     tick_size = 7 if panel > 0.5 else 6
+    # Room for the labels: four on a wide panel, two on a narrow one.
+    nbins = 3 if panel > 0.8 else (2 if panel > 0.6 else 1)  # intervals: ticks - 1
     for (row, col), ax in np.ndenumerate(axes):
         ax.tick_params(labelsize=tick_size, length=2.5, width=0.5, direction="in",
                        top=False, right=False)
         if col <= row:
-            ax.xaxis.set_major_locator(_inner_ticks())
+            ax.xaxis.set_major_locator(_inner_ticks(nbins))
             if col < row:
-                ax.yaxis.set_major_locator(_inner_ticks())
+                ax.yaxis.set_major_locator(_inner_ticks(nbins))
         for spine in ax.spines.values():
             spine.set_linewidth(0.5)
     for ax in axes[-1, :]:
@@ -353,16 +398,20 @@ def _tidy_corner(fig, columns, width, show_titles):
 
 
 
-def _inner_ticks():
-    """At most three ticks, none in the outer tenth of the axis, whose labels would
+def _inner_ticks(nbins):
+    """At most ``nbins`` + 1 ticks, none in the outer tenth of the axis, whose labels would
     meet those of the neighbouring panel."""
     from matplotlib.ticker import MaxNLocator
 
     class InnerTicks(MaxNLocator):
         def tick_values(self, vmin, vmax):
-            ticks = super().tick_values(vmin, vmax)
             low, high = sorted((vmin, vmax))
             margin = 0.1 * (high - low)
-            return ticks[(ticks >= low + margin) & (ticks <= high - margin)]
+            # Nice ticks of the inner range itself, so that two or three remain.
+            ticks = super().tick_values(low + margin, high - margin)
+            ticks = ticks[(ticks >= low + margin) & (ticks <= high - margin)]
+            while len(ticks) > nbins + 1:  # matplotlib keeps two inside at least
+                ticks = ticks[len(ticks) % 2 == 0::2] if len(ticks) > 2 else ticks[:1]
+            return ticks
 
-    return InnerTicks(nbins=3, steps=[1, 2, 2.5, 5, 10])
+    return InnerTicks(nbins=nbins, steps=[1, 2, 2.5, 5, 10])

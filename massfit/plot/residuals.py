@@ -48,9 +48,13 @@ def residual_plot(result, *, companions=None, width=None):
                                  layout="constrained")
         for ax, (name, res) in zip(axes[:, 0], residuals.items()):
             times = axis(res.time.tdb.jd)
-            for j, comp in enumerate(np.unique(res.component)):
+            kinds = np.unique(res.component)
+            for j, comp in enumerate(kinds):
+                # Velocities: one marker per instrument, named only where there are
+                # several (one file without an instrument column is "velocities").
                 marker, colour, word = _COMPONENT_STYLE.get(
-                    comp, (INSTRUMENT_MARKERS[j % 10], "C4", comp or "velocity"))
+                    comp, (INSTRUMENT_MARKERS[j % 10], "C4",
+                           comp if len(kinds) > 1 else "velocities"))
                 pick = res.component == comp
                 ax.scatter(times[pick], res.normalised[pick], s=6, marker=marker,
                            color=colour, linewidths=0, label=word, gid=f"residuals-{comp}")
