@@ -4,56 +4,45 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
+from massfit.summarise.quantities import CENTRAL, COMPANION
 from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
 
 
-_CENTRAL_BLOCKS = (
-    ("central_mass", "central_mass", "kg"),
-    ("central_gm", "central_gm", "km3 / s2"),
-    ("central_mass_solar", "central_mass_Msun", "M_sun"),
-    ("central_mass_jupiter", "central_mass_Mjup", "M_jup"),
-    ("central_mass_earth", "central_mass_Mearth", "M_earth"),
-)
-#: Companion quantities of the summary, in order, with their units.
-_COMPANION_BLOCKS = (
-    ("period", "d"), ("semi_major_axis", "au"), ("semi_major_axis_km", "km"),
-    ("eccentricity", ""), ("inclination", "deg"), ("periapsis_argument", "deg"),
-    ("ascending_node", "deg"), ("periapsis_time", "JD (TDB)"), ("mass", "M_sun"),
-    ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
-    ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
-    ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
-    ("mass_ratio", ""), ("inclination_to_equator", "deg"),
-    ("node_on_equator", "deg"),
-)
+#: Central-mass blocks of the summary, in order (names and units: summarise/quantities.py).
+_CENTRAL_BLOCKS = ("central_mass", "central_gm", "central_mass_solar", "central_mass_jupiter",
+                   "central_mass_earth")
+#: Companion quantities of the summary, in order.
+_COMPANION_BLOCKS = tuple(key for key in COMPANION if key != "semi_major_axis_angle")
 
 
-#: Terminal lines of a companion: (summary key, label, unit).
+#: Terminal lines of a companion: (summary key, a note after the unit).
 _COMPANION_LINES = (
-    ("period", "P", "d"), ("eccentricity", "e", ""), ("inclination", "i", "deg"),
-    ("periapsis_argument", "omega", "deg (the companion's; the primary's is omega + 180)"),
-    ("ascending_node", "Omega", "deg"),
-    ("mass", "m", "M_sun"), ("rv_semi_amplitude", "K1", "km/s (primary)"),
-    ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
-    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (m sin i: i = 90 deg)"),
-    ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
-    ("inclination_to_equator", "i_eq", "deg (to the primary's equator)"),
-    ("node_on_equator", "Om_eq", "deg (on the primary's equator)"),
+    ("period", ""), ("eccentricity", ""), ("inclination", ""),
+    ("periapsis_argument", " (the companion's; the primary's is omega + 180)"),
+    ("ascending_node", ""), ("mass", ""), ("rv_semi_amplitude", " (primary)"),
+    ("rv_semi_amplitude_companion", " (companion)"), ("mass_function", ""),
+    ("minimum_mass", " (m sin i: i = 90 deg)"), ("mass_sin3i", ""), ("primary_mass_sin3i", ""),
+    ("inclination_to_equator", " (to the primary's equator)"),
+    ("node_on_equator", " (on the primary's equator)"),
 )
 
 
 def _companion_lines(comp) -> list:
     lines = []
-    for key, label, unit in _COMPANION_LINES:
+    for key, unit_note in _COMPANION_LINES:
         if key not in comp:
             continue
+        label, unit = COMPANION[key].plain, COMPANION[key].unit_text.replace(" / ", "/")
+        unit += unit_note
         note = ""
         if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
             note = "; or +180 with node +180"
@@ -62,7 +51,7 @@ def _companion_lines(comp) -> list:
             block, best = in_best_mass_unit(block)
             unit = unit.replace("M_sun", best, 1)
         if note:
-            unit = unit[:-1] + note + ")"
+            unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
         lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
         if key == "period" and "semi_major_axis" in comp:
             a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
@@ -147,9 +136,9 @@ class FitResult:
         obs = self.model.observations
         chain = self.chain
         summary = {}
-        for key, sample_key, unit in _CENTRAL_BLOCKS:
+        for key in _CENTRAL_BLOCKS:
             # Velocities alone may leave the central mass open: null, never a number.
-            summary[key] = interval(s[sample_key], unit) if sample_key in s else None
+            summary[key] = interval(s[key], CENTRAL[key].unit_text) if key in s else None
         if "central_mass_note" in s:
             summary["central_mass_note"] = s["central_mass_note"]
         if "parallax" in s:
@@ -217,10 +206,10 @@ class FitResult:
         """The summary's interval blocks of each companion."""
         out = {}
         for name, comp in self.samples["companions"].items():
-            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
-                     if key in comp}
-            if "semi_major_axis_mas" in comp:
-                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
+            block = {key: interval(comp[key], COMPANION[key].unit_text)
+                     for key in _COMPANION_BLOCKS if key in comp}
+            if "semi_major_axis_angle" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_angle"], "mas")
             if "ascending_node" in comp:
                 block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
                                                else 0.0)
@@ -376,25 +365,19 @@ class FitResult:
         for k, name in enumerate(self.model.names):
             table[name] = self.chain.samples[:, k]
         table["log_prob"] = self.chain.log_prob
-        units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
         for key, values in self.samples.items():
             if key in ("companions", "rv") or not isinstance(values, np.ndarray):
                 continue  # velocity terms are sampled columns already; notes are text
             table[key] = values
-            if key in units:
-                table[key].unit = units[key]
-        comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
-                      "semi_major_axis_mas": "mas", "inclination": "deg",
-                      "periapsis_argument": "deg", "ascending_node": "deg",
-                      "rv_semi_amplitude": "km / s", "rv_semi_amplitude_companion": "km / s"}
-        for key in ("mass", "mass_function", "mass_function_companion", "minimum_mass",
-                    "mass_sin3i", "primary_mass_sin3i"):
-            comp_units[key] = "solMass"
+            if key in CENTRAL and CENTRAL[key].unit != u.one:
+                table[key].unit = CENTRAL[key].unit
         for name, comp in self.samples["companions"].items():
             for key, values in comp.items():
                 table[f"{name}.{key}"] = values
-                if key in comp_units:
-                    table[f"{name}.{key}"].unit = comp_units[key]
+                # A time of periapsis is a date (JD, TDB), not a duration in days.
+                if key in COMPANION and COMPANION[key].unit != u.one \
+                        and key != "periapsis_time":
+                    table[f"{name}.{key}"].unit = COMPANION[key].unit
         table.meta["converged"] = self.converged
         return table
 

@@ -199,6 +199,13 @@ def load_result(folder):
     return result
 
 
+#: Sample columns of results written before the samples took the summary's keys.
+_EARLIER_NAMES = {"central_mass_Msun": "central_mass_solar",
+                  "central_mass_Mjup": "central_mass_jupiter",
+                  "central_mass_Mearth": "central_mass_earth",
+                  "semi_major_axis_mas": "semi_major_axis_angle"}
+
+
 def _derived_from_table(table, model):
     out = {"companions": {name: {} for name in model.companions}}
     for col in table.colnames:
@@ -209,7 +216,7 @@ def _derived_from_table(table, model):
         body, _, key = col.partition(".")
         values = np.asarray(table[col], dtype=float)
         if key and body in out["companions"]:
-            out["companions"][body][key] = values
+            out["companions"][body][_EARLIER_NAMES.get(key, key)] = values
         elif not key:
-            out[col] = values
+            out[_EARLIER_NAMES.get(col, col)] = values
     return out
