@@ -60,3 +60,22 @@ def test_batch_bar_says_systems_done_and_time_left(tmp_path, capsys, monkeypatch
     batch.run_batch(jobs, tmp_path, progress=True)
     err = capsys.readouterr().err
     assert "systems: 2 of 2 done" in err and "left" in err and "2 failed" in err
+
+
+def test_not_converged_says_which_test_failed():
+    from types import SimpleNamespace
+
+    from massfit.run import not_converged_text
+
+    short = SimpleNamespace(steps=3000, tau=np.array([100.0, 80.0]),
+                            tau_history=[(2500, 95.0), (3000, 100.0)])
+    assert not_converged_text(short) == ("not converged after 3000 steps: the chain is "
+                                         "30.0 autocorrelation times long (50 needed); "
+                                         "raise max_steps")
+    # Long enough, but the estimate moved by 4 % (3 % allowed): saying only "50 needed"
+    # beside 70 would read as a contradiction.
+    unsettled = SimpleNamespace(steps=3000, tau=np.array([42.8, 20.0]),
+                                tau_history=[(2500, 41.1), (3000, 42.8)])
+    text = not_converged_text(unsettled)
+    assert "70.1 autocorrelation times long (50 needed), but" in text
+    assert "the longest by 4 %; 3 % allowed for each" in text
