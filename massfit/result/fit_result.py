@@ -9,28 +9,25 @@ from astropy.table import Table
 
 from massfit.summarise.derived import best_mass_unit, derived_samples, interval
 from massfit.summarise.rounding import format_interval
+from massfit.summarise.sample_units import COMPANION_SAMPLE_UNITS, SAMPLE_UNITS
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
 
 
+#: The central body's summary keys, in order, with the samples they come from.
 _CENTRAL_BLOCKS = (
-    ("central_mass", "central_mass", "kg"),
-    ("central_gm", "central_gm", "km3 / s2"),
-    ("central_mass_solar", "central_mass_Msun", "M_sun"),
-    ("central_mass_jupiter", "central_mass_Mjup", "M_jup"),
-    ("central_mass_earth", "central_mass_Mearth", "M_earth"),
+    ("central_mass", "central_mass"), ("central_gm", "central_gm"),
+    ("central_mass_solar", "central_mass_Msun"), ("central_mass_jupiter", "central_mass_Mjup"),
+    ("central_mass_earth", "central_mass_Mearth"),
 )
-#: Companion quantities of the summary, in order, with their units.
+#: Companion quantities of the summary, in order (units: COMPANION_SAMPLE_UNITS).
 _COMPANION_BLOCKS = (
-    ("period", "d"), ("semi_major_axis", "au"), ("semi_major_axis_km", "km"),
-    ("eccentricity", ""), ("inclination", "deg"), ("periapsis_argument", "deg"),
-    ("ascending_node", "deg"), ("periapsis_time", "JD (TDB)"), ("mass", "M_sun"),
-    ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
-    ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
-    ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
-    ("mass_ratio", ""), ("inclination_to_equator", "deg"),
-    ("node_on_equator", "deg"),
+    "period", "semi_major_axis", "semi_major_axis_km", "eccentricity", "inclination",
+    "periapsis_argument", "ascending_node", "periapsis_time", "mass", "rv_semi_amplitude",
+    "rv_semi_amplitude_companion", "mass_function", "mass_function_companion",
+    "minimum_mass", "mass_sin3i", "primary_mass_sin3i", "mass_ratio",
+    "inclination_to_equator", "node_on_equator",
 )
 
 
@@ -126,9 +123,10 @@ class FitResult:
         obs = self.model.observations
         chain = self.chain
         summary = {}
-        for key, sample_key, unit in _CENTRAL_BLOCKS:
+        for key, sample_key in _CENTRAL_BLOCKS:
             # Velocities alone may leave the central mass open: null, never a number.
-            summary[key] = interval(s[sample_key], unit) if sample_key in s else None
+            summary[key] = (interval(s[sample_key], SAMPLE_UNITS[sample_key])
+                            if sample_key in s else None)
         if "central_mass_note" in s:
             summary["central_mass_note"] = s["central_mass_note"]
         if "parallax" in s:
@@ -164,8 +162,8 @@ class FitResult:
         }
         summary["companions"] = {}
         for name, comp in s["companions"].items():
-            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
-                     if key in comp}
+            block = {key: interval(comp[key], COMPANION_SAMPLE_UNITS[key])
+                     for key in _COMPANION_BLOCKS if key in comp}
             if "semi_major_axis_mas" in comp:
                 block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
             if "ascending_node" in comp:
@@ -347,27 +345,28 @@ class FitResult:
         for k, name in enumerate(self.model.names):
             table[name] = self.chain.samples[:, k]
         table["log_prob"] = self.chain.log_prob
-        units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
         for key, values in self.samples.items():
             if key in ("companions", "rv") or not isinstance(values, np.ndarray):
                 continue  # velocity terms are sampled columns already; notes are text
             table[key] = values
-            if key in units:
-                table[key].unit = units[key]
-        comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
-                      "semi_major_axis_mas": "mas", "inclination": "deg",
-                      "periapsis_argument": "deg", "ascending_node": "deg",
-                      "rv_semi_amplitude": "km / s", "rv_semi_amplitude_companion": "km / s"}
-        for key in ("mass", "mass_function", "mass_function_companion", "minimum_mass",
-                    "mass_sin3i", "primary_mass_sin3i"):
-            comp_units[key] = "solMass"
+            _set_unit(table[key], SAMPLE_UNITS.get(key))
         for name, comp in self.samples["companions"].items():
             for key, values in comp.items():
                 table[f"{name}.{key}"] = values
-                if key in comp_units:
-                    table[f"{name}.{key}"].unit = comp_units[key]
+                _set_unit(table[f"{name}.{key}"], COMPANION_SAMPLE_UNITS.get(key))
         table.meta["converged"] = self.converged
         return table
+
+    def to_inference_data(self):
+        """The posterior as ArviZ ``InferenceData``: one chain per walker, physical units.
+
+        See :func:`massfit.result.inference_data.to_inference_data`; needs arviz
+        (``pip install "massfit[arviz]"``). ``save(..., arviz=True)`` writes it as
+        NetCDF (``posterior.nc``).
+        """
+        from massfit.result.inference_data import to_inference_data
+
+        return to_inference_data(self)
 
     # -------------------------------------------------------------------- plots
     def corner_plot(self, **kwargs):
@@ -458,7 +457,8 @@ class FitResult:
         return paths
 
     # --------------------------------------------------------------------- save
-    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
+    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf"),
+             arviz=False) -> Path:
         """Write the output folder: summary, samples, observations, tables and figures.
 
         ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
@@ -470,13 +470,17 @@ class FitResult:
         run.json (``figures.failed``), and the rest of the result is kept. An existing
         result is replaced only if ``force`` is true, and then only the files massfit
         wrote; a folder massfit did not write is never touched (see
-        :mod:`massfit.write.folder`).
+        :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
+        as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
+        :meth:`to_inference_data`; needs arviz).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
                                               write_observations)
 
         out = Path(out_dir)
+        # Before anything is written: a missing arviz is a one-line error, not half a folder.
+        posterior = self.to_inference_data() if arviz else None
         record = {**self.record, "model": model_state(self.model)}
         with atomic_folder(out, record=RUN_FILE, force=force,
                            inputs=self.model.observations.files) as tmp:
@@ -485,6 +489,10 @@ class FitResult:
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
             self.write_tables(tmp)
+            if posterior is not None:
+                from massfit.result.inference_data import INFERENCE_DATA_FILE
+
+                posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
             write_json(tmp / RUN_FILE, record)
             if plots:
                 record["figures"] = self._write_figures_or_warn(tmp, formats)
@@ -513,6 +521,14 @@ class FitResult:
             else:
                 done["written"].append(stem)
         return done
+
+
+def _set_unit(column, unit):
+    """Give a samples column its unit where astropy can read it (not "JD (TDB)" or "")."""
+    import astropy.units as u
+
+    if unit and not isinstance(u.Unit(unit, parse_strict="silent"), u.UnrecognizedUnit):
+        column.unit = unit
 
 
 class FigureWarning(UserWarning):
