@@ -23,12 +23,13 @@ from massfit.errors import ConfigError
 from massfit.summarise.sample_units import (COMPANION_SAMPLE_UNITS, SAMPLE_UNITS,
                                              VELOCITY_SAMPLE_UNITS)
 
-__all__ = ["INFERENCE_DATA_FILE", "to_inference_data"]
+__all__ = ["INFERENCE_DATA_FILE", "to_inference_data", "require_arviz"]
 
 #: The file ``FitResult.save(..., arviz=True)`` (``massfit fit --arviz``) writes.
 INFERENCE_DATA_FILE = "posterior.nc"
 
-def _import_arviz():
+def require_arviz():
+    """The arviz module, or a ConfigError that says how to install it."""
     try:
         import arviz
     except ImportError:
@@ -106,7 +107,7 @@ def to_inference_data(result):
     ConfigError
         If arviz is not installed (``pip install "massfit[arviz]"``).
     """
-    arviz = _import_arviz()
+    arviz = require_arviz()
     chain = result.chain
     walkers = int(chain.walkers)
     n = len(chain.log_prob)
