@@ -31,7 +31,7 @@ def test_chains_are_walkers_with_the_chains_values():
     np.testing.assert_array_equal(post["parallax"].values,
                                   _walker_coordinate(result, "parallax"))
     mass = 10.0 ** _walker_coordinate(result, "central.log10_mass")
-    np.testing.assert_allclose(post["central_mass_Msun"].values, mass, rtol=1e-12)
+    np.testing.assert_allclose(post["central_mass_solar"].values, mass, rtol=1e-12)
     # Companion quantities share one dimension, in the fit's order.
     assert list(post["period"].coords["companion"].values) == ["Aster", "Brel"]
     np.testing.assert_array_equal(
@@ -52,12 +52,12 @@ def test_chains_are_walkers_with_the_chains_values():
 def test_arviz_diagnostics_run_on_the_export():
     result = small_result()
     data = result.to_inference_data()
-    table = arviz.summary(data, var_names=["central_mass_Msun", "period"])
-    flat = result.samples["central_mass_Msun"]
-    assert table.loc["central_mass_Msun", "mean"] == pytest.approx(
+    table = arviz.summary(data, var_names=["central_mass_solar", "period"])
+    flat = result.samples["central_mass_solar"]
+    assert table.loc["central_mass_solar", "mean"] == pytest.approx(
         np.mean(flat), rel=1e-3)  # ArviZ rounds its table to a few digits
     assert set(table.index) >= {"period[Aster]", "period[Brel]"}
-    ess = arviz.ess(data, var_names=["central_mass_Msun"])["central_mass_Msun"].item()
+    ess = arviz.ess(data, var_names=["central_mass_solar"])["central_mass_solar"].item()
     assert 1.0 < ess <= flat.size * 1.5  # an effective sample count, not a flag value
     assert np.isfinite(arviz.rhat(data, var_names=["parallax"])["parallax"].item())
 

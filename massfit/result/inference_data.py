@@ -3,7 +3,8 @@
 Each emcee walker becomes one ArviZ chain and each kept step (after burn-in and
 thinning) one draw. The variables are the physical quantities of
 :func:`massfit.summarise.derived.derived_samples`, in the units of ``summary.json``
-(each variable's ``units`` attribute says which); quantities of the companions share a
+(each variable's ``units`` attribute says which, as
+:mod:`massfit.summarise.quantities` and the summary's blocks write it); quantities of the companions share a
 ``companion`` dimension and the velocity terms an ``instrument`` dimension.
 ``sample_stats`` holds ``lp``, the log-posterior of each draw.
 
@@ -20,8 +21,7 @@ import warnings
 import numpy as np
 
 from massfit.errors import ConfigError
-from massfit.summarise.sample_units import (COMPANION_SAMPLE_UNITS, SAMPLE_UNITS,
-                                             VELOCITY_SAMPLE_UNITS)
+from massfit.summarise.quantities import CENTRAL, COMPANION
 
 __all__ = ["INFERENCE_DATA_FILE", "to_inference_data", "require_arviz"]
 
@@ -49,13 +49,17 @@ def _by_walker(values, walkers):
     return values.reshape(-1, walkers, *values.shape[1:]).swapaxes(0, 1)
 
 
-def _posterior(samples, walkers):
+def _unit(table, key):
+    return table[key].unit_text if key in table else ""
+
+
+def _posterior(samples, velocity_blocks, walkers):
     """Variables, their dims and their units from FitResult.samples."""
     variables, dims, units = {}, {}, {}
     for key, values in samples.items():
         if isinstance(values, np.ndarray):
             variables[key] = _by_walker(values, walkers)
-            units[key] = SAMPLE_UNITS.get(key, "")
+            units[key] = _unit(CENTRAL, key)
     companions = list(samples.get("companions", {}))
     keys = []
     for comp in samples.get("companions", {}).values():
@@ -69,19 +73,19 @@ def _posterior(samples, walkers):
                             for c in columns], axis=-1)
         variables[key] = _by_walker(stacked, walkers)
         dims[key] = ["companion"]
-        units[key] = COMPANION_SAMPLE_UNITS.get(key, "")
+        units[key] = _unit(COMPANION, key)
     rv = samples.get("rv", {})
     for term in ("offset", "jitter"):
         if term in rv:
             labels = list(rv[term])
-            stacked = np.stack([rv[term][lab] for lab in labels], axis=-1)
-            variables[f"rv_{term}"] = _by_walker(stacked, walkers)
+            variables[f"rv_{term}"] = _by_walker(
+                np.stack([rv[term][lab] for lab in labels], axis=-1), walkers)
             dims[f"rv_{term}"] = ["instrument"]
-            units[f"rv_{term}"] = VELOCITY_SAMPLE_UNITS[term]
+            units[f"rv_{term}"] = velocity_blocks[term][labels[0]]["unit"]
     for term in ("slope", "curvature"):
         if term in rv:
             variables[f"rv_trend_{term}"] = _by_walker(rv[term], walkers)
-            units[f"rv_trend_{term}"] = VELOCITY_SAMPLE_UNITS[term]
+            units[f"rv_trend_{term}"] = velocity_blocks[f"trend_{term}"]["unit"]
     return variables, dims, units, companions
 
 
@@ -114,7 +118,8 @@ def to_inference_data(result):
     if walkers < 1 or n % walkers:
         raise ConfigError(f"{n} samples do not divide into {walkers} walkers; the chain "
                           "cannot be split walker by walker", key="walkers")
-    variables, dims, units, companions = _posterior(result.samples, walkers)
+    variables, dims, units, companions = _posterior(
+        result.samples, result.summary.get("velocities", {}), walkers)
     coords = {"companion": companions}
     rv = result.samples.get("rv", {})
     if "offset" in rv:
