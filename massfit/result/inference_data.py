@@ -3,10 +3,12 @@
 Each emcee walker becomes one ArviZ chain and each kept step (after burn-in and
 thinning) one draw. The variables are the physical quantities of
 :func:`massfit.summarise.derived.derived_samples`, in the units of ``summary.json``
-(each variable's ``units`` attribute says which, as
-:mod:`massfit.summarise.quantities` and the summary's blocks write it); quantities of the companions share a
-``companion`` dimension and the velocity terms an ``instrument`` dimension.
-``sample_stats`` holds ``lp``, the log-posterior of each draw.
+(each variable's ``units`` attribute says which, as :mod:`massfit.summarise.quantities`
+and the summary's blocks write it); the companions' quantities share a ``companion``
+dimension and the velocity terms an ``instrument`` dimension.
+``sample_stats`` holds ``lp``, the log-posterior of each draw as the sampler saw it
+(``log_prob`` of ``samples.ecsv``: in the sampler's coordinates, so with the Jacobian
+of the change for companions sampled as a position and velocity).
 
 The walkers of an ensemble sampler are not independent chains: a walker's moves use
 the positions of the others. ArviZ's effective sample size and R-hat computed over
