@@ -54,8 +54,8 @@ def test_the_site_holds_the_reference_pages():
         assert list(DOCS.glob(page + ".*")), page
     # The conventions page carries the project's conventions, formulas included.
     conventions = (DOCS / "conventions.md").read_text()
-    for text in ("Thiele–Innes", "P² = 4π² a³ / (G (M₁ + m₂))", "v_primary   = γ − m₂/(M₁ + m₂)",
-                 "15.865th to the 84.135th percentile"):
+    for text in ("Thiele–Innes", "P² = 4π² a³ / (G (M₁ + m₂))",
+                 "v_primary   = γ − m₂/(M₁ + m₂)", "15.865th to the 84.135th percentile"):
         assert text in conventions
 
 
