@@ -221,6 +221,30 @@ def test_joint_rows_are_saved_in_one_table_and_read_back(tmp_path):
                 assert np.array_equal(a, b, equal_nan=a.dtype.kind == "f"), name
 
 
+def test_folders_with_the_old_velocities_file_still_load(tmp_path):
+    from astropy.table import Table
+    from figure_helpers import sorrel_result
+
+    from massfit.result.loading import load_result
+
+    result = sorrel_result()
+    out = tmp_path / "out"
+    result.save(out, plots=False)
+    # The layout written before the one table: astrometry alone in observations.ecsv,
+    # the velocities in velocities.ecsv, no kind column.
+    rows = Table.read(out / "observations.ecsv", format="ascii.ecsv")
+    kind = np.asarray(rows["kind"])
+    for name, pick in (("observations.ecsv", "astrometry"), ("velocities.ecsv", "velocity")):
+        part = rows[kind == pick]
+        part.remove_columns([c for c in part.colnames
+                             if c == "kind" or np.all(np.ma.getmaskarray(part[c]))])
+        part.write(out / name, format="ascii.ecsv", overwrite=True)
+    again = load_result(out).model.observations
+    assert np.array_equal(again.velocities.rv, result.model.observations.velocities.rv)
+    assert np.array_equal(again.astrometry.east, result.model.observations.astrometry.east,
+                          equal_nan=True)
+
+
 @pytest.mark.parametrize("extra, needle", [
     (["--central-mass-err", "0.1 Msun"], "--central-mass-err"),
     (["--central-mass", "-1 Msun"], "--central-mass"),
