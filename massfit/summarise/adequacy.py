@@ -229,7 +229,10 @@ def _verdicts(block):
         out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
                    f"{comparison['delta_bic']:.1f} (positive favours "
                    f"{block['dynamics']['model']}); preferred: {comparison['preferred']}")
-    if not out:
+    if not out and not block["companions"]:
+        # Velocities alone: the fitted jitter absorbs misfit, so only the periodogram tests.
+        out.append("no residual periodic signal (chi2 is no test with a fitted jitter)")
+    elif not out:
         out.append("no sign that the model misses anything (chi2 and residual "
                    "periodograms consistent with noise)")
     return out
