@@ -19,6 +19,7 @@ from pathlib import Path
 
 from massfit.model.fit_quality import POOR_FIT_P_VALUE
 from massfit.errors import ConfigError, MassfitError, WriteError
+from massfit.sample.nested import ENGINES
 
 __all__ = ["main", "EXIT_OK", "EXIT_WRITE_FAILED", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED",
            "EXIT_POOR_FIT"]
@@ -82,6 +83,11 @@ def _parser() -> argparse.ArgumentParser:
     _dynamics_options(fit)
     _viewing_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
+    fit.add_argument("--sampler", choices=ENGINES, help="emcee's ensemble (default) or "
+                     "nested sampling with dynesty: each mode of the posterior weighed in "
+                     "its own period box, and the evidence")
+    fit.add_argument("--live-points", type=int, metavar="N",
+                     help="nested: live points per run (default 400)")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
                           "in its own period box and give the mass over all of them "
@@ -431,6 +437,11 @@ def _run(setup, args, *, record, force):
     overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps", "check_every")
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
+    engine = getattr(args, "sampler", None) or setup.engine
+    nested = setup.nested
+    if getattr(args, "live_points", None) is not None:
+        nested = replace(nested, live_points=args.live_points)
+        nested.check(key_prefix="--")
     if not args.quiet:
         velocities = observations.velocities
         n_rv = 0 if velocities is None else len(velocities)
@@ -441,7 +452,8 @@ def _run(setup, args, *, record, force):
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False),
-                 weigh_modes=getattr(args, "weigh_modes", False))
+                 weigh_modes=getattr(args, "weigh_modes", False), engine=engine,
+                 nested=nested)
     _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
     discard(setup.output)
     return result

@@ -41,7 +41,7 @@ import numpy as np
 from massfit.sample.chain import Chain
 from massfit.start.modes import MIN_WEIGHT, period_box
 
-__all__ = ["NestedSettings", "NestedChain", "PriorTransform", "flat_box", "run_nested",
+__all__ = ["NestedSettings", "NestedChain", "PriorTransform", "flat_box", "run_nested", "boxes_of",
            "nested_box", "weigh_boxes", "AGREEMENT_SIGMAS", "ENGINES"]
 
 #: Two runs of one box agree when their ln Z differ by at most this many combined errors.
@@ -340,7 +340,7 @@ def _mixture(runs, probabilities, rng, draws=POSTERIOR_DRAWS):
     return np.concatenate(parts), 1.0 / squares
 
 
-def _boxes_of(start, model):
+def boxes_of(start, model):
     """Period boxes of the start's weighty modes: list of (mode, {body: (lo, hi)}),
     or [(None, {})] (one run over the whole prior) where there is one mode."""
     candidates = list(getattr(start, "candidate_modes", []) or [])
@@ -365,7 +365,7 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
-    plan = _boxes_of(start, model)
+    plan = boxes_of(start, model)
     runs, k = [], 0
     for mode, boxes in plan:
         box_runs = []
