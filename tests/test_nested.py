@@ -89,7 +89,7 @@ def test_evidence_of_a_linear_gaussian_model():
                         ("b", "identity", Normal(0.0, 2.0))], log_like)
     cov = sigma ** 2 * np.eye(t.size) + design @ np.diag(sd ** 2) @ design.T
     exact = stats.multivariate_normal(design @ mean, cov).logpdf(y)
-    run = nested_box(model, NestedSettings(live_points=150), seed=5)
+    run = nested_box(model, NestedSettings(live_points=80), seed=5)
     assert abs(run["log_z"] - exact) < 3 * run["log_z_err"]
     # Negative control: the evidence under a prior twice as wide differs by far more.
     wide = stats.multivariate_normal(design @ mean, sigma ** 2 * np.eye(t.size)
@@ -121,7 +121,7 @@ def test_two_modes_of_known_weight():
     start = SimpleNamespace(candidate_modes=[
         {"periods": {"b": 10 ** c}, "log10_period_sd": {"b": 0.01}, "weight": 0.5}
         for c in centres])
-    chain = run_nested(model, start, NestedSettings(live_points=100, runs=2, seed=2))
+    chain = run_nested(model, start, NestedSettings(live_points=60, runs=2, seed=2))
     found = np.array([m["probability"] for m in chain.modes])
     err = np.array([m["probability_err"] for m in chain.modes])
     assert chain.converged and all(m["runs_agree"] for m in chain.modes)

@@ -20,6 +20,7 @@ from pathlib import Path
 from massfit.model.fit_quality import POOR_FIT_P_VALUE
 from massfit.errors import ConfigError, MassfitError, WriteError
 from massfit.sample.nested import ENGINES
+from massfit.cli import compare
 
 __all__ = ["main", "EXIT_OK", "EXIT_WRITE_FAILED", "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED",
            "EXIT_POOR_FIT"]
@@ -136,6 +137,7 @@ def _parser() -> argparse.ArgumentParser:
                        help="fit again the systems that already have a result")
     _plan_parser(sub)
     _redraw_parser(sub)
+    compare.add_parser(sub)
     return parser
 
 
@@ -359,6 +361,8 @@ def main(argv=None) -> int:
             return _cmd_plan(args)
         if args.command == "redraw":
             return _cmd_redraw(args)
+        if args.command == "compare":
+            return compare.run(args)
         return _cmd_demo(args)
     except WriteError as exc:
         print(f"massfit: error: {exc}", file=sys.stderr)
