@@ -147,3 +147,38 @@ def test_fixed_priors_and_bad_settings_named():
         assert np.allclose(prior.cdf(prior.quantile(u)), u)
     with pytest.raises(ConfigError, match="live_points"):
         NestedSettings(live_points=3).check()
+
+
+def _config(tmp_path, name, data_file, sampler=""):
+    path = tmp_path / f"{name}.toml"
+    path.write_text(f'[data]\nfiles = ["{data_file}"]\n[system]\nparallax = "25 mas"\n'
+                    f'{sampler}')
+    return path
+
+
+def test_engine_settings_and_compare_inputs_refused_in_one_line(tmp_path, capsys):
+    from massfit.cli.commands import main
+    from massfit.config.fit import load_config
+    from massfit.scenarios.examples import tamsin
+
+    table, _ = tamsin(4)
+    table.write(tmp_path / "a.ecsv", format="ascii.ecsv")
+    table[:-1].write(tmp_path / "b.ecsv", format="ascii.ecsv")
+    setup = load_config(_config(tmp_path, "n", "a.ecsv",
+                                '[sampler]\nengine = "nested"\nlive_points = 60\n'))
+    assert setup.engine == "nested" and setup.nested.live_points == 60
+    cases = [
+        (["fit", str(_config(tmp_path, "e", "a.ecsv", '[sampler]\nengine = "tempered"\n')),
+          "--out", str(tmp_path / "o1")], "sampler.engine"),
+        (["fit", str(_config(tmp_path, "r", "a.ecsv", '[sampler]\nruns_per_box = 0\n')),
+          "--out", str(tmp_path / "o2")], "sampler.runs_per_box"),
+        (["compare", str(_config(tmp_path, "one", "a.ecsv")),
+          str(_config(tmp_path, "two", "b.ecsv")), "--out", str(tmp_path / "o3")],
+         "two.toml: data.files"),
+    ]
+    capsys.readouterr()
+    for argv, key in cases:
+        assert main(argv) == 2
+        err = capsys.readouterr().err
+        assert key in err and len(err.strip().splitlines()) == 1, err
+    assert not (tmp_path / "o3").exists()
