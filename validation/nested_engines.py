@@ -40,11 +40,13 @@ def main(argv=None):
     parser.add_argument("--live", type=int, default=100)
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--settings", nargs="+", default=list(SETTINGS))
+    parser.add_argument("--boxes", type=int, default=None,
+                        help="only the first N boxes (heaviest first)")
     args = parser.parse_args(argv)
     table, _ = tamsin(4)
     model = OrbitModel(read_back(table), SystemSpec(parallax=Fixed(25.0)))
     start = find_start(model)
-    plan = boxes_of(start, model)
+    plan = boxes_of(start, model)[:args.boxes]
     out = []
     for label in args.settings:
         settings = NestedSettings(live_points=args.live, **SETTINGS[label])
