@@ -182,3 +182,27 @@ def test_engine_settings_and_compare_inputs_refused_in_one_line(tmp_path, capsys
         err = capsys.readouterr().err
         assert key in err and len(err.strip().splitlines()) == 1, err
     assert not (tmp_path / "o3").exists()
+
+
+def test_improper_flat_priors_become_named_boxes():
+    from dataclasses import replace
+
+    from massfit.config.fit import load_config
+    from massfit.read.tables import read_observations
+    from massfit.scenarios.examples import PACKAGE_DATA
+
+    setup = load_config(PACKAGE_DATA / "sorrel" / "config.toml")
+    obs = read_observations(setup.files, **setup.read_options)
+    model = OrbitModel(obs, replace(setup.system, trend="linear"))
+    transform = PriorTransform(model)
+    flat = [n for n in model.names if n.endswith(".offset") or n.endswith(".slope")]
+    assert flat and all(any(n in note for note in transform.notes) for n in flat)
+    theta = np.array([transform(u) for u in np.random.default_rng(0).uniform(
+        size=(300, model.n_dim))])
+    assert np.all(np.isfinite(model.log_prior(theta)))
+    # Every instrument's velocities lie well inside its offset's box.
+    rv = model.velocity_rows.rv
+    for name in flat:
+        if name.endswith(".offset"):
+            column = theta[:, model.column_of[name]]
+            assert column.min() < rv.min() and column.max() > rv.max()

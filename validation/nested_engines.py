@@ -40,13 +40,15 @@ def main(argv=None):
     parser.add_argument("--live", type=int, default=100)
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--settings", nargs="+", default=list(SETTINGS))
-    parser.add_argument("--boxes", type=int, default=None,
-                        help="only the first N boxes (heaviest first)")
+    parser.add_argument("--boxes", type=int, nargs="+", default=None,
+                        help="only these boxes (0: the heaviest by Laplace weight)")
+    parser.add_argument("--out", default=str(OUT))
     args = parser.parse_args(argv)
     table, _ = tamsin(4)
     model = OrbitModel(read_back(table), SystemSpec(parallax=Fixed(25.0)))
     start = find_start(model)
-    plan = boxes_of(start, model)[:args.boxes]
+    plan = boxes_of(start, model)
+    plan = plan if args.boxes is None else [plan[k] for k in args.boxes]
     out = []
     for label in args.settings:
         settings = NestedSettings(live_points=args.live, **SETTINGS[label])
@@ -63,8 +65,8 @@ def main(argv=None):
             print(f"{label:15s} P {row['period']}: ln Z {np.round(log_z, 2)}  stated "
                   f"{row['stated_err']:.2f}  scatter {row['scatter']:.2f}  calls "
                   f"{row['calls']:.0f}  {row['seconds']:.0f} s", flush=True)
-            OUT.parent.mkdir(parents=True, exist_ok=True)
-            OUT.write_text(json.dumps({"live_points": args.live, "rows": out}, indent=1))
+            Path(args.out).parent.mkdir(parents=True, exist_ok=True)
+            Path(args.out).write_text(json.dumps({"live_points": args.live, "rows": out}, indent=1))
 
 
 if __name__ == "__main__":
