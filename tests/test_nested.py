@@ -172,6 +172,8 @@ def test_engine_settings_and_compare_inputs_refused_in_one_line(tmp_path, capsys
           "--out", str(tmp_path / "o1")], "sampler.engine"),
         (["fit", str(_config(tmp_path, "r", "a.ecsv", '[sampler]\nruns_per_box = 0\n')),
           "--out", str(tmp_path / "o2")], "sampler.runs_per_box"),
+        (["fit", str(tmp_path / "a.ecsv"), "--parallax", "25 mas", "--live-points", "50",
+          "--out", str(tmp_path / "o4")], "--live-points"),
         (["compare", str(_config(tmp_path, "one", "a.ecsv")),
           str(_config(tmp_path, "two", "b.ecsv")), "--out", str(tmp_path / "o3")],
          "two.toml: data.files"),

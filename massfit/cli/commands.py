@@ -444,6 +444,10 @@ def _run(setup, args, *, record, force):
     engine = getattr(args, "sampler", None) or setup.engine
     nested = setup.nested
     if getattr(args, "live_points", None) is not None:
+        if engine != "nested":
+            raise ConfigError("live points are the nested sampler's: give --sampler nested "
+                              "(or [sampler] engine = \"nested\") with them",
+                              key="--live-points")
         nested = replace(nested, live_points=args.live_points)
         nested.check(key_prefix="--")
     if not args.quiet:
