@@ -12,6 +12,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
+from massfit.cli.status import EXIT_NOT_CONVERGED, EXIT_OK
 from massfit.errors import ConfigError
 
 __all__ = ["add_parser", "run"]
@@ -92,4 +93,4 @@ def run(args) -> int:
     comparison.save(args.out, force=args.force, inputs=inputs)
     print(comparison.report())
     print(f"\nwritten to {args.out}/")
-    return 0 if comparison.summary["all_converged"] else 3
+    return EXIT_OK if comparison.summary["all_converged"] else EXIT_NOT_CONVERGED
