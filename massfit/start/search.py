@@ -597,7 +597,10 @@ def _sub_model(model, name):
         # Astrometry alone cannot part the companion's mass from the central one;
         # the joint step sets it from the primary's reflex.
         comp = replace(comp, mass=Fixed(0.0))
-    sub_spec = replace(spec, parallax=parallax, companions={name: comp})
+    # One star's search is on its own: the frame terms and relativity wait for the
+    # joint polish (they are small against an orbit, and shared by every star).
+    sub_spec = replace(spec, parallax=parallax, companions={name: comp}, frame=None,
+                       relativity=None)
     return OrbitModel(sub_obs, sub_spec)
 
 
@@ -877,6 +880,10 @@ def _values_from_theta(model, theta):
         ecc_prior = model.companions[name].eccentricity
         top = 0.98 if ecc_prior.is_fixed else min(0.98, 0.999 * ecc_prior.high)
         values[name]["ecc"] = min(values[name]["ecc"], top)
+    if phys.get("frame") is not None:
+        values["frame"] = {key: float(value[0]) for key, value in phys["frame"].items()}
+    if "precession_scale" in phys:
+        values["precession_scale"] = float(phys["precession_scale"][0])
     if "rv" in phys:
         rv = phys["rv"]
         labels = model.velocity_rows.labels
@@ -1131,6 +1138,11 @@ def _with_velocities(model, values):
         orbit["mass"] = _inside(comp.mass, share * total)
         values["central_mass"] = max(total - orbit["mass"], 1e-30)
     values["rv"] = _velocity_nuisance(model, coef, fitted)
+    if model.spec.frame is not None:
+        # The instruments' zero points are the frame's: the fitted systemic velocity
+        # of the first instrument starts the primary's own velocity.
+        values["frame"] = dict(values.get("frame", {}),
+                               velocity=float(coef[("offset", vel.labels[0])]))
     return values
 
 
