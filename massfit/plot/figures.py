@@ -25,6 +25,7 @@ from massfit.constants import AU_KM
 from massfit.summarise.residuals import FAP_THRESHOLD, astrometric_residuals, best_sample, residual_periodogram
 from massfit.errors import ConfigError
 from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit, interval
+from massfit.summarise.quantities import COMPANION, MASS_UNIT_ASTROPY, MASS_UNIT_KEYS
 from massfit.summarise.rounding import round_interval
 
 __all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
@@ -49,25 +50,12 @@ STYLE = {
 }
 
 _TIME_CMAP = "viridis"
-_MASS_SAMPLES = {"Msun": "central_mass_Msun", "Mjup": "central_mass_Mjup",
-                 "Mearth": "central_mass_Mearth", "kg": "central_mass"}
-_MASS_ASTROPY = {"Msun": u.M_sun, "Mjup": u.M_jup, "Mearth": u.M_earth, "kg": u.kg}
-# Companion quantities a corner plot can show: symbol, unit (LaTeX), astropy unit.
-_COMPANION_QUANTITIES = {
-    "period": ("P", r"\mathrm{d}", u.day),
-    "semi_major_axis": ("a", r"\mathrm{au}", u.au),
-    "semi_major_axis_km": ("a", r"\mathrm{km}", u.km),
-    "semi_major_axis_mas": ("a", r"\mathrm{mas}", u.mas),
-    "eccentricity": ("e", "", u.one),
-    "inclination": ("i", r"^\circ", u.deg),
-    "periapsis_argument": (r"\omega", r"^\circ", u.deg),
-    "ascending_node": (r"\Omega", r"^\circ", u.deg),
-    "mass": ("m", r"M_\odot", u.M_sun),
-    "rv_semi_amplitude": ("K^{(1)}", r"\mathrm{km\,s^{-1}}", u.km / u.s),
-    "rv_semi_amplitude_companion": ("K^{(2)}", r"\mathrm{km\,s^{-1}}", u.km / u.s),
-    "mass_function": ("f", r"M_\odot", u.M_sun),
-    "minimum_mass": (r"m_\mathrm{min}", r"M_\odot", u.M_sun),
-}
+_MASS_SAMPLES = MASS_UNIT_KEYS
+_MASS_ASTROPY = MASS_UNIT_ASTROPY
+# Companion quantities a corner plot can show: symbol, unit (LaTeX), astropy unit; from the
+# one table of quantities (summarise/quantities.py).
+_COMPANION_QUANTITIES = {key: (d.symbol, d.unit_latex, d.unit) for key, d in COMPANION.items()
+                         if key != "periapsis_time"}
 DEFAULT_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "inclination")
 
 
@@ -215,7 +203,7 @@ def default_corner_parameters(result, companions=None, quantities=None) -> list:
         quantities = DEFAULT_COMPANION_QUANTITIES + ("mass",) if len(names) <= 2 else (
             "period", "semi_major_axis")
     # Velocities alone may leave the central mass undetermined: no column for it.
-    out = ["mass", "gm"] if "central_mass_Msun" in result.samples else []
+    out = ["mass", "gm"] if "central_mass_solar" in result.samples else []
     out += ["parallax"] if "parallax" in result.samples else []
     comps = result.samples["companions"]
     return out + [f"{name}.{q}" for name in names for q in quantities if q in comps[name]]
@@ -232,7 +220,7 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     parameters : list of str, optional
         What to show, in order: ``mass``, ``gm``, ``parallax`` and
         ``BODY.QUANTITY`` with QUANTITY one of ``period``, ``semi_major_axis``,
-        ``semi_major_axis_km``, ``semi_major_axis_mas``, ``eccentricity``,
+        ``semi_major_axis_km``, ``semi_major_axis_angle``, ``eccentricity``,
         ``inclination``, ``periapsis_argument``, ``ascending_node``, ``mass``. By
         default the mass, GM, the parallax (where sampled) and each companion's
         ``quantities``, leaving out any that did not vary (a fixed parallax or
@@ -268,8 +256,8 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
 
 
     if mass_unit is None:
-        mass_unit = (best_mass_unit(float(np.median(result.samples["central_mass_Msun"])))
-                     if "central_mass_Msun" in result.samples else "Msun")
+        mass_unit = (best_mass_unit(float(np.median(result.samples["central_mass_solar"])))
+                     if "central_mass_solar" in result.samples else "Msun")
     if mass_unit not in _MASS_SAMPLES:
         raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
                           f"{', '.join(_MASS_SAMPLES)}", key="mass_unit")
