@@ -8,6 +8,7 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
+from massfit.summarise.dark_mass import summary_blocks
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
 from massfit.summarise.quantities import CENTRAL, COMPANION
@@ -148,6 +149,7 @@ class FitResult:
                     "no parallax was given: sampled with a "
                     f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
                     "companion's radial velocities with its relative astrometry")
+        summary.update(summary_blocks(self.model, s, interval))
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 

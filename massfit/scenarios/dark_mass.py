@@ -27,7 +27,7 @@ import numpy as np
 from massfit.constants import C_AU_PER_DAY, GM_SUN, KM_S_PER_AU_DAY
 
 __all__ = ["Star", "DarkMassSystem", "star_states", "observe", "brannock_system",
-           "brannock_schedule", "tables"]
+           "brannock_schedule", "tables", "fit_spec", "simulated_observations"]
 
 DAYS_PER_YEAR = 365.25
 
@@ -258,3 +258,37 @@ def tables(astrometry, velocities, *, description=""):
         table.meta.update(time_format="jd", time_scale="tdb", description=description)
         out[key] = table
     return out
+
+
+def fit_spec(system, *, relativity=True, precession_scale=None):
+    """The fit's assumptions for a simulated system: the frame terms, the stars'
+    periods between 1 and 100 years (what decades of positions show at a glance),
+    errors as stated (no jitter); with ``relativity`` the precession (its scale
+    sampled with ``precession_scale``, default uniform on [-5, 10]), the redshift, the
+    transverse Doppler shift and the light time; without, none of them."""
+    from massfit.model.orbit_model import (CompanionSpec, FrameSpec, RelativitySpec,
+                                           SystemSpec)
+    from massfit.priors import Fixed, LogUniform, Uniform
+
+    companions = {name: CompanionSpec(name, period=LogUniform(DAYS_PER_YEAR,
+                                                              100 * DAYS_PER_YEAR))
+                  for name in system.stars}
+    rel = None
+    if relativity:
+        rel = RelativitySpec(precession_scale=precession_scale or Uniform(-5.0, 10.0))
+    return SystemSpec(primary="dark mass", frame=FrameSpec(), relativity=rel,
+                      romer_delay=relativity, companions=companions, jitter=Fixed(0.0))
+
+
+def simulated_observations(system, schedule, *, seed, folder):
+    """Noisy observations written as ECSV into ``folder`` and read back by massfit."""
+    from pathlib import Path
+
+    from massfit.read.tables import read_observations
+
+    ast, vel = observe(system, schedule, seed=seed)
+    paths = []
+    for file_name, table in tables(ast, vel).items():
+        table.write(Path(folder) / file_name, format="ascii.ecsv", overwrite=True)
+        paths.append(Path(folder) / file_name)
+    return read_observations(paths)
