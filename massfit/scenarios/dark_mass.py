@@ -292,3 +292,100 @@ def simulated_observations(system, schedule, *, seed, folder):
         table.write(Path(folder) / file_name, format="ascii.ecsv", overwrite=True)
         paths.append(Path(folder) / file_name)
     return read_observations(paths)
+
+
+# ------------------------------------------------------------- the example folder
+BRANNOCK_CONFIG = """# Brannock: the mass and distance of an invented unseen mass from four stars' orbits.
+[data]
+files = ["positions.ecsv", "velocities.ecsv"]
+
+[system]
+primary = "Brannock"
+romer_delay = true                # the light time across the orbits (days here)
+
+[companions.Brannock-a]
+period_prior = {kind = "log-uniform", low = "1 yr", high = "100 yr"}
+
+[companions.Brannock-b]
+period_prior = {kind = "log-uniform", low = "1 yr", high = "100 yr"}
+
+[companions.Brannock-c]
+period_prior = {kind = "log-uniform", low = "1 yr", high = "100 yr"}
+
+[companions.Brannock-d]
+period_prior = {kind = "log-uniform", low = "1 yr", high = "100 yr"}
+
+[velocities]
+jitter_prior = {kind = "fixed", value = "0 km/s"}
+
+[frame]                           # the mass is not seen: its place and motion are fitted
+
+[relativity]
+precession_scale_prior = {kind = "uniform", low = -5, high = 10}
+
+[sampler]
+seed = 5
+
+[output]
+folder = "fit-out"
+"""
+
+BRANNOCK_README = """# Brannock: stars about an invented unseen mass
+
+Invented for massfit's examples; no real object is described.
+
+- **Truth**: an unseen mass of {mass:.3g} solar masses at {distance:g} pc (parallax
+  {parallax:.5f} mas). In the frame of the positions it sits at ({east}, {north}) mas at
+  JD {epoch} and drifts by ({motion_east}, {motion_north}) mas/yr (east, north); its own
+  line-of-sight velocity is {velocity} km/s. Four stars, Brannock-a to -d, on orbits of
+  {periods} years (e = {eccs}); every element (osculating at JD {start}) is in
+  `truth.json`. Brannock-a passes {periapsis:.0f} au from the mass at {speed:.0f} km/s.
+- **How it was made**: `massfit.scenarios.dark_mass` (seed {seed}): REBOUND (IAS15) with
+  REBOUNDx's first post-Newtonian force, the light time across the orbits, the exact
+  Doppler factor with the gravitational redshift; not the fitting model's formulas.
+  `positions.ecsv`: one night a year for 32 years ({ast_err} mas) and monthly
+  positions within 0.4 yr of each periapsis passage ({close_err} mas), in the frame
+  (east, north of the frame's origin). `velocities.ecsv`: yearly from the ninth year
+  and every ten days within 146 days of each passage ({rv_err} km/s).
+- **Fit**: `massfit fit config.toml` (the frame terms, the precession with its scale
+  free, the redshift, the transverse Doppler shift and the light time; the distance
+  comes from the stars' velocities against their motion on the sky).
+"""
+
+BRANNOCK_SEED = 20261219
+
+
+def brannock(seed=BRANNOCK_SEED):
+    """The Brannock example: ({file name: table}, truth)."""
+    system = brannock_system()
+    schedule = brannock_schedule(system)
+    ast, vel = observe(system, schedule, seed=seed)
+    description = ("Invented example: {what} of four stars about the unseen mass Brannock. "
+                   "Made by massfit.scenarios.dark_mass.brannock().")
+    out = tables(ast, vel)
+    out["positions.ecsv"].meta["description"] = description.format(
+        what="east/north positions in the frame (mas)")
+    out["velocities.ecsv"].meta["description"] = description.format(
+        what="radial velocities (km/s)")
+    truth = dict(system.truth(), seed=seed, astrometric_error_mas=0.4,
+                 close_passage_error_mas=0.1, velocity_error_km_s=15.0)
+    return out, truth
+
+
+def brannock_readme(truth) -> str:
+    """The example folder's README from its truth."""
+    stars = truth["stars"].values()
+    a = truth["stars"]["Brannock-a"]
+    gm = GM_SUN * truth["central_mass_Msun"]
+    axis = np.cbrt(gm * a["period"] ** 2 / (4 * np.pi ** 2))
+    periapsis = axis * (1 - a["ecc"])
+    speed = np.sqrt(gm * (1 + a["ecc"]) / periapsis) * KM_S_PER_AU_DAY
+    f = truth["frame"]
+    return BRANNOCK_README.format(
+        mass=truth["central_mass_Msun"], distance=truth["distance_pc"],
+        parallax=truth["parallax_mas"], epoch=truth["frame_epoch_jd"],
+        start=truth["elements_epoch_jd"], seed=truth["seed"],
+        periods=", ".join(f"{s['period'] / DAYS_PER_YEAR:g}" for s in stars),
+        eccs=", ".join(f"{s['ecc']:g}" for s in stars), periapsis=periapsis, speed=speed,
+        ast_err=truth["astrometric_error_mas"], close_err=truth["close_passage_error_mas"],
+        rv_err=truth["velocity_error_km_s"], **f)
