@@ -197,3 +197,34 @@ def test_recovery_and_newtonian_control():
             assert record["relativistic"][f"{q}_inside_95"], (seed, q, record)
         assert abs(record["newtonian"]["mass_pull"]) > 3.0, record
         assert record["newtonian"]["chi2"] > record["relativistic"]["chi2"] + 100
+
+
+def test_config_tables_for_frame_and_relativity(tmp_path):
+    from massfit.config.fit import parse_config
+    from massfit.errors import ConfigError
+    from massfit.priors import Normal, Uniform
+
+    raw = {"data": {"files": ["x.ecsv"]},
+           "frame": {"motion_east_prior": {"kind": "normal", "mean": "0.1 mas/yr",
+                                           "sd": "36 uas/yr"},
+                     "velocity_prior": {"kind": "fixed", "value": "-21 km/s"}},
+           "relativity": {"transverse_doppler": False,
+                          "precession_scale_prior": {"kind": "uniform", "low": 0,
+                                                     "high": 2}}}
+    system = parse_config(raw, base=tmp_path).system
+    assert isinstance(system.frame.motion_east, Normal)
+    assert system.frame.motion_east.sd == pytest.approx(0.036)  # mas/yr
+    assert system.frame.velocity.value == pytest.approx(-21.0)
+    assert system.frame.east is None  # flat
+    assert system.relativity.transverse_doppler is False
+    assert system.relativity.gravitational_redshift is True
+    assert isinstance(system.relativity.precession_scale, Uniform)
+    for bad, key in (({"relativity": {"redshift": True}}, "relativity.redshift"),
+                     ({"relativity": {"precession": False, "precession_scale_prior":
+                                      {"kind": "uniform", "low": 0, "high": 2}}},
+                      "relativity.precession_scale_prior"),
+                     ({"frame": {"velocity_prior": {"kind": "fixed", "value": "3 mas"}}},
+                      "frame.velocity_prior")):
+        with pytest.raises(ConfigError) as info:
+            parse_config(dict(raw, **bad), base=tmp_path)
+        assert info.value.key.startswith(key)
