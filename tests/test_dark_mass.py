@@ -228,3 +228,42 @@ def test_config_tables_for_frame_and_relativity(tmp_path):
         with pytest.raises(ConfigError) as info:
             parse_config(dict(raw, **bad), base=tmp_path)
         assert info.value.key.startswith(key)
+
+
+@pytest.mark.slow
+def test_short_fit_summary_and_figures(brannock_two):
+    """A short chain of the two-star set: the summary's new keys and both figures'
+    content (not a converged fit: the keys and drawings are what is checked)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import massfit
+    from massfit.plot.dark_mass import frame_orbit_plot, redshift_plot
+
+    system, obs = brannock_two
+    result = massfit.fit(obs, dark_mass.fit_spec(system), seed=2, max_steps=300,
+                         check_every=100, progress=False)
+    s = result.summary
+    assert set(s["frame"]) == {"east", "north", "motion_east", "motion_north", "velocity",
+                               "reference_epoch_jd"}
+    assert s["frame"]["motion_east"]["unit"] == "mas / yr"
+    assert s["distance"]["unit"] == "pc"
+    assert -1.0 <= s["mass_distance_correlation"]["log_mass_log_distance"] <= 1.0
+    assert s["relativity"]["precession_scale"]["unit"] == ""
+    advance = s["relativity"]["periapsis_advance"]["Brannock-a"]["median"]
+    assert 8.0 < advance < 14.0  # arcmin per orbit (10.7 for the simulated orbit)
+    terms = s["adequacy"]["relativity"]["terms"]
+    assert set(terms) == {"precession", "gravitational_redshift", "transverse_doppler",
+                          "romer_delay"}
+    assert terms["gravitational_redshift"]["delta_chi2"] > 25.0
+    sky = frame_orbit_plot(result, n_tracks=5)
+    left, right = sky.axes[:2]
+    assert left.xaxis_inverted() and right.xaxis_inverted()
+    assert "east" in left.get_xlabel() and "north" in left.get_ylabel()
+    assert sum(1 for line in left.lines if line.get_gid() == "posterior_track") == 10
+    assert any(p.get_gid() == "mass_region" for p in right.patches)
+    rv = redshift_plot(result)
+    gids = {line.get_gid() for ax in rv.axes for line in ax.lines}
+    assert {"model_total", "model_newtonian", "relativistic_shift",
+            "gravitational_redshift"} <= gids
+    assert len(rv.axes) == 4 and "km/s" in rv.axes[0].get_ylabel()

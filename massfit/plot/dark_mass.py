@@ -52,8 +52,9 @@ def frame_orbit_plot(result, *, n_tracks=20, seed=0, zoom=None, width=None):
     motion of the mass, so that the mass stands still) with 1-sigma error bars, the
     best posterior orbit of each and ``n_tracks`` posterior orbits; the mass's fitted
     position as a cross. Right: the centre enlarged, with the mass's 68 % and 95 %
-    posterior regions (samples) and the positions near periapsis. North up, east to
-    the left, offsets in mas from the frame's origin.
+    posterior regions (Gaussian ellipses of the samples) and any position or orbit
+    that passes there. North up, east to the left, offsets in mas from the frame's
+    origin.
 
     Parameters
     ----------
@@ -118,9 +119,8 @@ def frame_orbit_plot(result, *, n_tracks=20, seed=0, zoom=None, width=None):
             axis.set_aspect("equal", adjustable="datalim" if axis is ax else "box")
             axis.set_xlabel(r"$\Delta\alpha\cos\delta$ (east) [mas]")
             axis.set_ylabel(r"$\Delta\delta$ (north) [mas]")
-        ax.set_title("orbits about the fitted mass position (positions at the model's "
-                     "epoch)")
-        inset.set_title("the centre: mass position, 68 % and 95 % regions")
+        ax.set_title("orbits about the fitted mass (positions at the model's epoch)")
+        inset.set_title("mass position: 68 % and 95 % regions")
         ax.legend(loc="best", fontsize=6, frameon=False)
     return fig
 

@@ -8,7 +8,7 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.dark_mass import summary_blocks
+from massfit.summarise.dark_mass import summary_blocks, summary_lines
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
 from massfit.summarise.quantities import CENTRAL, COMPANION
@@ -259,6 +259,7 @@ class FitResult:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        lines.extend(summary_lines(s, format_value))
         if s.get("viewing"):
             view = s["viewing"]
             lines.append(f"Orbits in ICRS axes (i, node, omega against the ICRS equator); "

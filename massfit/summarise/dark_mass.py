@@ -29,7 +29,8 @@ from massfit.constants import GM_SUN
 from massfit.model.frame import FRAME_UNITS
 from massfit.orbits.relativity import periapsis_advance
 
-__all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines"]
+__all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines",
+           "summary_lines"]
 
 ARCMIN_PER_RAD = 180.0 * 60.0 / np.pi
 
@@ -142,3 +143,33 @@ def relativity_lines(block) -> list:
                      f"{entry['chi2_without']:.1f} (delta {entry['delta_chi2']:+.1f})")
     return lines
 
+
+
+def summary_lines(summary, format_value) -> list:
+    """Terminal lines of the distance, the mass-distance correlation, the frame terms
+    and the precession scale (``format_value(block)`` writes an interval block)."""
+    lines = []
+    if summary.get("distance"):
+        corr = summary["mass_distance_correlation"]["log_mass_log_distance"]
+        lines.append(f"  distance = {format_value(summary['distance'])} pc   "
+                     f"(correlation of log mass and log distance: "
+                     f"{'n/a' if corr is None else f'{corr:+.3f}'})")
+    frame = summary.get("frame")
+    if frame:
+        lines.append(f"Frame terms of the central mass (position at JD "
+                     f"{frame['reference_epoch_jd']:.1f} TDB)")
+        for term, block in frame.items():
+            if term != "reference_epoch_jd":
+                lines.append(f"  {term:<13}= {format_value(block)} {block['unit']}")
+    rel = summary.get("relativity")
+    if rel:
+        on = [k.replace("_", " ") for k in ("precession", "gravitational_redshift",
+                                            "transverse_doppler") if rel[k]]
+        lines.append(f"Relativistic terms: {', '.join(on) or 'none'}")
+        scale = rel["precession_scale"]
+        if isinstance(scale, dict):
+            lines.append(f"  precession scale = {format_value(scale)} (1 = relativistic)")
+        for name, block in rel["periapsis_advance"].items():
+            lines.append(f"  {name}: periapsis advance {format_value(block)} arcmin/orbit "
+                         f"(relativistic value)")
+    return lines
