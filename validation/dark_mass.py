@@ -51,14 +51,14 @@ def laplace(model, start) -> dict:
             for k, v in out.items()}
 
 
-def one_seed(seed, mcmc=False) -> dict:
+def one_seed(seed, mcmc=False, control=True) -> dict:
     system = dark_mass.brannock_system()
     schedule = dark_mass.brannock_schedule(system)
     truth = {"mass": system.mass, "distance": system.distance_pc, "precession_scale": 1.0}
     record = {"seed": seed}
     with tempfile.TemporaryDirectory() as folder:
         obs = dark_mass.simulated_observations(system, schedule, seed=seed, folder=folder)
-        for label, relativity in (("relativistic", True), ("newtonian", False)):
+        for label, relativity in (("relativistic", True), ("newtonian", False))[:2 if control else 1]:
             t0 = time.time()
             model = OrbitModel(obs, dark_mass.fit_spec(system, relativity=relativity))
             found = laplace(model, find_start(model))
@@ -96,6 +96,8 @@ def summarise(report) -> dict:
     seeds = report["seeds"]
     out = {}
     for label in ("relativistic", "newtonian"):
+        if any(label not in s for s in seeds):
+            continue
         part = {}
         for q in QUANTITIES:
             pulls = [s[label][f"{q}_pull"] for s in seeds if f"{q}_pull" in s[label]]
@@ -107,7 +109,7 @@ def summarise(report) -> dict:
         part["median_chi2"] = float(np.median([s[label]["chi2"] for s in seeds]))
         out[label] = part
     out["criterion"] = ">= 8 of 10 seeds inside the 95 % interval (relativistic fit)"
-    out["passed"] = all(out["relativistic"][q]["inside_95"] >= 0.8 * out["relativistic"][q]["of"]
+    out["passed"] = "relativistic" in out and all(out["relativistic"][q]["inside_95"] >= 0.8 * out["relativistic"][q]["of"]
                         for q in QUANTITIES)
     mcmc = [s["mcmc"] for s in seeds if "mcmc" in s]
     if mcmc:
@@ -127,7 +129,7 @@ def figure(report, path) -> None:
     fig, axes = plt.subplots(1, 3, figsize=(11, 3.6), constrained_layout=True)
     for ax, q in zip(axes, ("mass", "distance", "precession_scale")):
         for offset, label, colour in ((-0.12, "relativistic", "C0"), (0.12, "newtonian", "C3")):
-            pulls = [s[label].get(f"{q}_pull") for s in seeds]
+            pulls = [s.get(label, {}).get(f"{q}_pull") for s in seeds]
             x = [s["seed"] + offset for s, p in zip(seeds, pulls) if p is not None]
             y = [p for p in pulls if p is not None]
             if y:
@@ -151,14 +153,18 @@ def main():
                   HERE.parent / "docs" / "figures" / "dark_mass.png")
     args.add_argument("--seeds", type=int, default=10)
     args.add_argument("--mcmc", type=int, default=0)
+    args.add_argument("--first", type=int, default=1, help="first noise seed")
+    args.add_argument("--no-control", action="store_true",
+                      help="skip the fits without relativity")
     options = args.parse_args()
 
     def compute():
         seeds = []
-        for seed in range(1, options.seeds + 1):
-            seeds.append(one_seed(seed, mcmc=seed <= options.mcmc))
-            print(seed, {k: seeds[-1][k].get("mass_pull") for k in ("relativistic", "newtonian")},
-                  flush=True)
+        for seed in range(options.first, options.first + options.seeds):
+            seeds.append(one_seed(seed, mcmc=seed < options.first + options.mcmc,
+                                  control=not options.no_control))
+            print(seed, {k: seeds[-1][k].get("mass_pull") for k in ("relativistic", "newtonian")
+                         if k in seeds[-1]}, flush=True)
         return {"seeds": seeds}
 
     run_or_redraw(options, compute, summarise, figure)
