@@ -53,6 +53,8 @@ def add_parser(sub):
     dynamics_options(fit)
     viewing_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
+    fit.add_argument("--arviz", action="store_true", help="also write the posterior as "
+                     "ArviZ InferenceData (NetCDF), posterior.nc; needs massfit[arviz]")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
                           "in its own period box and give the mass over all of them "
@@ -68,6 +70,10 @@ def add_parser(sub):
 
 def run(args):
     setup = _setup_from_args(args)
+    if args.arviz:
+        from massfit.result.inference_data import require_arviz
+
+        require_arviz()  # before the fit, not after it
     inputs = [*setup.files, *(Path(p) for p in args.inputs)]
     result = fit_into(setup, args, force=args.force or setup.replace_existing,
                       inputs=inputs)
@@ -135,7 +141,8 @@ def _run(setup, args, *, record, force):
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False),
                  weigh_modes=getattr(args, "weigh_modes", False))
-    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
+    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force,
+          arviz=getattr(args, "arviz", False))
     discard(setup.output)
     return result
 
@@ -151,7 +158,7 @@ def _read_text(observations) -> str:
             f"from {len(observations.files)} file(s)")
 
 
-def _save(result, out, *, plots, force):
+def _save(result, out, *, plots, force, arviz=False):
     """Write the result; a figure that fails is one warning line, a failed write one error."""
     import warnings
 
@@ -162,7 +169,7 @@ def _save(result, out, *, plots, force):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", FigureWarning)
         try:
-            result.save(out, plots=plots, force=force)
+            result.save(out, plots=plots, force=force, arviz=arviz)
         except OSError as exc:
             raise WriteError(f"cannot write the result into '{out}': {os_error_text(exc)}; "
                              f"the chain is kept in '{checkpoint_path(out)}': make room, "

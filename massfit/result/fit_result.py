@@ -384,40 +384,51 @@ class FitResult:
         table.meta["converged"] = self.converged
         return table
 
+    def to_inference_data(self):
+        """The posterior as ArviZ ``InferenceData``: one chain per walker, physical units.
+
+        See :func:`massfit.result.inference_data.to_inference_data`; needs arviz
+        (``pip install "massfit[arviz]"``). ``save(..., arviz=True)`` writes it as
+        NetCDF (``posterior.nc``).
+        """
+        from massfit.result.inference_data import to_inference_data
+
+        return to_inference_data(self)
+
     # -------------------------------------------------------------------- plots
     def corner_plot(self, **kwargs):
-        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.figures.corner_plot`."""
-        from massfit.plot.figures import corner_plot
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.corner_plot`."""
+        from massfit.plot import corner_plot
 
         return corner_plot(self, **kwargs)
 
     def velocity_plot(self, **kwargs):
-        """Radial velocities against phase, with residuals; see :func:`massfit.plot.figures.velocity_plot`."""
-        from massfit.plot.figures import velocity_plot
+        """Radial velocities against phase, with residuals; see :func:`massfit.plot.velocity_plot`."""
+        from massfit.plot import velocity_plot
 
         return velocity_plot(self, **kwargs)
 
     def velocity_time_plot(self, **kwargs):
-        """Radial velocities against time, with residuals; see :func:`massfit.plot.figures.velocity_time_plot`."""
-        from massfit.plot.figures import velocity_time_plot
+        """Radial velocities against time, with residuals; see :func:`massfit.plot.velocity_time_plot`."""
+        from massfit.plot import velocity_time_plot
 
         return velocity_time_plot(self, **kwargs)
 
     def orbit_plot(self, **kwargs):
-        """Sky-plane orbits with the data; see :func:`massfit.plot.figures.orbit_plot`."""
-        from massfit.plot.figures import orbit_plot
+        """Sky-plane orbits with the data; see :func:`massfit.plot.orbit_plot`."""
+        from massfit.plot import orbit_plot
 
         return orbit_plot(self, **kwargs)
 
     def residual_plot(self, **kwargs):
-        """Normalised residuals against time; see :func:`massfit.plot.figures.residual_plot`."""
-        from massfit.plot.figures import residual_plot
+        """Normalised residuals against time; see :func:`massfit.plot.residual_plot`."""
+        from massfit.plot import residual_plot
 
         return residual_plot(self, **kwargs)
 
     def periodogram_plot(self, **kwargs):
-        """Periodograms of the residuals; see :func:`massfit.plot.figures.periodogram_plot`."""
-        from massfit.plot.figures import periodogram_plot
+        """Periodograms of the residuals; see :func:`massfit.plot.periodogram_plot`."""
+        from massfit.plot import periodogram_plot
 
         return periodogram_plot(self, **kwargs)
 
@@ -439,7 +450,7 @@ class FitResult:
         """
         import matplotlib.pyplot as plt
 
-        from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+        from massfit.plot import FIGURES, applicable_figures, save_figure
 
         chosen = applicable_figures(self) if figures is None else list(figures)
         unknown = [f for f in chosen if f not in FIGURES]
@@ -473,7 +484,8 @@ class FitResult:
         return paths
 
     # --------------------------------------------------------------------- save
-    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
+    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf"),
+             arviz=False) -> Path:
         """Write the output folder: summary, samples, observations, tables and figures.
 
         ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
@@ -485,13 +497,17 @@ class FitResult:
         run.json (``figures.failed``), and the rest of the result is kept. An existing
         result is replaced only if ``force`` is true, and then only the files massfit
         wrote; a folder massfit did not write is never touched (see
-        :mod:`massfit.write.folder`).
+        :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
+        as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
+        :meth:`to_inference_data`; needs arviz).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
                                               write_observations)
 
         out = Path(out_dir)
+        # Before anything is written: a missing arviz is a one-line error, not half a folder.
+        posterior = self.to_inference_data() if arviz else None
         record = {**self.record, "model": model_state(self.model)}
         with atomic_folder(out, record=RUN_FILE, force=force,
                            inputs=self.model.observations.files) as tmp:
@@ -500,6 +516,10 @@ class FitResult:
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
             self.write_tables(tmp)
+            if posterior is not None:
+                from massfit.result.inference_data import INFERENCE_DATA_FILE
+
+                posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
             write_json(tmp / RUN_FILE, record)
             if plots:
                 record["figures"] = self._write_figures_or_warn(tmp, formats)
