@@ -2,8 +2,10 @@
 fitted mass position, and each star's velocities against time with the relativistic
 shift drawn on its own.
 
-Both need the frame terms (:mod:`massfit.model.frame`); the velocity figure also
-needs the stars' own velocities. Every function returns a matplotlib Figure.
+Made for fits with the frame terms (:mod:`massfit.model.frame`) or the relativistic
+terms (:mod:`massfit.orbits.relativity`), where the plain orbit and velocity figures
+would leave them out; without frame terms the mass sits at the origin. The velocity
+figure needs the stars' own velocities. Every function returns a matplotlib Figure.
 """
 
 from __future__ import annotations
@@ -15,7 +17,7 @@ from massfit.errors import ConfigError
 from massfit.model.frame import frame_shift
 from massfit.orbits.dynamics import romer_factor
 from massfit.orbits.relativity import velocity_terms_of_state
-from massfit.plot.figures import PAGE_WIDTH, style
+from massfit.plot.style import PAGE_WIDTH, style
 from massfit.summarise.residuals import best_sample
 
 __all__ = ["frame_orbit_plot", "redshift_plot", "frame_curves"]
@@ -24,10 +26,18 @@ __all__ = ["frame_orbit_plot", "redshift_plot", "frame_curves"]
 _YEAR = 365.25
 
 
-def _require_frame(model):
-    if model.spec.frame is None or model.velocity_only:
-        raise ConfigError("this figure needs the frame terms (the primary's position in "
-                          "the data's frame): fit with [frame]", key="figures")
+def _require_sky(model):
+    if model.velocity_only:
+        raise ConfigError("this figure needs positions on the sky", key="figures")
+
+
+def _frame(phys):
+    """The frame terms of ``phys``, zeros where the fit has none."""
+    if phys.get("frame") is not None:
+        return phys["frame"]
+    zeros = np.zeros(np.shape(phys["central_mass"]))
+    return {"east": zeros, "north": zeros, "motion_east": zeros, "motion_north": zeros,
+            "velocity": zeros}
 
 
 def _orbit_track(model, phys, name, k, n_points=721):
@@ -40,7 +50,7 @@ def _orbit_track(model, phys, name, k, n_points=721):
     one["companions"] = {name: {key: value[k:k + 1] for key, value in orbit.items()}}
     (north, east, _), _ = model.dynamics.states_at(model, one, name, t)
     scale = 1e-3 * phys["parallax"][k] if phys["parallax"] is not None else 1.0
-    frame = phys["frame"]
+    frame = _frame(phys)
     return (east[0] * scale + 1e-3 * frame["east"][k],
             north[0] * scale + 1e-3 * frame["north"][k])
 
@@ -72,14 +82,14 @@ def frame_orbit_plot(result, *, n_tracks=20, seed=0, zoom=None, width=None):
     import matplotlib.pyplot as plt
 
     model = result.model
-    _require_frame(model)
+    _require_sky(model)
     chain = result.chain
     rng = np.random.default_rng(seed)
     picks = rng.choice(len(chain.samples), size=min(n_tracks, len(chain.samples)),
                        replace=False)
     best = model.physical(best_sample(result)[None, :])
     draws = model.physical(chain.samples[picks])
-    every = model.physical(chain.samples)["frame"]
+    every = _frame(model.physical(chain.samples))
     data = model.observations.astrometry
     width = width or PAGE_WIDTH
     with style():
@@ -97,7 +107,7 @@ def frame_orbit_plot(result, *, n_tracks=20, seed=0, zoom=None, width=None):
             for axis in (ax, inset):
                 axis.plot(1e3 * east, 1e3 * north, color=colour, lw=0.9, gid="best_orbit",
                           label=name if axis is ax else None)
-            still = dict(best["frame"], east=np.zeros(1), north=np.zeros(1))
+            still = dict(_frame(best), east=np.zeros(1), north=np.zeros(1))
             drift_e, drift_n = frame_shift(still, rows.t)  # the mass's drift only
             index = rows.index[rows.cart]
             x = 1e3 * (data.east[index] - drift_e[0, rows.cart])
@@ -106,12 +116,14 @@ def frame_orbit_plot(result, *, n_tracks=20, seed=0, zoom=None, width=None):
                 axis.errorbar(x, y, xerr=1e3 * data.east_err[index],
                               yerr=1e3 * data.north_err[index], fmt="o", ms=1.8,
                               color=colour, elinewidth=0.5, gid="data")
-        x0, y0 = best["frame"]["east"][0], best["frame"]["north"][0]
+        x0, y0 = _frame(best)["east"][0], _frame(best)["north"][0]
         for axis in (ax, inset):
             axis.plot(x0, y0, "k+", ms=9, mew=1.2, gid="mass_position",
                       label="mass (best fit)" if axis is ax else None)
         _position_regions(inset, every["east"], every["north"])
         half = zoom or max(0.5, 8.0 * max(np.std(every["east"]), np.std(every["north"])))
+        if np.all(every["east"] == 0) and np.all(every["north"] == 0):
+            inset.set_visible(False)  # no frame terms: the mass is the origin
         inset.set_xlim(x0 + half, x0 - half)
         inset.set_ylim(y0 - half, y0 + half)
         ax.invert_xaxis()
@@ -129,6 +141,8 @@ def _position_regions(ax, east, north):
     """The mass's 68 % and 95 % posterior regions (Gaussian ellipses of the samples)."""
     from matplotlib.patches import Ellipse
 
+    if np.std(east) == 0 and np.std(north) == 0:
+        return
     cov = np.cov(np.vstack([east, north]))
     values, vectors = np.linalg.eigh(cov)
     angle = np.degrees(np.arctan2(vectors[1, 1], vectors[0, 1]))
@@ -151,7 +165,7 @@ def frame_curves(model, phys, name, t):
     terms = velocity_terms_of_state(position, velocity, gm, model.spec.relativity, romer)
     share = phys["central_mass"] / (phys["central_mass"] + orbit["mass"])
     newtonian = (share[:, None] * velocity[2] * KM_S_PER_AU_DAY + terms.pop("romer")
-                 + phys["frame"]["velocity"][:, None])
+                 + _frame(phys)["velocity"][:, None])
     return {"newtonian": newtonian[0], **{k: v[0] for k, v in terms.items()}}
 
 
@@ -166,7 +180,7 @@ def redshift_plot(result, *, width=None):
     import matplotlib.pyplot as plt
 
     model = result.model
-    _require_frame(model)
+    _require_sky(model)
     vel = model.velocity_rows
     if vel is None or not np.any(vel.owner >= 0):
         raise ConfigError("this figure needs the stars' own radial velocities",
