@@ -22,7 +22,7 @@ import astropy.units as u
 import numpy as np
 import pytest
 
-from massfit.constants import C_AU_PER_DAY, GM_SUN, KM_S_PER_AU_DAY
+from massfit.constants import C_AU_PER_DAY, GM_SUN
 from massfit.errors import ModelError
 from massfit.model.orbit_model import FrameSpec, OrbitModel, RelativitySpec
 from massfit.orbits import relativity

@@ -72,11 +72,10 @@ import numpy as np
 
 from massfit.orbits import kepler
 from massfit.constants import AU_PER_PC, GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
-from massfit.orbits.dynamics import Keplerian, observed_offsets, romer_factor
+from massfit.orbits.dynamics import Keplerian, observed_offsets
 from massfit.orbits.relativity import RelativitySpec, omega_at, precession_rate
-from massfit.orbits import relativity as _relativity
-from massfit.model import frame as _frame_terms
-from massfit.model.frame import FrameSpec
+from massfit.model import extra_terms
+from massfit.model.frame import FrameSpec, frame_shift
 from massfit.errors import ConfigError, InputError, ModelError
 from massfit.read.observations import Observations
 from massfit.priors import Fixed, LogUniform, Normal, Prior, Uniform
@@ -367,7 +366,7 @@ class OrbitModel:
                       if has_astrometry and astrometry.has_sight else None)
         if has_astrometry:
             self._check_references(astrometry)
-        self._check_frame_and_relativity()
+        extra_terms.check(self)
         if self.sight is not None and self.has_velocities:
             raise ModelError("radial velocities with a moving line of sight (primary_ra, "
                              "primary_dec) are not modelled yet; fit the astrometry alone")
@@ -484,18 +483,6 @@ class OrbitModel:
         if self.sight is None or viewing is None or viewing.pole_ra is None:
             return None
         return viewing.pole_ra, viewing.pole_dec
-
-    def _check_frame_and_relativity(self):
-        if self.spec.frame is not None:
-            if self.velocity_only:
-                raise ModelError("frame terms (the primary's position and motion) need "
-                                 "astrometry")
-            _frame_terms.check_rows(self)
-        if self.spec.relativity is not None and type(self.dynamics) is not Keplerian:
-            raise ModelError(f"relativistic terms need the keplerian model, not the "
-                             f"{self.dynamics.label} one")
-        if self.spec.relativity is not None and self.velocity_only:
-            raise ModelError("relativistic terms need astrometry (the orbit's size)")
 
     def _check_references(self, astrometry):
         """Offsets measured from another body name a companion of this fit."""
@@ -662,51 +649,12 @@ class OrbitModel:
                 prefix = "log10_" if transform == "log10" else ""
                 params.append(_Parameter(f"{name}.{prefix}mass", "", comp.mass, transform,
                                          0.0 if transform == "identity" else -np.inf))
-        params.extend(self._frame_and_relativity_layout())
+        for name, label, prior in extra_terms.parameters(spec, self.velocity_rows is not None):
+            params.append(_Parameter(name, label, Uniform(-np.inf, np.inf), "flat")
+                          if prior is None else _Parameter(name, label, prior, "identity"))
         if self.velocity_rows is not None:
             params.extend(self._velocity_layout())
         return params
-
-    def _frame_and_relativity_layout(self):
-        params = []
-        frame = self.spec.frame
-        for term in (() if frame is None else _frame_terms.FRAME_TERMS):
-            if term == "velocity" and self.velocity_rows is None:
-                continue  # no velocity to carry it
-            prior = frame.prior(term)
-            if prior is None:
-                params.append(_Parameter(f"frame.{term}", FrameSpec.label(term),
-                                         Uniform(-np.inf, np.inf), "flat"))
-            elif not prior.is_fixed:
-                params.append(_Parameter(f"frame.{term}", FrameSpec.label(term), prior,
-                                         "identity"))
-        rel = self.spec.relativity
-        if rel is not None and rel.precession and rel.precession_scale is not None \
-                and not rel.precession_scale.is_fixed:
-            params.append(_Parameter("relativity.precession_scale", r"$f_{\rm prec}$",
-                                     rel.precession_scale, "identity"))
-        return params
-
-    def _frame_values(self, col, n):
-        """The frame terms (mas, mas/yr, km/s), each shape (n,), or None."""
-        frame = self.spec.frame
-        if frame is None:
-            return None
-        out = {}
-        for term in _frame_terms.FRAME_TERMS:
-            prior = frame.prior(term)
-            if f"frame.{term}" in self.column_of:
-                out[term] = col(f"frame.{term}")
-            else:
-                out[term] = np.full(n, prior.value if prior is not None else 0.0)
-        return out
-
-    def _precession_scale(self, col, n):
-        rel = self.spec.relativity
-        if "relativity.precession_scale" in self.column_of:
-            return col("relativity.precession_scale")
-        scale = rel.precession_scale
-        return np.full(n, 1.0 if scale is None else scale.value)
 
     def _velocity_layout(self):
         vel = self.velocity_rows
@@ -788,11 +736,11 @@ class OrbitModel:
             parallax = (np.full(n, spec.parallax.value) if spec.parallax.is_fixed
                         else col("parallax"))
         out = {"central_mass": central, "parallax": parallax, "companions": {},
-               "frame": self._frame_values(col, n)}
+               "frame": extra_terms.frame_values(spec, self.column_of, col, n)}
         rel = self.spec.relativity
         precessing = rel is not None and rel.precession
         if precessing:
-            out["precession_scale"] = self._precession_scale(col, n)
+            out["precession_scale"] = extra_terms.precession_scale(spec, self.column_of, col, n)
         for name, comp in self.companions.items():
             period = 10.0 ** col(f"{name}.log10_period")
             if comp.eccentricity.is_fixed:
@@ -1056,32 +1004,10 @@ class OrbitModel:
             total += share
         parts = {"systemic": systemic, "companions": shares, "total": total}
         if self.spec.relativity is not None or self.spec.romer_delay:
-            parts["relativity"] = self._velocity_relativity(phys)
+            parts["relativity"] = extra_terms.velocity_terms(self, phys)
             for term in parts["relativity"].values():
                 total += term
         return parts
-
-    def _velocity_relativity(self, phys):
-        """The relativistic terms (and the light time) on the companions' own
-        velocities, km/s, each shape (n, n_rows); zero on the primary's rows."""
-        vel = self.velocity_rows
-        n = next(iter(phys["companions"].values()))["period"].shape[0]
-        out = {key: np.zeros((n, vel.t.size)) for key in
-               ("gravitational_redshift", "transverse_doppler", "romer")}
-        for k, (name, orbit) in enumerate(phys["companions"].items()):
-            own = np.flatnonzero(vel.owner == k)
-            if own.size == 0:
-                continue
-            position, velocity = self.dynamics.states_at(self, phys, name, vel.t[own])
-            gm = GM_SUN * (phys["central_mass"] + orbit["mass"])
-            romer = None
-            if self.spec.romer_delay:
-                romer = romer_factor(phys["central_mass"], orbit["mass"])
-            terms = _relativity.velocity_terms_of_state(position, velocity, gm,
-                                                        self.spec.relativity, romer)
-            for key, value in terms.items():
-                out[key][:, own] = value
-        return out
 
     def velocity_shape(self, name, orbit, t=None):
         """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
@@ -1134,7 +1060,7 @@ class OrbitModel:
         east, north = self._scaled(rows, east, north, phys["parallax"])
         if phys.get("frame") is None:
             return east, north
-        shift_east, shift_north = _frame_terms.frame_shift(phys["frame"], rows.t)
+        shift_east, shift_north = frame_shift(phys["frame"], rows.t)
         return east + shift_east, north + shift_north
 
     def _scaled(self, rows, east, north, parallax):
