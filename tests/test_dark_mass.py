@@ -267,3 +267,8 @@ def test_short_fit_summary_and_figures(brannock_two):
     assert {"model_total", "model_newtonian", "relativistic_shift",
             "gravitational_redshift"} <= gids
     assert len(rv.axes) == 4 and "km/s" in rv.axes[0].get_ylabel()
+    from massfit.plot.corner import corner_plot
+
+    corner = corner_plot(result)
+    labels = " ".join(ax.get_xlabel() for ax in corner.axes)
+    assert "pc" in labels and "prec" in labels and "mas" in labels

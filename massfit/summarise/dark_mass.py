@@ -30,7 +30,7 @@ from massfit.model.frame import FRAME_UNITS
 from massfit.orbits.relativity import periapsis_advance
 
 __all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines",
-           "summary_lines"]
+           "summary_lines", "corner_quantity", "corner_defaults"]
 
 ARCMIN_PER_RAD = 180.0 * 60.0 / np.pi
 
@@ -173,3 +173,33 @@ def summary_lines(summary, format_value) -> list:
             lines.append(f"  {name}: periapsis advance {format_value(block)} arcmin/orbit "
                          f"(relativistic value)")
     return lines
+
+
+#: Corner-plot symbols and units (LaTeX) of the quantities this module adds.
+_CORNER = {"distance": ("d", r"\mathrm{pc}", "pc"),
+           "precession_scale": (r"f_\mathrm{prec}", "", ""),
+           "frame.east": ("x_0", r"\mathrm{mas}", "mas"),
+           "frame.north": ("y_0", r"\mathrm{mas}", "mas"),
+           "frame.motion_east": (r"\mu_x", r"\mathrm{mas\,yr^{-1}}", "mas / yr"),
+           "frame.motion_north": (r"\mu_y", r"\mathrm{mas\,yr^{-1}}", "mas / yr"),
+           "frame.velocity": (r"v_{z,0}", r"\mathrm{km\,s^{-1}}", "km / s")}
+
+
+def corner_quantity(samples, key):
+    """(values, symbol, LaTeX unit, unit text) of a corner key this module adds
+    (``distance``, ``precession_scale``, ``frame.<term>``), or None."""
+    if key not in _CORNER:
+        return None
+    if key == "distance":
+        values = samples.get("distance")
+    elif key == "precession_scale":
+        values = samples.get("relativity", {}).get("precession_scale")
+    else:
+        values = samples.get("frame", {}).get(key.split(".", 1)[1])
+    return None if values is None else (values, *_CORNER[key])
+
+
+def corner_defaults(samples) -> list:
+    """The corner keys of a fit with frame or relativistic terms: the distance, the
+    precession scale and the frame terms that were sampled."""
+    return [key for key in _CORNER if corner_quantity(samples, key) is not None]
