@@ -181,9 +181,11 @@ def test_relativistic_velocity_terms_in_the_model(brannock_two):
 
 @pytest.mark.slow
 def test_recovery_and_newtonian_control():
-    """Three noise seeds of the four invented stars: the relativistic fit's mass,
-    distance and precession scale within their 95 % Laplace intervals; the fit
-    without relativity (the negative control) misses the mass by > 3 sigma."""
+    """Five noise seeds of the four invented stars (validation/dark_mass.py's seeds
+    21-25; the study's 30-seed coverage is in validation/results/): the relativistic
+    fit's mass, distance and precession scale inside their 95.45 % Laplace intervals
+    in at least 4 of 5; the fit without relativity (the negative control) misses the
+    mass by more than 3 sigma in every seed and fits far worse."""
     import importlib.util
     from pathlib import Path
 
@@ -191,13 +193,13 @@ def test_recovery_and_newtonian_control():
     spec = importlib.util.spec_from_file_location("dark_mass_study", path)
     study = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(study)
-    for seed in (1, 3, 4):
-        record = study.one_seed(seed)
-        for q in study.QUANTITIES:
-            assert record["relativistic"][f"{q}_inside_95"], (seed, q, record)
+    records = [study.one_seed(seed) for seed in range(21, 26)]
+    for q in study.QUANTITIES:
+        inside = sum(r["relativistic"][f"{q}_inside_95"] for r in records)
+        assert inside >= 4, (q, [r["relativistic"][f"{q}_pull"] for r in records])
+    for record in records:
         assert abs(record["newtonian"]["mass_pull"]) > 3.0, record
         assert record["newtonian"]["chi2"] > record["relativistic"]["chi2"] + 100
-
 
 def test_config_tables_for_frame_and_relativity(tmp_path):
     from massfit.config.fit import parse_config
