@@ -188,39 +188,55 @@ def redshift_plot(result, *, width=None):
     names = [n for k, n in enumerate(model.companions) if np.any(vel.owner == k)]
     best = model.physical(best_sample(result)[None, :])
     width = width or PAGE_WIDTH
+    cols = min(2, len(names))
+    blocks = -(-len(names) // cols)
     with style():
-        fig, axes = plt.subplots(2, len(names), figsize=(width, 0.45 * width),
-                                 layout="constrained", squeeze=False, sharex="col",
-                                 gridspec_kw={"height_ratios": [2, 1]})
+        fig = plt.figure(figsize=(width, 0.36 * width * blocks + 0.3),
+                         layout="constrained")
+        grid = fig.add_gridspec(2 * blocks, cols, height_ratios=[2, 1] * blocks)
         for c, name in enumerate(names):
-            k = list(model.companions).index(name)
-            own = vel.owner == k
-            t = np.linspace(vel.t[own].min(), vel.t[own].max(), 4000)
-            dense = frame_curves(model, best, name, t)
-            at_rows = frame_curves(model, best, name, vel.t[own])
-            years = 2000.0 + (model.epoch_jd + t - 2451545.0) / _YEAR
-            data_years = 2000.0 + (model.epoch_jd + vel.t[own] - 2451545.0) / _YEAR
-            shift = dense["gravitational_redshift"] + dense["transverse_doppler"]
-            top, bottom = axes[0, c], axes[1, c]
-            err = np.sqrt(vel.err2[own])
-            top.errorbar(data_years, vel.rv[own], yerr=err, fmt="o", ms=1.5, color="k",
-                         elinewidth=0.4, gid="data")
-            top.plot(years, dense["newtonian"] + shift, color="C0", lw=0.8,
-                     gid="model_total", label="model")
-            top.plot(years, dense["newtonian"], color="C1", lw=0.7, ls="--",
-                     gid="model_newtonian", label="Newtonian part")
-            bottom.errorbar(data_years, vel.rv[own] - at_rows["newtonian"], yerr=err,
-                            fmt="o", ms=1.5, color="k", elinewidth=0.4, gid="data_shift")
-            bottom.plot(years, shift, color="C0", lw=0.8, gid="relativistic_shift",
-                        label="redshift + transverse Doppler")
-            bottom.plot(years, dense["gravitational_redshift"], color="C2", lw=0.7,
-                        ls=":", gid="gravitational_redshift", label="redshift")
-            bottom.axhline(0.0, color="0.5", lw=0.5)
-            top.set_title(name)
-            top.set_ylabel("radial velocity [km/s]")
-            bottom.set_ylabel("data $-$ Newtonian [km/s]")
-            bottom.set_xlabel("Julian year (TDB)")
-            if c == 0:
-                top.legend(fontsize=6, frameon=False)
-                bottom.legend(fontsize=6, frameon=False)
+            block, col = divmod(c, cols)
+            top = fig.add_subplot(grid[2 * block, col])
+            bottom = fig.add_subplot(grid[2 * block + 1, col], sharex=top)
+            _draw_star_velocities(top, bottom, model, best, name)
+            top.tick_params(labelbottom=False)
+            if col == 0:
+                top.set_ylabel(r"$v_r$ [km/s]")
+                bottom.set_ylabel(r"$v_r - v_\mathrm{Newton}$ [km/s]")
+            if block == blocks - 1:
+                bottom.set_xlabel("Julian year (TDB)")
+        handles, labels = [], []
+        for ax in fig.axes[:2]:
+            h, lab = ax.get_legend_handles_labels()
+            handles += h
+            labels += lab
+        fig.legend(handles, labels, loc="outside upper center", ncol=len(labels),
+                   frameon=False)
     return fig
+
+
+def _draw_star_velocities(top, bottom, model, best, name):
+    """One star's velocities (top) and their relativistic shift (bottom)."""
+    vel = model.velocity_rows
+    own = vel.owner == list(model.companions).index(name)
+    t = np.linspace(vel.t[own].min(), vel.t[own].max(), 4000)
+    dense = frame_curves(model, best, name, t)
+    at_rows = frame_curves(model, best, name, vel.t[own])
+    years = 2000.0 + (model.epoch_jd + t - 2451545.0) / _YEAR
+    data_years = 2000.0 + (model.epoch_jd + vel.t[own] - 2451545.0) / _YEAR
+    shift = dense["gravitational_redshift"] + dense["transverse_doppler"]
+    err = np.sqrt(vel.err2[own])
+    top.errorbar(data_years, vel.rv[own], yerr=err, fmt="o", ms=1.5, color="k",
+                 elinewidth=0.4, gid="data", label="data")
+    top.plot(years, dense["newtonian"] + shift, color="C0", lw=0.8, gid="model_total",
+             label="model")
+    top.plot(years, dense["newtonian"], color="C1", lw=0.7, ls="--",
+             gid="model_newtonian", label="its Newtonian part")
+    bottom.errorbar(data_years, vel.rv[own] - at_rows["newtonian"], yerr=err, fmt="o",
+                    ms=1.5, color="k", elinewidth=0.4, gid="data_shift")
+    bottom.plot(years, shift, color="C0", lw=0.8, gid="relativistic_shift",
+                label="redshift + transverse Doppler")
+    bottom.plot(years, dense["gravitational_redshift"], color="C2", lw=0.7, ls=":",
+                gid="gravitational_redshift", label="gravitational redshift")
+    bottom.axhline(0.0, color="0.5", lw=0.5)
+    top.set_title(name)
