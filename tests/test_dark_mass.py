@@ -233,7 +233,7 @@ def test_config_tables_for_frame_and_relativity(tmp_path):
 
 
 @pytest.mark.slow
-def test_short_fit_summary_and_figures(brannock_two):
+def test_short_fit_summary_and_figures(brannock_two, tmp_path):
     """A short chain of the two-star set: the summary's new keys and both figures'
     content (not a converged fit: the keys and drawings are what is checked)."""
     import matplotlib
@@ -274,3 +274,14 @@ def test_short_fit_summary_and_figures(brannock_two):
     corner = corner_plot(result)
     labels = " ".join(ax.get_xlabel() for ax in corner.axes)
     assert "pc" in labels and "prec" in labels and "mas" in labels
+    # Saved and loaded back: the frame terms and the precession scale are there again,
+    # and the output folder has the two figures instead of orbits and rv.
+    from massfit.result.loading import load_result
+
+    folder = result.save(tmp_path / "out", formats=("png",))
+    loaded = load_result(folder)
+    assert np.allclose(loaded.samples["frame"]["east"], result.samples["frame"]["east"])
+    assert "precession_scale" in loaded.samples["relativity"]
+    written = {p.stem for p in folder.glob("*.png")}
+    assert {"frame_orbits", "rv_redshift", "corner"} <= written
+    assert not written & {"orbits", "rv", "rv_time"}
