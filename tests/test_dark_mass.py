@@ -285,3 +285,7 @@ def test_short_fit_summary_and_figures(brannock_two, tmp_path):
     written = {p.stem for p in folder.glob("*.png")}
     assert {"frame_orbits", "rv_redshift", "corner"} <= written
     assert not written & {"orbits", "rv", "rv_time"}
+    from massfit.write.tables import markdown_table
+
+    table = markdown_table(result.summary)
+    assert "| central | distance |" in table and "proper motion of the mass, east" in table

@@ -30,7 +30,7 @@ from massfit.model.frame import FRAME_UNITS
 from massfit.orbits.relativity import periapsis_advance
 
 __all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines",
-           "summary_lines", "corner_quantity", "corner_defaults"]
+           "summary_lines", "corner_quantity", "corner_defaults", "table_entries"]
 
 ARCMIN_PER_RAD = 180.0 * 60.0 / np.pi
 
@@ -203,3 +203,25 @@ def corner_defaults(samples) -> list:
     """The corner keys of a fit with frame or relativistic terms: the distance, the
     precession scale and the frame terms that were sampled."""
     return [key for key in _CORNER if corner_quantity(samples, key) is not None]
+
+
+#: Words of the table rows this module adds (the symbols and units as in the corner).
+_WORDS = {"distance": "distance", "precession_scale": "precession scale (1 = relativistic)",
+          "frame.east": "position of the mass, east, at the reference epoch",
+          "frame.north": "position of the mass, north, at the reference epoch",
+          "frame.motion_east": "proper motion of the mass, east",
+          "frame.motion_north": "proper motion of the mass, north",
+          "frame.velocity": "line-of-sight velocity of the mass"}
+
+
+def table_entries(summary) -> list:
+    """Rows for the parameter tables: (key, words, symbol, LaTeX unit, unit text,
+    interval block) of the distance, the precession scale and the frame terms."""
+    blocks = {"distance": summary.get("distance"),
+              "precession_scale": (summary.get("relativity") or {}).get("precession_scale")}
+    for term, block in (summary.get("frame") or {}).items():
+        blocks[f"frame.{term}"] = block
+    return [(key, _WORDS[key], _CORNER[key][0],
+             f"${_CORNER[key][1]}$" if _CORNER[key][1] else "", _CORNER[key][2],
+             blocks[key])
+            for key in _CORNER if isinstance(blocks.get(key), dict)]
