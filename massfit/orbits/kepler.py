@@ -95,8 +95,10 @@ HAVE_NUMBA = _numba is not None
 
 if HAVE_NUMBA:
     from massfit.orbits import _kepler_numba as numba_kernel
+    # The whole two-body log-posterior (massfit.model.compiled_posterior packs for it).
+    from massfit.orbits import _posterior_numba as posterior_kernel
 else:  # pragma: no cover
-    numba_kernel = None
+    numba_kernel = posterior_kernel = None
 
 
 def kepler_cs(mean_anomaly, ecc):
