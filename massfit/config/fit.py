@@ -63,6 +63,7 @@ Layout (every key optional except ``data.files``)::
     max_steps = 50000
     check_every = 500
     seed = 1
+    threads = 2                       # cores for the log-posterior (default: all)
 
     [output]
     folder = "fit-out"                # relative to this config file
@@ -106,7 +107,8 @@ _SCHEMA = {
                  "compare_keplerian": bool},
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
-    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
+    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int,
+                "threads": int},
     "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,

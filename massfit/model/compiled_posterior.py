@@ -19,7 +19,6 @@ priors other than uniform, log-uniform and normal.
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 
 import numpy as np
@@ -28,7 +27,7 @@ from massfit.orbits import kepler
 from massfit.orbits.dynamics import Keplerian
 from massfit.priors import LogUniform, Normal, Uniform
 
-__all__ = ["CompiledPosterior", "compiled_posterior", "why_not_compiled", "threads",
+__all__ = ["CompiledPosterior", "compiled_posterior", "why_not_compiled", "on_threads",
            "thread_count"]
 
 #: SystemSpec fields and their meaning the compiled path knows. A field added later
@@ -266,18 +265,19 @@ def thread_count(requested=None) -> int:
     return max(1, min(wanted, most))
 
 
-@contextlib.contextmanager
-def threads(requested=None):
-    """Run the compiled log-posterior on ``requested`` threads inside the block."""
+def on_threads(log_prob, requested=None):
+    """``log_prob`` run with the compiled kernel on ``requested`` threads (default:
+    every core). numba's thread count belongs to the calling thread, so it is set at
+    each call (about a microsecond)."""
     try:
         import numba
     except ImportError:  # pragma: no cover
-        yield 1
-        return
-    previous = numba.get_num_threads()
+        return log_prob
     count = thread_count(requested)
-    numba.set_num_threads(count)
-    try:
-        yield count
-    finally:
-        numba.set_num_threads(previous)
+
+    def threaded(theta):
+        numba.set_num_threads(count)
+        return log_prob(theta)
+
+    threaded.threads = count
+    return threaded
