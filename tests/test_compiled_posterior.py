@@ -139,3 +139,20 @@ def test_switching_off_the_kernel_gives_the_python_path(monkeypatch):
     assert not model.compiled.available
     reference = model.log_prob_python(theta)
     assert np.array_equal(model.log_prob(theta), reference)
+
+
+def test_the_numbers_do_not_depend_on_the_threads():
+    import numba
+
+    from massfit.model.compiled_posterior import THREADS_FROM_WORK, on_threads, thread_count
+
+    model = _model("sorrel")
+    theta = _points(model, n=300)
+    one = on_threads(model.log_prob, 1)(theta)
+    most = on_threads(model.log_prob, numba.config.NUMBA_NUM_THREADS)(theta)
+    assert np.array_equal(one, most)
+    # the default: every core for big calls, one thread where waking more costs more
+    assert thread_count(None, work=THREADS_FROM_WORK - 1) == 1
+    assert thread_count(None, work=10 * THREADS_FROM_WORK) == min(
+        numba.config.NUMBA_NUM_THREADS, __import__("os").cpu_count())
+    assert thread_count(5) == min(5, numba.config.NUMBA_NUM_THREADS)

@@ -20,6 +20,8 @@ priors other than uniform, log-uniform and normal.
 from __future__ import annotations
 
 import dataclasses
+import os
+import threading
 
 import numpy as np
 
@@ -28,7 +30,7 @@ from massfit.orbits.dynamics import Keplerian
 from massfit.priors import LogUniform, Normal, Uniform
 
 __all__ = ["CompiledPosterior", "compiled_posterior", "why_not_compiled", "on_threads",
-           "thread_count"]
+           "thread_count", "THREADS_FROM_WORK"]
 
 #: SystemSpec fields and their meaning the compiled path knows. A field added later
 #: (a new term of the model) sends the model to the Python path unless it has its
@@ -216,6 +218,7 @@ class CompiledPosterior:
             change = _NO_CHANGE
         win_i, win_f = self.windows()
         out = np.empty(sampled.shape[0])
+        _use_threads(sampled.shape[0] * (self.rows.shape[1] + self.vel.shape[1]))
         kepler.posterior_kernel.log_posterior(
             sampled, out, self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
             self.uses_parallax, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
@@ -251,33 +254,46 @@ def _prior_numbers(prior):
     return (0.0, 0.0, prior.low, prior.high, 0.0)
 
 
-def thread_count(requested=None) -> int:
-    """Threads the compiled kernel may use: ``requested`` (default: every core numba
-    was started with), at most that many."""
-    import os
+#: Below this many walker-rows in one call, threads cost more to wake than they save
+#: (the Tarrant set, 27 walkers x 230 rows: 0.24 ms a call on one thread, no faster on
+#: two; at 10x the rows 1.9 ms against 1.0 ms; benchmarks/RESULTS.md).
+THREADS_FROM_WORK = 20_000
 
+_requested = threading.local()
+
+
+def thread_count(requested=None, work=None) -> int:
+    """Threads the compiled kernel uses: ``requested``, or where None every core
+    numba was started with if a call's ``work`` (walkers x rows) is at least
+    :data:`THREADS_FROM_WORK` (or unknown), else one."""
     try:
         import numba
     except ImportError:  # pragma: no cover
         return 1
     most = int(numba.config.NUMBA_NUM_THREADS)
-    wanted = (os.cpu_count() or 1) if requested is None else int(requested)
-    return max(1, min(wanted, most))
+    if requested is None:
+        if work is not None and work < THREADS_FROM_WORK:
+            return 1
+        requested = os.cpu_count() or 1
+    return max(1, min(int(requested), most))
 
 
 def on_threads(log_prob, requested=None):
-    """``log_prob`` run with the compiled kernel on ``requested`` threads (default:
-    every core). numba's thread count belongs to the calling thread, so it is set at
-    each call (about a microsecond)."""
-    try:
-        import numba
-    except ImportError:  # pragma: no cover
-        return log_prob
-    count = thread_count(requested)
+    """``log_prob`` with the compiled kernel on ``requested`` threads (None: as
+    :func:`thread_count` decides per call)."""
 
     def threaded(theta):
-        numba.set_num_threads(count)
-        return log_prob(theta)
+        _requested.count = requested
+        try:
+            return log_prob(theta)
+        finally:
+            _requested.count = None
 
-    threaded.threads = count
     return threaded
+
+
+def _use_threads(work):
+    import numba
+
+    # numba's thread count belongs to the calling thread: set it at each call.
+    numba.set_num_threads(thread_count(getattr(_requested, "count", None), work))
