@@ -92,3 +92,28 @@ def test_a_chain_that_never_settles_is_never_converged():
         stop, decisions, _, _ = _run(walk, 100, ConvergenceTest(every_coordinate=every),
                                      [0])
         assert stop is None and not any(flag for _, flag in decisions)
+
+
+def test_the_sampler_gives_emcees_chain_to_the_bit():
+    # massfit's DE move decides a half-ensemble's acceptance in one array operation and
+    # its sampler takes the log-probability's array as it is; emcee's own classes are
+    # the reference, on a target with a wall (-inf) that some proposals cross.
+    import emcee
+
+    from massfit.sample.chain import _moves, _Sampler
+
+    def log_prob(x):
+        return np.where(x[:, 0] > -1.5, -0.5 * np.sum(x * x, axis=1), -np.inf)
+
+    start = np.random.default_rng(5).standard_normal((16, 5)) * 0.3
+    chains = []
+    for sampler_class, move in ((emcee.EnsembleSampler, emcee.moves.DEMove()),
+                                (_Sampler, _moves()[0][0])):
+        sampler = sampler_class(16, 5, log_prob, vectorize=True, moves=[(move, 1.0)])
+        sampler.random_state = np.random.RandomState(11).get_state()
+        sampler.run_mcmc(start, 300, progress=False)
+        chains.append((sampler.get_chain(), sampler.get_log_prob(),
+                       sampler.backend.accepted.copy()))
+    for stock, ours in zip(*chains):
+        assert np.array_equal(stock, ours)
+    assert 0 < np.mean(chains[0][2]) / 300 < 1  # some proposals rejected, some taken

@@ -168,7 +168,58 @@ def _moves():
     # departed from the brute-force reference by a KS distance of 0.09. The test suite
     # pins this (tests/test_sampler_target.py). The snooker was also ~35 % dearer per
     # step on a four-companion model (benchmarks/) with no shorter autocorrelation.
-    return [(emcee.moves.DEMove(), 1.0)]
+    return [(_DEMove(), 1.0)]
+
+
+class _DEMove(emcee.moves.DEMove):
+    """emcee's DE move with the acceptance of a half-ensemble decided in one array
+    operation instead of a Python loop over its walkers: the loop draws one uniform
+    number per walker in order, ``rand(n)`` draws the same n numbers, so the chain is
+    emcee's to the bit (tests/test_convergence_checks.py). At a few tenths of a
+    millisecond a step, the loop cost as much as the compiled log-posterior."""
+
+    def propose(self, model, state):
+        nwalkers, ndim = state.coords.shape
+        if nwalkers < 2 * ndim and not self.live_dangerously:
+            raise RuntimeError("It is unadvisable to use a red-blue move with fewer "
+                               "walkers than twice the number of dimensions.")
+        self.setup(state.coords)
+        accepted = np.zeros(nwalkers, dtype=bool)
+        all_inds = np.arange(nwalkers)
+        inds = all_inds % self.nsplits
+        if self.randomize_split:
+            model.random.shuffle(inds)
+        for split in range(self.nsplits):
+            chosen = inds == split
+            sets = [state.coords[inds == j] for j in range(self.nsplits)]
+            q, factors = self.get_proposal(sets[split], sets[:split] + sets[split + 1:],
+                                           model.random)
+            new_log_probs, new_blobs = model.compute_log_prob_fn(q)
+            walkers = all_inds[chosen]
+            with np.errstate(invalid="ignore"):
+                difference = factors + new_log_probs - state.log_prob[walkers]
+                accepted[walkers] = difference > np.log(model.random.rand(walkers.size))
+            new_state = emcee.State(q, log_prob=new_log_probs, blobs=new_blobs)
+            state = self.update(state, new_state, accepted, chosen)
+        return state, accepted
+
+
+class _Sampler(emcee.EnsembleSampler):
+    """emcee's ensemble sampler taking a vectorised log-probability's array as it is
+    (emcee converts it value by value, looking for blobs massfit never returns); the
+    same checks of the coordinates and of NaN results."""
+
+    def compute_log_prob(self, coords):
+        if not self.vectorize or self.params_are_named:
+            return super().compute_log_prob(coords)
+        if np.any(np.isinf(coords)):
+            raise ValueError("At least one parameter value was infinite")
+        if np.any(np.isnan(coords)):
+            raise ValueError("At least one parameter value was NaN")
+        log_prob = np.array(self.log_prob_fn(coords), dtype=float).reshape(-1)
+        if np.any(np.isnan(log_prob)):
+            raise ValueError("Probability function returned NaN")
+        return log_prob, None
 
 
 def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
@@ -205,7 +256,7 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         backend = chain_backend(checkpoint)
         if not resume and backend.initialized:
             backend.reset(n_walkers, n_dim)
-    sampler = emcee.EnsembleSampler(n_walkers, n_dim, on_threads(log_prob, settings.threads),
+    sampler = _Sampler(n_walkers, n_dim, on_threads(log_prob, settings.threads),
                                     vectorize=True,
                                     moves=_moves(), backend=backend)
     steps = resumed_from = int(sampler.iteration)
