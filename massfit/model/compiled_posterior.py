@@ -190,10 +190,11 @@ class CompiledPosterior:
         """The model's window centres now (the start moves them)."""
         return tuple((c["node"], c["phase"]) for c in self.model.centres.values())
 
-    def windows(self):
-        """(columns, [low, high) rows) of the angle windows, as the model has them now."""
+    def windows(self, key=None):
+        """(columns, [low, high) rows) of the angle windows, as the model has them now
+        (``key``: :meth:`window_key`, where the caller has it)."""
         model = self.model
-        key = self.window_key()
+        key = self.window_key() if key is None else key
         if key != self._window_key:
             cols, bounds = [], []
             for k, param in enumerate(model.parameters):
@@ -205,7 +206,7 @@ class CompiledPosterior:
             self._window_key = key
         return self._windows
 
-    def __call__(self, sampled, change=None):
+    def __call__(self, sampled, change=None, *, window_key=None):
         """Log-posterior of each row of ``sampled`` (n, n_dim), -inf outside the support.
 
         ``change`` holds the sampler's change of coordinates as the kernel's tables
@@ -216,7 +217,7 @@ class CompiledPosterior:
         sampled = np.ascontiguousarray(np.atleast_2d(sampled), dtype=float)
         if change is None:
             change = _NO_CHANGE
-        win_i, win_f = self.windows()
+        win_i, win_f = self.windows(window_key)
         out = np.empty(sampled.shape[0])
         _use_threads(sampled.shape[0] * (self.rows.shape[1] + self.vel.shape[1]))
         kepler.posterior_kernel.log_posterior(
@@ -293,7 +294,11 @@ def on_threads(log_prob, requested=None):
 
 
 def _use_threads(work):
-    import numba
+    # numba's thread count belongs to the calling thread: set it where it changes
+    # (setting it costs more than the rest of this function).
+    count = thread_count(getattr(_requested, "count", None), work)
+    if getattr(_requested, "set", None) != count:
+        import numba
 
-    # numba's thread count belongs to the calling thread: set it at each call.
-    numba.set_num_threads(thread_count(getattr(_requested, "count", None), work))
+        numba.set_num_threads(count)
+        _requested.set = count

@@ -288,9 +288,10 @@ class SamplerCoordinates:
         """
         compiled = self.model.compiled
         if compiled is not None and compiled.available:
-            if self._tables is None or self._tables[0] != compiled.window_key():
-                self._tables = (compiled.window_key(), self.compiled_tables())
-            return compiled(sampled, self._tables[1])
+            key = compiled.window_key()
+            if self._tables is None or self._tables[0] != key:
+                self._tables = (key, self.compiled_tables())
+            return compiled(sampled, self._tables[1], window_key=key)
         return self.log_prob_python(sampled)
 
     def log_prob_python(self, sampled):
