@@ -14,7 +14,8 @@ from pathlib import Path
 import numpy as np
 
 from massfit.model.orbit_model import OrbitModel, SystemSpec
-from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+from massfit.plot.figures import FIGURES, applicable_figures
+from massfit.plot.style import save_figure
 from massfit.run import assemble_result, distance_prior
 from massfit.sample.chain import SamplerSettings, run_sampler
 from massfit.sample.reparameterisation import SamplerCoordinates
