@@ -80,6 +80,7 @@ instead)::
     max_steps = 50000
     check_every = 500
     seed = 1
+    threads = 2                       # cores for the log-posterior (default: all)
     engine = "nested"                 # "emcee" (default) or "nested" (dynesty: evidence,
     live_points = 400                 #   modes weighed, each in its own period box)
     runs_per_box = 2                  # nested: independent runs of each box (must agree)
@@ -132,7 +133,7 @@ _SCHEMA = {
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int,
-                "engine": str, "live_points": int, "runs_per_box": int},
+                "threads": int, "engine": str, "live_points": int, "runs_per_box": int},
     "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,

@@ -76,6 +76,7 @@ from massfit.orbits.dynamics import Keplerian, observed_offsets
 from massfit.orbits.relativity import RelativitySpec, omega_at, precession_rate
 from massfit.model import extra_terms
 from massfit.model.frame import FrameSpec, frame_shift
+from massfit.model.compiled_posterior import compiled_posterior
 from massfit.errors import ConfigError, InputError, ModelError
 from massfit.read.observations import Observations
 from massfit.priors import Fixed, LogUniform, Normal, Prior, Uniform
@@ -394,6 +395,8 @@ class OrbitModel:
         self._log_norm = self._gaussian_normalisation()
         self._kernel_rows = self._pack_for_kernel()
         self._prior_plan = self._plan_prior()
+        #: The compiled log-posterior, or None where the model takes the general path.
+        self.compiled = compiled_posterior(self)
         n_velocities = len(velocities) if self.has_velocities else 0
         if self.velocity_only and n_velocities <= self.n_dim:
             raise ModelError(f"{n_velocities} radial velocities cannot fix the "
@@ -587,6 +590,11 @@ class OrbitModel:
                 or self.spec.frame is not None or self.spec.relativity is not None
                 or any(rows.reference is not None for rows in self.rows.values())):
             return None
+        return self.packed_rows()
+
+    def packed_rows(self) -> dict:
+        """Each companion's astrometry as the compiled kernels take it: east/north rows
+        first, then sep/pa, times from the companion's reference epoch."""
         packs = {}
         for name, rows in self.rows.items():
             order = np.concatenate([rows.cart, rows.polar])
@@ -690,6 +698,16 @@ class OrbitModel:
             # The jitter's share of the normalisation is in the residuals (see there).
             total -= 0.5 * np.sum(np.log(TWO_PI * self.velocity_rows.err2))
         return float(total)
+
+    @property
+    def prior_plan(self) -> _PriorPlan:
+        """The prior as a box with a constant density, the discs and the rest."""
+        return self._prior_plan
+
+    @property
+    def log_normalisation(self) -> float:
+        """The Gaussian likelihood's constant (velocities' jitter terms aside)."""
+        return self._log_norm
 
     # ------------------------------------------------------------- coordinates
     @property
@@ -1115,7 +1133,17 @@ class OrbitModel:
         return chi2
 
     def log_prob(self, theta):
-        """Log-posterior (up to a constant) for each row of ``theta``; emcee's target."""
+        """Log-posterior (up to a constant) for each row of ``theta``; emcee's target.
+
+        Compiled (:mod:`massfit.model.compiled_posterior`) where the model qualifies
+        and numba is installed; otherwise :meth:`log_prob_python`, the reference.
+        """
+        if self.compiled is not None and self.compiled.available:
+            return self.compiled(theta)
+        return self.log_prob_python(theta)
+
+    def log_prob_python(self, theta):
+        """:meth:`log_prob` on the general path (numpy, the fused chi^2 where allowed)."""
         theta = np.atleast_2d(theta)
         lp = self.log_prior(theta)
         good = np.flatnonzero(np.isfinite(lp))
