@@ -260,7 +260,9 @@ def main():
                 with open(args.results.with_suffix(".jsonl"), "a") as handle:
                     handle.write(json.dumps(record, default=str) + "\n")
     lines = args.results.with_suffix(".jsonl").read_text().splitlines()
-    runs = sorted((json.loads(x) for x in lines if x.strip()), key=lambda r: r["seed"])
+    # One record per seed and mode (the last written), whatever process wrote it.
+    latest = {(r["seed"], r["mode"]): r for r in (json.loads(x) for x in lines if x.strip())}
+    runs = sorted(latest.values(), key=lambda r: (r["mode"], r["seed"]))
     report = {"setup": {"epochs_per_moon": EPOCHS_PER_MOON, "span_days": SPAN_DAYS,
                         "error_km": ERROR_KM, "truth": "REBOUND IAS15 + REBOUNDx J2/J4, "
                         "light-time-iterated offsets from a moving observer"},
