@@ -195,7 +195,7 @@ def prior_from_spec(spec, *, unit, key, file=None, convert=None):
 
 
 def _to_float(value, unit, key, file):
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
     import astropy.units as u
 
     if unit is None or unit == u.dimensionless_unscaled:

@@ -34,7 +34,7 @@ def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefi
     """
     import astropy.units as u
 
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
 
     if distance is not None and parallax is not None:
         raise ConfigError("give either a parallax or a distance, not both",
@@ -65,7 +65,7 @@ def _angle_mas(text, key):
     """A parallax (or its error) in mas; a length is refused, not read as a distance."""
     import astropy.units as u
 
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
 
     quantity = parse_quantity(text, expect=u.mas, key=key)
     if not quantity.unit.is_equivalent(u.mas):

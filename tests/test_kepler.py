@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from massfit.orbits import kepler
-from massfit.start.search import elements_from_thiele_innes
+from massfit.start.scan import elements_from_thiele_innes
 
 SOLVERS = [kepler.solve_kepler_numpy]
 if kepler.HAVE_NUMBA:

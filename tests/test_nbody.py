@@ -152,7 +152,8 @@ def test_nbody_start_recovers_the_pair_masses(tmp_path):
     # companions (two-body orbits) the central mass lands far off and the fit is far
     # worse.
     from massfit.orbits.nbody import PAIR_TRUTH, simulate_interacting_pair
-    from massfit.start.search import solve_least_squares, _values_from_theta, find_start
+    from massfit.start.least_squares import solve_least_squares, values_from_theta
+    from massfit.start.search import find_start
 
     obs = read_observations(simulate_interacting_pair(tmp_path / "pair.ecsv", n_obs=30))
     truth = {"central": PAIR_TRUTH["central_mass"],
@@ -176,7 +177,7 @@ def test_nbody_start_recovers_the_pair_masses(tmp_path):
     massless = OrbitModel(obs, SystemSpec(
         companions={n: CompanionSpec(n, mass=Fixed(1e-12)) for n in comps},
         dynamics=NBody()))
-    values = _values_from_theta(model, start.theta)
+    values = values_from_theta(model, start.theta)
     values["central_mass"] += np.mean([values[n]["mass"] for n in comps])
     for name in comps:
         values[name]["mass"] = 1e-12

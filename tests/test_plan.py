@@ -169,7 +169,7 @@ def test_schedule_file_errors_name_line_and_column(tmp_path):
     assert "line 10" in str(info.value) and "'error'" in str(info.value)
     plain = tmp_path / "nights.csv"
     plain.write_text("time,error\n2461000.5,0.5\n")
-    with pytest.raises(InputError, match="format and a scale"):
+    with pytest.raises(InputError, match="format of the times is not stated"):
         Schedule.read(plain)
     got = Schedule.read(plain, time_format="jd", time_scale="tdb", error_unit="mas")
     assert got.error[0] == 0.5 * u.mas

@@ -12,7 +12,8 @@ from massfit.priors import LogUniform
 from massfit.run import assemble_result
 from massfit.sample.chain import SamplerSettings, run_sampler
 from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
-from massfit.start.search import Start, find_start
+from massfit.start.result import Start
+from massfit.start.search import find_start
 
 from conftest import write_one_companion
 

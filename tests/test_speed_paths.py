@@ -19,7 +19,7 @@ from massfit.model.orbit_model import CompanionSpec, OrbitModel
 from massfit.priors import Normal, Uniform
 from massfit.read.tables import read_observations
 from massfit.scenarios.examples import demo_setup
-from massfit.start.search import parameter_bounds
+from massfit.start.least_squares import parameter_bounds
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "example_obs"
 
@@ -112,7 +112,7 @@ def test_velocities_and_other_dynamics_keep_the_general_path():
 def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
     # Big data sets fill the start's Jacobian one column at a time (memory); the
     # numbers must be those of the stacked evaluation.
-    from massfit.start import search as start_module
+    from massfit.start import least_squares as start_module
 
     model = _model("mirren")
     low, high = parameter_bounds(model)
@@ -120,7 +120,7 @@ def test_jacobian_column_by_column_equals_the_stacked_one(monkeypatch):
     theta = theta[np.newaxis, :]
     assert np.isfinite(model.log_prior(theta)[0])
     stacked = start_module._jacobian_function(model, low, high)(theta[0])
-    monkeypatch.setattr(start_module, "_CHUNK_ELEMENTS", 10)
+    monkeypatch.setattr(start_module, "CHUNK_ELEMENTS", 10)
     columns = start_module._jacobian_function(model, low, high)(theta[0])
     # Rows: the whitened residuals, then the Gaussian priors (parallax, companion mass).
     assert columns.shape == stacked.shape == (len(model.residuals(theta)[0]) + 2,

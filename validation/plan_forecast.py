@@ -73,7 +73,7 @@ def profile_width(system, schedule, seed):
 
     from massfit.model.orbit_model import OrbitModel
     from massfit.priors import Fixed
-    from massfit.start.search import _chi2, solve_least_squares
+    from massfit.start.least_squares import chi2_at, solve_least_squares
 
     obs = simulated_observations(system, schedule, seed=seed)
     spec = system.simulated_spec(seed)
@@ -81,7 +81,7 @@ def profile_width(system, schedule, seed):
     best = solve_least_squares(full, system.physical(full))
     phys = full.physical(best)
     m_best = float(phys["central_mass"][0])
-    chi_best = _chi2(full, best) + float(np.sum(_prior_terms(full, best) ** 2))
+    chi_best = chi2_at(full, best) + float(np.sum(_prior_terms(full, best) ** 2))
 
     def rise(step):
         mass = m_best * np.exp(step)
@@ -91,7 +91,7 @@ def profile_width(system, schedule, seed):
         for name in fixed.companions:
             values[name] = {q: float(v[0]) for q, v in phys["companions"][name].items()}
         theta = solve_least_squares(fixed, values)
-        chi = _chi2(fixed, theta) + float(np.sum(_prior_terms(fixed, theta) ** 2))
+        chi = chi2_at(fixed, theta) + float(np.sum(_prior_terms(fixed, theta) ** 2))
         return chi - chi_best - 1.0
 
     guess = forecast_precision(system, schedule)["gm_relative_sigma"]
@@ -101,9 +101,9 @@ def profile_width(system, schedule, seed):
 
 
 def _prior_terms(model, theta):
-    from massfit.start.search import _prior_residuals
+    from massfit.start.least_squares import prior_residuals
 
-    return _prior_residuals(model, theta)
+    return prior_residuals(model, theta)
 
 
 def posterior_width(system, schedule, seed, steps):

@@ -48,7 +48,7 @@ from pathlib import Path
 import astropy.units as u
 
 from massfit.config.fit import check_keys, read_toml, real_path
-from massfit.constants import parse_quantity
+from massfit.quantities import parse_quantity
 from massfit.errors import ConfigError
 from massfit.plan.schedule import Schedule, parse_time
 from massfit.plan.system import AssumedSystem

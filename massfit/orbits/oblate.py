@@ -49,7 +49,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from massfit.constants import AU_KM, parse_quantity
+from massfit.constants import AU_KM
+from massfit.quantities import parse_quantity
 from massfit.orbits.dynamics import Keplerian, orbit_state
 from massfit.errors import ConfigError
 

@@ -460,7 +460,7 @@ def viewing_from_settings(settings: dict, *, key_prefix="viewing.", file=None):
     """
     import astropy.units as u
 
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
     from massfit.errors import ConfigError
 
     settings = {k: v for k, v in settings.items() if v is not None}
@@ -500,7 +500,7 @@ def _site(values, key, file):
     import astropy.units as u
     from astropy.coordinates import EarthLocation
 
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
     from massfit.errors import ConfigError
 
     if isinstance(values, str):

@@ -61,7 +61,7 @@ def fit_scatter(system: AssumedSystem, schedule: Schedule, *, realisations: int 
         ``gm_relative_sigma`` (sample standard deviation of ln GM), ``its_error``
         (its own standard error, sigma / sqrt(2 (n - 1))), ``fits`` and ``failed``.
     """
-    from massfit.start.search import solve_least_squares
+    from massfit.start.least_squares import solve_least_squares
 
     masses = []
     failed = 0

@@ -7,10 +7,12 @@ from pathlib import Path
 
 import astropy.units as u
 import numpy as np
-from astropy.table import Table
 from astropy.time import Time
 
 from massfit.errors import ConfigError, InputError
+from massfit.read.cells import Issues, Options, read_numbers, read_texts
+from massfit.read.text import split_file
+from massfit.read.time_column import read_times
 from massfit.read.timescales import quiet_leap_seconds, tdb_jd
 
 
@@ -83,7 +85,7 @@ class Schedule:
         key_prefix : str
             Prefix of the option or config key named in error messages.
         """
-        from massfit.constants import parse_quantity
+        from massfit.quantities import parse_quantity
 
         t0 = parse_time(start, time_format, time_scale, key=f"{key_prefix}start")
         t1 = parse_time(stop, time_format, time_scale, key=f"{key_prefix}stop")
@@ -182,7 +184,7 @@ def parse_time(value, time_format, time_scale, *, key):
 
 
 def _error_quantity(value, key):
-    from massfit.constants import parse_quantity
+    from massfit.quantities import parse_quantity
 
     if value is None:
         raise ConfigError("give the expected 1-sigma error of each of east and north, "
@@ -199,96 +201,71 @@ def _error_quantity(value, key):
     return q
 
 
-def _data_lines(path):
-    """Physical line numbers of the data rows (after the header) of a CSV/ECSV file."""
-    lines = path.read_text(encoding="utf-8", errors="replace").splitlines()
-    data = [k + 1 for k, line in enumerate(lines)
-            if line.strip() and not line.lstrip().startswith("#")]
-    return np.array(data[1:], dtype=int)
-
-
 def _read_schedule(path, error, time_format, time_scale, error_unit):
+    """A schedule file read through the observation reader's own steps.
+
+    The file is split into cells and its times converted by :mod:`massfit.read` (the
+    same CSV/ECSV rules, time formats and scales, and messages as for observations);
+    every problem names the file, the line and the column.
+    """
     if not path.is_file():
         raise InputError("no such schedule file", file=path)
-    fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
-    try:
-        table = Table.read(path, format=fmt)
-    except Exception as exc:  # astropy raises many kinds for a malformed table
-        raise InputError(f"cannot read it as {'ECSV' if fmt == 'ascii.ecsv' else 'CSV'} "
-                         f"({exc})", file=path) from None
-    lines = _data_lines(path)
-    if len(lines) != len(table):
-        lines = np.arange(1, len(table) + 1)
-    if len(table) == 0:
-        raise InputError("the schedule has no rows", file=path)
-    if "time" not in table.colnames:
+    cells = split_file(str(path))
+    if "time" not in cells.names:
         raise InputError("a schedule needs a 'time' column", file=path, column="time")
-    times = _table_times(table, path, time_format, time_scale, lines)
-    err = _table_errors(table, path, error, error_unit, lines)
+    options = Options(time_format=time_format, time_scale=time_scale, units={},
+                      skip_bad_rows=False, primary="")
+    issues = Issues(cells)
+    jd1, jd2 = read_times(cells, options, issues)
+    err = _table_errors(cells, issues, error, error_unit)
     bodies = None
-    if "body" in table.colnames:
-        bodies = [(str(b),) for b in table["body"]]
+    if "body" in cells.names:
+        bodies = [(str(b),) for b in read_texts(cells, issues, "body", required=True)]
     distance = None
-    if "distance" in table.colnames:
-        col = table["distance"]
-        if col.unit is None:
-            raise InputError("the distance column needs a unit (pc, au)", file=path,
-                             column="distance")
-        distance = u.Quantity(col).to(u.pc)
-        bad = np.flatnonzero(~(distance.value > 0))
-        if bad.size:
-            raise InputError("a distance must be positive", file=path,
-                             line=int(lines[bad[0]]), column="distance")
+    if "distance" in cells.names:
+        unit = _column_unit(cells, "distance", None, "a unit (pc, au)")
+        distance = (_read_positive(cells, issues, "distance") * unit).to(u.pc)
+    problems = issues.listed()
+    if problems:
+        raise problems[0].error()
+    with quiet_leap_seconds():
+        times = Time(jd1, jd2, format="jd", scale="tdb")
     schedule = Schedule(times, err, bodies=bodies, distance=distance, source=str(path),
-                        lines=lines)
+                        lines=np.asarray(cells.lines, dtype=int))
     return _merge_epochs(schedule) if bodies is not None else schedule
 
 
-def _table_times(table, path, time_format, time_scale, lines):
-    col = table["time"]
-    if isinstance(col, Time):
-        return col
-    fmt = time_format or table.meta.get("time_format")
-    scale = time_scale or table.meta.get("time_scale")
-    if fmt is None or scale is None:
-        raise InputError("the times need a format and a scale: use a native ECSV Time "
-                         "column, the table meta keys time_format and time_scale, or "
-                         "the time format and scale options", file=path, column="time")
-    values = np.asarray(col)
+def _column_unit(cells, name, fallback, what):
+    stated = cells.units.get(name)
+    unit = stated if stated is not None else fallback
+    if unit is None:
+        raise InputError(f"the {name} column needs {what}", file=cells.file, column=name)
     try:
-        return Time(values, format=fmt, scale=scale)
-    except (ValueError, TypeError):
-        for k, value in enumerate(values):
-            try:
-                Time(value, format=fmt, scale=scale)
-            except (ValueError, TypeError):
-                raise InputError(f"{value!r} is not a time in format '{fmt}'", file=path,
-                                 line=int(lines[k]), column="time") from None
-        raise InputError(f"the times are not in format '{fmt}'", file=path,
-                         column="time") from None
+        return u.Unit(unit)
+    except ValueError:
+        raise InputError(f"{unit!r} is not a unit", file=cells.file, column=name) from None
 
 
-def _table_errors(table, path, error, error_unit, lines):
-    names = [c for c in ("error", "east_err", "north_err") if c in table.colnames]
+def _read_positive(cells, issues, name):
+    """A column's values, each checked to be a positive finite number."""
+    values = read_numbers(cells, issues, name, 1.0)
+    for row in np.flatnonzero(np.isfinite(values) & ~(values > 0)):
+        issues.add(row, name, "must be a positive number")
+    return values
+
+
+def _table_errors(cells, issues, error, error_unit):
+    names = [c for c in ("error", "east_err", "north_err") if c in cells.names]
     if not names:
         if error is None:
             raise InputError("give an 'error' column or one expected error for all epochs",
-                             file=path, column="error")
-        return np.full(len(table), 1.0) * _error_quantity(error, "--error")
+                             file=cells.file, column="error")
+        return np.full(len(cells.lines), 1.0) * _error_quantity(error, "--error")
     values = []
     for name in names:
-        col = table[name]
-        unit = col.unit if col.unit is not None else (
-            u.Unit(error_unit) if error_unit else None)
-        if unit is None:
-            raise InputError("the error column needs a unit (an ECSV unit, or the "
-                             "error-unit option for a plain CSV)", file=path, column=name)
-        data = np.ma.filled(np.ma.asarray(col, dtype=float), np.nan)
-        bad = np.flatnonzero(~(data > 0))
-        if bad.size:
-            raise InputError("an expected error must be a positive number", file=path,
-                             line=int(lines[bad[0]]), column=name)
-        values.append(u.Quantity(data, unit))
+        unit = _column_unit(cells, name, error_unit, "a unit (an ECSV unit, or the "
+                            "error-unit option for a plain CSV)")
+        values.append(u.Quantity(_read_positive(cells, issues, name), unit))
     unit = values[0].unit
     # Only one error per coordinate is planned with; the larger is the cautious one.
     return np.max(np.vstack([v.to_value(unit) for v in values]), axis=0) * unit

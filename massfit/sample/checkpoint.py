@@ -269,7 +269,7 @@ def read_meta(path, *, model, settings) -> dict:
         points), ``started_utc`` and ``settings``. The model's angle windows are set
         to the ones the interrupted run used.
     """
-    from massfit.start.search import Start
+    from massfit.start.result import Start
 
     path = Path(path)
     if not path.exists():

@@ -155,7 +155,8 @@ def _compare(model, theta):
     # two-body ellipse needs, and over a long baseline the phases drift apart).
     # Its least squares re-centres the angle windows, so it runs after the first chi^2.
     try:
-        from massfit.start.search import solve_least_squares, two_body_start
+        from massfit.start.least_squares import solve_least_squares
+        from massfit.start.search import two_body_start
 
         _, _, values = two_body_start(model)
         # Its companions' masses are zero; give them the perturbed solution's (the
@@ -191,7 +192,7 @@ def _compare(model, theta):
 def _least_squares_chi2(model, theta):
     from scipy.optimize import least_squares
 
-    from massfit.start.search import parameter_bounds, residual_function
+    from massfit.start.least_squares import parameter_bounds, residual_function
 
     fun = residual_function(model)
     low, high = parameter_bounds(model)
