@@ -63,6 +63,25 @@ def perturbed_dynamics(start_evaluations=300):
                      start_evaluations=start_evaluations)
 
 
+def step_cost(model, start, tau_steps=100):
+    """CPU seconds of one sampler step (every walker once, as ``fit`` would use them)
+    near the start, and the least a converged run costs: 50 autocorrelation times of
+    ``tau_steps`` steps (an assumption: about 100 steps for ~25 parameters in
+    massfit's sampler, ``massfit/sample/chain.py``)."""
+    from massfit.sample.chain import SamplerSettings
+
+    walkers = SamplerSettings().n_walkers(model.n_dim)
+    rng = np.random.default_rng(1)
+    scale = np.sqrt(np.clip(np.diag(start.covariance), 0.0, None))
+    points = start.theta + 1e-3 * scale * rng.standard_normal((walkers, model.n_dim))
+    cpu = time.process_time()
+    model.log_prob(points)
+    seconds = time.process_time() - cpu
+    return {"walkers": walkers, "cpu_seconds_per_step": seconds,
+            "assumed_tau_steps": tau_steps,
+            "cpu_hours_for_50_tau": seconds * 50 * tau_steps / 3600.0}
+
+
 def fitted(observations, dynamics=None):
     model = OrbitModel(observations, SystemSpec(dynamics=dynamics))
     clock = time.perf_counter()
@@ -81,7 +100,9 @@ def fitted(observations, dynamics=None):
                 phys["companions"][name]["mass"][0] / mass)
     k = model.names.index("central.log10_mass")
     sigma = float(np.sqrt(start.covariance[k, k]) * np.log(10.0))
-    return {"gm_km3_s2": mass * GM_SUN_KM3_S2,
+    cost = None if dynamics is None else step_cost(model, start)
+    return {"sampler_step_cost": cost,
+            "gm_km3_s2": mass * GM_SUN_KM3_S2,
             "relative_to_published": mass * GM_SUN_KM3_S2 / PUBLISHED_GM - 1.0,
             "relative_sigma": sigma, "reduced_chi2": block["total"]["reduced_chi2"],
             "moons": per_moon, "seconds": seconds, "cpu_seconds": cpu,
