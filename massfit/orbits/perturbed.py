@@ -190,15 +190,18 @@ class Perturbed(Keplerian):
         a J2 primary needs for each orbit's size and mean motion (first-order secular
         theory, :func:`massfit.orbits.oblate.oblate_gm`), weighted by rows. With mutual
         pulls, companions whose mass is sampled are put at 1e-4, 1e-3 and 1e-2 of the
-        system's mass, each after the first as fitted or mirrored through the sky
-        plane (:meth:`node_widths`).
+        system's mass, each after the first as fitted or (on a fixed sky plane)
+        mirrored through it (:meth:`node_widths`).
         """
         names = list(model.companions)
         central = self._start_central_mass(model, values)
         shares = self.START_SHARES if self.mutual_pulls else (None,)
-        flips_all = (itertools.product((False, True), repeat=len(names) - 1)
-                     if self.mutual_pulls else [()])
-        flips_all = list(flips_all)
+        # The mirror image through the sky plane is (omega, node) + pi only where the
+        # frame's z is the line of sight; with a moving line of sight (ICRS axes) the
+        # two-body start has already chosen each orbit's image on the turning sky.
+        mirror = self.mutual_pulls and model.sight is None
+        flips_all = (list(itertools.product((False, True), repeat=len(names) - 1))
+                     if mirror else [(False,) * (len(names) - 1)])
         out = []
         for share in shares:
             for flips in flips_all:
