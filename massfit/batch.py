@@ -38,16 +38,15 @@ import numpy as np
 
 from massfit.config.fit import real_path
 from massfit.errors import ConfigError, MassfitError
+from massfit.write.batch_table import (NOT_RUN, RESULTS_FILE, failed_row, not_run_row,
+                                       result_row, write_results_table)
 
 __all__ = ["BatchJob", "collect_jobs", "fit_job", "run_batch", "folder_name",
-           "job_fingerprint", "RESULTS_FILE"]
+           "job_fingerprint", "result_row", "failed_row", "not_run_row", "RESULTS_FILE",
+           "NOT_RUN"]
 
-RESULTS_FILE = "results.ecsv"
-#: Status of a system an interrupted batch did not finish.
-NOT_RUN = "not run"
 SYSTEMS_DIR = "systems"
 _TABLE_OPTIONAL = ("config", "parallax", "parallax_err", "distance", "seed")
-_INTERVAL_KEYS = ("median", "lower_68", "upper_68", "lower_95", "upper_95")
 
 
 @dataclass
@@ -124,7 +123,8 @@ def collect_jobs(source, out_dir, *, seed=None, sampler=None, plots=False) -> li
         overrides = dict(sampler or {})
         if entry.get("seed") is not None:
             overrides["seed"] = int(entry["seed"])
-        elif seed is not None and not _config_has_seed(entry.get("config")):
+        elif seed is not None and not _config_has_seed(entry.get("config"),
+                                                       entry.get("files")):
             overrides["seed"] = system_seed(seed, name)
         jobs.append(BatchJob(system=name, output=str(systems_dir / folder_name(name)),
                              config=entry.get("config"), files=entry.get("files", []),
@@ -143,13 +143,13 @@ def system_seed(seed: int, name: str) -> int:
     return int(state.generate_state(1)[0])
 
 
-def _config_has_seed(config):
+def _config_has_seed(config, files=None):
     if config is None:
         return False
     from massfit.config.fit import load_config
 
     try:
-        return load_config(config).sampler.seed is not None
+        return load_config(config, files=files or None).sampler.seed is not None
     except MassfitError:
         return False  # the system fails on its own, with this reason, when it is fitted
 
@@ -249,12 +249,12 @@ def fit_job(job: BatchJob) -> dict:
     """
     started = time.perf_counter()
     try:
-        summary = _fit_and_save(job)
+        summary, seed = _fit_and_save(job)
     except MassfitError as exc:
         return failed_row(job, str(exc), time.perf_counter() - started)
     except Exception as exc:  # any other failure belongs to this system alone
         return failed_row(job, f"{type(exc).__name__}: {exc}", time.perf_counter() - started)
-    return result_row(job, summary, time.perf_counter() - started)
+    return result_row(job, summary, time.perf_counter() - started, seed=seed)
 
 
 def _fit_and_save(job):
@@ -266,9 +266,8 @@ def _fit_and_save(job):
     from massfit.write.run_record import run_record
 
     if job.config is not None:
-        setup = load_config(job.config)
-        if job.files:
-            setup.files = [Path(f) for f in job.files]
+        # The table's files replace the config's, which it then need not list.
+        setup = load_config(job.config, files=job.files or None)
     else:
         setup = FitSetup(files=[Path(f) for f in job.files])
     observations = read_observations(setup.files, **setup.read_options)
@@ -283,38 +282,7 @@ def _fit_and_save(job):
     record["batch_job"] = job_fingerprint(job)
     result = fit(observations, system, sampler=sampler, record=record)
     result.save(job.output, plots=job.plots and setup.plots, force=True)
-    return result.summary
-
-
-def _row_base(job, seconds):
-    return {"system": job.system, "status": "failed", "converged": False,
-            "failure": "", "seed": job.sampler.get("seed", -1), "seconds": float(seconds),
-            "output": job.output}
-
-
-def result_row(job: BatchJob, summary: dict, seconds: float) -> dict:
-    """The results-table row of a finished system, from its summary."""
-    row = _row_base(job, seconds)
-    row["status"] = "converged" if summary["converged"] else "not converged"
-    row["converged"] = bool(summary["converged"])
-    for prefix, key in (("mass", "central_mass"), ("mass_msun", "central_mass_solar"),
-                        ("gm", "central_gm")):
-        block = summary[key]  # None where velocities alone leave the mass open
-        for part in _INTERVAL_KEYS:
-            value = None if block is None else block[part]
-            row[f"{prefix}_{part}"] = np.nan if value is None else float(value)
-    diag = summary["diagnostics"]
-    row["steps"] = int(diag["steps"])
-    row["max_autocorr_steps"] = float(diag["max_autocorr_steps"])
-    row["effective_samples"] = float(diag["effective_samples"])
-    return row
-
-
-def failed_row(job: BatchJob, reason: str, seconds: float) -> dict:
-    """The results-table row of a system that could not be fitted."""
-    row = _row_base(job, seconds)
-    row["failure"] = " ".join(reason.split()) or "unknown failure"
-    return row
+    return result.summary, result.record["seed"]
 
 
 def job_fingerprint(job: BatchJob) -> dict:
@@ -345,14 +313,6 @@ def job_fingerprint(job: BatchJob) -> dict:
     return json.loads(json.dumps(fingerprint))  # as it reads back from run.json
 
 
-def not_run_row(job: BatchJob) -> dict:
-    """The results-table row of a system the batch stopped before fitting."""
-    row = _row_base(job, 0.0)
-    row.update(status=NOT_RUN, failure="the batch was interrupted before this system "
-                                        "finished")
-    return row
-
-
 def _finished_row(job):
     folder = Path(job.output)
     if not (folder / "summary.json").is_file():
@@ -362,8 +322,7 @@ def _finished_row(job):
         record = json.loads((folder / "run.json").read_text())
         if record.get("batch_job") != job_fingerprint(job):
             return None  # another seed, option or input: fit it again
-        row = result_row(job, summary, 0.0)
-        row["seed"] = int(record["seed"])
+        row = result_row(job, summary, 0.0, seed=record["seed"])
     except (OSError, ValueError, KeyError, TypeError, AttributeError):
         return None  # unreadable: fit it again
     row["seconds"] = float(summary["diagnostics"].get("sampling_seconds", 0.0))
@@ -412,7 +371,7 @@ def run_batch(jobs, out_dir, *, workers=None, scheduler=None, progress=None,
     try:
         for job, row in _execute(todo, workers, scheduler):
             rows[job.system] = row
-            _write_table(out, jobs, rows)
+            write_results_table(out, jobs, rows)
             if bar is not None:
                 bar.update(1)
                 failed = sum(r["status"] == "failed" for r in rows.values())
@@ -422,12 +381,12 @@ def run_batch(jobs, out_dir, *, workers=None, scheduler=None, progress=None,
         # (a rerun fits them), and the caller hears of the interruption.
         for job in jobs:
             rows.setdefault(job.system, not_run_row(job))
-        _write_table(out, jobs, rows)
+        write_results_table(out, jobs, rows)
         raise
     finally:
         if bar is not None:
             bar.close()
-    return _write_table(out, jobs, rows)
+    return write_results_table(out, jobs, rows)
 
 
 def _execute(jobs, workers, scheduler):
@@ -553,41 +512,6 @@ class _single_threaded_children:
             else:
                 os.environ[key] = value
         return False
-
-
-_COLUMNS = [
-    ("system", str, None), ("status", str, None), ("converged", bool, None),
-    *[(f"mass_{p}", float, "kg") for p in _INTERVAL_KEYS],
-    *[(f"mass_msun_{p}", float, "solMass") for p in _INTERVAL_KEYS],
-    *[(f"gm_{p}", float, "km3 / s2") for p in _INTERVAL_KEYS],
-    ("steps", int, None), ("max_autocorr_steps", float, None),
-    ("effective_samples", float, None), ("seconds", float, "s"), ("seed", int, None),
-    ("failure", str, None), ("output", str, None),
-]
-_MISSING = {str: "", bool: False, int: -1, float: np.nan}
-
-
-def _write_table(out, jobs, rows):
-    from astropy.table import Table
-
-    listed = [rows[job.system] for job in jobs if job.system in rows]
-    table = Table()
-    for name, kind, unit in _COLUMNS:
-        values = [row.get(name, _MISSING[kind]) for row in listed]
-        table[name] = np.array(values, dtype=object if kind is str else kind)
-        if kind is str:
-            table[name] = table[name].astype(str)
-        if unit is not None:
-            table[name].unit = unit
-    table.meta["description"] = ("massfit batch: one row per system; mass_* is the "
-                                 "central mass (median and 68.27 %/95.45 % interval "
-                                 "bounds), failure says why a system has no result")
-    table.meta["systems_listed"] = len(jobs)
-    table.meta["systems_done"] = len(listed)
-    tmp = out / f".{RESULTS_FILE}.partial"
-    table.write(tmp, format="ascii.ecsv", overwrite=True)
-    os.replace(tmp, out / RESULTS_FILE)
-    return table
 
 
 def _bar(show, total, done):

@@ -78,7 +78,7 @@ def _own_chain(observations, model, mode, candidates, settings, fit):
              "steps": int(result.chain.steps),
              "boxes_days": {n: [spec.companions[n].period.low,
                                 spec.companions[n].period.high] for n in mode["periods"]}}
-    return np.asarray(samples["central_mass_Msun"]), periods, facts
+    return np.asarray(samples["central_mass_solar"]), periods, facts
 
 
 def weigh_modes(model, samples, census, candidates, observations, settings, *, fit,

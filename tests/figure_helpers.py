@@ -88,3 +88,47 @@ def sorrel_result():
         warnings.simplefilter("ignore")
         obs = massfit.read_observations(setup.files, **setup.read_options)
     return massfit.fit(obs, setup.system, seed=3, max_steps=150, progress=False)
+
+
+#: An invented planet seen only in the star's velocities, written in m/s with MJD (UTC)
+#: times and no instrument column: the form a planet search's table often has.
+PLANET = Elements(period=61.3, ecc=0.15, inc=90.0, omega=40.0, node=0.0,
+                  periapsis_time=2460110.0, mass=1.9e-3)
+PLANET_GAMMA_KMS = -12.3
+
+
+def write_planet_velocities(folder):
+    """Write the planet's velocity table (m/s, MJD UTC); returns its path."""
+    from massfit.scenarios.simulate import simulate_velocities
+
+    rng = np.random.default_rng(41)
+    times = Time(2460000.5 + np.sort(rng.uniform(0, 420, 36)), format="jd", scale="tdb")
+    table = simulate_velocities({"Pell": times}, {"Pell-b": PLANET}, 1.05, primary="Pell",
+                                gamma=PLANET_GAMMA_KMS * u.km / u.s, error=4.0 * u.m / u.s,
+                                seed=42)
+    out = Table()
+    out["time"] = times.utc.mjd
+    out["body"] = table["body"]
+    out["rv"] = table["rv"].to(u.m / u.s)
+    out["rv_err"] = table["rv_err"].to(u.m / u.s)
+    out.meta.update(time_format="mjd", time_scale="utc")
+    path = folder / "pell_velocities.ecsv"
+    out.write(path, format="ascii.ecsv", overwrite=True)
+    return path
+
+
+@functools.lru_cache(maxsize=None)
+def planet_result():
+    """A short velocity-only fit of the invented planet, once per run."""
+    import tempfile
+    from pathlib import Path
+
+    import massfit
+    from massfit.model.orbit_model import SystemSpec
+
+    path = write_planet_velocities(Path(tempfile.mkdtemp(prefix="massfit-planet-")))
+    obs = massfit.read_observations(path, primary="Pell")
+    system = SystemSpec(primary="Pell", central_mass=massfit.Normal(1.05, 0.05, low=0.0),
+                        companions={"Pell-b": massfit.CompanionSpec("Pell-b")},
+                        strict_companions=True)
+    return massfit.fit(obs, system, seed=4, max_steps=300, walkers=32, progress=False)

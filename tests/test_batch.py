@@ -237,3 +237,62 @@ def test_a_changed_seed_is_fitted_again(systems, tmp_path, monkeypatch):
         assert int(table["seed"][0]) == seed
     assert calls == ["Arlo", "Arlo"]  # the same seed is read back, a new one refitted
     assert results[5][0] == results[5][1] != results[6][0]
+
+
+def _single_lined(path):
+    """An invented planet (2.5 M_jup, P = 300 d, e = 0.1, edge-on) of a 1 M_sun star
+    named Wisp, seen in the star's velocities alone (m/s)."""
+    from massfit.scenarios.simulate import simulate_velocities
+
+    mass = 2.5 * u.M_jup.to(u.M_sun)
+    elements = {"companion": Elements(period=300.0, ecc=0.1, inc=90.0, omega=40.0,
+                                      node=0.0, periapsis_time=2460100.0, mass=mass)}
+    times = {"Wisp": Time(2460000.0 + np.sort(np.random.default_rng(3).uniform(0, 900, 30)),
+                          format="jd", scale="tdb")}
+    table = simulate_velocities(times, elements, 1.0, primary="Wisp", error=5 * u.m / u.s,
+                                seed=4)
+    out = Table()
+    out["time"] = table["time"].tdb.jd
+    out["body"] = table["body"]
+    out["rv"] = table["rv"].to(u.m / u.s)
+    out["rv_err"] = table["rv_err"].to(u.m / u.s)
+    out.meta.update(time_format="jd", time_scale="tdb")
+    out.write(path, format="ascii.ecsv")
+    return path
+
+
+def test_table_rows_say_the_seed_used_and_what_velocities_alone_measured(
+        systems, tmp_path, monkeypatch):
+    root, _ = systems
+    monkeypatch.setattr(batch, "_execute",
+                        lambda todo, w, s: ((job, batch.fit_job(job)) for job in todo))
+    # A config that states the seed and the priors but leaves the files to the table.
+    shared = tmp_path / "shared.toml"
+    shared.write_text(f"{SAMPLER}seed = 5\n")
+    planet = _single_lined(tmp_path / "planet.ecsv")
+    rv_config = tmp_path / "planet.toml"
+    rv_config.write_text('[system]\nprimary = "Wisp"\ncentral_mass_prior = {kind = '
+                         '"normal", mean = "1.0 Msun", sd = "0.05 Msun"}\n'
+                         f"{SAMPLER}seed = 7\n")
+    listing = tmp_path / "systems.csv"
+    listing.write_text("system,files,config\n"
+                       f"Arlo,{root / 'Arlo' / 'Arlo.ecsv'},{shared}\n"
+                       f"Wisp,{planet},{rv_config}\n")
+    out = tmp_path / "out"
+    main(["batch", str(listing), "--out", str(out)])
+    table = Table.read(out / batch.RESULTS_FILE, format="ascii.ecsv")
+    rows = {row["system"]: row for row in table}
+    # The seed each config states, not -1.
+    assert rows["Arlo"]["seed"] == 5 and rows["Wisp"]["seed"] == 7
+    assert rows["Arlo"]["measured"] == "central mass"
+    # Velocities alone: said so, with the mass function and the minimum mass (a
+    # stated primary mass), not a row of NaN called converged.
+    wisp = rows["Wisp"]
+    assert wisp["status"] != "failed", wisp["failure"]
+    assert wisp["measured"] == "mass function only" and wisp["companion"] == "companion"
+    assert np.isnan(wisp["mass_median"])
+    # f(m) = (m sin i)^3 / (M + m)^2 (the textbook identity) = 1.36e-8 M_sun for the
+    # invented 2.5 M_jup (2.39e-3 M_sun) edge-on about 1 M_sun; m sin i = 2.39e-3 M_sun.
+    assert 1.0e-8 < wisp["mass_function_msun_median"] < 2.4e-8
+    assert 1.5e-3 < wisp["minimum_mass_msun_median"] < 3.5e-3
+    assert "central_mass_prior" in wisp["note"] or "primary mass" in wisp["note"]

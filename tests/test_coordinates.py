@@ -190,5 +190,5 @@ def test_fit_of_a_short_arc_reports_its_state_coordinates():
     assert "Tollan.log10_period" not in diag["autocorr_steps"]
     # The samples come back in the model's coordinates, inside its windows.
     assert np.all(np.isfinite(result.model.log_prob(result.chain.samples)))
-    masses = result.samples["central_mass_Msun"]
+    masses = result.samples["central_mass_solar"]
     assert np.quantile(masses, 0.0013) < truth < np.quantile(masses, 0.9987)

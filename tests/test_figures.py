@@ -9,7 +9,7 @@ from astropy.time import Time
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-from massfit.plot import figures as plots  # noqa: E402
+import massfit.plot as plots  # noqa: E402
 from massfit.summarise.residuals import Residuals, residual_periodogram  # noqa: E402
 from massfit.errors import ConfigError  # noqa: E402
 
@@ -47,10 +47,56 @@ def test_orbit_plot_orientation_units_and_tracks(result):
         assert tuple(primary.get_xydata()[0]) == (0.0, 0.0)
     names = {t.get_text() for ax in skies for t in ax.texts if t.get_gid() == "companion-name"}
     assert names == {"Aster", "Brel"}
-    # Two residual panels (east, north) under each sky panel, in a finer unit.
+    # Two residual panels under each sky panel, in a finer unit: east and north for
+    # Aster (given as offsets), separation and position angle for Brel (given so).
     residual_labels = [ax.get_ylabel() for ax in fig.axes if ax.get_ylabel().startswith("O$-$C")]
-    assert len(residual_labels) == 4 and all(r"$\mu$as" in lab for lab in residual_labels)
+    assert residual_labels == ["O$-$C east\n[$\\mu$as]", "O$-$C north\n[$\\mu$as]",
+                               "O$-$C sep\n[$\\mu$as]", "O$-$C PA\n[deg]"]
     assert any(ax.get_label() == "<colorbar>" for ax in fig.axes)
+
+
+def test_orbit_plot_legend_and_time_axes(result):
+    fig = plots.orbit_plot(result, n_tracks=12, seed=3)
+    legend = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert legend == ["data (1$\\sigma$ ellipse)", "best orbit", "12 orbits from the posterior",
+                      "primary"]
+    # The tables give JD in TDB: the time axes and the colour bar say so.
+    bar = [ax for ax in fig.axes if ax.get_label() == "<colorbar>"][0]
+    assert bar.get_xlabel() == "epoch of the data: JD $-$ 2460000 (TDB)"
+    bottoms = [ax for ax in fig.axes if ax.get_xlabel() == "JD $-$ 2460000 (TDB)"]
+    assert len(bottoms) == 2
+    data = result.model.observations.astrometry
+    x = np.concatenate([c.get_offsets()[:, 0] for ax in bottoms for c in ax.collections
+                        if c.get_gid() in ("residuals-north", "residuals-PA")])
+    assert np.allclose(np.sort(x), np.sort(data.time.tdb.jd - 2460000.0))
+
+
+def test_orbit_plot_orders_companions_by_period(result, monkeypatch):
+    def order(fig):
+        return [t.get_text() for ax in sky_axes(fig) for t in ax.texts
+                if t.get_gid() == "companion-name"]
+
+    assert order(plots.orbit_plot(result, n_tracks=0)) == ["Aster", "Brel"]
+    # Were Aster's period the longer, it would come second.
+    period = dict(result.summary["companions"]["Aster"]["period"], median=5000.0)
+    monkeypatch.setitem(result.summary["companions"]["Aster"], "period", period)
+    assert order(plots.orbit_plot(result, n_tracks=0)) == ["Brel", "Aster"]
+
+
+def test_polar_residuals_are_separation_and_position_angle(result):
+    # Brel's O-C in PA is the wrapped difference of the table's PA and the model's,
+    # in degrees: check it against a direct computation at the best sample.
+    from massfit.summarise.residuals import best_sample
+
+    fig = plots.orbit_plot(result, companions=["Brel"], n_tracks=0)
+    pa_axis = [ax for ax in fig.axes if ax.get_ylabel() == "O$-$C PA\n[deg]"][0]
+    shown = [c for c in pa_axis.collections if c.get_gid() == "residuals-PA"][0]
+    model = result.model
+    data = model.observations.astrometry
+    rows = model.rows["Brel"].index
+    east, north = (v[0] for v in model.predicted_offsets(best_sample(result), "Brel"))
+    expected = np.degrees(np.angle(np.exp(1j * (data.pa[rows] - np.arctan2(east, north)))))
+    assert np.allclose(shown.get_offsets()[:, 1], expected, atol=1e-9)
 
 
 def test_orbit_plot_data_points_follow_the_table(result):
@@ -89,7 +135,7 @@ def test_error_ellipse_carries_the_correlation():
     (3.0, False, "au"), (0.004, False, r"$10^{3}$ km"), (0.01, False, r"$10^{6}$ km"),
 ])
 def test_display_units_read_well(size, angle, unit):
-    factor, label = plots._SkyFrame.display(size, angle)
+    factor, label = plots.sky.SkyFrame.display(size, angle)
     assert label == unit
     assert 0.5 <= size * factor < 1000.0 * 1.5
 
@@ -140,7 +186,7 @@ def test_narrow_posteriors_are_drawn_as_offsets():
     # P = 4.1152998 +/- 0.0000005 d: the axis shows P minus the printed median in
     # units of 10^-6 d, and the truth moves with it.
     rng = np.random.default_rng(1)
-    column = plots._Column("Ymra.period", 4.1152998 + 5e-7 * rng.standard_normal(4000),
+    column = plots.corner.Column("Ymra.period", 4.1152998 + 5e-7 * rng.standard_normal(4000),
                            r"P_\mathrm{Ymra}", r"\mathrm{d}", u.day)
     assert column.label() == r"$\Delta P_\mathrm{Ymra}$ [$10^{-6}\,\mathrm{d}$]"
     assert column.reference == float(column.rounded.median)

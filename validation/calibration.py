@@ -99,7 +99,7 @@ def fit_system(design, *, walkers=None, max_steps=50_000, check_every=250,
     result = massfit.fit(obs, spec, seed=design["index"] + 1,
                          walkers=walkers or max(24, 2 * n_dim + 2), max_steps=max_steps,
                          check_every=check_every, progress=False)
-    masses = result.samples["central_mass_Msun"]
+    masses = result.samples["central_mass_solar"]
     truth = design["central_mass"]
     rank = float(np.mean(masses < truth))  # the truth's posterior quantile
     record = {"index": design["index"], "n_companions": design["n_companions"],

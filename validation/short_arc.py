@@ -149,7 +149,7 @@ def run_case(fraction, n_draws, seed, *, max_steps, walkers):
     started = time.perf_counter()
     result = massfit.fit(obs, spec, seed=seed, walkers=walkers, max_steps=max_steps,
                          progress=False)
-    sampled = np.log10(result.samples["central_mass_Msun"])
+    sampled = np.log10(result.samples["central_mass_solar"])
     model = result.model  # the same windows for node and phase as the chain used
     values, w, ess, spread = reference(model, n_draws, np.random.default_rng(seed))
     ks = ks_distance(sampled, values[:, 0], w)

@@ -1,6 +1,7 @@
 """The TOML configuration of a fit, checked key by key.
 
-Layout (every key optional except ``data.files``)::
+Layout (every key optional except ``data.files``, which a batch table's row may give
+instead)::
 
     [data]
     files = ["moons.ecsv"]            # relative to this config file
@@ -151,10 +152,14 @@ def real_path(path) -> Path:
     return Path(os.path.realpath(path))
 
 
-def load_config(path) -> FitSetup:
-    """Read and check a TOML config; paths in it are relative to the file."""
+def load_config(path, *, files=None) -> FitSetup:
+    """Read and check a TOML config; paths in it are relative to the file.
+
+    ``files`` (paths) are the observations to fit in place of the config's
+    ``data.files``, which the config then need not list (a batch table's row).
+    """
     path = Path(path)
-    return parse_config(read_toml(path), base=path.parent, file=str(path))
+    return parse_config(read_toml(path), base=path.parent, file=str(path), files=files)
 
 
 def read_toml(path) -> dict:
@@ -173,19 +178,22 @@ def read_toml(path) -> dict:
     return raw
 
 
-def parse_config(raw: dict, *, base=".", file=None) -> FitSetup:
-    """Check a config dictionary (as TOML gives it) and resolve it."""
+def parse_config(raw: dict, *, base=".", file=None, files=None) -> FitSetup:
+    """Check a config dictionary (as TOML gives it) and resolve it (``files``: see
+    :func:`load_config`)."""
     try:
-        return _parse(raw, Path(base), file)
+        return _parse(raw, Path(base), file, files)
     except ConfigError as exc:
         if exc.file is None and file is not None:
             raise ConfigError(exc.reason, key=exc.key, file=file) from None
         raise
 
 
-def _parse(raw, base, file):
+def _parse(raw, base, file, given=None):
     check_keys(raw, _SCHEMA, "", file)
     data = raw.get("data", {})
+    if given:
+        data = {**data, "files": [str(real_path(f)) for f in given]}
     if "files" not in data or not data["files"]:
         raise ConfigError("list the observation files, e.g. files = [\"moons.ecsv\"]",
                           key="data.files", file=file)

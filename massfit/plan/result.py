@@ -95,7 +95,7 @@ class PlanResult:
                              f"{_percent_text(c['forecast_gm_rel_sigma'])}"
                              f", fit {_percent_text(c['fit_gm_rel_sigma'])} (ratio "
                              f"{c['ratio']:.2f}); true GM "
-                             f"{'inside' if c['truth_inside_95'] else 'OUTSIDE'} the 95% "
+                             f"{'inside' if c['truth_inside_95'] else 'OUTSIDE'} the 95.45 % "
                              f"interval; chain "
                              f"{'converged' if c['converged'] else 'NOT converged'}")
                 if c.get("fit_chi2", 0) > 3 * c.get("values", np.inf):

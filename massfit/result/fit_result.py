@@ -4,58 +4,55 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import best_mass_unit, derived_samples, interval
-from massfit.summarise.rounding import format_interval
+from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
+                                       in_best_mass_unit, interval)
+from massfit.summarise.quantities import CENTRAL, COMPANION
+from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
 
 
 
-_CENTRAL_BLOCKS = (
-    ("central_mass", "central_mass", "kg"),
-    ("central_gm", "central_gm", "km3 / s2"),
-    ("central_mass_solar", "central_mass_Msun", "M_sun"),
-    ("central_mass_jupiter", "central_mass_Mjup", "M_jup"),
-    ("central_mass_earth", "central_mass_Mearth", "M_earth"),
-)
-#: Companion quantities of the summary, in order, with their units.
-_COMPANION_BLOCKS = (
-    ("period", "d"), ("semi_major_axis", "au"), ("semi_major_axis_km", "km"),
-    ("eccentricity", ""), ("inclination", "deg"), ("periapsis_argument", "deg"),
-    ("ascending_node", "deg"), ("periapsis_time", "JD (TDB)"), ("mass", "M_sun"),
-    ("rv_semi_amplitude", "km / s"), ("rv_semi_amplitude_companion", "km / s"),
-    ("mass_function", "M_sun"), ("mass_function_companion", "M_sun"),
-    ("minimum_mass", "M_sun"), ("mass_sin3i", "M_sun"), ("primary_mass_sin3i", "M_sun"),
-    ("mass_ratio", ""), ("inclination_to_equator", "deg"),
-    ("node_on_equator", "deg"),
-)
+#: Central-mass blocks of the summary, in order (names and units: summarise/quantities.py).
+_CENTRAL_BLOCKS = ("central_mass", "central_gm", "central_mass_solar", "central_mass_jupiter",
+                   "central_mass_earth")
+#: Companion quantities of the summary, in order.
+_COMPANION_BLOCKS = tuple(key for key in COMPANION if key != "semi_major_axis_angle")
 
 
-#: Terminal lines of a companion: (summary key, label, unit).
+#: Terminal lines of a companion: (summary key, a note after the unit).
 _COMPANION_LINES = (
-    ("period", "P", "d"), ("eccentricity", "e", ""), ("inclination", "i", "deg"),
-    ("periapsis_argument", "omega", "deg"), ("ascending_node", "Omega", "deg"),
-    ("mass", "m", "M_sun"), ("rv_semi_amplitude", "K1", "km/s (primary)"),
-    ("rv_semi_amplitude_companion", "K2", "km/s (companion)"),
-    ("mass_function", "f(m)", "M_sun"), ("minimum_mass", "m_min", "M_sun (i = 90 deg)"),
-    ("mass_sin3i", "m sin3i", "M_sun"), ("primary_mass_sin3i", "M sin3i", "M_sun"),
-    ("inclination_to_equator", "i_eq", "deg (to the primary's equator)"),
-    ("node_on_equator", "Om_eq", "deg (on the primary's equator)"),
+    ("period", ""), ("eccentricity", ""), ("inclination", ""),
+    ("periapsis_argument", " (the companion's; the primary's is omega + 180)"),
+    ("ascending_node", ""), ("mass", ""), ("rv_semi_amplitude", " (primary)"),
+    ("rv_semi_amplitude_companion", " (companion)"), ("mass_function", ""),
+    ("minimum_mass", " (m sin i: i = 90 deg)"), ("mass_sin3i", ""), ("primary_mass_sin3i", ""),
+    ("inclination_to_equator", " (to the primary's equator)"),
+    ("node_on_equator", " (on the primary's equator)"),
 )
 
 
 def _companion_lines(comp) -> list:
     lines = []
-    for key, label, unit in _COMPANION_LINES:
+    for key, unit_note in _COMPANION_LINES:
         if key not in comp:
             continue
+        label, unit = COMPANION[key].plain, COMPANION[key].unit_text.replace(" / ", "/")
+        unit += unit_note
         note = ""
         if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
-            note = " (or +180 with node +180)"
-        lines.append(f"  {label:<8}= {format_value(comp[key])} {unit}{note}".rstrip())
+            note = "; or +180 with node +180"
+        block = comp[key]
+        if key in SCALED_MASSES:
+            block, best = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", best, 1)
+        if note:
+            unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
+        lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
         if key == "period" and "semi_major_axis" in comp:
             a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
                       f" = {format_value(comp['semi_major_axis_km'])} km")
@@ -72,6 +69,19 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
+
+
+def _velocity_lines(rv) -> list:
+    """The systemic velocity, jitter and trend of each instrument, for the terminal."""
+    lines = ["Radial velocities (per instrument)"]
+    for label in rv["offset"]:
+        name = label or "(no instrument)"
+        lines.append(f"  {'gamma':<8}= {format_value(rv['offset'][label])} km/s   {name}")
+        lines.append(f"  {'jitter':<8}= {format_value(rv['jitter'][label])} km/s   {name}")
+    for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
+        if term in rv:
+            lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
+    return lines
 
 
 def format_value(block) -> str:
@@ -126,9 +136,9 @@ class FitResult:
         obs = self.model.observations
         chain = self.chain
         summary = {}
-        for key, sample_key, unit in _CENTRAL_BLOCKS:
+        for key in _CENTRAL_BLOCKS:
             # Velocities alone may leave the central mass open: null, never a number.
-            summary[key] = interval(s[sample_key], unit) if sample_key in s else None
+            summary[key] = interval(s[key], CENTRAL[key].unit_text) if key in s else None
         if "central_mass_note" in s:
             summary["central_mass_note"] = s["central_mass_note"]
         if "parallax" in s:
@@ -141,7 +151,9 @@ class FitResult:
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 
-        adequacy = self._adequacy()
+        companions = self._companion_blocks()
+        adequacy = self._adequacy({name: comp["period"]["median"]
+                                   for name, comp in companions.items()})
         summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
@@ -162,16 +174,7 @@ class FitResult:
             # Companions sampled as a position and velocity (massfit.sample.reparameterisation).
             "sampled_as_state": list(chain.state_bodies),
         }
-        summary["companions"] = {}
-        for name, comp in s["companions"].items():
-            block = {key: interval(comp[key], unit) for key, unit in _COMPANION_BLOCKS
-                     if key in comp}
-            if "semi_major_axis_mas" in comp:
-                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_mas"], "mas")
-            if "ascending_node" in comp:
-                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
-                                               else 0.0)
-            summary["companions"][name] = block
+        summary["companions"] = companions
         if self.model.sight is not None:
             # Elements are then against the ICRS equator and x axis (conventions).
             summary["viewing"] = self.model.viewing_description()
@@ -199,14 +202,28 @@ class FitResult:
         }
         return summary
 
-    def _adequacy(self):
-        """Residual checks at the best sample, and the two-body comparison."""
+    def _companion_blocks(self) -> dict:
+        """The summary's interval blocks of each companion."""
+        out = {}
+        for name, comp in self.samples["companions"].items():
+            block = {key: interval(comp[key], COMPANION[key].unit_text)
+                     for key in _COMPANION_BLOCKS if key in comp}
+            if "semi_major_axis_angle" in comp:
+                block["semi_major_axis_angle"] = interval(comp["semi_major_axis_angle"], "mas")
+            if "ascending_node" in comp:
+                block["node_ambiguity_deg"] = (180.0 if self.model.node_width[name] < 6
+                                               else 0.0)
+            out[name] = block
+        return out
+
+    def _adequacy(self, periods):
+        """Residual checks at the best sample, and the two-body comparison, for every
+        fit (velocities alone too); the periodograms search up to the figures' limit,
+        set by the summary's median periods."""
         from massfit.summarise.adequacy import assess
 
-        if self.model.velocity_only:
-            return None
         best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
-        return assess(self.model, best)
+        return assess(self.model, best, periods=periods)
 
     # --------------------------------------------------------------------- text
     def report(self) -> str:
@@ -228,15 +245,14 @@ class FitResult:
             lines.append(f"  mass    = not determined: {s.get('central_mass_note', '')}")
         else:
             lines.append(f"  GM      = {format_value(s['central_gm'])} km^3/s^2   "
-                         f"(95%: {s['central_gm']['lower_95']:.6g} .. "
-                         f"{s['central_gm']['upper_95']:.6g})")
+                         f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
             unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
             key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
                    "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   (95%: "
-                         f"{s[key]['lower_95']:.6g} .. {s[key]['upper_95']:.6g})")
+            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
+                         f"{format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
@@ -251,6 +267,8 @@ class FitResult:
         for name, comp in by_period:
             lines.append(f"Companion {name}")
             lines.extend(_companion_lines(comp))
+        if s.get("velocities"):
+            lines.extend(_velocity_lines(s["velocities"]))
         if s.get("adequacy"):
             from massfit.summarise.adequacy import report_lines
 
@@ -268,9 +286,9 @@ class FitResult:
                      f"sampling took {d['sampling_seconds']:.1f} s; "
                      f"converged: {'yes' if self.converged else 'NO'}")
         if len(s.get("candidate_modes", [])) > 1:
-            from massfit.start.modes import report_lines
+            from massfit.summarise.posterior_checks import mode_report_lines
 
-            lines.extend(report_lines(s["candidate_modes"],
+            lines.extend(mode_report_lines(s["candidate_modes"],
                                       s.get("central_mass_over_modes")))
         else:
             for mode in s["modes"]:
@@ -347,62 +365,67 @@ class FitResult:
         for k, name in enumerate(self.model.names):
             table[name] = self.chain.samples[:, k]
         table["log_prob"] = self.chain.log_prob
-        units = {"central_gm": "km3 / s2", "central_mass": "kg", "parallax": "mas"}
         for key, values in self.samples.items():
             if key in ("companions", "rv") or not isinstance(values, np.ndarray):
                 continue  # velocity terms are sampled columns already; notes are text
             table[key] = values
-            if key in units:
-                table[key].unit = units[key]
-        comp_units = {"period": "d", "semi_major_axis": "au", "semi_major_axis_km": "km",
-                      "semi_major_axis_mas": "mas", "inclination": "deg",
-                      "periapsis_argument": "deg", "ascending_node": "deg",
-                      "rv_semi_amplitude": "km / s", "rv_semi_amplitude_companion": "km / s"}
-        for key in ("mass", "mass_function", "mass_function_companion", "minimum_mass",
-                    "mass_sin3i", "primary_mass_sin3i"):
-            comp_units[key] = "solMass"
+            if key in CENTRAL and CENTRAL[key].unit != u.one:
+                table[key].unit = CENTRAL[key].unit
         for name, comp in self.samples["companions"].items():
             for key, values in comp.items():
                 table[f"{name}.{key}"] = values
-                if key in comp_units:
-                    table[f"{name}.{key}"].unit = comp_units[key]
+                # A time of periapsis is a date (JD, TDB), not a duration in days.
+                if key in COMPANION and COMPANION[key].unit != u.one \
+                        and key != "periapsis_time":
+                    table[f"{name}.{key}"].unit = COMPANION[key].unit
         table.meta["converged"] = self.converged
         return table
 
+    def to_inference_data(self):
+        """The posterior as ArviZ ``InferenceData``: one chain per walker, physical units.
+
+        See :func:`massfit.result.inference_data.to_inference_data`; needs arviz
+        (``pip install "massfit[arviz]"``). ``save(..., arviz=True)`` writes it as
+        NetCDF (``posterior.nc``).
+        """
+        from massfit.result.inference_data import to_inference_data
+
+        return to_inference_data(self)
+
     # -------------------------------------------------------------------- plots
     def corner_plot(self, **kwargs):
-        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.figures.corner_plot`."""
-        from massfit.plot.figures import corner_plot
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.corner_plot`."""
+        from massfit.plot import corner_plot
 
         return corner_plot(self, **kwargs)
 
     def velocity_plot(self, **kwargs):
-        """Radial velocities against phase, with residuals; see :func:`massfit.plot.figures.velocity_plot`."""
-        from massfit.plot.figures import velocity_plot
+        """Radial velocities against phase, with residuals; see :func:`massfit.plot.velocity_plot`."""
+        from massfit.plot import velocity_plot
 
         return velocity_plot(self, **kwargs)
 
     def velocity_time_plot(self, **kwargs):
-        """Radial velocities against time, with residuals; see :func:`massfit.plot.figures.velocity_time_plot`."""
-        from massfit.plot.figures import velocity_time_plot
+        """Radial velocities against time, with residuals; see :func:`massfit.plot.velocity_time_plot`."""
+        from massfit.plot import velocity_time_plot
 
         return velocity_time_plot(self, **kwargs)
 
     def orbit_plot(self, **kwargs):
-        """Sky-plane orbits with the data; see :func:`massfit.plot.figures.orbit_plot`."""
-        from massfit.plot.figures import orbit_plot
+        """Sky-plane orbits with the data; see :func:`massfit.plot.orbit_plot`."""
+        from massfit.plot import orbit_plot
 
         return orbit_plot(self, **kwargs)
 
     def residual_plot(self, **kwargs):
-        """Normalised residuals against time; see :func:`massfit.plot.figures.residual_plot`."""
-        from massfit.plot.figures import residual_plot
+        """Normalised residuals against time; see :func:`massfit.plot.residual_plot`."""
+        from massfit.plot import residual_plot
 
         return residual_plot(self, **kwargs)
 
     def periodogram_plot(self, **kwargs):
-        """Periodograms of the residuals; see :func:`massfit.plot.figures.periodogram_plot`."""
-        from massfit.plot.figures import periodogram_plot
+        """Periodograms of the residuals; see :func:`massfit.plot.periodogram_plot`."""
+        from massfit.plot import periodogram_plot
 
         return periodogram_plot(self, **kwargs)
 
@@ -424,7 +447,7 @@ class FitResult:
         """
         import matplotlib.pyplot as plt
 
-        from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+        from massfit.plot import FIGURES, applicable_figures, save_figure
 
         chosen = applicable_figures(self) if figures is None else list(figures)
         unknown = [f for f in chosen if f not in FIGURES]
@@ -458,7 +481,8 @@ class FitResult:
         return paths
 
     # --------------------------------------------------------------------- save
-    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf")) -> Path:
+    def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf"),
+             arviz=False) -> Path:
         """Write the output folder: summary, samples, observations, tables and figures.
 
         ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
@@ -470,13 +494,17 @@ class FitResult:
         run.json (``figures.failed``), and the rest of the result is kept. An existing
         result is replaced only if ``force`` is true, and then only the files massfit
         wrote; a folder massfit did not write is never touched (see
-        :mod:`massfit.write.folder`).
+        :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
+        as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
+        :meth:`to_inference_data`; needs arviz).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
                                               write_observations)
 
         out = Path(out_dir)
+        # Before anything is written: a missing arviz is a one-line error, not half a folder.
+        posterior = self.to_inference_data() if arviz else None
         record = {**self.record, "model": model_state(self.model)}
         with atomic_folder(out, record=RUN_FILE, force=force,
                            inputs=self.model.observations.files) as tmp:
@@ -485,6 +513,10 @@ class FitResult:
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
             self.write_tables(tmp)
+            if posterior is not None:
+                from massfit.result.inference_data import INFERENCE_DATA_FILE
+
+                posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
             write_json(tmp / RUN_FILE, record)
             if plots:
                 record["figures"] = self._write_figures_or_warn(tmp, formats)

@@ -3,9 +3,10 @@
 What :meth:`FitResult.save` writes is enough to rebuild the model and redraw every
 figure:
 
-- ``observations.ecsv`` (and ``velocities.ecsv`` where there are radial velocities):
-  the validated rows in massfit's internal units, so the input files need not be at
-  hand any more;
+- ``observations.ecsv``: the validated rows (astrometry and radial velocities, told
+  apart by its ``kind`` column) in massfit's internal units, so the input files need
+  not be at hand any more (folders written before kept the velocities in
+  ``velocities.ecsv``, still read);
 - ``run.json`` key ``model``: the assumptions (the :class:`SystemSpec` with every
   prior), the angle windows the sampler used and the names of the sampled
   coordinates, plus what the observations were read from;
@@ -29,7 +30,7 @@ from massfit.errors import InputError
 from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.read.observations import Observations, Rejection
 from massfit.result.fit_result import FitResult
-from massfit.write.saved_state import (DATA_FILES, RUN_FILE, SAMPLES_FILE, STATE_VERSION,
+from massfit.write.saved_state import (DATA_KINDS, OBSERVATIONS_FILE, OLD_VELOCITY_FILE, RUN_FILE, SAMPLES_FILE, STATE_VERSION,
                                       SUMMARY_FILE, model_state, write_observations)
 
 __all__ = ["load_result", "model_state", "write_observations", "STATE_VERSION"]
@@ -74,11 +75,17 @@ def _build(cls, value):
 
 
 def _read_data(folder, attr):
-    name, cls = DATA_FILES[attr]
-    path = folder / name
-    if not path.exists():
+    """One kind of row from ``observations.ecsv`` (or, from older folders, its own file)."""
+    kind, cls = DATA_KINDS[attr]
+    path = folder / OBSERVATIONS_FILE
+    table = Table.read(path, format="ascii.ecsv") if path.exists() else None
+    if table is not None and "kind" in table.colnames:
+        table = table[np.asarray(table["kind"]) == kind]
+    elif attr == "velocities":  # before the one table: the velocities in their own file
+        path = folder / OLD_VELOCITY_FILE
+        table = Table.read(path, format="ascii.ecsv") if path.exists() else None
+    if table is None or len(table) == 0:
         return None
-    table = Table.read(path, format="ascii.ecsv")
     values = {}
     for f in dataclasses.fields(cls):
         if f.name not in table.colnames and f.default is None:
@@ -89,6 +96,8 @@ def _read_data(folder, attr):
         column = table[f.name]
         if hasattr(column, "filled") and column.dtype.kind in "US":
             column = column.filled("")  # empty strings (reference_body) read as masked
+        elif hasattr(column, "filled"):  # blank in the other kind's rows only
+            column = column.filled(np.nan if column.dtype.kind == "f" else 0)
         column = np.asarray(column)
         if f.name == "time":
             values[f.name] = Time(column, format="jd", scale="tdb")
@@ -145,7 +154,8 @@ def load_result(folder):
         velocities=_read_data(folder, "velocities"), files=list(info["files"]),
         rows_read=int(info["rows_read"]),
         rejected=[Rejection(**r) for r in info["rejected"]],
-        unused_columns=dict(info["unused_columns"]), primary=info["primary"])
+        unused_columns=dict(info["unused_columns"]), primary=info["primary"],
+        stated=dict(info.get("stated", {})))
     spec = _build(SystemSpec, state["system"])
     model = OrbitModel(observations, spec)
     model.node_width.update(state["node_width"])
@@ -190,6 +200,13 @@ def load_result(folder):
     return result
 
 
+#: Sample columns of results written before the samples took the summary's keys.
+_EARLIER_NAMES = {"central_mass_Msun": "central_mass_solar",
+                  "central_mass_Mjup": "central_mass_jupiter",
+                  "central_mass_Mearth": "central_mass_earth",
+                  "semi_major_axis_mas": "semi_major_axis_angle"}
+
+
 def _derived_from_table(table, model):
     out = {"companions": {name: {} for name in model.companions}}
     for col in table.colnames:
@@ -200,7 +217,7 @@ def _derived_from_table(table, model):
         body, _, key = col.partition(".")
         values = np.asarray(table[col], dtype=float)
         if key and body in out["companions"]:
-            out["companions"][body][key] = values
+            out["companions"][body][_EARLIER_NAMES.get(key, key)] = values
         elif not key:
-            out[col] = values
+            out[_EARLIER_NAMES.get(col, col)] = values
     return out

@@ -34,7 +34,7 @@ import numpy as np
 
 __all__ = ["laplace_log_mass", "laplace_weights", "merge_same_modes", "mode_census",
            "chain_census", "in_mode", "unexplored", "unexplored_warning", "period_box",
-           "report_lines", "MIN_WEIGHT", "SAME_MODE_SIGMAS", "WEIGHT_BASIS"]
+           "MIN_WEIGHT", "SAME_MODE_SIGMAS", "WEIGHT_BASIS"]
 
 #: A mode with at least this Laplace weight must be visited for a converged fit.
 MIN_WEIGHT = 0.01
@@ -246,32 +246,3 @@ def unexplored_warning(census, candidates, missing) -> str:
             f"log-uniform box about it) and combine the results by the weights "
             f"(candidate_modes in summary.json), or add observations that tell the "
             f"modes apart")
-
-
-def report_lines(census, over_modes=None) -> list:
-    """Terminal lines: one per mode, with its weight and whether it was visited, and
-    (where each mode was sampled) its mass and the mass over all modes."""
-    lines = ["  modes found by the start (weights: Laplace approximation):"]
-    for mode in census:
-        periods = ", ".join(f"{n} P = {p:.6g} d" for n, p in mode["periods"].items())
-        mass = ("" if mode["central_mass"] is None
-                else f", central mass {mode['central_mass']:.4g} M_sun")
-        seen = (f"visited ({100 * mode['sample_fraction']:.0f} % of samples)"
-                if mode["visited"] else "NOT visited")
-        lines.append(f"    {100 * mode['weight']:5.1f} %  {periods}{mass}, "
-                     f"chi2 = {mode['chi2']:.1f}; {seen}")
-        if "chain" in mode:
-            block = mode["chain"]["central_mass_solar"]
-            lines.append(f"            its chain ({mode['chain']['sampled']}): central "
-                         f"mass {_block_text(block)} M_sun")
-    if over_modes:
-        lines.append(f"  central mass over the {over_modes['modes']} modes: "
-                     f"{_block_text(over_modes['central_mass_solar'])} M_sun "
-                     f"({over_modes['approximation']})")
-    return lines
-
-
-def _block_text(block) -> str:
-    return (f"{block['median']:.4g} (68 %: {block['lower_68']:.4g} .. "
-            f"{block['upper_68']:.4g}; 95 %: {block['lower_95']:.4g} .. "
-            f"{block['upper_95']:.4g})")

@@ -21,22 +21,21 @@ evidence for the model with the lower BIC.
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import replace
 
 import numpy as np
 
 from massfit.model.fit_quality import POOR_FIT_P_VALUE, chi2_block
+from massfit.summarise.residuals import peak_text
 
-__all__ = ["assess", "report_lines", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
+__all__ = ["assess", "report_lines", "panels", "chi2_text", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
            "POOR_FIT_P_VALUE"]
 
 #: False-alarm probability below which a residual peak is called significant.
 FAP_THRESHOLD = 1e-3
-_MAX_FREQUENCIES = 50_000
 
 
-def assess(model, theta, *, compare=None) -> dict:
+def assess(model, theta, *, periods=None, compare=None) -> dict:
     """The adequacy block of the summary for the solution ``theta``.
 
     Parameters
@@ -44,6 +43,9 @@ def assess(model, theta, *, compare=None) -> dict:
     model : OrbitModel
     theta : ndarray, shape (n_dim,)
         The solution to judge (the best posterior sample).
+    periods : dict, optional
+        Each companion's orbital period (d) that bounds the residual periodogram's
+        search (the summary's medians, as the figures use); by default ``theta``'s.
     compare : bool, optional
         Fit and compare the two-body model where ``model`` is perturbed; defaults to
         the model's ``spec.compare_keplerian``.
@@ -53,10 +55,18 @@ def assess(model, theta, *, compare=None) -> dict:
     dict
         ``dynamics`` (the model's settings), ``companions`` (name -> ``chi2``,
         ``n_values``, ``n_own_parameters``, ``reduced_chi2``, ``p_value``,
-        ``periodogram``), ``total`` and ``comparison`` (None for a two-body fit).
+        ``periodogram``), ``velocities`` (where there are radial velocities: the same
+        with the jitter in the errors and no p-value), ``total`` (the astrometry) and
+        ``comparison`` (None for a two-body fit).
     """
+    from massfit.summarise.residuals import model_residuals
+
     theta = np.asarray(theta, dtype=float)
     res = model.residuals(theta[None, :])[0]
+    if periods is None:
+        phys = model.physical(theta[None, :])["companions"]
+        periods = {name: float(orbit["period"][0]) for name, orbit in phys.items()}
+    sky = model_residuals(model, theta) if model.rows else {}
     out = {"dynamics": model.dynamics.describe(),
            "romer_delay": bool(getattr(model.spec, "romer_delay", False)),
            "companions": {}}
@@ -73,8 +83,10 @@ def assess(model, theta, *, compare=None) -> dict:
         out["companions"][name] = {
             **chi2_block(chi2, n_values, own),
             "n_own_parameters": own,
-            "periodogram": _periodogram(rows, part, model, theta, name),
+            "periodogram": _peak(sky[name], periods.get(name)),
         }
+    if model.has_velocities:
+        out["velocities"] = _velocity_block(model, theta)
     out["total"] = chi2_block(chi2_astrometry, n_astrometry, model.n_dim)
     out["total"]["n_parameters"] = model.n_dim
     if compare is None:
@@ -85,50 +97,41 @@ def assess(model, theta, *, compare=None) -> dict:
     return out
 
 
-def _periodogram(rows, part, model, theta, name):
-    """The strongest residual peak over the two components of each row."""
-    from astropy.timeseries import LombScargle
+def _peak(residuals, orbital_period):
+    """The residual periodogram's strongest peak, as the figures draw it.
 
-    from massfit.summarise.residuals import periodogram_subset
+    One periodogram for the terminal, summary.json and the figures:
+    :func:`massfit.summarise.residuals.residual_periodogram` on the same residuals with
+    the same orbital period (the summary's median) gives the same peak and
+    false-alarm probability everywhere.
+    """
+    from massfit.summarise.residuals import residual_periodogram
 
-    n = rows.t.size
-    order = np.concatenate([rows.cart, rows.polar])
-    t = rows.t[order]
-    # The residual layout: east (cartesian rows), north, sep (polar rows), pa.
-    n_c = rows.cart.size
-    first = np.concatenate([part[:n_c], part[2 * n_c:2 * n_c + rows.polar.size]])
-    second = np.concatenate([part[n_c:2 * n_c], part[2 * n_c + rows.polar.size:]])
-    # Big data sets: a seeded random subset of the rows (see periodogram_subset).
-    keep = periodogram_subset(n)
-    t, first, second = t[keep], first[keep], second[keep]
-    span = float(np.ptp(t))
-    steps = np.diff(np.unique(t))
-    if n < 6 or span <= 0 or not np.any(steps > 0):
+    pgram = residual_periodogram(residuals, orbital_period=orbital_period)
+    if pgram is None:
         return None
-    f_min = 1.0 / span
-    # Up to a pseudo-Nyquist frequency of the typical spacing, at 5 samples per peak.
-    f_max = max(0.5 / float(np.median(steps[steps > 0])), 4 * f_min)
-    n_freq = int(min(_MAX_FREQUENCIES, max(200, 5 * span * (f_max - f_min))))
-    freq = np.linspace(f_min, f_max, n_freq)
-    best = None
-    for label, values in (("east or separation", first), ("north or position angle",
-                                                           second)):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            ls = LombScargle(t, values, np.ones_like(values))
-            power = ls.power(freq)
-            k = int(np.argmax(power))
-            fap = float(ls.false_alarm_probability(power[k], method="baluev",
-                                                   minimum_frequency=f_min,
-                                                   maximum_frequency=f_max))
-        if best is None or fap < best["false_alarm_probability"]:
-            best = {"component": label, "peak_period": float(1.0 / freq[k]),
-                    "peak_power": float(power[k]), "false_alarm_probability": fap}
-    period = float(model.physical(theta[None, :])["companions"][name]["period"][0])
-    best["peak_over_orbital_period"] = best["peak_period"] / period
-    best["searched_periods"] = [float(1.0 / f_max), float(1.0 / f_min)]
-    best["rows_searched"] = int(t.size)
-    return best
+    frequency = pgram["frequency"]
+    out = {"peak_period": float(pgram["best_period"]), "peak_power": pgram["best_power"],
+           "false_alarm_probability": pgram["fap"],
+           "searched_periods": [float(1.0 / frequency[-1]), float(1.0 / frequency[0])],
+           "rows_searched": pgram["values"]}
+    if orbital_period:
+        out["peak_over_orbital_period"] = out["peak_period"] / orbital_period
+    return out
+
+
+def _velocity_block(model, theta):
+    """chi^2 of the radial velocities (the fitted jitter in their errors) and their
+    residual periodogram; the jitter absorbs misfit, so no p-value is given."""
+    from massfit.summarise.residuals import model_velocity_residuals
+
+    res = model_velocity_residuals(model, theta)
+    own = sum(1 for p in model.names if p.startswith("rv."))
+    block = chi2_block(res.chi2, res.normalised.size, own)
+    block["p_value"] = None
+    return {**block, "n_own_parameters": own,
+            "note": "the fitted jitter is in the errors: chi^2 is no test of the fit",
+            "periodogram": _peak(res, None)}
 
 
 def _compare(model, theta):
@@ -210,16 +213,17 @@ def _least_squares_chi2(model, theta):
 
 def _verdicts(block):
     out = []
-    for name, comp in block["companions"].items():
+    for name, comp in panels(block).items():
         peak = comp["periodogram"]
         red = comp["reduced_chi2"]
         if red is not None and comp["p_value"] is not None and comp["p_value"] < 1e-3:
             out.append(f"{name}: reduced chi2 {red:.2f} (p = {comp['p_value']:.1e}): the "
                        f"model or the errors miss something")
         if peak is not None and peak["false_alarm_probability"] < FAP_THRESHOLD:
-            out.append(f"{name}: residual peak at {peak['peak_period']:.6g} d "
-                       f"({peak['peak_over_orbital_period']:.3g} x the orbital period), "
-                       f"false-alarm probability {peak['false_alarm_probability']:.1e}")
+            ratio = peak.get("peak_over_orbital_period")
+            where = "" if ratio is None else f" ({ratio:.3g} x the orbital period)"
+            out.append(f"{name}: residual {peak_text(peak)}{where}: a signal the model "
+                       f"left unexplained")
     comparison = block["comparison"]
     if comparison and "delta_bic" in comparison:
         out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
@@ -283,19 +287,36 @@ def quality_warnings(quality) -> list:
             f"an effect: do not quote the intervals as they are"]
 
 
+def panels(block) -> dict:
+    """The adequacy block's entries in the order of the figures' panels: each companion's
+    astrometry, then the radial velocities (under ``VELOCITY_PANEL``)."""
+    from massfit.summarise.residuals import VELOCITY_PANEL
+
+    out = dict(block["companions"])
+    if block.get("velocities") is not None:
+        out[VELOCITY_PANEL] = block["velocities"]
+    return out
+
+
+def chi2_text(entry) -> str:
+    """``chi2 = 41.3 for 40 values (reduced 1.06)``: the one way a panel's chi^2 is
+    written, in the terminal and in the figures."""
+    text = f"chi2 = {entry['chi2']:.1f} for {entry['n_values']} values"
+    if entry.get("reduced_chi2") is not None:
+        text += f" (reduced {entry['reduced_chi2']:.2f})"
+    return text
+
+
 def report_lines(block) -> list:
     """Lines of the terminal report for an adequacy block."""
     lines = [f"Model adequacy ({block['dynamics']['model']}"
              f"{', Romer delay on' if block.get('romer_delay') else ''})"]
-    for name, comp in block["companions"].items():
-        red = comp["reduced_chi2"]
-        text = (f"  {name:<10} chi2 = {comp['chi2']:.1f} for {comp['n_values']} values"
-                f" (reduced {red:.2f})" if red is not None else
-                f"  {name:<10} chi2 = {comp['chi2']:.1f} for {comp['n_values']} values")
-        peak = comp["periodogram"]
-        if peak is not None:
-            text += (f"; residual peak {peak['peak_period']:.4g} d, "
-                     f"FAP {peak['false_alarm_probability']:.2g}")
+    for name, comp in panels(block).items():
+        text = f"  {name:<10} {chi2_text(comp)}"
+        if comp.get("note"):
+            text += f" ({comp['note']})"
+        if comp["periodogram"] is not None:
+            text += f"; residual {peak_text(comp['periodogram'])}"
         lines.append(text)
     comparison = block["comparison"]
     if comparison and "delta_bic" in comparison:

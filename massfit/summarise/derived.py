@@ -8,14 +8,17 @@ from __future__ import annotations
 
 import numpy as np
 
-from massfit.constants import AU_KM, DAY_S, G_REL_UNCERTAINTY, GM_SUN, GM_SUN_KM3_S2, MASS_UNITS
+from massfit.constants import AU_KM, DAY_S, G_REL_UNCERTAINTY, GM_SUN_KM3_S2, MASS_UNITS
 from massfit.model.orbit_model import DEFAULT_CENTRAL_MASS_PRIOR, OrbitModel
+from massfit.summarise.quantities import MASS_UNIT_KEYS, MASS_UNIT_LABELS
 
-__all__ = ["interval", "derived_samples", "mass_function", "PERCENTILES",
-           "MASS_UNIT_LABELS"]
+__all__ = ["interval", "derived_samples", "mass_function", "in_best_mass_unit",
+           "best_mass_unit", "PERCENTILES", "MASS_UNIT_LABELS", "SCALED_MASSES"]
+
+#: Companion masses that are given in the unit that reads best (M_sun, M_jup or M_earth).
+SCALED_MASSES = ("mass", "minimum_mass", "mass_sin3i")
 
 PERCENTILES = (2.275, 15.865, 50.0, 84.135, 97.725)
-MASS_UNIT_LABELS = {"Msun": r"M_\odot", "Mjup": r"M_\mathrm{J}", "Mearth": r"M_\oplus"}
 
 
 def best_mass_unit(mass_msun: float) -> str:
@@ -25,6 +28,18 @@ def best_mass_unit(mass_msun: float) -> str:
     if mass_msun * MASS_UNITS["Msun"] / MASS_UNITS["Mjup"] >= 0.01:
         return "Mjup"
     return "Mearth"
+
+
+def in_best_mass_unit(block: dict) -> tuple:
+    """An interval block in M_sun rescaled to the unit that reads best (as the central
+    mass's): ``(block, unit)`` with unit "Msun", "Mjup" or "Mearth"."""
+    if block.get("median") is None:
+        return block, "Msun"
+    unit = best_mass_unit(abs(block["median"]))
+    scale = MASS_UNITS["Msun"] / MASS_UNITS[unit]
+    scaled = {k: (v * scale if isinstance(v, float) else v) for k, v in block.items()}
+    scaled["unit"] = {"Msun": "M_sun", "Mjup": "M_jup", "Mearth": "M_earth"}[unit]
+    return scaled, unit
 
 
 def interval(values, unit) -> dict:
@@ -67,10 +82,10 @@ def derived_samples(model: OrbitModel, samples: np.ndarray, *, seed=None) -> dic
     Returns
     -------
     dict
-        ``central_gm`` (km^3/s^2), ``central_mass`` (kg), ``central_mass_Msun``,
-        ``central_mass_Mjup``, ``central_mass_Mearth``, ``parallax`` (mas, or absent)
+        ``central_gm`` (km^3/s^2), ``central_mass`` (kg), ``central_mass_solar``,
+        ``central_mass_jupiter``, ``central_mass_earth``, ``parallax`` (mas, or absent)
         and ``companions``: name -> dict of ``period`` (d), ``semi_major_axis`` (au),
-        ``semi_major_axis_km``, ``semi_major_axis_mas`` (where angular),
+        ``semi_major_axis_km``, ``semi_major_axis_angle`` (mas, where angular),
         ``eccentricity``, ``inclination``, ``periapsis_argument``,
         ``ascending_node`` (deg), ``periapsis_time`` (JD, TDB) and ``mass`` (M_sun,
         where sampled).
@@ -99,7 +114,7 @@ def _central_samples(mass_msun, rng) -> dict:
     g_draws = 1.0 + G_REL_UNCERTAINTY * rng.standard_normal(gm.size)
     out["central_mass"] = _mass_kg(gm, g_draws)
     for name, gm_unit in MASS_UNITS.items():
-        out[f"central_mass_{name}"] = gm / gm_unit
+        out[MASS_UNIT_KEYS[name]] = gm / gm_unit
     return out
 
 
@@ -265,7 +280,7 @@ def _companion_samples(model, name, orbit, parallax):
             orbit["inc"], orbit["node"], *pole)
     angular = _angular_scale(model, name, parallax)
     if angular is not None:
-        out["semi_major_axis_mas"] = a * angular
+        out["semi_major_axis_angle"] = a * angular
     if not model.companions[name].mass.is_fixed:
         out["mass"] = orbit["mass"]
     return out

@@ -18,8 +18,9 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.priors import LogUniform, Normal, Uniform
+from massfit.summarise.rounding import NARROW_LABEL, WIDE_LABEL, format_interval, format_range
 
-__all__ = ["split_modes", "posterior_modes", "prior_sensitivity",
+__all__ = ["split_modes", "posterior_modes", "prior_sensitivity", "mode_report_lines",
            "SEPARATION", "MIN_MODE_FRACTION", "SHIFT_LIMIT"]
 
 #: Two groups of samples are separate modes when the empty gap between them is wider
@@ -260,3 +261,31 @@ def _edge_fraction(prior, values):
         values, low, high = np.log10(values), np.log10(low), np.log10(high)
     margin = EDGE_WIDTH * (high - low)
     return float(np.mean((values < low + margin) | (values > high - margin)))
+
+
+def mode_report_lines(census, over_modes=None) -> list:
+    """Terminal lines: one per mode, with its weight and whether it was visited, and
+    (where each mode was sampled) its mass and the mass over all modes."""
+    lines = ["  modes found by the start (weights: Laplace approximation):"]
+    for mode in census:
+        periods = ", ".join(f"{n} P = {p:.6g} d" for n, p in mode["periods"].items())
+        mass = ("" if mode["central_mass"] is None
+                else f", central mass {mode['central_mass']:.4g} M_sun")
+        seen = (f"visited ({100 * mode['sample_fraction']:.0f} % of samples)"
+                if mode["visited"] else "NOT visited")
+        lines.append(f"    {100 * mode['weight']:5.1f} %  {periods}{mass}, "
+                     f"chi2 = {mode['chi2']:.1f}; {seen}")
+        if "chain" in mode:
+            block = mode["chain"]["central_mass_solar"]
+            lines.append(f"            its chain ({mode['chain']['sampled']}): central "
+                         f"mass {_block_text(block)} M_sun")
+    if over_modes:
+        lines.append(f"  central mass over the {over_modes['modes']} modes: "
+                     f"{_block_text(over_modes['central_mass_solar'])} M_sun "
+                     f"({over_modes['approximation']})")
+    return lines
+
+
+def _block_text(block) -> str:
+    return (f"{format_interval(block)} ({NARROW_LABEL}: {format_range(block, '68')}; "
+            f"{WIDE_LABEL}: {format_range(block)})")

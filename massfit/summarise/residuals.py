@@ -14,7 +14,12 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["Residuals", "astrometric_residuals", "velocity_residuals", "residual_periodogram",
-           "leftover_signals", "FAP_THRESHOLD"]
+           "leftover_signals", "model_residuals", "model_velocity_residuals", "peak_text",
+           "VELOCITY_PANEL", "FAP_THRESHOLD"]
+
+#: The name under which the radial velocities' residuals stand beside the companions'
+#: (the figures' panel, the adequacy block's ``velocities`` entry).
+VELOCITY_PANEL = "radial velocities"
 
 #: A periodogram peak with a false-alarm probability below this is flagged as leftover
 #: signal (1 %, common practice).
@@ -66,8 +71,12 @@ def astrometric_residuals(result, theta=None) -> dict:
     dict
         companion name -> :class:`Residuals`.
     """
-    model = result.model
     theta = best_sample(result) if theta is None else np.asarray(theta)
+    return model_residuals(result.model, theta)
+
+
+def model_residuals(model, theta) -> dict:
+    """:func:`astrometric_residuals` of a model at ``theta`` (no result needed)."""
     data = model.observations.astrometry
     out = {}
     for name, rows in model.rows.items():
@@ -102,9 +111,13 @@ def velocity_residuals(result, theta=None) -> Residuals:
     The component of each residual is its instrument's label, so that a periodogram
     centres each instrument on its own mean.
     """
-    model = result.model
-    vel = model.velocity_rows
     theta = best_sample(result) if theta is None else np.asarray(theta)
+    return model_velocity_residuals(result.model, theta)
+
+
+def model_velocity_residuals(model, theta) -> Residuals:
+    """:func:`velocity_residuals` of a model at ``theta`` (no result needed)."""
+    vel = model.velocity_rows
     phys = model.physical(np.atleast_2d(theta))
     total = model.velocity_parts(phys)["total"][0]
     sigma = np.sqrt(vel.err2 + phys["rv"]["jitter"][0, vel.instrument] ** 2)
@@ -181,6 +194,17 @@ def residual_periodogram(residuals: Residuals, *, orbital_period=None,
             "levels": {FAP_THRESHOLD: float(levels[0]),
                        0.1 * FAP_THRESHOLD: float(levels[1])},
             "values": int(len(t)), "model": ls}
+
+
+def peak_text(peak) -> str:
+    """``peak at 688.1 d, FAP 0.52``: the one way a residual peak is written, in the
+    terminal and in the figures. ``peak`` is the adequacy block's ``periodogram`` entry
+    (``peak_period``, ``false_alarm_probability``) or a :func:`residual_periodogram`."""
+    if "peak_period" in peak:
+        period, fap = peak["peak_period"], peak["false_alarm_probability"]
+    else:
+        period, fap = peak["best_period"], peak["fap"]
+    return f"peak at {period:.4g} d, FAP {fap:.2g}"
 
 
 def leftover_signals(result, *, threshold: float = FAP_THRESHOLD) -> list:

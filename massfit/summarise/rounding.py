@@ -13,7 +13,13 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-__all__ = ["Rounded", "round_interval", "format_interval", "print_exponent"]
+__all__ = ["Rounded", "round_interval", "format_interval", "format_range", "print_exponent",
+           "WIDE_LABEL", "NARROW_LABEL"]
+
+#: What the summary's intervals are (the conventions' percentiles), said the same way in
+#: every report, table and figure: never "95 %" for the 2.275th to 97.725th percentile.
+NARROW_LABEL = "68.27 %"
+WIDE_LABEL = "95.45 %"
 
 
 @dataclass(frozen=True)
@@ -85,17 +91,16 @@ def round_interval(block: dict, *, exponent: int | None = None) -> Rounded | Non
     med = block.get("median")
     if med is None:
         return None
+    # A fixed quantity (no width) gets six significant figures: no error to speak of.
+    place, exponent = _placed(block, exponent)
+    show = _shower(place, exponent)
     up = max(block["upper_68"] - med, 0.0)
     down = max(med - block["lower_68"], 0.0)
-    widths = [w for w in (up, down) if w > 0]
-    if not widths:  # a fixed quantity: six significant figures, no error to speak of
-        place = (math.floor(math.log10(abs(med))) - 5) if med else 0
-    else:
-        place = _error_place(min(widths))
-    size = max(abs(med), max(widths, default=0.0))
-    if exponent is None:
-        magnitude = math.floor(math.log10(size)) if size > 0 else 0
-        exponent = magnitude if (magnitude >= 5 or magnitude < -3) else 0
+    return Rounded(show(med), show(up), show(down), exponent)
+
+
+def _shower(place, exponent):
+    """Text of a number rounded at ``place`` and scaled by ``10**exponent``."""
     decimals = max(0, exponent - place)
     scale = 10.0 ** exponent
 
@@ -106,7 +111,37 @@ def round_interval(block: dict, *, exponent: int | None = None) -> Rounded | Non
         text = f"{value / scale:.{decimals}f}"
         return "0" if float(text) == 0 and text.startswith("-") else text
 
-    return Rounded(show(med), show(up), show(down), exponent)
+    return show
+
+
+def format_range(block: dict, which: str = "95", *, separator: str = " .. ") -> str:
+    """An interval's bounds (``which`` "95" or "68") rounded like its value.
+
+    The bounds take the decimal place and power of ten of the median as
+    :func:`round_interval` prints it, so ``1.6111 +/- 0.0014 e+11`` has the 95.45 %
+    range ``(1.6083 .. 1.6139) e+11``, never ``1.60832e+11 .. 1.6139e+11``.
+    """
+    if block.get("median") is None or block.get(f"lower_{which}") is None:
+        return "undetermined"
+    place, exponent = _placed(block, print_exponent(block))
+    show = _shower(place, exponent)
+    body = f"{show(block[f'lower_{which}'])}{separator}{show(block[f'upper_{which}'])}"
+    return f"({body}) e{exponent:+03d}" if exponent else body
+
+
+def _placed(block: dict, exponent):
+    """The decimal place and power of ten at which ``block``'s median is printed."""
+    med = block["median"]
+    up = max(block["upper_68"] - med, 0.0)
+    down = max(med - block["lower_68"], 0.0)
+    widths = [w for w in (up, down) if w > 0]
+    place = (_error_place(min(widths)) if widths else
+             (math.floor(math.log10(abs(med))) - 5) if med else 0)
+    if exponent is None:
+        size = max(abs(med), max(widths, default=0.0))
+        magnitude = math.floor(math.log10(size)) if size > 0 else 0
+        exponent = magnitude if (magnitude >= 5 or magnitude < -3) else 0
+    return place, exponent
 
 
 def print_exponent(block):

@@ -17,15 +17,20 @@ from massfit import priors as _priors
 from massfit.read.observations import AstrometryData, VelocityData
 
 __all__ = ["model_state", "write_observations", "STATE_VERSION", "RUN_FILE", "SUMMARY_FILE",
-           "SAMPLES_FILE", "DATA_FILES"]
+           "SAMPLES_FILE", "OBSERVATIONS_FILE", "DATA_KINDS", "OLD_VELOCITY_FILE"]
 
 SUMMARY_FILE = "summary.json"
 SAMPLES_FILE = "samples.ecsv"
 #: Version of the ``model`` block of run.json; a reader refuses newer ones.
 STATE_VERSION = 1
 RUN_FILE = "run.json"
-DATA_FILES = {"astrometry": ("observations.ecsv", AstrometryData),
-              "velocities": ("velocities.ecsv", VelocityData)}
+#: The validated rows of every kind, in one table whose ``kind`` column says which.
+OBSERVATIONS_FILE = "observations.ecsv"
+#: Each kind of row: its ``kind`` value in the table and its container.
+DATA_KINDS = {"astrometry": ("astrometry", AstrometryData),
+              "velocities": ("velocity", VelocityData)}
+#: Folders written before the one table kept the velocities in a file of their own.
+OLD_VELOCITY_FILE = "velocities.ecsv"
 
 
 # ------------------------------------------------------------------ writing
@@ -67,18 +72,26 @@ def model_state(model) -> dict:
                          "rejected": [r.as_dict() for r in obs.rejected],
                          "unused_columns": {k: list(v) for k, v in
                                             dict(obs.unused_columns).items()},
-                         "primary": obs.primary},
+                         "primary": obs.primary,
+                         "stated": dict(getattr(obs, "stated", {}))},
     }
 
 
 def write_observations(observations, folder) -> list:
-    """Write the validated observations (internal units) as ECSV into ``folder``."""
-    paths = []
-    for attr, (name, cls) in DATA_FILES.items():
+    """Write the validated observations (internal units) as one ECSV table into ``folder``.
+
+    Astrometry and radial velocities share ``observations.ecsv``: its ``kind`` column
+    says which a row is, and a column of the other kind is blank on it.
+    """
+    from astropy.table import vstack
+
+    parts = []
+    for attr, (kind, cls) in DATA_KINDS.items():
         data = getattr(observations, attr, None)
         if data is None or len(data) == 0:
             continue
         table = Table()
+        table["kind"] = np.full(len(data), kind)
         for f in dataclasses.fields(cls):
             value = getattr(data, f.name)
             if value is None:  # an optional part the data do not have
@@ -88,12 +101,17 @@ def write_observations(observations, folder) -> list:
                 table.meta[f"{f.name}_scale"] = "tdb"
             else:
                 table[f.name] = np.asarray(value)
-        table.meta["description"] = (f"massfit validated {attr} rows in internal units "
-                                     f"(arcsec or au, radians, km/s, pc; times JD TDB)")
-        path = Path(folder) / name
-        _write_ecsv_in_blocks(table, path)
-        paths.append(path)
-    return paths
+        parts.append(table)
+    if not parts:
+        return []
+    table = parts[0] if len(parts) == 1 else vstack(parts, join_type="outer",
+                                                     metadata_conflicts="silent")
+    table.meta["description"] = ("massfit validated observation rows in internal units "
+                                 "(arcsec or au, radians, km/s, pc; times JD TDB); "
+                                 "'kind' is astrometry or velocity")
+    path = Path(folder) / OBSERVATIONS_FILE
+    _write_ecsv_in_blocks(table, path)
+    return [path]
 
 
 #: Rows per block when writing a big table (astropy formats every cell of what it is

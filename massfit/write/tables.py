@@ -5,13 +5,17 @@ Values are rounded by :func:`massfit.summarise.rounding.round_interval`.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
 from astropy.table import Table
 
-from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit
-from massfit.summarise.rounding import Rounded, format_interval, print_exponent, round_interval
+from massfit.summarise.derived import (MASS_UNIT_LABELS, SCALED_MASSES, best_mass_unit,
+                                       in_best_mass_unit)
+from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
+from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, format_interval,
+                                        format_range, print_exponent, round_interval)
 
 __all__ = ["Rounded", "round_interval", "format_interval", "parameter_rows", "latex_table",
            "markdown_table", "html_table", "ecsv_table", "TABLE_FORMATS"]
@@ -20,9 +24,6 @@ __all__ = ["Rounded", "round_interval", "format_interval", "parameter_rows", "la
 TABLE_FORMATS = {"latex": "parameters.tex", "markdown": "parameters.md",
                  "ecsv": "parameters.ecsv"}
 
-_MASS_KEYS = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
-              "Mearth": "central_mass_earth", "kg": "central_mass"}
-_MASS_TEXT = {"Msun": "M_sun", "Mjup": "M_jup", "Mearth": "M_earth", "kg": "kg"}
 
 
 # ---------------------------------------------------------------------------- rows
@@ -39,11 +40,11 @@ class _Row:
 
 def _pick_mass_unit(summary, mass_unit):
     if mass_unit is not None:
-        if mass_unit not in _MASS_KEYS:
+        if mass_unit not in MASS_UNIT_KEYS:
             from massfit.errors import ConfigError
 
             raise ConfigError(f"unknown mass unit {mass_unit!r}; accepted: "
-                              f"{', '.join(_MASS_KEYS)}", key="mass_unit")
+                              f"{', '.join(MASS_UNIT_KEYS)}", key="mass_unit")
         return mass_unit
     if summary["central_mass_solar"] is None:  # velocities alone: not determined
         return "Msun"
@@ -66,45 +67,34 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
     list of _Row
     """
     unit = _pick_mass_unit(summary, mass_unit)
-    rows = [_Row("", "central_gm", "gravitational parameter", r"GM",
-                 r"$\mathrm{km^{3}\,s^{-2}}$", "km3 / s2", summary["central_gm"]),
-            _Row("", "central_mass", "central mass", r"M", "kg", "kg",
-                 summary["central_mass"])]
+    central = ["central_gm", "central_mass"]
     if summary["central_gm"] is None:  # not fixed by the data (velocities alone)
-        rows = []
+        central = []
     elif unit != "kg":
-        rows.append(_Row("", _MASS_KEYS[unit], "central mass", r"M",
-                         rf"${MASS_UNIT_LABELS[unit]}$", _MASS_TEXT[unit],
-                         summary[_MASS_KEYS[unit]]))
+        central.append(MASS_UNIT_KEYS[unit])
     if "parallax" in summary:
-        rows.append(_Row("", "parallax", "parallax", r"\varpi", "mas", "mas",
-                         summary["parallax"]))
-    spec = [("period", "period", "P", "d", "d"),
-            ("semi_major_axis", "semi-major axis", "a", "au", "au"),
-            ("semi_major_axis_angle", "semi-major axis", "a", "mas", "mas"),
-            ("eccentricity", "eccentricity", "e", "", ""),
-            ("inclination", "inclination", "i", r"$^\circ$", "deg"),
-            ("periapsis_argument", "argument of periapsis", r"\omega", r"$^\circ$", "deg"),
-            ("ascending_node", "position angle of the node", r"\Omega", r"$^\circ$", "deg"),
-            ("periapsis_time", "time of periapsis", r"t_\mathrm{p}", "JD (TDB)", "JD (TDB)"),
-            ("mass", "companion mass", r"m", r"$M_\odot$", "M_sun"),
-            ("rv_semi_amplitude", "velocity semi-amplitude of the primary", r"K_1",
-             r"$\mathrm{km\,s^{-1}}$", "km / s"),
-            ("rv_semi_amplitude_companion", "velocity semi-amplitude of the companion",
-             r"K_2", r"$\mathrm{km\,s^{-1}}$", "km / s"),
-            ("mass_function", "mass function", r"f(m)", r"$M_\odot$", "M_sun"),
-            ("minimum_mass", "minimum mass (i = 90 deg)", r"m_\mathrm{min}", r"$M_\odot$",
-             "M_sun"),
-            ("mass_sin3i", "companion mass times sin^3 i", r"m \sin^3 i", r"$M_\odot$",
-             "M_sun"),
-            ("primary_mass_sin3i", "primary mass times sin^3 i", r"M \sin^3 i",
-             r"$M_\odot$", "M_sun")]
+        central.append("parallax")
+    rows = [_row("", key, summary[key]) for key in central]
     for name, comp in summary["companions"].items():
-        for key, words, symbol, unit_latex, unit_text in spec:
-            if key in comp:
-                rows.append(_Row(name, f"{name}.{key}", words, symbol, unit_latex,
-                                 unit_text, comp[key]))
+        rows += [_row(name, key, comp[key]) for key in COMPANION if key in comp]
     return rows
+
+
+def _row(group, key, block):
+    """A table row of a summary quantity, named as in summarise/quantities.py."""
+    d = CENTRAL[key] if not group else COMPANION[key]
+    plain = re.fullmatch(r"\\mathrm\{([^{}^_]*)\}", d.unit_latex)
+    if plain:  # an upright word (d, au, kg, JD (TDB)) is written as text
+        unit_latex = plain.group(1).replace(r"\ ", " ")
+    else:
+        unit_latex = f"${d.unit_latex}$" if d.unit_latex else ""
+    unit_text = d.unit_text
+    if group and key in SCALED_MASSES:  # M_sun, M_jup or M_earth, by size
+        block, best = in_best_mass_unit(block)
+        unit_latex = f"${MASS_UNIT_LABELS[best]}$"
+        unit_text = CENTRAL[MASS_UNIT_KEYS[best]].unit_text
+    return _Row(group, f"{group}.{key}" if group else key, d.words, d.symbol, unit_latex,
+                unit_text, block)
 
 
 def _groups(rows):
@@ -183,7 +173,7 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
     out = ["<table>", "<thead><tr><th style='text-align:left'>parameter</th>"
            "<th style='text-align:right'>median and 68 % interval</th>"
            "<th style='text-align:left'>unit</th>"
-           "<th style='text-align:right'>95 % interval</th></tr></thead>", "<tbody>"]
+           f"<th style='text-align:right'>{WIDE_LABEL} interval</th></tr></thead>", "<tbody>"]
     for group, first, row in _groups(parameter_rows(summary, mass_unit=mass_unit)):
         if first:
             title = "Central body" if not group else f"Companion {escape(group)}"
@@ -191,7 +181,7 @@ def html_table(summary: dict, *, mass_unit: str | None = None) -> str:
         rounded = round_interval(row.block, exponent=print_exponent(row.block))
         value = "undetermined" if rounded is None else rounded.html()
         wide = ("" if row.block.get("lower_95") is None else
-                f"{row.block['lower_95']:.6g} &ndash; {row.block['upper_95']:.6g}")
+                format_range(row.block, separator=" &ndash; "))
         unit = _HTML_UNITS.get(row.unit_text, escape(row.unit_text))
         out.append(f"<tr><td style='text-align:left'>{escape(row.name)}</td>"
                    f"<td style='text-align:right'>{value}</td>"
@@ -215,7 +205,7 @@ def ecsv_table(summary: dict, *, mass_unit: str | None = None) -> Table:
         table[key] = np.array([np.nan if row.block.get(key) is None else row.block[key]
                                for row in rows], dtype=float)
     table["rounded"] = [format_interval(row.block) for row in rows]
-    table.meta["description"] = ("massfit parameter summary: medians with 68.27 % and "
-                                 "95.45 % central credible intervals")
+    table.meta["description"] = (f"massfit parameter summary: medians with {NARROW_LABEL} and "
+                                 f"{WIDE_LABEL} central credible intervals")
     table.meta["converged"] = bool(summary.get("converged", False))
     return table
