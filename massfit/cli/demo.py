@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import tempfile
 from pathlib import Path
 
 from massfit.cli.fit import finish, fit_into
@@ -17,8 +18,8 @@ def add_parser(sub):
         "demo", help="fit the bundled invented example and compare with its truth",
         description="Fit the bundled example (four moons of an invented gas giant) and "
                     "print the result beside the truth it was simulated from.")
-    demo.add_argument("--out", metavar="DIR", default="massfit-demo",
-                      help="output folder (default: %(default)s)")
+    demo.add_argument("--out", metavar="DIR", help="output folder (default: a new "
+                      "temporary folder, named at the end)")
     sampler_options(demo)
     demo.add_argument("--no-plots", action="store_true", help="skip the figures")
     demo.add_argument("--force", action="store_true", default=True, help=argparse.SUPPRESS)
@@ -30,13 +31,16 @@ def run(args):
     from massfit.scenarios.examples import demo_setup
 
     setup: FitSetup = demo_setup()
-    setup.output = Path(args.out)
+    # Never into the working folder unasked: a new temporary folder unless one is named.
+    setup.output = (Path(args.out) if args.out
+                    else Path(tempfile.mkdtemp(prefix="massfit-demo-")))
     # The demo replaces its own earlier result, never a folder massfit did not write.
     args = argparse.Namespace(**vars(args), parallax=None, parallax_err=None, distance=None)
     result = fit_into(setup, args, force=True, inputs=setup.files)
     status = finish(result, setup.output)
     truth = json.loads((Path(setup.files[0]).parent / "truth.json").read_text())
     print("\n" + compare_with_truth(result, truth))
+    print(f"\nThe result (numbers, samples, tables and figures) is in {setup.output}/")
     return status
 
 

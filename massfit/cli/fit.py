@@ -15,6 +15,7 @@ from massfit.cli.options import (apply_central_mass_options, apply_dynamics_opti
 from massfit.cli.status import (EXIT_NOT_CONVERGED, EXIT_OK, EXIT_POOR_FIT, FIT_EXIT_STATUS,
                                 notice)
 from massfit.errors import ConfigError, WriteError
+from massfit.sample.nested import ENGINES
 
 __all__ = ["add_parser", "run", "fit_into", "finish"]
 
@@ -53,6 +54,13 @@ def add_parser(sub):
     dynamics_options(fit)
     viewing_options(fit)
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
+    fit.add_argument("--arviz", action="store_true", help="also write the posterior as "
+                     "ArviZ InferenceData (NetCDF), posterior.nc; needs massfit[arviz]")
+    fit.add_argument("--sampler", choices=ENGINES, help="emcee's ensemble (default) or "
+                     "nested sampling with dynesty: each mode of the posterior weighed in "
+                     "its own period box, and the evidence")
+    fit.add_argument("--live-points", type=int, metavar="N",
+                     help="nested: live points per run (default 400)")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
                           "in its own period box and give the mass over all of them "
@@ -68,6 +76,10 @@ def add_parser(sub):
 
 def run(args):
     setup = _setup_from_args(args)
+    if args.arviz:
+        from massfit.result.inference_data import require_arviz
+
+        require_arviz()  # before the fit, not after it
     inputs = [*setup.files, *(Path(p) for p in args.inputs)]
     result = fit_into(setup, args, force=args.force or setup.replace_existing,
                       inputs=inputs)
@@ -128,14 +140,25 @@ def _run(setup, args, *, record, force):
     overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps", "check_every")
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
+    engine = getattr(args, "sampler", None) or setup.engine
+    nested = setup.nested
+    if getattr(args, "live_points", None) is not None:
+        if engine != "nested":
+            raise ConfigError("live points are the nested sampler's: give --sampler nested "
+                              "(or [sampler] engine = \"nested\") with them",
+                              key="--live-points")
+        nested = replace(nested, live_points=args.live_points)
+        nested.check(key_prefix="--")
     if not args.quiet:
         print(f"massfit: {_read_text(observations)}; finding a starting orbit...",
               file=sys.stderr)
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False),
-                 weigh_modes=getattr(args, "weigh_modes", False))
-    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force)
+                 weigh_modes=getattr(args, "weigh_modes", False), engine=engine,
+                 nested=nested)
+    _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force,
+          arviz=getattr(args, "arviz", False))
     discard(setup.output)
     return result
 
@@ -151,7 +174,7 @@ def _read_text(observations) -> str:
             f"from {len(observations.files)} file(s)")
 
 
-def _save(result, out, *, plots, force):
+def _save(result, out, *, plots, force, arviz=False):
     """Write the result; a figure that fails is one warning line, a failed write one error."""
     import warnings
 
@@ -162,7 +185,7 @@ def _save(result, out, *, plots, force):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", FigureWarning)
         try:
-            result.save(out, plots=plots, force=force)
+            result.save(out, plots=plots, force=force, arviz=arviz)
         except OSError as exc:
             raise WriteError(f"cannot write the result into '{out}': {os_error_text(exc)}; "
                              f"the chain is kept in '{checkpoint_path(out)}': make room, "
