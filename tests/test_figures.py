@@ -401,3 +401,15 @@ def test_corner_plot_colours_groups_of_samples(result):
     assert overlapping_text(fig) == []
     with pytest.raises(ConfigError, match="flags"):
         plots.corner_plot(result, parameters=["mass"], groups={"bad": short[:5]})
+
+
+def test_orbit_plot_is_legible_at_notebook_size(result):
+    # A notebook shows a figure at its own dpi: at 150 the page-wide orbit figure is
+    # over 1000 pixels across, and no text is below 6 pt (about 12 pixels high).
+    fig = plots.orbit_plot(result, n_tracks=4)
+    assert fig.dpi == 150
+    assert fig.get_size_inches()[0] * fig.dpi >= 1000
+    from matplotlib.text import Text
+
+    sizes = [t.get_fontsize() for t in fig.findobj(Text) if t.get_text().strip()]
+    assert min(sizes) >= 6
