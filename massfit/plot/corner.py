@@ -160,7 +160,9 @@ def default_corner_parameters(result, companions=None, quantities=None, *,
     out = ["mass"] if "central_mass_solar" in result.samples else []
     out += ["parallax"] if "parallax" in result.samples else []
     extra = corner_defaults(result.samples)
-    if extra and companions is None:
+    # Every fit with a sampled parallax has a distance; only frame or relativistic
+    # terms make it a fit of stars about a dark mass.
+    if any(key != "distance" for key in extra) and companions is None:
         # Stars about a dark mass: the mass, the distance and the terms shared by all
         # stars; the stars' own elements on request (``companions``).
         return [key for key in out if key != "parallax"] + extra
