@@ -225,7 +225,9 @@ def _orbit_keys(fig, norm, time_label, n_tracks):
         handles.append(Line2D([], [], color="0.55", lw=0.6,
                               label=f"{n_tracks} orbits from the posterior"))
     handles.append(Line2D([], [], color="k", marker="+", ms=6, ls="none", label="primary"))
-    fig.legend(handles=handles, loc="outside lower center", ncol=len(handles),
+    wide = fig.get_size_inches()[0] > COLUMN_WIDTH  # one row on a page, two in a column
+    fig.legend(handles=handles, loc="outside lower center",
+               ncol=len(handles) if wide else 2,
                frameon=False, fontsize=7, handlelength=1.6, columnspacing=1.2)
 
 
