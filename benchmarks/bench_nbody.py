@@ -103,7 +103,7 @@ def _figure(rows, path):
     import matplotlib.pyplot as plt
     from matplotlib.ticker import NullLocator
 
-    from massfit.plot.figures import COLUMN_WIDTH, STYLE
+    from massfit.plot import COLUMN_WIDTH, STYLE
 
     walkers = [r["walkers"] for r in rows]
     with plt.rc_context(STYLE):

@@ -377,7 +377,7 @@ def test_short_fit_is_saved_and_reloaded_with_its_line_of_sight(tmp_path):
     import matplotlib
 
     matplotlib.use("Agg")
-    from massfit.plot.figures import equator_residual_plot
+    from massfit.plot import equator_residual_plot
     from massfit.run import fit
     from massfit.result.loading import load_result
     from massfit.orbits.viewing import ViewingSpec

@@ -116,7 +116,7 @@ def run_seed(seed, *, max_steps, folder, keep_samples):
 def figure(report, path):
     import matplotlib.pyplot as plt
 
-    from massfit.plot.figures import PAGE_WIDTH, STYLE
+    from massfit.plot import PAGE_WIDTH, STYLE
 
     first = report["runs"][0]
     names = list(PAIR_TRUTH["companions"])

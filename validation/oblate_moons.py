@@ -81,7 +81,7 @@ def run_seed(seed, *, half_span, n_obs, max_steps, folder):
 def figure(report, path):
     import matplotlib.pyplot as plt
 
-    from massfit.plot.figures import PAGE_WIDTH, STYLE
+    from massfit.plot import PAGE_WIDTH, STYLE
 
     runs = report["runs"]
     with plt.rc_context(STYLE):

@@ -64,6 +64,9 @@ instead)::
     max_steps = 50000
     check_every = 500
     seed = 1
+    engine = "nested"                 # "emcee" (default) or "nested" (dynesty: evidence,
+    live_points = 400                 #   modes weighed, each in its own period box)
+    runs_per_box = 2                  # nested: independent runs of each box (must agree)
 
     [output]
     folder = "fit-out"                # relative to this config file
@@ -84,6 +87,7 @@ from massfit.errors import ConfigError
 from massfit.model.orbit_model import CompanionSpec, SystemSpec
 from massfit.priors import Fixed, prior_from_spec
 from massfit.sample.chain import SamplerSettings
+from massfit.sample.nested import ENGINES, NestedSettings
 from massfit.orbits.viewing import viewing_from_settings
 
 if sys.version_info >= (3, 11):
@@ -107,7 +111,8 @@ _SCHEMA = {
                  "compare_keplerian": bool},
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
-    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
+    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int,
+                "engine": str, "live_points": int, "runs_per_box": int},
     "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,
@@ -128,6 +133,10 @@ class FitSetup:
         Keyword arguments for :func:`massfit.read_observations`.
     system : SystemSpec
     sampler : SamplerSettings
+    engine : str
+        "emcee" or "nested" (``[sampler] engine``).
+    nested : NestedSettings
+        The nested sampler's settings (``live_points``, ``runs_per_box``).
     output : Path or None
     plots : bool
     replace_existing : bool
@@ -140,6 +149,8 @@ class FitSetup:
     read_options: dict = field(default_factory=dict)
     system: SystemSpec = field(default_factory=SystemSpec)
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
+    engine: str = "emcee"
+    nested: NestedSettings = field(default_factory=NestedSettings)
     output: Path | None = None
     plots: bool = True
     replace_existing: bool = False
@@ -189,6 +200,23 @@ def parse_config(raw: dict, *, base=".", file=None, files=None) -> FitSetup:
         raise
 
 
+def _engine(raw, file):
+    """The ``[sampler]`` table split: (engine, NestedSettings, emcee's keys)."""
+    raw = dict(raw)
+    engine = raw.pop("engine", "emcee")
+    if engine not in ENGINES:
+        raise ConfigError(f"unknown engine {engine!r}; accepted: {', '.join(ENGINES)}",
+                          key="sampler.engine", file=file)
+    nested = NestedSettings(live_points=raw.pop("live_points", NestedSettings.live_points),
+                            runs=raw.pop("runs_per_box", NestedSettings.runs))
+    try:
+        nested.check(key_prefix="sampler.", file=file)
+    except ConfigError as exc:
+        key = exc.key.replace("sampler.runs", "sampler.runs_per_box")
+        raise ConfigError(exc.reason, key=key, file=file) from None
+    return engine, nested, raw
+
+
 def _parse(raw, base, file, given=None):
     check_keys(raw, _SCHEMA, "", file)
     data = raw.get("data", {})
@@ -213,10 +241,12 @@ def _parse(raw, base, file, given=None):
     _dynamics(system, raw.get("dynamics", {}), file)
     system.viewing = viewing_from_settings(raw.get("viewing", {}), file=file)
     read_options["primary"] = system.primary
-    sampler = SamplerSettings(**raw.get("sampler", {}))
+    engine, nested, chain_keys = _engine(raw.get("sampler", {}), file)
+    sampler = SamplerSettings(**chain_keys)
     sampler.check(key_prefix="sampler.", file=file)
     out = raw.get("output", {})
     return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
+                    engine=engine, nested=nested,
                     output=real_path(base / out["folder"]) if "folder" in out else None,
                     plots=out.get("plots", True),
                     replace_existing=out.get("replace_existing", False), source=raw)

@@ -162,6 +162,11 @@ class Observations:
     notes : list of str
         What the reading did that a user should know and the rows do not show (UTC
         dates converted outside the leap-second table); the fit's warnings repeat them.
+    stated : dict
+        For each file, how it gave its values: ``time_format`` and ``time_scale`` of the
+        time column, and ``units``: each measured column's unit as text. Figures and
+        tables show values back in these forms (see :meth:`time_form`,
+        :meth:`velocity_unit`).
     """
 
     astrometry: AstrometryData | None = None
@@ -172,6 +177,21 @@ class Observations:
     unused_columns: dict = field(default_factory=dict)
     primary: str = "primary"
     notes: list = field(default_factory=list)
+    stated: dict = field(default_factory=dict)
+
+    def time_form(self) -> tuple[str, str] | None:
+        """(format, scale) of the time column shared by every file, or None where the
+        files differ or did not say (times are then shown as TDB Julian dates)."""
+        forms = {(v.get("time_format"), v.get("time_scale")) for v in self.stated.values()}
+        if len(forms) != 1:
+            return None
+        form = forms.pop()
+        return form if None not in form else None
+
+    def velocity_unit(self) -> str | None:
+        """The unit of ``rv`` shared by every velocity file (astropy text), or None."""
+        units = {v["units"]["rv"] for v in self.stated.values() if "rv" in v.get("units", {})}
+        return units.pop() if len(units) == 1 and "" not in units else None
 
     @property
     def rows_used(self) -> int:

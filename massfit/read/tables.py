@@ -34,9 +34,11 @@ from massfit.read.cells import Cells, Issues, Options, RowIssue, read_numbers, r
 from massfit.read.columns import SIGHT, UNIT_COLUMNS
 from massfit.read.observations import AstrometryData, Observations, VelocityData
 from massfit.read.text import split_file
-from massfit.read.time_column import TIME_FORMATS, TIME_SCALES, name_problem, read_times
+from massfit.read.time_column import (TIME_FORMATS, TIME_SCALES, name_problem, read_times,
+                                      stated_time_form)
 from massfit.read.timescales import LEAP_SECOND_NOTE, quiet_leap_seconds
-from massfit.read.units import measured_columns, table_kind, unit_factors, used_columns
+from massfit.read.units import (measured_columns, stated_units, table_kind, unit_factors,
+                                used_columns)
 
 __all__ = ["read_observations", "read_table"]
 
@@ -197,6 +199,9 @@ def _read_one(file: str, options: Options,
     observations.rows_read += cells.rows_read
     observations.unused_columns[file] = [name for name in cells.names
                                          if name not in used_columns(cells, kind)]
+    observations.stated[file] = {**stated_time_form(cells, options),
+                                 "units": stated_units(cells, measured_columns(cells, kind),
+                                                       options)}
     _settle(issues, options, observations.rejected)
     return group, rows, list(cells.names)
 

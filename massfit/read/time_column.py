@@ -45,6 +45,23 @@ def read_times(cells: Cells, options: Options, issues: Issues) -> tuple[np.ndarr
                     f"and scale '{time_scale}'")
 
 
+def stated_time_form(cells: Cells, options: Options) -> dict:
+    """The time column's format and scale as the file (or the options) state them.
+
+    Figures and tables write times back in this form; None where the file states none
+    that massfit accepted (the read then refuses the file anyway).
+    """
+    if cells.native_time is not None:
+        return {"time_format": str(cells.native_time.format),
+                "time_scale": str(cells.native_time.scale)}
+    out = {}
+    for key, fallback in (("time_format", options.time_format),
+                          ("time_scale", options.time_scale)):
+        value = cells.meta.get(key, fallback)
+        out[key] = value if isinstance(value, str) else None
+    return out
+
+
 _J2000_JD = 2451545.0
 
 

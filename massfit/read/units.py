@@ -97,3 +97,12 @@ def unit_factors(cells: Cells, columns: dict, options: Options) -> tuple[dict[st
         if dim in OFFSET and offset is None:
             offset, first = dim, name
     return factors, offset is LENGTH
+
+
+def stated_units(cells: Cells, columns: dict, options: Options) -> dict[str, str]:
+    """Each measured column's unit as the file or the options give it (text; "" for none)."""
+    out = {}
+    for name in columns:
+        unit = _unit(cells, name, options)
+        out[name] = "" if unit is None else unit.to_string()
+    return out

@@ -10,7 +10,7 @@ from astropy.table import Table
 
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
-from massfit.summarise.quantities import CENTRAL, COMPANION
+from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
 from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
@@ -48,8 +48,8 @@ def _companion_lines(comp) -> list:
             note = "; or +180 with node +180"
         block = comp[key]
         if key in SCALED_MASSES:
-            block, best = in_best_mass_unit(block)
-            unit = unit.replace("M_sun", best, 1)
+            block, _ = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", block["unit"], 1)
         if note:
             unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
         lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
@@ -69,6 +69,26 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
+
+
+def _nested_lines(s, converged) -> list:
+    """The nested sampler's lines: the engine, the evidence, each mode's weight."""
+    eng, ev = s["sampler"], s["evidence"]
+    lines = ["Sampler (nested, " + eng["library"] + ")",
+             f"  {eng['sampler']} {eng['sample']}, {eng['live_points']} live points, "
+             f"{eng['runs_per_box']} run(s) in each of {eng['boxes']} box(es), "
+             f"{eng['likelihood_calls']} likelihood calls; converged: "
+             f"{'yes' if converged else 'NO'}",
+             f"  ln evidence = {ev['log_evidence']:.3f} +/- {ev['log_evidence_err']:.3f}"]
+    modes = s.get("weighed_modes", [])
+    for mode in modes if len(modes) > 1 else []:
+        periods = ", ".join(f"{n} P = {b['median']:.6g} d" for n, b in mode["period"].items())
+        runs = " / ".join(f"{p:.3f}" for p in mode["probability_runs"])
+        mass = mode.get("central_mass_solar")
+        lines.append(f"  mode {periods}: probability {mode['probability']:.3f} +/- "
+                     f"{mode['probability_err']:.3f} (runs {runs})"
+                     + (f", central mass {format_value(mass)} M_sun" if mass else ""))
+    return lines
 
 
 def _velocity_lines(rv) -> list:
@@ -189,6 +209,14 @@ class FitResult:
 
             summary["candidate_modes_basis"] = {"weight": WEIGHT_BASIS,
                                                 "must_visit_above": MIN_WEIGHT}
+        if getattr(chain, "evidence", None):
+            from massfit.summarise.posterior_checks import weighed_mode_blocks
+
+            summary["sampler"] = dict(chain.engine)
+            summary["evidence"] = dict(chain.evidence, unit="ln (natural log), the "
+                                       "likelihood's Gaussian normalisation included")
+            summary["weighed_modes"] = weighed_mode_blocks(chain.modes, chain.mode_members,
+                                                           s)
         if self.checks.get("central_mass_over_modes") is not None:
             summary["central_mass_over_modes"] = self.checks["central_mass_over_modes"]
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
@@ -225,6 +253,32 @@ class FitResult:
         best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
         return assess(self.model, best, periods=periods)
 
+    def _chain_lines(self, d, s) -> list:
+        out = []
+        out.append("Sampler")
+        out.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
+                   f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
+                   f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
+                   f"acceptance {d['acceptance_fraction']:.2f}")
+        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
+        of = "the mass" if of == "central.log10_mass" else of
+        out.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
+                   f"sampling took {d['sampling_seconds']:.1f} s; "
+                   f"converged: {'yes' if self.converged else 'NO'}")
+        if len(s.get("candidate_modes", [])) > 1:
+            from massfit.summarise.posterior_checks import mode_report_lines
+
+            out.extend(mode_report_lines(s["candidate_modes"],
+                                         s.get("central_mass_over_modes")))
+        else:
+            for mode in s["modes"]:
+                mass = ("" if mode["central_mass"] is None
+                        else f", central mass {mode['central_mass']:.4g} M_sun")
+                out.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
+                           f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
+                           f"{mode['delta_chi2']:.1f}")
+        return out
+
     # --------------------------------------------------------------------- text
     def report(self) -> str:
         """A plain-text summary for the terminal."""
@@ -248,11 +302,9 @@ class FitResult:
                          f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
-            unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
-            key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
-                   "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
-                         f"{format_range(s[key])})")
+            key = MASS_UNIT_KEYS[best_mass_unit(s["central_mass_solar"]["median"] or 1.0)]
+            lines.append(f"          = {format_value(s[key])} {s[key]['unit']}   "
+                         f"({WIDE_LABEL}: {format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
@@ -275,28 +327,10 @@ class FitResult:
             lines.extend(report_lines(s["adequacy"]))
         lines.append(_quality_line(s["fit_quality"]))
         d = s["diagnostics"]
-        lines.append("Sampler")
-        lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
-                     f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
-                     f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
-                     f"acceptance {d['acceptance_fraction']:.2f}")
-        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
-        of = "the mass" if of == "central.log10_mass" else of
-        lines.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
-                     f"sampling took {d['sampling_seconds']:.1f} s; "
-                     f"converged: {'yes' if self.converged else 'NO'}")
-        if len(s.get("candidate_modes", [])) > 1:
-            from massfit.summarise.posterior_checks import mode_report_lines
-
-            lines.extend(mode_report_lines(s["candidate_modes"],
-                                      s.get("central_mass_over_modes")))
+        if "evidence" in s:
+            lines.extend(_nested_lines(s, self.converged))
         else:
-            for mode in s["modes"]:
-                mass = ("" if mode["central_mass"] is None
-                        else f", central mass {mode['central_mass']:.4g} M_sun")
-                lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
-                             f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
-                             f"{mode['delta_chi2']:.1f}")
+            lines.extend(self._chain_lines(d, s))
         for text in s["warnings"]:
             lines.append(f"  warning: {text}")
         inputs = s["inputs"]
@@ -394,38 +428,38 @@ class FitResult:
 
     # -------------------------------------------------------------------- plots
     def corner_plot(self, **kwargs):
-        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.figures.corner_plot`."""
-        from massfit.plot.figures import corner_plot
+        """Corner plot of the central mass and key parameters; see :func:`massfit.plot.corner_plot`."""
+        from massfit.plot import corner_plot
 
         return corner_plot(self, **kwargs)
 
     def velocity_plot(self, **kwargs):
-        """Radial velocities against phase, with residuals; see :func:`massfit.plot.figures.velocity_plot`."""
-        from massfit.plot.figures import velocity_plot
+        """Radial velocities against phase, with residuals; see :func:`massfit.plot.velocity_plot`."""
+        from massfit.plot import velocity_plot
 
         return velocity_plot(self, **kwargs)
 
     def velocity_time_plot(self, **kwargs):
-        """Radial velocities against time, with residuals; see :func:`massfit.plot.figures.velocity_time_plot`."""
-        from massfit.plot.figures import velocity_time_plot
+        """Radial velocities against time, with residuals; see :func:`massfit.plot.velocity_time_plot`."""
+        from massfit.plot import velocity_time_plot
 
         return velocity_time_plot(self, **kwargs)
 
     def orbit_plot(self, **kwargs):
-        """Sky-plane orbits with the data; see :func:`massfit.plot.figures.orbit_plot`."""
-        from massfit.plot.figures import orbit_plot
+        """Sky-plane orbits with the data; see :func:`massfit.plot.orbit_plot`."""
+        from massfit.plot import orbit_plot
 
         return orbit_plot(self, **kwargs)
 
     def residual_plot(self, **kwargs):
-        """Normalised residuals against time; see :func:`massfit.plot.figures.residual_plot`."""
-        from massfit.plot.figures import residual_plot
+        """Normalised residuals against time; see :func:`massfit.plot.residual_plot`."""
+        from massfit.plot import residual_plot
 
         return residual_plot(self, **kwargs)
 
     def periodogram_plot(self, **kwargs):
-        """Periodograms of the residuals; see :func:`massfit.plot.figures.periodogram_plot`."""
-        from massfit.plot.figures import periodogram_plot
+        """Periodograms of the residuals; see :func:`massfit.plot.periodogram_plot`."""
+        from massfit.plot import periodogram_plot
 
         return periodogram_plot(self, **kwargs)
 
@@ -447,7 +481,7 @@ class FitResult:
         """
         import matplotlib.pyplot as plt
 
-        from massfit.plot.figures import FIGURES, applicable_figures, save_figure
+        from massfit.plot import FIGURES, applicable_figures, save_figure
 
         chosen = applicable_figures(self) if figures is None else list(figures)
         unknown = [f for f in chosen if f not in FIGURES]

@@ -154,7 +154,8 @@ def load_result(folder):
         velocities=_read_data(folder, "velocities"), files=list(info["files"]),
         rows_read=int(info["rows_read"]),
         rejected=[Rejection(**r) for r in info["rejected"]],
-        unused_columns=dict(info["unused_columns"]), primary=info["primary"])
+        unused_columns=dict(info["unused_columns"]), primary=info["primary"],
+        stated=dict(info.get("stated", {})))
     spec = _build(SystemSpec, state["system"])
     model = OrbitModel(observations, spec)
     model.node_width.update(state["node_width"])

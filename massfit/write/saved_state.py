@@ -72,7 +72,8 @@ def model_state(model) -> dict:
                          "rejected": [r.as_dict() for r in obs.rejected],
                          "unused_columns": {k: list(v) for k, v in
                                             dict(obs.unused_columns).items()},
-                         "primary": obs.primary},
+                         "primary": obs.primary,
+                         "stated": dict(getattr(obs, "stated", {}))},
     }
 
 
