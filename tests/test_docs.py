@@ -44,12 +44,14 @@ def _toctree_entries(page):
 def test_every_notebook_is_a_tutorial():
     notebooks = sorted(p.stem for p in (ROOT / "notebooks").glob("*.ipynb"))
     assert notebooks
-    assert sorted(_toctree_entries(DOCS / "tutorials" / "index.md")) == notebooks
+    entries = _toctree_entries(DOCS / "tutorials" / "index.md")
+    assert sorted(e for e in entries if e != "examples") == notebooks
 
 
 def test_the_site_holds_the_reference_pages():
     entries = _toctree_entries(DOCS / "index.md")
-    for page in ("install", "tutorials/index", "conventions", "validation", "api"):
+    for page in ("install", "tutorials/index", "guide/fitting", "guide/inputs", "guide/model",
+                 "guide/trust", "conventions", "validation", "api"):
         assert page in entries
         assert list(DOCS.glob(page + ".*")), page
     # The conventions page carries the project's conventions, formulas included.
@@ -87,12 +89,29 @@ def test_readme_says_how_to_set_up_and_open_the_notebooks():
     readme = (ROOT / "README.md").read_text()
     assert "python3 -m venv" in readme and "python3-venv" in readme
     assert 'pip install ".[notebooks]"' in readme and "jupyter lab notebooks/" in readme
-    for page in ("docs/install.md", "docs/conventions.md", "docs/validation.md"):
+    for page in ("docs/install.md", "docs/guide/fitting.md", "docs/conventions.md",
+                 "docs/validation.md"):
         assert f"({page}" in readme, page
 
 
-@pytest.mark.parametrize("page", sorted(p.name for p in DOCS.glob("*.md")))
+@pytest.mark.parametrize("page", sorted(str(p.relative_to(DOCS)) for p in DOCS.glob("**/*.md")
+                                         if "_build" not in p.parts))
 def test_links_between_pages_resolve(page):
     text = (DOCS / page).read_text()
-    for target in re.findall(r"\]\(([^)#:]+\.md)(?:#[^)]*)?\)", text):
-        assert (DOCS / target).resolve().exists(), f"{page} links to missing {target}"
+    for target in re.findall(r"\]\(([^)#:]+\.(?:md|rst))(?:#[^)]*)?\)", text):
+        assert ((DOCS / page).parent / target).resolve().exists(), \
+            f"{page} links to missing {target}"
+
+
+def test_every_page_is_in_a_table_of_contents():
+    listed = {"index"} | set(_toctree_entries(DOCS / "index.md")) | {
+        "tutorials/" + e for e in _toctree_entries(DOCS / "tutorials" / "index.md")}
+    pages = {str(p.relative_to(DOCS).with_suffix("")) for p in DOCS.glob("**/*.md")
+             if "_build" not in p.parts}
+    assert pages <= listed, f"not in a table of contents: {sorted(pages - listed)}"
+
+
+def test_readme_links_resolve():
+    readme = (ROOT / "README.md").read_text()
+    for target in re.findall(r"\]\(([^)#:]+)(?:#[^)]*)?\)", readme):
+        assert (ROOT / target).exists(), f"README links to missing {target}"
