@@ -519,4 +519,8 @@ def _bar(show, total, done):
         return None
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, initial=done, desc="systems", unit="system", file=sys.stderr)
+    # Plain words: systems done of all, and the time left at the average pace so far
+    # (systems read back from an earlier run do not count towards the pace).
+    return tqdm(total=total, initial=done, desc="systems", unit="system", file=sys.stderr,
+                smoothing=0, bar_format="{desc}: {n} of {total} done |{bar}| {elapsed} "
+                                        "so far, about {remaining} left{postfix}")

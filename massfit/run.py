@@ -17,7 +17,7 @@ from massfit.sample.chain import SamplerSettings, run_sampler
 from massfit.sample.nested import ENGINES, NestedSettings, run_nested
 from massfit.start.search import find_start
 
-__all__ = ["fit", "distance_prior", "NESTED_PROPOSAL"]
+__all__ = ["fit", "distance_prior", "not_converged_text", "NESTED_PROPOSAL"]
 
 #: What the report proposes when emcee's walkers leave separated modes unweighed.
 NESTED_PROPOSAL = ("the posterior has separated modes that emcee's walkers cannot weigh: "
@@ -260,6 +260,23 @@ def assemble_result(model, chain, start, settings, *, record=None,
                                             "prior_sensitivity": sensitivity})
 
 
+def not_converged_text(chain):
+    """Why the autocorrelation test failed: the chain too short, or its estimate unsettled."""
+    from massfit.sample.chain import TAU_MULTIPLE, TAU_STABILITY
+
+    times = chain.steps / max(np.max(chain.tau), 1)
+    text = (f"not converged after {chain.steps} steps: the chain is {times:.1f} "
+            f"autocorrelation times long ({TAU_MULTIPLE:.0f} needed)")
+    history = list(getattr(chain, "tau_history", []) or [])
+    if times >= TAU_MULTIPLE and len(history) >= 2:
+        before, last = history[-2][1], history[-1][1]
+        change = abs(last - before) / max(last, 1e-300)
+        text += (f", but its autocorrelation times still changed between the last two "
+                 f"checks (the longest by {100 * change:.0f} %; {100 * TAU_STABILITY:.0f} "
+                 f"% allowed for each): the estimate has not settled")
+    return text + "; raise max_steps"
+
+
 def _modes_warning(found):
     where = ", ".join(f"{m['median']:.6g} {found['unit']} ({100 * m['fraction']:.0f} %)"
                       for m in found["modes"])
@@ -293,9 +310,7 @@ def _warnings(chain, start):
                        "hold (see weighed_modes: log_z_runs); raise live_points")
         return out  # the nested engine weighs the start's modes itself
     if not chain.converged:
-        out.append(f"not converged after {chain.steps} steps: the chain is "
-                   f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "
-                   f"long (50 needed); raise max_steps")
+        out.append(not_converged_text(chain))
     for mode in start.modes:
         if "weight" in mode:
             continue  # weighed: the candidate modes' census reports it

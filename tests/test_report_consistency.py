@@ -53,6 +53,8 @@ def test_report_labels_the_wide_interval_as_what_it_is():
     assert "95%" not in text and "(95 %" not in text
     gm = small_result().summary["central_gm"]
     assert format_range(gm) in text
+    # One spelling of a unit: the summary's (M_sun), not "Msun" on the next line.
+    assert " Msun" not in text and f" {small_result().summary['central_mass_solar']['unit']} " in text
 
 
 # ------------------------------------------------------- terminal, json, figures
@@ -178,7 +180,7 @@ def test_velocities_alone_read_report_and_save_what_the_readme_says(single_lined
     # f(m) ~ 1.2e-7 M_sun and m sin i ~ (f M^2)^(1/3) ~ 5 M_jup: said in M_jup.
     block = summary["companions"]["companion"]["minimum_mass"]
     assert 3e-3 < block["median"] < 7e-3  # M_sun in summary.json
-    assert "m_min   = " in text and " Mjup (m sin i: i = 90 deg)" in text
+    assert "m_min   = " in text and " M_jup (m sin i: i = 90 deg)" in text
     assert "gamma   = " in text and "jitter  = " in text
     # observations.ecsv as the README says, and no velocities.ecsv beside it.
     assert (out / "observations.ecsv").exists() and not (out / "velocities.ecsv").exists()

@@ -10,7 +10,7 @@ from astropy.table import Table
 
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
-from massfit.summarise.quantities import CENTRAL, COMPANION
+from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
 from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
@@ -48,8 +48,8 @@ def _companion_lines(comp) -> list:
             note = "; or +180 with node +180"
         block = comp[key]
         if key in SCALED_MASSES:
-            block, best = in_best_mass_unit(block)
-            unit = unit.replace("M_sun", best, 1)
+            block, _ = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", block["unit"], 1)
         if note:
             unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
         lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
@@ -302,11 +302,9 @@ class FitResult:
                          f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
-            unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
-            key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
-                   "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
-                         f"{format_range(s[key])})")
+            key = MASS_UNIT_KEYS[best_mass_unit(s["central_mass_solar"]["median"] or 1.0)]
+            lines.append(f"          = {format_value(s[key])} {s[key]['unit']}   "
+                         f"({WIDE_LABEL}: {format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:

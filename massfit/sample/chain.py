@@ -19,6 +19,8 @@ import emcee
 import numpy as np
 import scipy.fft
 
+from massfit.sample.progress import ConvergenceBar
+
 __all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed"]
 
 #: Required chain length in autocorrelation times.
@@ -204,7 +206,7 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         state = emcee.State(initial, random_state=np.random.RandomState(
             np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state())
     show = settings.progress if settings.progress is not None else sys.stderr.isatty()
-    bar = _progress_bar(show, settings.max_steps, steps)
+    bar = ConvergenceBar(show, settings.max_steps, TAU_MULTIPLE, steps)
     history = []
     tau_old = None
     converged = False
@@ -218,13 +220,11 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
                                             skip_initial_state_check=True):
                     if interrupted():
                         raise KeyboardInterrupt
-            if bar is not None:
-                bar.update(checked - steps)
+            bar.stepped(checked)
             steps = checked
         tau = _autocorr(sampler.get_chain()[:checked])
         history.append((checked, float(np.max(tau))))
-        if bar is not None:
-            bar.set_postfix_str(f"tau_max={np.max(tau):.0f}, need {TAU_MULTIPLE:.0f} tau")
+        bar.checked(checked, float(np.max(tau)))
         if (tau_old is not None and np.all(np.isfinite(tau))
                 and checked >= TAU_MULTIPLE * np.max(tau)
                 and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau)):
@@ -232,8 +232,7 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
             break
         tau_old = tau
     seconds = time.perf_counter() - started
-    if bar is not None:
-        bar.close()
+    bar.close(converged)
     # A checkpoint never holds more than the run would have taken, but the result is
     # cut at the last check all the same, so it cannot depend on when it was stopped.
     steps = checked
@@ -321,11 +320,3 @@ def _interrupt_between_steps():
         yield lambda: bool(pressed)
     finally:
         signal.signal(signal.SIGINT, previous)
-
-
-def _progress_bar(show, total, done=0):
-    if not show:
-        return None
-    from tqdm.auto import tqdm
-
-    return tqdm(total=total, initial=done, desc="sampling", unit="step", file=sys.stderr)
