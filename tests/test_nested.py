@@ -177,6 +177,10 @@ def test_engine_settings_and_compare_inputs_refused_in_one_line(tmp_path, capsys
     setup = load_config(_config(tmp_path, "n", "a.ecsv",
                                 '[sampler]\nengine = "nested"\nlive_points = 60\n'))
     assert setup.engine == "nested" and setup.nested.live_points == 60
+    # A circular model for a comparison: a fixed eccentricity of 0 is accepted.
+    circular = load_config(_config(tmp_path, "c", "a.ecsv", '[companions.Tamsin]\n'
+                                   'eccentricity_prior = {kind = "fixed", value = 0}\n'))
+    assert circular.system.companions["Tamsin"].eccentricity.value == 0
     cases = [
         (["fit", str(_config(tmp_path, "e", "a.ecsv", '[sampler]\nengine = "tempered"\n')),
           "--out", str(tmp_path / "o1")], "sampler.engine"),
