@@ -83,8 +83,9 @@ def _angle_mas(text, key):
 
 def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
         parallax=None, parallax_err=None, distance=None, seed=None, walkers=None,
-        max_steps=None, check_every=None, progress=None, record=None, checkpoint=None,
-        resume=False, weigh_modes=False, engine="emcee", nested=None) -> FitResult:
+        max_steps=None, check_every=None, progress=None, threads=None, record=None,
+        checkpoint=None, resume=False, weigh_modes=False, engine="emcee",
+        nested=None) -> FitResult:
     """Fit every companion's orbit with one shared central mass and sample the posterior.
 
     Parameters
@@ -98,8 +99,9 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         Walkers, step cap, seed and progress bar.
     parallax, parallax_err, distance : str or Quantity, optional
         Shortcuts for the system's parallax prior (``"12.3 mas"``, ``"81 pc"``).
-    seed, walkers, max_steps, check_every, progress : optional
-        Shortcuts that override ``sampler``.
+    seed, walkers, max_steps, check_every, progress, threads : optional
+        Shortcuts that override ``sampler`` (``threads``: the cores the compiled
+        log-posterior uses; every core by default).
     record : dict, optional
         Extra entries for the run record (run.json): command line, config, checksums.
     checkpoint : path, optional
@@ -137,8 +139,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         spec = replace(spec, parallax=plx)
     settings = sampler if sampler is not None else SamplerSettings()
     overrides = {k: v for k, v in dict(seed=seed, walkers=walkers, max_steps=max_steps,
-                                       check_every=check_every,
-                                       progress=progress).items() if v is not None}
+                                       check_every=check_every, progress=progress,
+                                       threads=threads).items() if v is not None}
     settings = replace(settings, **overrides)
     settings.check()
     if engine not in ENGINES:
