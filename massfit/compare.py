@@ -106,9 +106,9 @@ class Comparison:
                 "converged": bool(summary["converged"]),
                 "fit_quality": summary["fit_quality"]["verdict"]}
         counts = rng.multinomial(AVERAGE_DRAWS, prob)
-        mixture = [rng.choice(self.results[k].samples["central_mass_Msun"], size=n)
+        mixture = [rng.choice(self.results[k].samples["central_mass_solar"], size=n)
                    for k, n in zip(labels, counts)
-                   if n and "central_mass_Msun" in self.results[k].samples]
+                   if n and "central_mass_solar" in self.results[k].samples]
         averaged = interval(np.concatenate(mixture), "M_sun") if mixture else None
         return {"models": models, "best": labels[best],
                 "central_mass_solar_averaged": averaged,

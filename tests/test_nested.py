@@ -68,6 +68,16 @@ def test_prior_transform_draws_the_model_prior(tmp_path):
         assert stats.ks_2samp(values, prior.sample(rng, n)).pvalue > 1e-3
     # Omega uniform on the circle; the node and phase uniform over their windows.
     assert stats.kstest(np.mod(orbit["omega"], 2 * np.pi) / (2 * np.pi), "uniform").pvalue > 1e-3
+    # The summary's per-mode blocks take each mode's own samples.
+    from massfit.summarise.derived import derived_samples
+    from massfit.summarise.posterior_checks import weighed_mode_blocks
+
+    short = orbit["period"][:500] < 600.0
+    blocks = weighed_mode_blocks([{"probability": 0.5}, {"probability": 0.5}],
+                                 [short, ~short], derived_samples(model, theta[:500], seed=1))
+    assert blocks[0]["central_mass_solar"]["median"] == pytest.approx(
+        np.median(phys["central_mass"][:500][short]), rel=1e-9)
+    assert blocks[1]["period"]["Tamsin"]["lower_95"] >= 600.0
     # Negative control: the period against a uniform (not log-uniform) prior fails.
     assert stats.ks_2samp(orbit["period"], Uniform(100.0, 3000.0).sample(rng, n)).pvalue < 1e-6
 
@@ -167,6 +177,10 @@ def test_engine_settings_and_compare_inputs_refused_in_one_line(tmp_path, capsys
     setup = load_config(_config(tmp_path, "n", "a.ecsv",
                                 '[sampler]\nengine = "nested"\nlive_points = 60\n'))
     assert setup.engine == "nested" and setup.nested.live_points == 60
+    # A circular model for a comparison: a fixed eccentricity of 0 is accepted.
+    circular = load_config(_config(tmp_path, "c", "a.ecsv", '[companions.Tamsin]\n'
+                                   'eccentricity_prior = {kind = "fixed", value = 0}\n'))
+    assert circular.system.companions["Tamsin"].eccentricity.value == 0
     cases = [
         (["fit", str(_config(tmp_path, "e", "a.ecsv", '[sampler]\nengine = "tempered"\n')),
           "--out", str(tmp_path / "o1")], "sampler.engine"),

@@ -412,7 +412,9 @@ def _companion(name, body, file):
     if "eccentricity_prior" in body:
         comp.eccentricity = prior_from_spec(body["eccentricity_prior"], unit=None,
                                             key=f"{key}.eccentricity_prior", file=file)
-        if comp.eccentricity.low < 0 or comp.eccentricity.high >= 1:
+        ecc = comp.eccentricity  # a fixed value has no bounds of its own
+        low, high = (ecc.value, ecc.value) if ecc.is_fixed else (ecc.low, ecc.high)
+        if low < 0 or high >= 1:
             raise ConfigError("eccentricity must stay within [0, 1)",
                               key=f"{key}.eccentricity_prior", file=file)
     if "inclination_prior" in body:

@@ -34,6 +34,7 @@ result's notes, since the evidence depends on their width.
 from __future__ import annotations
 
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -235,22 +236,10 @@ def _log_likelihood(model):
     return log_like
 
 
-def nested_box(model, settings, seed, boxes=None) -> dict:
-    """One dynesty run over the prior (with the periods of ``boxes`` cut to them).
-
-    Returns
-    -------
-    dict
-        ``log_z`` (of the box's own renormalised prior), ``log_z_err``,
-        ``log_box_mass``, ``samples`` (model coordinates), ``weights`` (normalised),
-        ``iterations``, ``calls``, ``seconds``, ``efficiency`` (%).
-    """
+def _sample(model, transform, settings, common):
+    """dynesty's sampler, run to its stopping rule."""
     import dynesty
 
-    transform = PriorTransform(model, boxes)
-    rng = np.random.default_rng(seed)
-    started = time.perf_counter()
-    common = dict(sample=settings.sample, bound="multi", rstate=rng)
     if settings.dynamic:
         sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
                                                model.n_dim, **common)
@@ -261,6 +250,27 @@ def nested_box(model, settings, seed, boxes=None) -> dict:
                                         nlive=settings.live_points, **common)
         sampler.run_nested(dlogz=settings.dlogz, maxcall=settings.max_calls,
                            print_progress=False)
+    return sampler
+
+
+def nested_box(model, settings, seed, boxes=None) -> dict:
+    """One dynesty run over the prior (with the periods of ``boxes`` cut to them).
+
+    Returns
+    -------
+    dict
+        ``log_z`` (of the box's own renormalised prior), ``log_z_err``,
+        ``log_box_mass``, ``samples`` (model coordinates), ``weights`` (normalised),
+        ``iterations``, ``calls``, ``seconds``, ``efficiency`` (%), ``notes``
+        (the improper priors' boxes, and dynesty's own warnings, once each).
+    """
+    transform = PriorTransform(model, boxes)
+    rng = np.random.default_rng(seed)
+    started = time.perf_counter()
+    common = dict(sample=settings.sample, bound="multi", rstate=rng)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        sampler = _sample(model, transform, settings, common)
     res = sampler.results
     weights = np.exp(res.logwt - res.logz[-1])
     calls = int(np.sum(res.ncall))
@@ -270,7 +280,7 @@ def nested_box(model, settings, seed, boxes=None) -> dict:
             "calls": calls, "seconds": time.perf_counter() - started,
             "efficiency": float(res.eff),
             "reached_dlogz": settings.max_calls is None or calls < settings.max_calls,
-            "notes": transform.notes}
+            "notes": transform.notes + sorted({f"dynesty: {w.message}" for w in caught})}
 
 
 def weigh_boxes(runs, *, seed=None, agreement=AGREEMENT_SIGMAS) -> dict:
@@ -405,7 +415,7 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
         evidence={"log_evidence": weighed["log_evidence"],
                   "log_evidence_err": weighed["log_evidence_err"]},
         modes=modes, mode_members=[_member_mask(model, samples, b) for _, b in plan],
-        engine=engine, notes=list(dict.fromkeys(flat[0]["notes"])),
+        engine=engine, notes=list(dict.fromkeys(n for r in flat for n in r["notes"])),
         kish_samples=kish)
     return chain
 

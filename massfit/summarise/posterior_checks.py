@@ -313,8 +313,8 @@ def weighed_mode_blocks(modes, members, samples) -> list:
             "log_z_runs", "log_z_err_runs", "runs_agree", "period_boxes_days",
             "start_periods", "laplace_weight") if key in mode}
         block["draws"] = int(np.sum(member))
-        if "central_mass_Msun" in samples:
-            block["central_mass_solar"] = interval(samples["central_mass_Msun"][member],
+        if "central_mass_solar" in samples:
+            block["central_mass_solar"] = interval(samples["central_mass_solar"][member],
                                                    "M_sun")
         block["period"] = {name: interval(comp["period"][member], "d")
                            for name, comp in samples["companions"].items()}
