@@ -217,3 +217,91 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
     with pytest.raises(ConfigError) as err:
         make_dynamics("n-body", j2=0.01)
     assert err.value.key == "dynamics.j2"
+
+
+
+def _moving_observer_moons(tmp_path):
+    """Two invented moons seen from an invented moving observer: (observations, the
+    moons, their true physical values as the model takes them)."""
+    import astropy.units as u
+
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.read.tables import read_observations
+    from massfit.scenarios.moving_observer import (CircularPath, MoonOrbit, moon_times,
+                                                   observe_moons)
+
+    planet = CircularPath(6.1, 5500.0, 18.0, 40.0, 30.0, 2461000.5)  # invented
+    observer = CircularPath(0.93, 330.0, 25.0, 5.0, 200.0, 2461000.5)
+    moons = {"a": MoonOrbit(2.3, 0.01, 21.0, 40.0, 70.0, 2461001.0),
+             "b": MoonOrbit(9.7, 0.03, 23.0, 150.0, 65.0, 2461003.0)}
+    times = {name: moon_times(2461000.5, 40.0, 8, seed=k) for k, name in enumerate(moons)}
+    observe_moons(times, moons, 7.3e-4, planet, observer, error=2e-3 * u.arcsec,
+                  seed=1).write(tmp_path / "m.ecsv")
+    obs = read_observations(tmp_path / "m.ecsv")
+    model = OrbitModel(obs)
+    values = {"central_mass": 7.3e-4}
+    for name, moon in moons.items():
+        t_ref = model.epoch_jd + model.reference_epoch(name)
+        values[name] = dict(period=moon.period, ecc=moon.ecc, omega=np.radians(moon.omega),
+                            inc=np.radians(moon.inc), node=np.radians(moon.node), mass=0.0,
+                            mean_anomaly_ref=2 * np.pi * (t_ref - moon.periapsis_time)
+                            / moon.period, semi_major_axis=np.cbrt(
+                                GM_SUN * 7.3e-4 * moon.period ** 2 / (4 * np.pi ** 2)))
+    return obs, moons, values
+
+
+def test_start_candidates_mirror_only_on_a_fixed_sky_plane(tmp_path):
+    # (omega, node) + pi mirrors an orbit through the frame's x-y plane: the sky
+    # plane's mirror image only where z is the line of sight. With a moving line of
+    # sight (ICRS axes) the start keeps each orbit's image; every companion is in
+    # every candidate, with or without pulls.
+    from dataclasses import replace
+
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.orbits.perturbed import Perturbed
+
+    obs, moons, values = _moving_observer_moons(tmp_path)
+    plane = replace(obs, astrometry=replace(obs.astrometry, primary_ra=None,
+                                            primary_dec=None))
+    cases = ((obs, True, 3), (obs, False, 1), (plane, True, 6), (plane, False, 1))
+    for data, pulls, count in cases:
+        dynamics = Perturbed(j2=0.01, equatorial_radius="60000 km", mutual_pulls=pulls)
+        model = OrbitModel(data, SystemSpec(dynamics=dynamics))
+        candidates = dynamics.from_two_body(model, values)
+        assert len(candidates) == count, (pulls, count)
+        for candidate in candidates:
+            assert set(moons) <= set(candidate)
+        turned = [abs(np.cos(c["b"]["node"] - candidates[0]["b"]["node"]) + 1) < 1e-6
+                  for c in candidates]
+        assert any(turned) == (count == 6)
+
+
+def test_viewing_pole_is_the_perturbed_models_pole(tmp_path):
+    # With a moving line of sight the model's frame is ICRS: a pole at (RA, Dec) is
+    # the equator with i = 90 deg - Dec and node = RA + 90 deg (the orbit normal
+    # (sin i sin node, -sin i cos node, cos i) of the conventions then points at
+    # (cos Dec cos RA, cos Dec sin RA, sin Dec)). The [viewing] pole and that
+    # equator must give the same residuals; the mean of the orbit normals (no pole)
+    # is the negative control.
+    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.orbits.perturbed import Perturbed
+    from massfit.orbits.viewing import ViewingSpec
+
+    obs, moons, values = _moving_observer_moons(tmp_path)
+    pole_ra, pole_dec = np.radians(250.0), np.radians(40.0)  # far from both orbits' poles
+    common = dict(j2=0.05, equatorial_radius="300000 km", mutual_pulls=False)
+    by_viewing = OrbitModel(obs, SystemSpec(
+        dynamics=Perturbed(**common), viewing=ViewingSpec(pole_ra=pole_ra, pole_dec=pole_dec)))
+    by_equator = OrbitModel(obs, SystemSpec(dynamics=Perturbed(
+        **common, equator_inclination=f"{90.0 - 40.0} deg", equator_node=f"{250.0 + 90.0} deg")))
+    by_orbits = OrbitModel(obs, SystemSpec(dynamics=Perturbed(**common)))
+    out = {}
+    for label, model in (("viewing", by_viewing), ("equator", by_equator),
+                         ("orbits", by_orbits)):
+        model.centres = {name: {"node": values[name]["node"], "phase": np.pi}
+                         for name in moons}
+        out[label] = model.residuals(model.from_physical(values)[None])[0]
+    np.testing.assert_allclose(out["viewing"], out["equator"], rtol=1e-9, atol=1e-9)
+    assert np.max(np.abs(out["viewing"] - out["orbits"])) > 1.0  # sigma: the pole matters
+    # Both count as a given pole: every node over the full circle.
+    assert by_viewing.node_width == by_equator.node_width

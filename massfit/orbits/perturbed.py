@@ -25,7 +25,9 @@ Which pole
 ----------
 With ``equator_inclination`` and ``equator_node`` (in the model's frame, in the
 convention of an orbit's i and Omega: an orbit with these elements lies in the
-equator), the pole is fixed. Without them, the pole is the mean of the companions'
+equator), the pole is fixed. Without them, where the data have a moving line of sight
+(ICRS axes) and the viewing settings give the primary's pole (``pole_ra``,
+``pole_dec``), that pole is used. Otherwise the pole is the mean of the companions'
 orbit normals, walker by walker (regular moons lie near their planet's equator).
 
 Versus :class:`massfit.orbits.oblate.Oblate`
@@ -146,7 +148,8 @@ class Perturbed(Keplerian):
             out.update(j2=self.figure["j2"], j4=self.figure["j4"],
                        equatorial_radius_km=self.figure["radius_km"])
             if self.figure["pole"] is None:
-                out["pole"] = "mean of the orbit normals"
+                out["pole"] = ("the viewing pole (pole_ra, pole_dec) where given with a "
+                               "line of sight, else the mean of the orbit normals")
             else:
                 out["equator_inclination_deg"], out["equator_node_deg"] = \
                     self.figure["pole_deg"]
@@ -171,7 +174,7 @@ class Perturbed(Keplerian):
         another changes the mutual inclination. A pole that is given is not
         mirrored, so then every node needs the full circle.
         """
-        fixed_pole = self.has_harmonics and self.figure["pole"] is not None
+        fixed_pole = self.has_harmonics and self._given_pole(model) is not None
         return {name: widths[name] if (k == 0 and not fixed_pole) else TWO_PI
                 for k, name in enumerate(widths)}
 
@@ -187,15 +190,18 @@ class Perturbed(Keplerian):
         a J2 primary needs for each orbit's size and mean motion (first-order secular
         theory, :func:`massfit.orbits.oblate.oblate_gm`), weighted by rows. With mutual
         pulls, companions whose mass is sampled are put at 1e-4, 1e-3 and 1e-2 of the
-        system's mass, each after the first as fitted or mirrored through the sky
-        plane (:meth:`node_widths`).
+        system's mass, each after the first as fitted or (on a fixed sky plane)
+        mirrored through it (:meth:`node_widths`).
         """
         names = list(model.companions)
         central = self._start_central_mass(model, values)
         shares = self.START_SHARES if self.mutual_pulls else (None,)
-        flips_all = (itertools.product((False, True), repeat=len(names) - 1)
-                     if self.mutual_pulls else [()])
-        flips_all = list(flips_all)
+        # The mirror image through the sky plane is (omega, node) + pi only where the
+        # frame's z is the line of sight; with a moving line of sight (ICRS axes) the
+        # two-body start has already chosen each orbit's image on the turning sky.
+        mirror = self.mutual_pulls and model.sight is None
+        flips_all = (list(itertools.product((False, True), repeat=len(names) - 1))
+                     if mirror else [(False,) * (len(names) - 1)])
         out = []
         for share in shares:
             for flips in flips_all:
@@ -268,11 +274,24 @@ class Perturbed(Keplerian):
         """Days from the model's epoch to the epoch of the osculating elements."""
         return 0.0 if self.epoch_jd is None else self.epoch_jd - model.epoch_jd
 
+    def _given_pole(self, model):
+        """The pole (3,) as given: the dynamics' own equator, else the viewing pole
+        where the model has a moving line of sight (ICRS axes), else None."""
+        if self.figure["pole"] is not None:
+            return self.figure["pole"]
+        viewing = model.primary_pole()
+        if viewing is None:
+            return None
+        from massfit.orbits.viewing import sky_basis
+
+        return sky_basis(*viewing)[0][0]
+
     def _pole(self, model, orbits):
         """The pole per walker, (n, 3): given, or the mean of the orbit normals."""
-        if self.figure["pole"] is not None:
+        given = self._given_pole(model)
+        if given is not None:
             size = len(next(iter(orbits.values()))["inc"])
-            return np.broadcast_to(self.figure["pole"], (size, 3))
+            return np.broadcast_to(given, (size, 3))
         total = sum(np.column_stack(_normal(o["inc"], o["node"])) for o in orbits.values())
         norm = np.linalg.norm(total, axis=1, keepdims=True)
         with np.errstate(invalid="ignore", divide="ignore"):

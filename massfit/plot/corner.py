@@ -11,6 +11,7 @@ import numpy as np
 
 from massfit.errors import ConfigError
 from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, by_period, math_name, style
+from massfit.summarise.dark_mass import corner_defaults, corner_quantity
 from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit, interval
 from massfit.summarise.quantities import COMPANION, MASS_UNIT_ASTROPY, MASS_UNIT_KEYS
 from massfit.summarise.rounding import round_interval
@@ -100,6 +101,10 @@ def _corner_columns(result, parameters, mass_unit):
         elif key == "gm":
             columns.append(Column(key, samples["central_gm"], "GM",
                                    r"\mathrm{km^3\,s^{-2}}", u.km ** 3 / u.s ** 2))
+        elif corner_quantity(samples, key) is not None:
+            values, symbol, unit, unit_text = corner_quantity(samples, key)
+            columns.append(Column(key, values, symbol, unit,
+                                  u.Unit(unit_text) if unit_text else u.one))
         elif key == "parallax":
             if "parallax" not in samples:
                 raise ConfigError("this fit has no sampled parallax to plot",
@@ -113,6 +118,7 @@ def _corner_columns(result, parameters, mass_unit):
                     or quantity not in comps[body]:
                 raise ConfigError(
                     f"unknown corner parameter {key!r}; accepted: mass, gm, parallax, "
+                    f"distance, precession_scale, frame.TERM (where fitted), "
                     f"or BODY.QUANTITY with BODY one of {', '.join(comps)} and QUANTITY "
                     f"one of {', '.join(_COMPANION_QUANTITIES)}", key="parameters")
             symbol, unit, unit_astropy = _COMPANION_QUANTITIES[quantity]
@@ -153,6 +159,11 @@ def default_corner_parameters(result, companions=None, quantities=None, *,
     # Velocities alone may leave the central mass undetermined: no column for it.
     out = ["mass"] if "central_mass_solar" in result.samples else []
     out += ["parallax"] if "parallax" in result.samples else []
+    extra = corner_defaults(result.samples)
+    if extra and companions is None:
+        # Stars about a dark mass: the mass, the distance and the terms shared by all
+        # stars; the stars' own elements on request (``companions``).
+        return [key for key in out if key != "parallax"] + extra
     comps = result.samples["companions"]
     return out + [f"{name}.{q}" for name in by_period(result, names)
                   for q in quantities if q in comps[name]]

@@ -8,6 +8,7 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
+from massfit.summarise.dark_mass import summary_blocks, summary_lines
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
@@ -168,6 +169,7 @@ class FitResult:
                     "no parallax was given: sampled with a "
                     f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
                     "companion's radial velocities with its relative astrometry")
+        summary.update(summary_blocks(self.model, s, interval))
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 
@@ -309,6 +311,7 @@ class FitResult:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        lines.extend(summary_lines(s, format_value))
         if s.get("viewing"):
             view = s["viewing"]
             lines.append(f"Orbits in ICRS axes (i, node, omega against the ICRS equator); "
