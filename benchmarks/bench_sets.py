@@ -97,6 +97,9 @@ def measure(name, obs, spec, seed=1):
     initial = start.walkers(model, walkers, np.random.default_rng(seed))
     coordinates = SamplerCoordinates.for_start(model, start.theta)
     sampled = coordinates.to_sampled(initial)
+    # Compile before timing (numba's first call per process, or a cold cache).
+    coordinates.log_prob(sampled)
+    coordinates.log_prob_python(sampled)
     chain, ours_cpu = _cpu(lambda: run_sampler(coordinates.log_prob, sampled, settings))
     ess = chain.effective_samples(k)
     tau_key = float(chain.tau[k])

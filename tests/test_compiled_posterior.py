@@ -117,6 +117,12 @@ def test_models_the_kernel_does_not_cover_take_the_python_path():
     assert "light time" in why_not_compiled(
         _model("mirren", system_changes={"romer_delay": True}))
     assert why_not_compiled(_model("orvane")) == "a moving line of sight"
+    # relativistic terms (massfit.orbits.relativity) are not in the kernel
+    from massfit.orbits.relativity import RelativitySpec
+
+    relativistic = _model("sorrel", system_changes={"relativity": RelativitySpec()})
+    assert "relativity" in why_not_compiled(relativistic)
+    assert relativistic.compiled is None
     assert compiled_posterior(_model("orvane")) is None
 
     @dataclass
