@@ -124,13 +124,19 @@ def main(argv=None):
     import bench_nbody
     import bench_perturbed
     import bench_sampling
+    import bench_sets
+    import bench_threads
+    import bench_whole_fit
 
     order = {"kepler": lambda r: bench_kepler.run(r),
              "sampling": lambda r: bench_sampling.run(r),
              "growth": lambda r: bench_growth.run(r, HERE / "growth.png"),
              "batch": lambda r: bench_batch.run(r),
              "nbody": lambda r: bench_nbody.run(r, HERE / "nbody_speed.png"),
-             "perturbed": lambda r: bench_perturbed.run(r)}
+             "perturbed": lambda r: bench_perturbed.run(r),
+             "sets": lambda r: bench_sets.run(r),
+             "whole_fit": lambda r: bench_whole_fit.run(r),
+             "threads": lambda r: bench_threads.run(r)}
     selected = list(argv if argv else sys.argv[1:]) or list(order)
     unknown = set(selected) - set(order)
     if unknown:

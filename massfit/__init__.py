@@ -14,7 +14,7 @@ Three lines from a notebook::
 from massfit.config.fit import load_config
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ConfigError, InputError, MassfitError, ModelError
-from massfit.model.orbit_model import CompanionSpec, SystemSpec
+from massfit.model.orbit_model import CompanionSpec, FrameSpec, RelativitySpec, SystemSpec
 from massfit.orbits.perturbed import NBody
 from massfit.orbits.oblate import Oblate
 from massfit.plan.forecast import forecast_precision
@@ -34,7 +34,7 @@ from massfit.orbits.perturbed import Perturbed
 
 __all__ = [
     "read_observations", "fit", "load_result", "load_config", "FitResult", "SystemSpec",
-    "CompanionSpec", "Keplerian", "Oblate", "NBody", "Perturbed", "SamplerSettings",
+    "CompanionSpec", "FrameSpec", "RelativitySpec", "Keplerian", "Oblate", "NBody", "Perturbed", "SamplerSettings",
     "Uniform",
     "LogUniform", "Normal", "Fixed",
     "MassfitError", "InputError", "ConfigError", "ModelError", "__version__",

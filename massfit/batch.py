@@ -251,10 +251,24 @@ def fit_job(job: BatchJob) -> dict:
     try:
         summary, seed = _fit_and_save(job)
     except MassfitError as exc:
-        return failed_row(job, str(exc), time.perf_counter() - started)
+        return failed_row(job, str(exc), time.perf_counter() - started,
+                          seed=_stated_seed(job))
     except Exception as exc:  # any other failure belongs to this system alone
-        return failed_row(job, f"{type(exc).__name__}: {exc}", time.perf_counter() - started)
+        return failed_row(job, f"{type(exc).__name__}: {exc}", time.perf_counter() - started,
+                          seed=_stated_seed(job))
     return result_row(job, summary, time.perf_counter() - started, seed=seed)
+
+
+def _stated_seed(job):
+    """The seed a failed system's config states (None where it states none or is unreadable)."""
+    if job.config is None:
+        return None
+    from massfit.config.fit import load_config
+
+    try:
+        return load_config(job.config, files=job.files or None).sampler.seed
+    except MassfitError:
+        return None
 
 
 def _fit_and_save(job):
@@ -519,4 +533,8 @@ def _bar(show, total, done):
         return None
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, initial=done, desc="systems", unit="system", file=sys.stderr)
+    # Plain words: systems done of all, and the time left at the average pace so far
+    # (systems read back from an earlier run do not count towards the pace).
+    return tqdm(total=total, initial=done, desc="systems", unit="system", file=sys.stderr,
+                smoothing=0, bar_format="{desc}: {n} of {total} done |{bar}| {elapsed} "
+                                        "so far, about {remaining} left{postfix}")

@@ -35,6 +35,15 @@ class Prior:
     def sample(self, rng, size):
         raise NotImplementedError
 
+    def quantile(self, u):
+        """The value below which a fraction ``u`` (0..1) of the prior lies (the inverse
+        of :meth:`cdf`); maps a uniform draw to a draw from the prior."""
+        raise NotImplementedError
+
+    def cdf(self, x):
+        """The prior probability below ``x``."""
+        raise NotImplementedError
+
     @property
     def is_fixed(self) -> bool:
         return False
@@ -58,6 +67,13 @@ class Uniform(Prior):
     def sample(self, rng, size):
         return rng.uniform(self.low, self.high, size)
 
+    def quantile(self, u):
+        return self.low + np.asarray(u, dtype=float) * (self.high - self.low)
+
+    def cdf(self, x):
+        return np.clip((np.asarray(x, dtype=float) - self.low) / (self.high - self.low),
+                       0.0, 1.0)
+
     def describe(self, unit=""):
         return f"uniform on [{self.low:.4g}, {self.high:.4g}] {unit}".strip()
 
@@ -80,6 +96,15 @@ class LogUniform(Prior):
 
     def sample(self, rng, size):
         return np.exp(rng.uniform(np.log(self.low), np.log(self.high), size))
+
+    def quantile(self, u):
+        return self.low * (self.high / self.low) ** np.asarray(u, dtype=float)
+
+    def cdf(self, x):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = np.log(np.asarray(x, dtype=float) / self.low) / np.log(self.high /
+                                                                              self.low)
+        return np.clip(np.nan_to_num(share, nan=0.0, neginf=0.0), 0.0, 1.0)
 
     def describe(self, unit=""):
         return f"log-uniform on [{self.low:.4g}, {self.high:.4g}] {unit}".strip()
@@ -112,6 +137,28 @@ class Normal(Prior):
             bad = ~self._inside(out)
         return out
 
+    def _bounds(self):
+        """The truncation's standard-normal cdf at low and high."""
+        from scipy.special import ndtr
+
+        return (ndtr((self.low - self.mean) / self.sd),
+                ndtr((self.high - self.mean) / self.sd))
+
+    def quantile(self, u):
+        # The truncated normal's inverse cdf (the truncation renormalises the density).
+        from scipy.special import ndtri
+
+        lo, hi = self._bounds()
+        p = lo + np.asarray(u, dtype=float) * (hi - lo)
+        return np.clip(self.mean + self.sd * ndtri(p), self.low, self.high)
+
+    def cdf(self, x):
+        from scipy.special import ndtr
+
+        lo, hi = self._bounds()
+        z = (np.asarray(x, dtype=float) - self.mean) / self.sd
+        return np.clip((ndtr(z) - lo) / (hi - lo), 0.0, 1.0)
+
     def describe(self, unit=""):
         return f"normal({self.mean:.6g}, {self.sd:.3g}) {unit}".strip()
 
@@ -129,6 +176,12 @@ class Fixed(Prior):
 
     def sample(self, rng, size):
         return np.full(size, self.value, dtype=float)
+
+    def quantile(self, u):
+        return np.full(np.shape(u), self.value, dtype=float)
+
+    def cdf(self, x):
+        return np.where(np.asarray(x, dtype=float) >= self.value, 1.0, 0.0)
 
     def describe(self, unit=""):
         return f"fixed at {self.value:.6g} {unit}".strip()

@@ -14,9 +14,16 @@ from massfit.priors import Fixed, Normal
 from massfit.result.fit_result import FitResult
 from massfit.sample.reparameterisation import SamplerCoordinates
 from massfit.sample.chain import SamplerSettings, run_sampler
+from massfit.sample.nested import ENGINES, NestedSettings, run_nested
 from massfit.start.search import find_start
 
-__all__ = ["fit", "distance_prior"]
+__all__ = ["fit", "distance_prior", "not_converged_text", "NESTED_PROPOSAL"]
+
+#: What the report proposes when emcee's walkers leave separated modes unweighed.
+NESTED_PROPOSAL = ("the posterior has separated modes that emcee's walkers cannot weigh: "
+                   "fit again with --sampler nested (config: [sampler] engine = "
+                   "\"nested\"), which integrates each mode in its own period box and "
+                   "gives each mode's probability and the mass over all of them")
 
 
 def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefix="--"):
@@ -76,8 +83,9 @@ def _angle_mas(text, key):
 
 def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSettings | None = None,
         parallax=None, parallax_err=None, distance=None, seed=None, walkers=None,
-        max_steps=None, check_every=None, progress=None, record=None, checkpoint=None,
-        resume=False, weigh_modes=False) -> FitResult:
+        max_steps=None, check_every=None, progress=None, threads=None, record=None,
+        checkpoint=None, resume=False, weigh_modes=False, engine="emcee",
+        nested=None) -> FitResult:
     """Fit every companion's orbit with one shared central mass and sample the posterior.
 
     Parameters
@@ -91,8 +99,9 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         Walkers, step cap, seed and progress bar.
     parallax, parallax_err, distance : str or Quantity, optional
         Shortcuts for the system's parallax prior (``"12.3 mas"``, ``"81 pc"``).
-    seed, walkers, max_steps, check_every, progress : optional
-        Shortcuts that override ``sampler``.
+    seed, walkers, max_steps, check_every, progress, threads : optional
+        Shortcuts that override ``sampler`` (``threads``: the cores the compiled
+        log-posterior uses; every core by default).
     record : dict, optional
         Extra entries for the run record (run.json): command line, config, checksums.
     checkpoint : path, optional
@@ -106,6 +115,13 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         its own period box and give the central mass over all modes, weighted by
         the modes' Laplace weights (an approximation; see
         :mod:`massfit.modechains`). The fit stays not converged.
+    engine : {"emcee", "nested"}
+        The sampler: emcee's ensemble (default), or nested sampling with dynesty
+        (:mod:`massfit.sample.nested`), which weighs separated modes, each in its own
+        period box, and gives the evidence. The nested engine keeps no checkpoint.
+    nested : NestedSettings, optional
+        Live points, runs per box and the like for ``engine="nested"``; its seed is
+        the fit's.
 
     Returns
     -------
@@ -123,10 +139,16 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         spec = replace(spec, parallax=plx)
     settings = sampler if sampler is not None else SamplerSettings()
     overrides = {k: v for k, v in dict(seed=seed, walkers=walkers, max_steps=max_steps,
-                                       check_every=check_every,
-                                       progress=progress).items() if v is not None}
+                                       check_every=check_every, progress=progress,
+                                       threads=threads).items() if v is not None}
     settings = replace(settings, **overrides)
     settings.check()
+    if engine not in ENGINES:
+        raise ConfigError(f"unknown sampler {engine!r}; accepted: {', '.join(ENGINES)}",
+                          key="sampler")
+    if engine == "nested" and (resume or checkpoint is not None):
+        # dynesty's own checkpoints are per run; a box-by-box resume is not built.
+        checkpoint, resume = None, False
     if settings.seed is None and not resume:
         # Draw the seed here so that the run record always holds one that repeats it.
         settings = replace(settings, seed=int(np.random.SeedSequence().generate_state(1)[0]))
@@ -158,13 +180,18 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
-    # The sampler's own coordinates (short arcs as a position and velocity, other
-    # orbits with sky-fixed angles); the choice depends only on the start, so a
-    # resumed run makes the same one.
-    coordinates = SamplerCoordinates.for_start(model, start.theta)
-    chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings,
-                        checkpoint=checkpoint, resume=resume)
-    coordinates.restore(chain)
+    if engine == "nested":
+        nested = replace(nested or NestedSettings(), seed=settings.seed)
+        nested.check()
+        chain = run_nested(model, start, nested)
+    else:
+        # The sampler's own coordinates (short arcs as a position and velocity, other
+        # orbits with sky-fixed angles); the choice depends only on the start, so a
+        # resumed run makes the same one.
+        coordinates = SamplerCoordinates.for_start(model, start.theta)
+        chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial),
+                            settings, checkpoint=checkpoint, resume=resume)
+        coordinates.restore(chain)
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
                   "seed": settings.seed, "python": sys.version.split()[0],
@@ -194,6 +221,7 @@ def assemble_result(model, chain, start, settings, *, record=None,
 
     # The step-count warning first: it speaks of the autocorrelation test alone.
     warnings = _warnings(chain, start)
+    warnings += list(getattr(chain, "notes", []))
     modes = posterior_modes(model, chain)
     unmixed = [m for m in modes if not m["walkers_cross"]]
     if unmixed:
@@ -215,6 +243,8 @@ def assemble_result(model, chain, start, settings, *, record=None,
     warnings += list(getattr(model.observations, "notes", []))
     if missing:
         warnings.append(unexplored_warning(census, candidates, missing))
+    if (missing or unmixed) and not getattr(chain, "evidence", None):
+        warnings.append(NESTED_PROPOSAL)
     if sensitivity is not None and sensitivity["sensitive"]:
         warnings.append(
             f"the central mass depends on the prior: with a second prior "
@@ -230,6 +260,23 @@ def assemble_result(model, chain, start, settings, *, record=None,
                                             "candidate_modes": census,
                                             "central_mass_over_modes": over_modes,
                                             "prior_sensitivity": sensitivity})
+
+
+def not_converged_text(chain):
+    """Why the autocorrelation test failed: the chain too short, or its estimate unsettled."""
+    from massfit.sample.chain import TAU_MULTIPLE, TAU_STABILITY
+
+    times = chain.steps / max(np.max(chain.tau), 1)
+    text = (f"not converged after {chain.steps} steps: the chain is {times:.1f} "
+            f"autocorrelation times long ({TAU_MULTIPLE:.0f} needed)")
+    history = list(getattr(chain, "tau_history", []) or [])
+    if times >= TAU_MULTIPLE and len(history) >= 2:
+        before, last = history[-2][1], history[-1][1]
+        change = abs(last - before) / max(last, 1e-300)
+        text += (f", but its autocorrelation times still changed between the last two "
+                 f"checks (the longest by {100 * change:.0f} %; {100 * TAU_STABILITY:.0f} "
+                 f"% allowed for each): the estimate has not settled")
+    return text + "; raise max_steps"
 
 
 def _modes_warning(found):
@@ -259,10 +306,13 @@ def _velocity_warnings(model):
 
 def _warnings(chain, start):
     out = list(start.notes)
+    if getattr(chain, "evidence", None):
+        if not chain.converged:
+            out.append("not converged: " + chain.engine["convergence_basis"] + " does not "
+                       "hold (see weighed_modes: log_z_runs); raise live_points")
+        return out  # the nested engine weighs the start's modes itself
     if not chain.converged:
-        out.append(f"not converged after {chain.steps} steps: the chain is "
-                   f"{chain.steps / max(np.max(chain.tau), 1):.1f} autocorrelation times "
-                   f"long (50 needed); raise max_steps")
+        out.append(not_converged_text(chain))
     for mode in start.modes:
         if "weight" in mode:
             continue  # weighed: the candidate modes' census reports it

@@ -132,3 +132,129 @@ def planet_result():
                         companions={"Pell-b": massfit.CompanionSpec("Pell-b")},
                         strict_companions=True)
     return massfit.fit(obs, system, seed=4, max_steps=300, walkers=32, progress=False)
+
+
+# ------------------------------------------------------------ overlapping text (issue 16)
+def _text_corners(text, renderer):
+    """Corners (pixels) of the rectangle a drawn Text covers, rotation included.
+
+    matplotlib aligns the bounding box of the rotated rectangle; the rectangle itself
+    touches each side of that box once, which fixes its corners from the unrotated
+    width and height (measured by the renderer).
+    """
+    box = text.get_window_extent(renderer)
+    angle = np.radians(text.get_rotation() % 180.0)
+    if min(abs(np.sin(angle)), abs(np.cos(angle))) < 1e-6:  # 0 or 90 degrees
+        return np.array([[box.x0, box.y0], [box.x1, box.y0], [box.x1, box.y1],
+                         [box.x0, box.y1]])
+    lines = text.get_text().split("\n")
+    sizes = [renderer.get_text_width_height_descent(line, text.get_fontproperties(),
+                                                    ismath="$" in line) for line in lines]
+    w = max(s[0] for s in sizes)
+    h = box.height if len(lines) > 1 else sizes[0][1]
+    s, c = abs(np.sin(angle)), abs(np.cos(angle))
+    if angle < np.pi / 2:  # turned anticlockwise
+        points = [(h * s, 0), (box.width, w * s), (w * c, box.height), (0, h * c)]
+    else:
+        points = [(w * s, 0), (box.width, h * s), (h * c, box.height), (0, w * c)]
+    return np.array(points) + [box.x0, box.y0]
+
+
+def _polygons_overlap(a, b, margin=0.5):
+    """True where two convex polygons share more than ``margin`` pixels along every
+    separating direction (the separating-axis test)."""
+    if (a[:, 0].max() - margin <= b[:, 0].min() or b[:, 0].max() - margin <= a[:, 0].min()
+            or a[:, 1].max() - margin <= b[:, 1].min()
+            or b[:, 1].max() - margin <= a[:, 1].min()):
+        return False  # their boxes are apart: no need to look closer
+    for poly in (a, b):
+        edges = np.roll(poly, -1, axis=0) - poly
+        for nx, ny in np.column_stack([-edges[:, 1], edges[:, 0]]):
+            norm = np.hypot(nx, ny)
+            if norm == 0:
+                continue
+            pa, pb = a @ [nx / norm, ny / norm], b @ [nx / norm, ny / norm]
+            if pa.max() - margin <= pb.min() or pb.max() - margin <= pa.min():
+                return False
+    return True
+
+
+def _undrawn_tick_labels(fig) -> set:
+    """Ids of tick labels matplotlib keeps but does not draw (ticks beyond the limits)."""
+    out = set()
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            low, high = sorted(axis.get_view_interval())
+            tol = 1e-9 * max(abs(low), abs(high), 1e-300)
+            for ticks, locs in ((axis.get_major_ticks(), axis.get_majorticklocs()),
+                                (axis.get_minor_ticks(), axis.get_minorticklocs())):
+                for tick, loc in zip(ticks, locs):
+                    if not low - tol <= loc <= high + tol:
+                        out.update({id(tick.label1), id(tick.label2)})
+    return out
+
+
+def _drawn_texts(fig):
+    from matplotlib.text import Text
+
+    out = []
+    hidden = _undrawn_tick_labels(fig)
+    for text in fig.findobj(Text):
+        if not text.get_visible() or not text.get_text().strip() or text.figure is None \
+                or id(text) in hidden:
+            continue
+        owner = text.axes
+        if owner is not None and not owner.get_visible():
+            continue
+        if owner is not None and text in owner.texts:  # placed inside its own panel
+            owner = ("inside", owner)
+        out.append((text, owner))
+    return out
+
+
+def overlapping_text(fig) -> list:
+    """Every pair of drawn texts that overlap, and every text over another panel.
+
+    Draws ``fig`` with the Agg renderer. A text belongs to its axes (tick labels, axis
+    labels, titles, legends inside it) and may sit on them; it must not cover another
+    framed panel (an axes whose frame is drawn) or another text. Returns descriptions.
+    """
+    from matplotlib.legend import Legend
+
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    texts = _drawn_texts(fig)
+    corners = [_text_corners(t, renderer) for t, _ in texts]
+    problems = []
+    for i, (a, _) in enumerate(texts):
+        for j in range(i + 1, len(texts)):
+            b = texts[j][0]
+            if _polygons_overlap(corners[i], corners[j]):
+                problems.append(f"text {a.get_text()!r} overlaps text {b.get_text()!r}")
+    panels = [ax for ax in fig.axes if ax.get_visible() and ax.get_frame_on() and ax.axison]
+    for (text, owner), poly in zip(texts, corners):
+        home = owner[1] if isinstance(owner, tuple) else owner
+        legend = next((p for p in _parents(text) if isinstance(p, Legend)), None)
+        if legend is not None and legend.axes is not None:
+            home = legend.axes
+        for ax in panels:
+            if ax is home:
+                continue
+            box = ax.get_window_extent(renderer)
+            frame = np.array([[box.x0, box.y0], [box.x1, box.y0], [box.x1, box.y1],
+                              [box.x0, box.y1]])
+            if _polygons_overlap(poly, frame, margin=1.0):
+                problems.append(f"text {text.get_text()!r} lies over the panel "
+                                f"{ax.get_label() or ax.get_title() or id(ax)}")
+    return problems
+
+
+def _parents(artist):
+    """The legends that hold ``artist`` (legend texts know only their figure)."""
+    fig = artist.figure
+    legends = list(getattr(fig, "legends", []))
+    for ax in fig.axes:
+        if ax.get_legend() is not None:
+            legends.append(ax.get_legend())
+    return [leg for leg in legends if artist in leg.get_texts()
+            or artist is leg.get_title()]

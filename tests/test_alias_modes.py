@@ -148,6 +148,7 @@ def test_cli_yearly_set_is_not_converged_and_names_the_modes(yearly_file, tmp_pa
     assert "Laplace" in summary["candidate_modes_basis"]["weight"]
     text = " ".join(summary["warnings"])
     assert "never visited 2 mode(s)" in text and "period_prior" in text
+    assert "--sampler nested" in text  # the report proposes the engine that weighs them
     # The autocorrelation test itself passed: the missed modes are why it failed.
     assert not any(w.startswith("not converged after") for w in summary["warnings"])
     assert "NOT visited" in proc.stdout

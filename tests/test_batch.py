@@ -74,6 +74,7 @@ def _check_same_numbers(table, alone):
         assert row["steps"] == summary["diagnostics"]["steps"]
     # The broken system fails alone, with its reason, and the others still ran.
     assert rows["Cinder"]["status"] == "failed"
+    assert rows["Cinder"]["seed"] == 9  # the seed its config states, even in failure
     assert "nowhere.ecsv" in rows["Cinder"]["failure"]
     assert np.isnan(rows["Cinder"]["mass_median"])
 

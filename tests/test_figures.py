@@ -142,7 +142,7 @@ def test_display_units_read_well(size, angle, unit):
 
 def test_corner_plot_labels_units_and_truths(result):
     params = ["mass", "parallax", "Aster.period", "Aster.eccentricity"]
-    fig = plots.corner_plot(result, parameters=params, mass_unit="Msun",
+    fig = plots.corner_plot(result, parameters=params, mass_unit="Msun", titles=True,
                             truths={"mass": 1.2 * u.M_sun, "Aster.period": 420.0})
     axes = np.array(fig.axes).reshape(4, 4)
     assert axes[-1, 0].get_xlabel() == r"$M$ [$M_\odot$]"
@@ -162,8 +162,10 @@ def test_corner_plot_labels_units_and_truths(result):
 
 
 def test_corner_plot_default_parameters_and_offsets(result):
+    # The central mass, the parallax and each companion's P, a, e, i; no GM (GM/M is
+    # a constant: its panel against M would be a line).
     assert plots.default_corner_parameters(result) == [
-        "mass", "gm", "parallax", "Aster.period", "Aster.semi_major_axis",
+        "mass", "parallax", "Aster.period", "Aster.semi_major_axis",
         "Aster.eccentricity", "Aster.inclination", "Brel.period",
         "Brel.semi_major_axis", "Brel.eccentricity", "Brel.inclination"]
     fig = plots.corner_plot(result, parameters=["mass", "gm", "Aster.period"],
@@ -180,6 +182,56 @@ def test_corner_plot_default_parameters_and_offsets(result):
     # The values are listed in the empty upper triangle, with what Delta means.
     listing = "".join(t.get_text() for t in fig.texts)
     assert r"P_{\text{Aster}} =" in listing
+
+
+def test_corner_plot_has_no_degenerate_or_fixed_panels(result):
+    # Asked for with a copy of a column (GM of M, a in mas of a in au at a sampled
+    # parallax is not a copy) the default drops the copy; a fixed quantity has no panel.
+    from types import SimpleNamespace
+
+    samples = result.samples
+    shown = plots.corner._shown_columns(result, None, None, None, ("period",), None, False)
+    assert [c.key for c in shown] == ["mass", "parallax", "Aster.period", "Brel.period"]
+    # The same fit with the parallax held fixed: no parallax panel.
+    fixed = SimpleNamespace(model=result.model, summary=result.summary,
+                            samples={**samples, "parallax": np.full_like(samples["parallax"],
+                                                                         25.0)})
+    shown = plots.corner._shown_columns(fixed, None, None, None, ("period",), None, False)
+    assert [c.key for c in shown] == ["mass", "Aster.period", "Brel.period"]
+    # The rank test that drops copies: GM against M is exactly monotonic.
+    from massfit.plot.corner import _copies
+
+    mass = plots.corner.Column("mass", samples["central_mass_solar"], "M", "", u.M_sun)
+    gm = plots.corner.Column("gm", samples["central_gm"], "GM", "", u.km ** 3 / u.s ** 2)
+    a = plots.corner.Column("Aster.semi_major_axis",
+                            samples["companions"]["Aster"]["semi_major_axis"], "a", "", u.au)
+    assert _copies([mass, gm, a]) == ["gm"]
+    # Negative control: a, which depends on M and P, is not a copy of M.
+    assert _copies([mass, a]) == []
+
+
+def test_full_corner_plot_on_request(result):
+    full = plots.default_corner_parameters(result, full=True)
+    assert full == [
+        "mass", "parallax", *(f"{name}.{q}" for name in ("Aster", "Brel")
+                              for q in ("period", "semi_major_axis", "eccentricity",
+                                        "inclination", "periapsis_argument",
+                                        "ascending_node"))]
+    assert plots.FIGURES["corner_full"] is plots.full_corner_plot
+    assert "corner_full" not in plots.applicable_figures(result)  # only when asked
+
+
+def test_velocity_amplitudes_in_the_corner_use_the_input_unit():
+    from figure_helpers import planet_result
+
+    planet = planet_result()
+    fig = plots.corner_plot(planet)
+    assert fig.massfit_parameters == ["Pell-b.period", "Pell-b.eccentricity",
+                                      "Pell-b.rv_semi_amplitude"]
+    axes = np.array(fig.axes).reshape(3, 3)
+    assert axes[-1, 2].get_xlabel() == r"$K_{1,\text{Pell-b}}$ [$\mathrm{m\,s^{-1}}$]"
+    k_kms = planet.summary["companions"]["Pell-b"]["rv_semi_amplitude"]["median"]
+    assert np.mean(axes[2, 2].get_xlim()) == pytest.approx(1e3 * k_kms, rel=0.05)
 
 
 def test_narrow_posteriors_are_drawn_as_offsets():
@@ -235,3 +287,78 @@ def test_saved_figures_are_vector_pdf_and_png(result, tmp_path):
     assert [p.suffix for p in paths] == [".png", ".pdf"]
     assert paths[1].read_bytes()[:5] == b"%PDF-"
     assert paths[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def _overlaps(cases):
+    from figure_helpers import overlapping_text
+
+    problems = []
+    for tag, result, stems in cases:
+        for stem in stems:
+            fig = plots.FIGURES[stem](result)
+            problems += [f"{tag}, {stem}: {p}" for p in overlapping_text(fig)]
+            plt.close(fig)
+    return problems
+
+
+def test_no_figure_has_overlapping_text(result):
+    # Every text's drawn rectangle (rotation included) against every other text and
+    # every other framed panel, after drawing with the Agg renderer: each figure of
+    # the two-companion fit, and the velocity figures of a velocity-only fit.
+    from figure_helpers import planet_result
+
+    cases = [("two companions", result, plots.applicable_figures(result)),
+             ("velocities in m/s", planet_result(), ["corner", "rv", "rv_time"])]
+    assert _overlaps(cases) == []
+
+
+@pytest.mark.slow
+def test_no_overlapping_text_in_the_larger_figures(result):
+    # The full corner plots (11 and 14 parameters) and the double-lined binary's figures.
+    from figure_helpers import sorrel_result
+
+    sorrel = sorrel_result()
+    cases = [("two companions", result, ["corner_full"]),
+             ("double-lined", sorrel, plots.applicable_figures(sorrel) + ["corner_full"])]
+    assert _overlaps(cases) == []
+
+
+def test_overlap_check_finds_overlaps():
+    # Negative controls: two texts on one spot, a title running over the next panel,
+    # and tick labels turned into each other.
+    from figure_helpers import overlapping_text
+
+    fig, (left, right) = plt.subplots(1, 2, figsize=(3.5, 2.0))
+    left.text(0.5, 0.5, "one label", transform=left.transAxes)
+    left.text(0.52, 0.5, "another", transform=left.transAxes)
+    left.set_title("a title far too long for its own narrow panel at all", fontsize=8)
+    found = overlapping_text(fig)
+    assert any("overlaps text" in p for p in found)
+    assert any("lies over the panel" in p for p in found)
+    fig, ax = plt.subplots(figsize=(1.0, 1.0))
+    ax.set_xlim(0, 1)
+    ax.set_xticks([0.2, 0.3])
+    ax.set_xticklabels(["1059.2", "1060.8"], rotation=45)
+    assert any("1059.2" in p for p in overlapping_text(fig))
+    # ... and a clean figure passes.
+    fig, ax = plt.subplots(figsize=(3.5, 2.5), layout="constrained")
+    ax.set_title("short")
+    ax.set_xlabel("x")
+    assert overlapping_text(fig) == []
+
+
+def test_every_quantity_label_is_valid_math_text():
+    # A symbol with a subscript of its own (K_1, t_p, m_min) takes the body's name into
+    # that subscript: "K_1_{b}" is a double subscript, which math text refuses.
+    from matplotlib.mathtext import MathTextParser
+
+    from massfit.plot.corner import _with_body
+    from massfit.summarise.quantities import COMPANION
+
+    parser = MathTextParser("path")
+    for quantity in COMPANION.values():
+        label = _with_body(quantity.symbol, "Pell-b")
+        parser.parse(f"${label}$")  # raises ValueError on bad math text
+        assert "}_{" not in label.replace("}}_{", "") or label.startswith("{")
+    assert _with_body("K_1", "b") == r"K_{1,\text{b}}"
+    assert _with_body(r"t_\mathrm{p}", "b") == r"t_{\mathrm{p},\text{b}}"

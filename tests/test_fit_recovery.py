@@ -194,12 +194,13 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
     # The single-companion search looks at a seeded random subset of a big companion's
     # rows (4000 in use; 12 here, on 30 rows, to test it quickly); the joint polish
     # uses every row, and its chi^2 is over all of them.
-    from massfit.start import search as start_module
+    from massfit.start import scan
+    from massfit.start.search import find_start
 
     new_model, full = wren_start
-    monkeypatch.setattr(start_module, "_SEARCH_ROWS", 12)
+    monkeypatch.setattr(scan, "SEARCH_ROWS", 12)
     model = new_model()
-    start = start_module.find_start(model)
+    start = find_start(model)
     assert start.per_companion["Wren"]["rows"] == 12
     assert full.per_companion["Wren"]["rows"] == 30
     phys = model.physical(start.theta)
@@ -212,13 +213,14 @@ def test_big_data_sets_are_searched_on_a_subset_and_polished_on_all_rows(
 def test_big_data_steps_by_lsmr_reach_the_same_start(wren_start, monkeypatch):
     # Beyond 5e6 Jacobian elements the start's least squares steps with LSMR instead of
     # an SVD (memory); forced here on 30 rows, it must end at the same solution.
-    from massfit.start import search as start_module
+    from massfit.start import least_squares
+    from massfit.start.search import find_start
 
     new_model, exact = wren_start
-    monkeypatch.setattr(start_module, "_EXACT_ELEMENTS", 0)
+    monkeypatch.setattr(least_squares, "_EXACT_ELEMENTS", 0)
     model = new_model()
-    assert start_module._trust_region_solver(model) == "lsmr"
-    lsmr = start_module.find_start(model)
+    assert least_squares._trust_region_solver(model) == "lsmr"
+    lsmr = find_start(model)
     assert lsmr.chi2 == pytest.approx(exact.chi2, rel=1e-3)
     mass = model.physical(lsmr.theta)["central_mass"][0]
     assert mass == pytest.approx(model.physical(exact.theta)["central_mass"][0], rel=1e-3)

@@ -1,6 +1,7 @@
 """The ``massfit`` command: builds the parser from one module per command and dispatches.
 
-Each command's module (``massfit.cli.fit``, ``demo``, ``batch``, ``plan``, ``redraw``) has
+Each command's module (``massfit.cli.fit``, ``demo``, ``batch``, ``plan``, ``redraw``,
+``compare``) has
 ``add_parser(subparsers)`` and ``run(args) -> exit status``; a new command is a new module
 and one entry in ``COMMANDS``. Exit statuses: ``massfit.cli.status``.
 """
@@ -10,7 +11,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from massfit.cli import batch, demo, fit, plan, redraw
+from massfit.cli import batch, compare, demo, fit, plan, redraw
 from massfit.cli.status import (EXIT_INTERRUPTED, EXIT_NOT_CONVERGED, EXIT_OK,
                                 EXIT_POOR_FIT, EXIT_USER_ERROR, EXIT_WRITE_FAILED,
                                 FIT_EXIT_STATUS)
@@ -20,7 +21,8 @@ __all__ = ["main", "build_parser", "COMMANDS", "EXIT_OK", "EXIT_WRITE_FAILED",
            "EXIT_USER_ERROR", "EXIT_NOT_CONVERGED", "EXIT_POOR_FIT", "EXIT_INTERRUPTED"]
 
 #: Each command's name and its module, in the order of ``massfit --help``.
-COMMANDS = {"fit": fit, "demo": demo, "batch": batch, "plan": plan, "redraw": redraw}
+COMMANDS = {"fit": fit, "demo": demo, "batch": batch, "plan": plan, "redraw": redraw,
+            "compare": compare}
 
 
 def build_parser() -> argparse.ArgumentParser:

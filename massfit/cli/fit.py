@@ -15,6 +15,7 @@ from massfit.cli.options import (apply_central_mass_options, apply_dynamics_opti
 from massfit.cli.status import (EXIT_NOT_CONVERGED, EXIT_OK, EXIT_POOR_FIT, FIT_EXIT_STATUS,
                                 notice)
 from massfit.errors import ConfigError, WriteError
+from massfit.sample.nested import ENGINES
 
 __all__ = ["add_parser", "run", "fit_into", "finish"]
 
@@ -55,6 +56,11 @@ def add_parser(sub):
     fit.add_argument("--no-plots", action="store_true", help="skip the figures")
     fit.add_argument("--arviz", action="store_true", help="also write the posterior as "
                      "ArviZ InferenceData (NetCDF), posterior.nc; needs massfit[arviz]")
+    fit.add_argument("--sampler", choices=ENGINES, help="emcee's ensemble (default) or "
+                     "nested sampling with dynesty: each mode of the posterior weighed in "
+                     "its own period box, and the evidence")
+    fit.add_argument("--live-points", type=int, metavar="N",
+                     help="nested: live points per run (default 400)")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
                           "in its own period box and give the mass over all of them "
@@ -134,13 +140,23 @@ def _run(setup, args, *, record, force):
     overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps", "check_every")
                  if getattr(args, k) is not None}
     sampler = replace(setup.sampler, **overrides)
+    engine = getattr(args, "sampler", None) or setup.engine
+    nested = setup.nested
+    if getattr(args, "live_points", None) is not None:
+        if engine != "nested":
+            raise ConfigError("live points are the nested sampler's: give --sampler nested "
+                              "(or [sampler] engine = \"nested\") with them",
+                              key="--live-points")
+        nested = replace(nested, live_points=args.live_points)
+        nested.check(key_prefix="--")
     if not args.quiet:
         print(f"massfit: {_read_text(observations)}; finding a starting orbit...",
               file=sys.stderr)
     result = fit(observations, system, sampler=sampler, record=record,
                  checkpoint=checkpoint_path(setup.output),
                  resume=getattr(args, "resume", False),
-                 weigh_modes=getattr(args, "weigh_modes", False))
+                 weigh_modes=getattr(args, "weigh_modes", False), engine=engine,
+                 nested=nested)
     _save(result, setup.output, plots=setup.plots and not args.no_plots, force=force,
           arviz=getattr(args, "arviz", False))
     discard(setup.output)

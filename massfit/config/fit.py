@@ -50,6 +50,22 @@ instead)::
     start_evaluations = 300           # perturbed, n-body: cap per least-squares pass
     compare_keplerian = true          # adequacy: also fit the two-body model
 
+    [frame]                           # the primary's own place and motion in the data's
+                                      #   frame (a dark mass; positions against background
+                                      #   stars): an empty table turns it on, priors flat
+    east_prior = {kind = "normal", mean = "0 mas", sd = "10 mas"}  # position at the epoch
+    north_prior = {kind = "normal", mean = "0 mas", sd = "10 mas"}
+    motion_east_prior = {kind = "normal", mean = "0 mas/yr", sd = "1 mas/yr"}
+    motion_north_prior = {kind = "fixed", value = "0 mas/yr"}
+    velocity_prior = {kind = "uniform", low = "-500 km/s", high = "500 km/s"}
+
+    [relativity]                      # first-order relativistic terms (any of them)
+    precession = true                 # Schwarzschild periapsis advance ...
+    precession_scale_prior = {kind = "uniform", low = -5, high = 10}  # ... scaled (default
+                                      #   fixed at 1, the relativistic value)
+    gravitational_redshift = true     # GM / (r c) on the companions' own velocities
+    transverse_doppler = true         # v^2 / (2 c) on them
+
     [viewing]                         # a primary inside the solar system (moving line of sight)
     ephemeris_body = "jupiter"        # its direction and distance per row from astropy
     ephemeris = "builtin"             #   or the path of a JPL kernel (.bsp)
@@ -64,6 +80,10 @@ instead)::
     max_steps = 50000
     check_every = 500
     seed = 1
+    threads = 2                       # cores for the log-posterior (default: all)
+    engine = "nested"                 # "emcee" (default) or "nested" (dynesty: evidence,
+    live_points = 400                 #   modes weighed, each in its own period box)
+    runs_per_box = 2                  # nested: independent runs of each box (must agree)
 
     [output]
     folder = "fit-out"                # relative to this config file
@@ -84,6 +104,7 @@ from massfit.errors import ConfigError
 from massfit.model.orbit_model import CompanionSpec, SystemSpec
 from massfit.priors import Fixed, prior_from_spec
 from massfit.sample.chain import SamplerSettings
+from massfit.sample.nested import ENGINES, NestedSettings
 from massfit.orbits.viewing import viewing_from_settings
 
 if sys.version_info >= (3, 11):
@@ -105,9 +126,14 @@ _SCHEMA = {
                  "equator_inclination": str, "equator_node": str, "rtol": float,
                  "mutual_pulls": bool, "start_evaluations": int,
                  "compare_keplerian": bool},
+    "frame": {f"{term}_prior": dict for term in ("east", "north", "motion_east",
+                                                 "motion_north", "velocity")},
+    "relativity": {"precession": bool, "precession_scale_prior": dict,
+                   "gravitational_redshift": bool, "transverse_doppler": bool},
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
-    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int},
+    "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int,
+                "threads": int, "engine": str, "live_points": int, "runs_per_box": int},
     "output": {"folder": str, "plots": bool, "replace_existing": bool},
 }
 _COMPANION_KEYS = {"period_prior": dict, "eccentricity_prior": dict,
@@ -128,6 +154,10 @@ class FitSetup:
         Keyword arguments for :func:`massfit.read_observations`.
     system : SystemSpec
     sampler : SamplerSettings
+    engine : str
+        "emcee" or "nested" (``[sampler] engine``).
+    nested : NestedSettings
+        The nested sampler's settings (``live_points``, ``runs_per_box``).
     output : Path or None
     plots : bool
     replace_existing : bool
@@ -140,6 +170,8 @@ class FitSetup:
     read_options: dict = field(default_factory=dict)
     system: SystemSpec = field(default_factory=SystemSpec)
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
+    engine: str = "emcee"
+    nested: NestedSettings = field(default_factory=NestedSettings)
     output: Path | None = None
     plots: bool = True
     replace_existing: bool = False
@@ -189,6 +221,23 @@ def parse_config(raw: dict, *, base=".", file=None, files=None) -> FitSetup:
         raise
 
 
+def _engine(raw, file):
+    """The ``[sampler]`` table split: (engine, NestedSettings, emcee's keys)."""
+    raw = dict(raw)
+    engine = raw.pop("engine", "emcee")
+    if engine not in ENGINES:
+        raise ConfigError(f"unknown engine {engine!r}; accepted: {', '.join(ENGINES)}",
+                          key="sampler.engine", file=file)
+    nested = NestedSettings(live_points=raw.pop("live_points", NestedSettings.live_points),
+                            runs=raw.pop("runs_per_box", NestedSettings.runs))
+    try:
+        nested.check(key_prefix="sampler.", file=file)
+    except ConfigError as exc:
+        key = exc.key.replace("sampler.runs", "sampler.runs_per_box")
+        raise ConfigError(exc.reason, key=key, file=file) from None
+    return engine, nested, raw
+
+
 def _parse(raw, base, file, given=None):
     check_keys(raw, _SCHEMA, "", file)
     data = raw.get("data", {})
@@ -211,12 +260,15 @@ def _parse(raw, base, file, given=None):
     system = _system(raw.get("system", {}), raw.get("companions"), file)
     _velocities(system, raw.get("velocities", {}), file)
     _dynamics(system, raw.get("dynamics", {}), file)
+    _frame_and_relativity(system, raw, file)
     system.viewing = viewing_from_settings(raw.get("viewing", {}), file=file)
     read_options["primary"] = system.primary
-    sampler = SamplerSettings(**raw.get("sampler", {}))
+    engine, nested, chain_keys = _engine(raw.get("sampler", {}), file)
+    sampler = SamplerSettings(**chain_keys)
     sampler.check(key_prefix="sampler.", file=file)
     out = raw.get("output", {})
     return FitSetup(files=files, read_options=read_options, system=system, sampler=sampler,
+                    engine=engine, nested=nested,
                     output=real_path(base / out["folder"]) if "folder" in out else None,
                     plots=out.get("plots", True),
                     replace_existing=out.get("replace_existing", False), source=raw)
@@ -313,6 +365,37 @@ def _dynamics(spec, table, file):
     options = {k: v for k, v in table.items() if k not in ("model", "compare_keplerian")}
     spec.dynamics = make_dynamics(table.get("model", "keplerian"), file=file, **options)
     spec.compare_keplerian = table.get("compare_keplerian", True)
+
+
+#: The frame terms' units in a config.
+_FRAME_UNITS = {"east": u.mas, "north": u.mas, "motion_east": u.mas / u.yr,
+                "motion_north": u.mas / u.yr, "velocity": _KM_S}
+
+
+def _frame_and_relativity(spec, raw, file):
+    """The [frame] and [relativity] tables (each present turns its terms on)."""
+    from massfit.model.orbit_model import FrameSpec, RelativitySpec
+
+    if "frame" in raw:
+        frame = FrameSpec()
+        for term, unit in _FRAME_UNITS.items():
+            key = f"{term}_prior"
+            if key in raw["frame"]:
+                setattr(frame, term, prior_from_spec(raw["frame"][key], unit=unit,
+                                                     key=f"frame.{key}", file=file))
+        spec.frame = frame
+    if "relativity" in raw:
+        table = raw["relativity"]
+        rel = RelativitySpec(**{k: table[k] for k in ("precession", "gravitational_redshift",
+                                                      "transverse_doppler") if k in table})
+        if "precession_scale_prior" in table:
+            if not rel.precession:
+                raise ConfigError("a precession scale needs precession = true",
+                                  key="relativity.precession_scale_prior", file=file)
+            rel.precession_scale = prior_from_spec(
+                table["precession_scale_prior"], unit=None,
+                key="relativity.precession_scale_prior", file=file)
+        spec.relativity = rel
 
 
 def _mass_prior(spec, key, file):

@@ -73,12 +73,16 @@ import numpy as np
 from massfit.orbits import kepler
 from massfit.constants import AU_PER_PC, GM_SUN, KM_S_PER_AU_DAY, LIGHT_DAYS_PER_PC
 from massfit.orbits.dynamics import Keplerian, observed_offsets
+from massfit.orbits.relativity import RelativitySpec, omega_at, precession_rate
+from massfit.model import extra_terms
+from massfit.model.frame import FrameSpec, frame_shift
+from massfit.model.compiled_posterior import compiled_posterior
 from massfit.errors import ConfigError, InputError, ModelError
 from massfit.read.observations import Observations
 from massfit.priors import Fixed, LogUniform, Normal, Prior, Uniform
 
-__all__ = ["CompanionSpec", "SystemSpec", "InstrumentSpec", "OrbitModel",
-           "DEFAULT_CENTRAL_MASS_PRIOR", "TRENDS"]
+__all__ = ["CompanionSpec", "SystemSpec", "InstrumentSpec", "OrbitModel", "FrameSpec",
+           "RelativitySpec", "DEFAULT_CENTRAL_MASS_PRIOR", "TRENDS"]
 
 LN10 = np.log(10.0)
 TWO_PI = 2.0 * np.pi
@@ -183,6 +187,12 @@ class SystemSpec:
         How the companions move: None or :class:`massfit.orbits.dynamics.Keplerian` for
         two-body orbits, :class:`massfit.orbits.oblate.Oblate` for a J2 primary,
         :class:`massfit.orbits.perturbed.NBody` for companions that perturb each other.
+    frame : FrameSpec or None
+        The primary's own position, proper motion and line-of-sight velocity in the
+        frame of the data (:mod:`massfit.model.frame`); None: offsets are from the
+        primary and velocities on the instruments' zero points (the default).
+    relativity : RelativitySpec or None
+        First-order relativistic terms (:mod:`massfit.orbits.relativity`); None: none.
     viewing : massfit.orbits.viewing.ViewingSpec or None
         The line of sight to a primary inside the solar system: an ephemeris body
         (resolved into per-row columns by :func:`massfit.orbits.viewing.with_ephemeris`),
@@ -218,6 +228,8 @@ class SystemSpec:
     dynamics: object | None = None
     compare_keplerian: bool = True
     viewing: object | None = None
+    frame: FrameSpec | None = None
+    relativity: RelativitySpec | None = None
 
 
 @dataclass
@@ -355,6 +367,7 @@ class OrbitModel:
                       if has_astrometry and astrometry.has_sight else None)
         if has_astrometry:
             self._check_references(astrometry)
+        extra_terms.check(self)
         if self.sight is not None and self.has_velocities:
             raise ModelError("radial velocities with a moving line of sight (primary_ra, "
                              "primary_dec) are not modelled yet; fit the astrometry alone")
@@ -382,6 +395,8 @@ class OrbitModel:
         self._log_norm = self._gaussian_normalisation()
         self._kernel_rows = self._pack_for_kernel()
         self._prior_plan = self._plan_prior()
+        #: The compiled log-posterior, or None where the model takes the general path.
+        self.compiled = compiled_posterior(self)
         n_velocities = len(velocities) if self.has_velocities else 0
         if self.velocity_only and n_velocities <= self.n_dim:
             raise ModelError(f"{n_velocities} radial velocities cannot fix the "
@@ -518,7 +533,10 @@ class OrbitModel:
             rv = data.rv[index == j]
             err = data.rv_err[index == j]
             spread = max(float(np.ptp(rv)), 10.0 * float(np.median(err)))
-            offsets.append(own.offset)
+            # With frame terms the primary's velocity is frame.velocity: a free zero
+            # point per instrument would be the same number again.
+            offsets.append(own.offset if own.offset is not None or self.spec.frame is None
+                           else Fixed(0.0))
             jitters.append(own.jitter or self.spec.jitter or Uniform(0.0, spread))
         return _VelocityRows(t=t, rv=data.rv.astype(float), err2=data.rv_err ** 2,
                              instrument=index, owner=owner, labels=names,
@@ -569,8 +587,14 @@ class OrbitModel:
         """
         if (self.velocity_rows is not None or type(self.dynamics) is not Keplerian
                 or getattr(self.spec, "romer_delay", False) or self.sight is not None
+                or self.spec.frame is not None or self.spec.relativity is not None
                 or any(rows.reference is not None for rows in self.rows.values())):
             return None
+        return self.packed_rows()
+
+    def packed_rows(self) -> dict:
+        """Each companion's astrometry as the compiled kernels take it: east/north rows
+        first, then sep/pa, times from the companion's reference epoch."""
         packs = {}
         for name, rows in self.rows.items():
             order = np.concatenate([rows.cart, rows.polar])
@@ -633,6 +657,9 @@ class OrbitModel:
                 prefix = "log10_" if transform == "log10" else ""
                 params.append(_Parameter(f"{name}.{prefix}mass", "", comp.mass, transform,
                                          0.0 if transform == "identity" else -np.inf))
+        for name, label, prior in extra_terms.parameters(spec, self.velocity_rows is not None):
+            params.append(_Parameter(name, label, Uniform(-np.inf, np.inf), "flat")
+                          if prior is None else _Parameter(name, label, prior, "identity"))
         if self.velocity_rows is not None:
             params.extend(self._velocity_layout())
         return params
@@ -671,6 +698,16 @@ class OrbitModel:
             # The jitter's share of the normalisation is in the residuals (see there).
             total -= 0.5 * np.sum(np.log(TWO_PI * self.velocity_rows.err2))
         return float(total)
+
+    @property
+    def prior_plan(self) -> _PriorPlan:
+        """The prior as a box with a constant density, the discs and the rest."""
+        return self._prior_plan
+
+    @property
+    def log_normalisation(self) -> float:
+        """The Gaussian likelihood's constant (velocities' jitter terms aside)."""
+        return self._log_norm
 
     # ------------------------------------------------------------- coordinates
     @property
@@ -716,7 +753,12 @@ class OrbitModel:
         if self.needs_parallax:
             parallax = (np.full(n, spec.parallax.value) if spec.parallax.is_fixed
                         else col("parallax"))
-        out = {"central_mass": central, "parallax": parallax, "companions": {}}
+        out = {"central_mass": central, "parallax": parallax, "companions": {},
+               "frame": extra_terms.frame_values(spec, self.column_of, col, n)}
+        rel = self.spec.relativity
+        precessing = rel is not None and rel.precession
+        if precessing:
+            out["precession_scale"] = extra_terms.precession_scale(spec, self.column_of, col, n)
         for name, comp in self.companions.items():
             period = 10.0 ** col(f"{name}.log10_period")
             if comp.eccentricity.is_fixed:
@@ -747,6 +789,9 @@ class OrbitModel:
             # Kepler's third law, or its corrected form where the dynamics change it.
             a = self.dynamics.semi_major_axis(GM_SUN * (central + mass), period, orbit)
             orbit["semi_major_axis"] = a
+            if precessing:
+                orbit["omega_rate"] = precession_rate(GM_SUN * (central + mass), a, ecc,
+                                                      period, out["precession_scale"])
             if self.velocity_rows is not None:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     k_rel = KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
@@ -936,7 +981,7 @@ class OrbitModel:
         offsets = observed_offsets(self, phys)
         parts = []
         for name, rows in self.rows.items():
-            parts.append(self._astrometry_residuals(rows, offsets[name], phys["parallax"]))
+            parts.append(self._astrometry_residuals(rows, offsets[name], phys))
         if self.velocity_rows is not None:
             parts.append(self._velocity_residuals(phys))
         return np.concatenate(parts, axis=1)
@@ -961,6 +1006,8 @@ class OrbitModel:
         dt = vel.t[None, :] - vel.t_trend
         systemic = (rv["offset"][:, vel.instrument] + rv["slope"][:, None] * dt
                     + rv["curvature"][:, None] * dt * dt)
+        if phys.get("frame") is not None:
+            systemic = systemic + phys["frame"]["velocity"][:, None]
         total = systemic.copy()
         shares = {}
         for k, (name, orbit) in enumerate(phys["companions"].items()):
@@ -973,7 +1020,12 @@ class OrbitModel:
             share[:, own] += ((k_primary + k_companion) * shape)[:, own]
             shares[name] = share
             total += share
-        return {"systemic": systemic, "companions": shares, "total": total}
+        parts = {"systemic": systemic, "companions": shares, "total": total}
+        if self.spec.relativity is not None or self.spec.romer_delay:
+            parts["relativity"] = extra_terms.velocity_terms(self, phys)
+            for term in parts["relativity"].values():
+                total += term
+        return parts
 
     def velocity_shape(self, name, orbit, t=None):
         """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
@@ -988,7 +1040,8 @@ class OrbitModel:
             denominator = 1.0 - ecc * cos_e
             cos_nu = (cos_e - ecc) / denominator
             sin_nu = np.sqrt(1.0 - ecc * ecc) * sin_e / denominator
-        cos_w, sin_w = np.cos(column["omega"]), np.sin(column["omega"])
+        omega = omega_at(column, t, self.reference_epoch(name))
+        cos_w, sin_w = np.cos(omega), np.sin(omega)
         return cos_w * (cos_nu + ecc) - sin_w * sin_nu
 
     def _velocity_residuals(self, phys):
@@ -1017,7 +1070,16 @@ class OrbitModel:
         """
         phys = self.physical(np.atleast_2d(theta))
         east, north = observed_offsets(self, phys)[name]
-        return self._scaled(self.rows[name], east, north, phys["parallax"])
+        return self._in_frame(self.rows[name], east, north, phys)
+
+    def _in_frame(self, rows, east, north, phys):
+        """Offsets from the primary (au) as the data give them: scaled to arcsec, and
+        moved by the primary's own place in the frame where frame terms are on."""
+        east, north = self._scaled(rows, east, north, phys["parallax"])
+        if phys.get("frame") is None:
+            return east, north
+        shift_east, shift_north = frame_shift(phys["frame"], rows.t)
+        return east + shift_east, north + shift_north
 
     def _scaled(self, rows, east, north, parallax):
         scale = np.broadcast_to(rows.scale, east.shape)
@@ -1025,8 +1087,8 @@ class OrbitModel:
             scale = scale * np.where(rows.uses_parallax, parallax[:, None] * 1e-3, 1.0)
         return east * scale, north * scale
 
-    def _astrometry_residuals(self, rows, offsets, parallax):
-        east, north = self._scaled(rows, *offsets, parallax)
+    def _astrometry_residuals(self, rows, offsets, phys):
+        east, north = self._in_frame(rows, *offsets, phys)
         c, p = rows.cart, rows.polar
         # Where every row is east/north, take the arrays as they are (no gather copy).
         east_c, north_c = (east, north) if p.size == 0 else (east[:, c], north[:, c])
@@ -1071,7 +1133,17 @@ class OrbitModel:
         return chi2
 
     def log_prob(self, theta):
-        """Log-posterior (up to a constant) for each row of ``theta``; emcee's target."""
+        """Log-posterior (up to a constant) for each row of ``theta``; emcee's target.
+
+        Compiled (:mod:`massfit.model.compiled_posterior`) where the model qualifies
+        and numba is installed; otherwise :meth:`log_prob_python`, the reference.
+        """
+        if self.compiled is not None and self.compiled.available:
+            return self.compiled(theta)
+        return self.log_prob_python(theta)
+
+    def log_prob_python(self, theta):
+        """:meth:`log_prob` on the general path (numpy, the fused chi^2 where allowed)."""
         theta = np.atleast_2d(theta)
         lp = self.log_prior(theta)
         good = np.flatnonzero(np.isfinite(lp))
@@ -1123,6 +1195,10 @@ class OrbitModel:
             return np.log10(values["central_mass"])
         if name == "parallax":
             return values["parallax"]
+        if name.startswith("frame."):
+            return float(values.get("frame", {}).get(name.split(".", 1)[1], 0.0))
+        if name == "relativity.precession_scale":
+            return float(values.get("precession_scale", 1.0))
         body, kind = name.rsplit(".", 1)
         orbit = values[body]
         simple = {

@@ -189,49 +189,67 @@ def astrometry_chi2(dt, period, m0, e, a, inc, omega, node, parallax_scale, scal
     into the row's unit, times ``parallax_scale[w]`` where ``uses_parallax``. The
     elements are per orbit (days, au, radians), as for :func:`sky`.
     """
-    n_orbits = period.size
     n_times = dt.size
     east = np.empty(n_times)
     north = np.empty(n_times)
-    for w in range(n_orbits):
-        ew = e[w]
-        mw = TWO_PI / period[w]
-        m0w = m0[w]
-        rw = math.sqrt(1.0 - ew * ew)
-        # Thiele-Innes constants, as kepler.thiele_innes.
-        cw, sw = math.cos(omega[w]), math.sin(omega[w])
-        cn, sn = math.cos(node[w]), math.sin(node[w])
-        ci = math.cos(inc[w])
-        aw = a[w] * (cw * cn - sw * sn * ci)
-        bw = a[w] * (cw * sn + sw * cn * ci)
-        fw = a[w] * (-sw * cn - cw * sn * ci)
-        gw = a[w] * (-sw * sn + cw * cn * ci)
-        for j in range(n_times):
-            _, c, s, good = _core(m0w + mw * dt[j], ew)
+    for w in range(period.size):
+        chi2[w] += companion_chi2(dt, period[w], m0[w], e[w], a[w], inc[w], omega[w],
+                                  node[w], parallax_scale[w], scale, uses_parallax, 0,
+                                  n_cart, n_times, obs1, obs2, err1, err2, corr,
+                                  corr_factor, east, north)
+
+
+@numba.njit(**_jit)
+def companion_chi2(dt, period, m0, ew, a, inc, omega, node, pw, scale, uses_parallax,
+                   first, end_cart, end, obs1, obs2, err1, err2, corr, corr_factor,
+                   east, north):  # pragma: no cover - compiled
+    """chi^2 of one orbit over rows ``[first, end)`` of the row arrays.
+
+    Rows ``[first, end_cart)`` are east/north, ``[end_cart, end)`` separation and
+    position angle (see :func:`astrometry_chi2`); ``east`` and ``north`` are scratch
+    space of at least ``end - first`` elements.
+    """
+    mw = TWO_PI / period
+    rw = math.sqrt(1.0 - ew * ew)
+    # Thiele-Innes constants, as kepler.thiele_innes.
+    cw, sw = math.cos(omega), math.sin(omega)
+    cn, sn = math.cos(node), math.sin(node)
+    ci = math.cos(inc)
+    aw = a * (cw * cn - sw * sn * ci)
+    bw = a * (cw * sn + sw * cn * ci)
+    fw = a * (-sw * cn - cw * sn * ci)
+    gw = a * (-sw * sn + cw * cn * ci)
+    for j in range(first, end):
+        _, c, s, good = _core(m0 + mw * dt[j], ew)
+        x = c - ew
+        y = rw * s
+        east[j - first] = bw * x + gw * y if good else np.nan
+        north[j - first] = aw * x + fw * y
+    for j in range(first, end):
+        if east[j - first] != east[j - first]:
+            _, c, s = _safe(m0 + mw * dt[j], ew)
             x = c - ew
             y = rw * s
-            east[j] = bw * x + gw * y if good else np.nan
-            north[j] = aw * x + fw * y
-        for j in range(n_times):
-            if east[j] != east[j]:
-                _, c, s = _safe(m0w + mw * dt[j], ew)
-                x = c - ew
-                y = rw * s
-                east[j] = bw * x + gw * y
-                north[j] = aw * x + fw * y
-        pw = parallax_scale[w]
-        total = 0.0
-        for j in range(n_cart):
-            f = scale[j] * pw if uses_parallax[j] else scale[j]
-            r1 = (obs1[j] - east[j] * f) / err1[j]
-            r2 = ((obs2[j] - north[j] * f) / err2[j] - corr[j] * r1) * corr_factor[j]
-            total += r1 * r1 + r2 * r2
-        for j in range(n_cart, n_times):
-            f = scale[j] * pw if uses_parallax[j] else scale[j]
-            xe = east[j] * f
-            xn = north[j] * f
-            r1 = (obs1[j] - math.hypot(xe, xn)) / err1[j]
-            d = obs2[j] - math.atan2(xe, xn) + PI
-            r2 = (d - TWO_PI * math.floor(d * INV_TWO_PI) - PI) / err2[j]
-            total += r1 * r1 + r2 * r2
-        chi2[w] += total
+            east[j - first] = bw * x + gw * y
+            north[j - first] = aw * x + fw * y
+    total = 0.0
+    for j in range(first, end_cart):
+        f = scale[j] * pw if uses_parallax[j] else scale[j]
+        r1 = (obs1[j] - east[j - first] * f) / err1[j]
+        r2 = ((obs2[j] - north[j - first] * f) / err2[j] - corr[j] * r1) * corr_factor[j]
+        total += r1 * r1 + r2 * r2
+    for j in range(end_cart, end):
+        f = scale[j] * pw if uses_parallax[j] else scale[j]
+        xe = east[j - first] * f
+        xn = north[j - first] * f
+        r1 = (obs1[j] - math.hypot(xe, xn)) / err1[j]
+        d = obs2[j] - math.atan2(xe, xn) + PI
+        r2 = (d - TWO_PI * math.floor(d * INV_TWO_PI) - PI) / err2[j]
+        total += r1 * r1 + r2 * r2
+    return total
+
+
+#: The one-point solver under public names, for the other compiled kernels: the fast
+#: branch-free sequence (E, cos E, sin E, trusted) and its safeguarded fallback.
+point = _core
+point_safe = _safe

@@ -25,6 +25,7 @@ from massfit.orbits import kepler
 from massfit.orbits.kepler import orbit_axes, orbit_state
 
 from massfit.orbits import viewing
+from massfit.orbits.relativity import omega_at
 from massfit.constants import C_AU_PER_DAY
 
 __all__ = ["Keplerian", "orbit_state", "orbit_axes", "elements_of_state", "observed_offsets",
@@ -137,7 +138,8 @@ class Keplerian:
         """
         out = {}
         for name, rows in model.rows.items():
-            if want_velocity:
+            # A turning periapsis (relativity) takes the general evaluator.
+            if want_velocity or "omega_rate" in phys["companions"][name]:
                 out[name] = self.states_at(model, phys, name, rows.t)
                 continue
             orbit = phys["companions"][name]
@@ -157,9 +159,10 @@ class Keplerian:
         n_motion = TWO_PI / column["period"]
         mean = column["mean_anomaly_ref"] + n_motion * (
             np.asarray(t)[None, :] - model.reference_epoch(name))
+        omega = omega_at(column, t, model.reference_epoch(name))
         with np.errstate(invalid="ignore", divide="ignore"):
             return orbit_state(column["semi_major_axis"], column["ecc"], column["inc"],
-                               column["omega"], column["node"], mean, n_motion)
+                               omega, column["node"], mean, n_motion)
 
 
 def romer_factor(central_mass, companion_mass):

@@ -15,6 +15,8 @@ is its (east, north, z) view by time, :func:`thiele_innes` its constants, and
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
 __all__ = [
@@ -94,9 +96,16 @@ except ImportError:  # pragma: no cover - exercised where numba is absent
 HAVE_NUMBA = _numba is not None
 
 if HAVE_NUMBA:
+    # Threads that wait between calls sleep instead of spinning: on a machine shared
+    # with other work a spinning thread holds a core, and a call waits for every
+    # thread (a fit on two spinning threads at load 20 was 7 times slower in wall time
+    # than on one). Read by the OpenMP runtime when numba first starts its threads.
+    os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
     from massfit.orbits import _kepler_numba as numba_kernel
+    # The whole two-body log-posterior (massfit.model.compiled_posterior packs for it).
+    from massfit.orbits import _posterior_numba as posterior_kernel
 else:  # pragma: no cover
-    numba_kernel = None
+    numba_kernel = posterior_kernel = None
 
 
 def kepler_cs(mean_anomaly, ecc):

@@ -19,6 +19,7 @@ from massfit.errors import ConfigError
 from massfit.plan.checks import check_schedule
 from massfit.plan.choice import evenly_spaced, planned_curve, ranking_table, sigma_of
 from massfit.plan.forecast import FisherInformation, precision_block
+from massfit.plan.modes import mode_labels, read_modes, separating_epochs
 from massfit.plan.posterior import EnsembleInformation, Posterior, read_posterior
 from massfit.plan.result import PlanResult, mass_unit
 from massfit.plan.schedule import Schedule, empty_schedule
@@ -69,13 +70,17 @@ def plan_observations(source, candidates: Schedule, *, observed: Schedule | None
     check_seed(seed, key="--seed")
     if len(candidates) == 0:
         raise ConfigError("there are no candidate epochs", key="--candidates")
+    modes = []
     if isinstance(source, (str, os.PathLike)):
+        modes = read_modes(source)
         source = read_posterior(source)
     if isinstance(source, Posterior):
         if observed is not None and len(observed):
             raise ConfigError("a fit's posterior already holds its observations; give "
                               "no observed epochs with it", key="--observed")
         result = _plan_posterior(source, candidates, n_next, seed)
+        if modes:
+            _add_mode_separation(result, source, candidates, modes)
         if check:
             result.notes.append("no simulated check was run: checks need an assumed "
                                 "system (a fit's posterior has no truth to simulate from)")
@@ -132,6 +137,24 @@ def _plan_assumed(system, candidates, observed, n_next, check, check_steps, seed
 def _error_text(error):
     lo, hi = np.min(error), np.max(error)
     return f"{lo:.3g}" if lo == hi else f"{lo:.3g} to {hi:.3g}"
+
+
+def _add_mode_separation(result, posterior, candidates, modes):
+    """The epochs that best tell the fit's weighed modes apart (:mod:`massfit.plan.modes`)."""
+    labels = mode_labels(posterior.companions, modes)
+    kept = [k for k in range(len(modes)) if np.sum(labels == k) >= 10]
+    if len(kept) < 2:
+        return
+    labels = np.array([kept.index(k) if k in kept else -1 for k in labels])
+    probabilities = [modes[k]["probability"] for k in kept]
+    result.mode_separation = separating_epochs(posterior, candidates, labels, probabilities)
+    best = result.mode_separation[0]
+    result.notes.append(
+        f"the fit has {len(kept)} weighed modes; the epoch that best tells them apart is "
+        f"{best['time_utc'][:19]} UTC: the bound on picking the wrong mode goes from "
+        f"{best['wrong_mode_bound_now']:.3f} to {best['wrong_mode_bound_after']:.3g} "
+        f"(the modes' predictions differ there by up to "
+        f"{best['largest_separation_sigma']:.1f} errors; see mode_separation)")
 
 
 def _plan_posterior(posterior, candidates, n_next, seed):

@@ -45,6 +45,9 @@ class PlanResult:
     checks : list of dict
         Simulated fits that test the forecast (assumed systems only).
     notes : list of str
+    mode_separation : list of dict
+        Where the fit weighed several modes: every candidate epoch, best first, with
+        the bound on picking the wrong mode after it (:mod:`massfit.plan.modes`).
     """
 
     method: str
@@ -56,6 +59,7 @@ class PlanResult:
     checks: list = field(default_factory=list)
     notes: list = field(default_factory=list)
     inputs: dict = field(default_factory=dict)
+    mode_separation: list = field(default_factory=list)
 
     # ------------------------------------------------------------------ text
     def report(self) -> str:
@@ -230,6 +234,7 @@ class PlanResult:
                 "all_candidates": _json_block(self.all_candidates, unit),
                 "planned_next": _planned_list(self.ranking),
                 "checks": self.checks, "notes": self.notes, "inputs": self.inputs,
+                "mode_separation": self.mode_separation,
                 "paragraph": self.paragraph()}
 
     def save(self, out_dir, *, plots=True, force=False) -> Path:

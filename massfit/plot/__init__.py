@@ -10,14 +10,15 @@ periodograms, the O-C in a planet's frame), ``velocities`` (folded and against t
 and ``figures`` (the registry :data:`FIGURES`: file stem -> function).
 """
 
-from massfit.plot.corner import DEFAULT_COMPANION_QUANTITIES, corner_plot, default_corner_parameters
+from massfit.plot.corner import (DEFAULT_COMPANION_QUANTITIES, corner_plot, default_corner_parameters,
+                                 full_corner_plot)
 from massfit.plot.figures import FIGURES, applicable_figures
 from massfit.plot.residuals import equator_residual_plot, periodogram_plot, residual_plot
 from massfit.plot.sky import error_ellipses, orbit_plot
 from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, STYLE, math_name, save_figure, style
 from massfit.plot.velocities import velocity_plot, velocity_time_plot
 
-__all__ = ["corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
+__all__ = ["corner_plot", "full_corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
            "velocity_time_plot", "equator_residual_plot", "error_ellipses",
            "default_corner_parameters", "DEFAULT_COMPANION_QUANTITIES", "save_figure", "style",
            "math_name", "FIGURES", "applicable_figures", "COLUMN_WIDTH", "PAGE_WIDTH", "STYLE"]

@@ -10,13 +10,14 @@ import astropy.units as u
 import numpy as np
 
 from massfit.errors import ConfigError
-from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, math_name, style
+from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, by_period, math_name, style
+from massfit.summarise.dark_mass import corner_defaults, corner_quantity
 from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit, interval
 from massfit.summarise.quantities import COMPANION, MASS_UNIT_ASTROPY, MASS_UNIT_KEYS
 from massfit.summarise.rounding import round_interval
 
-__all__ = ["corner_plot", "default_corner_parameters", "Column",
-           "DEFAULT_COMPANION_QUANTITIES"]
+__all__ = ["corner_plot", "full_corner_plot", "default_corner_parameters", "Column",
+           "DEFAULT_COMPANION_QUANTITIES", "FULL_COMPANION_QUANTITIES"]
 
 _MASS_SAMPLES = MASS_UNIT_KEYS
 _MASS_ASTROPY = MASS_UNIT_ASTROPY
@@ -100,6 +101,10 @@ def _corner_columns(result, parameters, mass_unit):
         elif key == "gm":
             columns.append(Column(key, samples["central_gm"], "GM",
                                    r"\mathrm{km^3\,s^{-2}}", u.km ** 3 / u.s ** 2))
+        elif corner_quantity(samples, key) is not None:
+            values, symbol, unit, unit_text = corner_quantity(samples, key)
+            columns.append(Column(key, values, symbol, unit,
+                                  u.Unit(unit_text) if unit_text else u.one))
         elif key == "parallax":
             if "parallax" not in samples:
                 raise ConfigError("this fit has no sampled parallax to plot",
@@ -113,36 +118,101 @@ def _corner_columns(result, parameters, mass_unit):
                     or quantity not in comps[body]:
                 raise ConfigError(
                     f"unknown corner parameter {key!r}; accepted: mass, gm, parallax, "
+                    f"distance, precession_scale, frame.TERM (where fitted), "
                     f"or BODY.QUANTITY with BODY one of {', '.join(comps)} and QUANTITY "
                     f"one of {', '.join(_COMPANION_QUANTITIES)}", key="parameters")
             symbol, unit, unit_astropy = _COMPANION_QUANTITIES[quantity]
-            columns.append(Column(key, comps[body][quantity],
-                                   rf"{symbol}_{{{math_name(body)}}}", unit, unit_astropy))
+            values = comps[body][quantity]
+            if unit_astropy == u.km / u.s:  # velocities in the input's unit
+                values, unit, unit_astropy = _in_velocity_unit(result, values)
+            columns.append(Column(key, values, _with_body(symbol, body), unit,
+                                  unit_astropy))
     return columns
 
 
-def default_corner_parameters(result, companions=None, quantities=None) -> list:
-    """The corner plot's default parameters: mass, GM, parallax, then per companion."""
+#: Quantities of each companion in the full corner plot (on request): every sampled
+#: element. Derived copies (a in km or mas, the mass function) are left out: each is a
+#: fixed function of a column already there and would draw a line.
+FULL_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "inclination",
+                             "periapsis_argument", "ascending_node", "mass",
+                             "rv_semi_amplitude", "rv_semi_amplitude_companion")
+
+
+def default_corner_parameters(result, companions=None, quantities=None, *,
+                              full=False) -> list:
+    """The corner plot's parameters: the central mass, the parallax, then per companion.
+
+    By default each companion's P, a, e and i (and its mass, where sampled); with
+    velocities alone P, e and the semi-amplitudes. ``full`` gives every sampled element
+    of each companion. GM is not listed: it is the mass times a constant, and its panel
+    against the mass would be a line.
+    """
     names = list(result.samples["companions"]) if companions is None else list(companions)
-    if quantities is None and result.model.velocity_only:
+    if quantities is None and full:
+        quantities = FULL_COMPANION_QUANTITIES
+    elif quantities is None and result.model.velocity_only:
         quantities = ("period", "eccentricity", "rv_semi_amplitude",
                       "rv_semi_amplitude_companion")
     elif quantities is None:
-        # Beyond two companions P, a, e and i of each no longer fit on a page.
         # A companion mass that was sampled (a double-lined binary) is shown too.
-        quantities = DEFAULT_COMPANION_QUANTITIES + ("mass",) if len(names) <= 2 else (
-            "period", "semi_major_axis")
+        quantities = DEFAULT_COMPANION_QUANTITIES + ("mass",)
     # Velocities alone may leave the central mass undetermined: no column for it.
-    out = ["mass", "gm"] if "central_mass_solar" in result.samples else []
+    out = ["mass"] if "central_mass_solar" in result.samples else []
     out += ["parallax"] if "parallax" in result.samples else []
+    extra = corner_defaults(result.samples)
+    if extra and companions is None:
+        # Stars about a dark mass: the mass, the distance and the terms shared by all
+        # stars; the stars' own elements on request (``companions``).
+        return [key for key in out if key != "parallax"] + extra
     comps = result.samples["companions"]
-    return out + [f"{name}.{q}" for name in names for q in quantities if q in comps[name]]
+    return out + [f"{name}.{q}" for name in by_period(result, names)
+                  for q in quantities if q in comps[name]]
+
+
+
+def _with_body(symbol, body):
+    """The symbol with the body's name as subscript: ``K_{1,Pell-b}`` where the symbol
+    has a plain subscript of its own, ``{f(m)}_{Pell-b}`` otherwise (never a double
+    subscript, which math text refuses)."""
+    name = math_name(body)
+    base, _, sub = symbol.partition("_")
+    if sub and " " not in symbol and "(" not in symbol and base and "_" not in sub:
+        inner = sub[1:-1] if sub.startswith("{") and sub.endswith("}") else sub
+        return rf"{base}_{{{inner},{name}}}"
+    if not sub and " " not in symbol and "(" not in symbol:
+        return rf"{symbol}_{{{name}}}"
+    return rf"{{{symbol}}}_{{{name}}}"
+
+def _in_velocity_unit(result, values_kms):
+    """(values, LaTeX unit, astropy unit) of velocities in the unit the input gave."""
+    observations = result.model.observations
+    stated = observations.velocity_unit() if hasattr(observations, "velocity_unit") else None
+    unit = u.Unit(stated) if stated else u.km / u.s
+    latex = unit.to_string("latex_inline").strip("$")
+    return np.asarray(values_kms) * float((u.km / u.s).to(unit)), latex, unit
+
+
+def _copies(columns) -> list:
+    """Keys of columns that are a fixed monotonic function of an earlier column (their
+    ranks agree exactly: GM and M, a in au and in km), which would draw a line."""
+    ranks = [np.argsort(np.argsort(c.values, kind="stable"), kind="stable")
+             for c in columns]
+    out = []
+    for j in range(1, len(columns)):
+        for i in range(j):
+            if columns[i].key in out:
+                continue
+            rho = np.corrcoef(ranks[i], ranks[j])[0, 1]
+            if abs(rho) > 1 - 1e-9:
+                out.append(columns[j].key)
+                break
+    return out
 
 
 def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
                 quantities=None, truths=None, quantiles=(0.15865, 0.5, 0.84135),
-                titles=None, width=None, corner_kwargs=None):
-    """Corner plot of the central mass, GM, the parallax and the companions' elements.
+                titles=None, width=None, full=False, corner_kwargs=None):
+    """Corner plot of the central mass, the parallax and the companions' elements.
 
     Parameters
     ----------
@@ -151,16 +221,18 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         What to show, in order: ``mass``, ``gm``, ``parallax`` and
         ``BODY.QUANTITY`` with QUANTITY one of ``period``, ``semi_major_axis``,
         ``semi_major_axis_km``, ``semi_major_axis_angle``, ``eccentricity``,
-        ``inclination``, ``periapsis_argument``, ``ascending_node``, ``mass``. By
-        default the mass, GM, the parallax (where sampled) and each companion's
-        ``quantities``, leaving out any that did not vary (a fixed parallax or
-        mass); a parameter named here that did not vary is an error.
+        ``inclination``, ``periapsis_argument``, ``ascending_node``, ``mass``,
+        ``rv_semi_amplitude``, ``rv_semi_amplitude_companion``, ``mass_function``,
+        ``minimum_mass``. By default the mass, the parallax (where sampled) and each
+        companion's ``quantities`` in order of period, leaving out any that did not
+        vary (a fixed parallax or mass) or that is a fixed function of one already
+        shown; a parameter named here that did not vary is an error.
     mass_unit : {"Msun", "Mjup", "Mearth", "kg"}, optional
         Unit of the central mass; by default the one that reads best.
     companions, quantities : list of str, optional
         Companions and quantities of the default parameter list (all companions;
-        period, semi-major axis, eccentricity and inclination for up to two
-        companions, period and semi-major axis for more).
+        period, semi-major axis, eccentricity and inclination, and the companion's
+        mass where it was sampled).
     truths : dict, optional
         Parameter name -> true value, marked in the plot. A Quantity is converted to
         the axis's unit; a plain number is taken in it (the mass in ``mass_unit``,
@@ -169,11 +241,14 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         Quantiles marked on the 1-D histograms (default: the median and the 68.27 %
         interval); ``()`` for none.
     titles : bool, optional
-        Values above the diagonal; by default for up to five parameters, and a
+        Values above the diagonal; by default for up to two parameters, and a
         block of values in the empty upper triangle beyond that.
     width : float, optional
         Figure width in inches; by default one journal column for up to three
         parameters, the page width up to ten, and 0.6 in per parameter beyond.
+    full : bool, optional
+        Every sampled element of each companion (:data:`FULL_COMPANION_QUANTITIES`)
+        instead of P, a, e and i; written as ``corner_full`` on request.
     corner_kwargs : dict, optional
         Passed to :func:`corner.corner` last (overrides the choices above).
 
@@ -184,12 +259,15 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     import corner
     import matplotlib.pyplot as plt
 
-    columns = _shown_columns(result, parameters, mass_unit, companions, quantities, truths)
+    columns = _shown_columns(result, parameters, mass_unit, companions, quantities, truths,
+                             full)
     parameters = [c.key for c in columns]
     k = len(columns)
     if width is None:
-        width = COLUMN_WIDTH if k <= 3 else (PAGE_WIDTH if k <= 10 else 0.6 * k)
-    show_titles = k <= 5 if titles is None else bool(titles)
+        width = COLUMN_WIDTH if k <= 3 else max(PAGE_WIDTH, 0.6 * k)
+    # Titles fit above one or two panels; beyond, the values are listed in the empty
+    # upper triangle, where no title can run into a neighbouring panel.
+    show_titles = k <= 2 if titles is None else bool(titles)
     data = np.column_stack([c.plotted(c.values) for c in columns])
     with style():
         fig, _ = plt.subplots(k, k, figsize=(width, width))
@@ -210,7 +288,12 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
     return fig
 
 
-def _shown_columns(result, parameters, mass_unit, companions, quantities, truths):
+def full_corner_plot(result, **options):
+    """:func:`corner_plot` of every sampled element of each companion (``full=True``)."""
+    return corner_plot(result, full=True, **options)
+
+
+def _shown_columns(result, parameters, mass_unit, companions, quantities, truths, full):
     """The corner's columns: the parameters asked for (or the default ones that vary)."""
     if mass_unit is None:
         mass_unit = (best_mass_unit(float(np.median(result.samples["central_mass_solar"])))
@@ -220,10 +303,13 @@ def _shown_columns(result, parameters, mass_unit, companions, quantities, truths
                           f"{', '.join(_MASS_SAMPLES)}", key="mass_unit")
     asked = parameters
     if parameters is None:
-        parameters = default_corner_parameters(result, companions, quantities)
+        parameters = default_corner_parameters(result, companions, quantities, full=full)
     columns = _corner_columns(result, parameters, mass_unit)
-    # A fixed quantity (a fixed parallax or companion mass) has no panel to fill.
+    # A fixed quantity (a fixed parallax or companion mass) has no panel to fill, and a
+    # copy of another column (GM of M) would fill its panels with a line.
     fixed = [c.key for c in columns if not np.ptp(c.plotted(c.values)) > 0]
+    columns = [c for c in columns if c.key not in fixed]
+    fixed += _copies(columns) if asked is None else []
     if fixed and asked is not None:
         raise ConfigError(f"{', '.join(fixed)} did not vary in this fit (fixed or without "
                           f"spread): a corner panel needs samples that vary",
@@ -242,22 +328,29 @@ def _shown_columns(result, parameters, mass_unit, companions, quantities, truths
 def _tidy_corner(fig, columns, width, show_titles):
     k = len(columns)
     axes = np.array(fig.axes).reshape(k, k)
-    margin_left, margin_bottom = 0.78, 0.7  # inches for tick labels and axis labels
+    margin_left, margin_bottom = 0.9, 0.7  # inches for tick labels and axis labels
     top = 0.28 if show_titles else 0.08
     fig.subplots_adjust(left=margin_left / width, bottom=margin_bottom / width,
                         right=1 - 0.08 / width, top=1 - top / width,
                         wspace=0.06, hspace=0.06)
     panel = (width - margin_left - 0.08) / k
     tick_size = 7 if panel > 0.5 else 6
-    for ax in axes.flat:
+    for (row, col), ax in np.ndenumerate(axes):
         ax.tick_params(labelsize=tick_size, length=2.5, width=0.5, direction="in",
                        top=False, right=False)
+        if col <= row:
+            ax.xaxis.set_major_locator(_inner_ticks())
+            if col < row:
+                ax.yaxis.set_major_locator(_inner_ticks())
         for spine in ax.spines.values():
             spine.set_linewidth(0.5)
     for ax in axes[-1, :]:
         ax.xaxis.set_label_coords(0.5, -0.4 / panel)
     for ax in axes[1:, 0]:
-        ax.yaxis.set_label_coords(-0.45 / panel, 0.5)
+        ax.yaxis.set_label_coords(-0.6 / panel, 0.5)
+        # Level tick labels: turned ones reach into the panels above and below.
+        for label in ax.get_yticklabels():
+            label.set_rotation(0)
     if show_titles:
         for c, column in enumerate(columns):
             axes[c, c].set_title(column.value_text(), fontsize=7, pad=3)
@@ -269,3 +362,18 @@ def _tidy_corner(fig, columns, width, show_titles):
         fig.text(1 - 0.15 / width, 1 - 0.15 / width, text, ha="right", va="top",
                  fontsize=8 if k <= 10 else 9, linespacing=1.5)
 
+
+
+def _inner_ticks():
+    """At most three ticks, none in the outer tenth of the axis, whose labels would
+    meet those of the neighbouring panel."""
+    from matplotlib.ticker import MaxNLocator
+
+    class InnerTicks(MaxNLocator):
+        def tick_values(self, vmin, vmax):
+            ticks = super().tick_values(vmin, vmax)
+            low, high = sorted((vmin, vmax))
+            margin = 0.1 * (high - low)
+            return ticks[(ticks >= low + margin) & (ticks <= high - margin)]
+
+    return InnerTicks(nbins=3, steps=[1, 2, 2.5, 5, 10])

@@ -8,9 +8,10 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
+from massfit.summarise.dark_mass import summary_blocks, summary_lines
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
-from massfit.summarise.quantities import CENTRAL, COMPANION
+from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
 from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
@@ -48,8 +49,8 @@ def _companion_lines(comp) -> list:
             note = "; or +180 with node +180"
         block = comp[key]
         if key in SCALED_MASSES:
-            block, best = in_best_mass_unit(block)
-            unit = unit.replace("M_sun", best, 1)
+            block, _ = in_best_mass_unit(block)
+            unit = unit.replace("M_sun", block["unit"], 1)
         if note:
             unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
         lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
@@ -69,6 +70,26 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
+
+
+def _nested_lines(s, converged) -> list:
+    """The nested sampler's lines: the engine, the evidence, each mode's weight."""
+    eng, ev = s["sampler"], s["evidence"]
+    lines = ["Sampler (nested, " + eng["library"] + ")",
+             f"  {eng['sampler']} {eng['sample']}, {eng['live_points']} live points, "
+             f"{eng['runs_per_box']} run(s) in each of {eng['boxes']} box(es), "
+             f"{eng['likelihood_calls']} likelihood calls; converged: "
+             f"{'yes' if converged else 'NO'}",
+             f"  ln evidence = {ev['log_evidence']:.3f} +/- {ev['log_evidence_err']:.3f}"]
+    modes = s.get("weighed_modes", [])
+    for mode in modes if len(modes) > 1 else []:
+        periods = ", ".join(f"{n} P = {b['median']:.6g} d" for n, b in mode["period"].items())
+        runs = " / ".join(f"{p:.3f}" for p in mode["probability_runs"])
+        mass = mode.get("central_mass_solar")
+        lines.append(f"  mode {periods}: probability {mode['probability']:.3f} +/- "
+                     f"{mode['probability_err']:.3f} (runs {runs})"
+                     + (f", central mass {format_value(mass)} M_sun" if mass else ""))
+    return lines
 
 
 def _velocity_lines(rv) -> list:
@@ -148,6 +169,7 @@ class FitResult:
                     "no parallax was given: sampled with a "
                     f"{self.model.spec.parallax.describe('mas')} prior and fixed by the "
                     "companion's radial velocities with its relative astrometry")
+        summary.update(summary_blocks(self.model, s, interval))
         summary["converged"] = self.converged
         from massfit.summarise.adequacy import fit_quality, quality_warnings
 
@@ -189,6 +211,14 @@ class FitResult:
 
             summary["candidate_modes_basis"] = {"weight": WEIGHT_BASIS,
                                                 "must_visit_above": MIN_WEIGHT}
+        if getattr(chain, "evidence", None):
+            from massfit.summarise.posterior_checks import weighed_mode_blocks
+
+            summary["sampler"] = dict(chain.engine)
+            summary["evidence"] = dict(chain.evidence, unit="ln (natural log), the "
+                                       "likelihood's Gaussian normalisation included")
+            summary["weighed_modes"] = weighed_mode_blocks(chain.modes, chain.mode_members,
+                                                           s)
         if self.checks.get("central_mass_over_modes") is not None:
             summary["central_mass_over_modes"] = self.checks["central_mass_over_modes"]
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
@@ -225,6 +255,32 @@ class FitResult:
         best = self.chain.samples[int(np.argmax(self.chain.log_prob))]
         return assess(self.model, best, periods=periods)
 
+    def _chain_lines(self, d, s) -> list:
+        out = []
+        out.append("Sampler")
+        out.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
+                   f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
+                   f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
+                   f"acceptance {d['acceptance_fraction']:.2f}")
+        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
+        of = "the mass" if of == "central.log10_mass" else of
+        out.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
+                   f"sampling took {d['sampling_seconds']:.1f} s; "
+                   f"converged: {'yes' if self.converged else 'NO'}")
+        if len(s.get("candidate_modes", [])) > 1:
+            from massfit.summarise.posterior_checks import mode_report_lines
+
+            out.extend(mode_report_lines(s["candidate_modes"],
+                                         s.get("central_mass_over_modes")))
+        else:
+            for mode in s["modes"]:
+                mass = ("" if mode["central_mass"] is None
+                        else f", central mass {mode['central_mass']:.4g} M_sun")
+                out.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
+                           f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
+                           f"{mode['delta_chi2']:.1f}")
+        return out
+
     # --------------------------------------------------------------------- text
     def report(self) -> str:
         """A plain-text summary for the terminal."""
@@ -248,15 +304,14 @@ class FitResult:
                          f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
-            unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
-            key = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
-                   "Mearth": "central_mass_earth"}[unit]
-            lines.append(f"          = {format_value(s[key])} {unit}   ({WIDE_LABEL}: "
-                         f"{format_range(s[key])})")
+            key = MASS_UNIT_KEYS[best_mass_unit(s["central_mass_solar"]["median"] or 1.0)]
+            lines.append(f"          = {format_value(s[key])} {s[key]['unit']}   "
+                         f"({WIDE_LABEL}: {format_range(s[key])})")
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
             lines.append(f"  parallax = {format_value(s['parallax'])} mas")
+        lines.extend(summary_lines(s, format_value))
         if s.get("viewing"):
             view = s["viewing"]
             lines.append(f"Orbits in ICRS axes (i, node, omega against the ICRS equator); "
@@ -275,28 +330,10 @@ class FitResult:
             lines.extend(report_lines(s["adequacy"]))
         lines.append(_quality_line(s["fit_quality"]))
         d = s["diagnostics"]
-        lines.append("Sampler")
-        lines.append(f"  {d['walkers']} walkers x {d['steps']} steps, "
-                     f"max autocorrelation {d['max_autocorr_steps']:.1f} steps "
-                     f"(chain = {d['steps'] / max(d['max_autocorr_steps'], 1):.0f} tau), "
-                     f"acceptance {d['acceptance_fraction']:.2f}")
-        of = d.get("effective_samples_of", "central.log10_mass")  # older summaries lack it
-        of = "the mass" if of == "central.log10_mass" else of
-        lines.append(f"  effective samples of {of}: {d['effective_samples']:.0f}; "
-                     f"sampling took {d['sampling_seconds']:.1f} s; "
-                     f"converged: {'yes' if self.converged else 'NO'}")
-        if len(s.get("candidate_modes", [])) > 1:
-            from massfit.summarise.posterior_checks import mode_report_lines
-
-            lines.extend(mode_report_lines(s["candidate_modes"],
-                                      s.get("central_mass_over_modes")))
+        if "evidence" in s:
+            lines.extend(_nested_lines(s, self.converged))
         else:
-            for mode in s["modes"]:
-                mass = ("" if mode["central_mass"] is None
-                        else f", central mass {mode['central_mass']:.4g} M_sun")
-                lines.append(f"  other mode: {mode['body']} P = {mode['period']:.6g} d "
-                             f"(best {mode['best_period']:.6g} d){mass}, delta chi2 = "
-                             f"{mode['delta_chi2']:.1f}")
+            lines.extend(self._chain_lines(d, s))
         for text in s["warnings"]:
             lines.append(f"  warning: {text}")
         inputs = s["inputs"]

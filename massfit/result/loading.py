@@ -30,6 +30,7 @@ from massfit.errors import InputError
 from massfit.model.orbit_model import OrbitModel, SystemSpec
 from massfit.read.observations import Observations, Rejection
 from massfit.result.fit_result import FitResult
+from massfit.summarise.dark_mass import extra_samples
 from massfit.write.saved_state import (DATA_KINDS, OBSERVATIONS_FILE, OLD_VELOCITY_FILE, RUN_FILE, SAMPLES_FILE, STATE_VERSION,
                                       SUMMARY_FILE, model_state, write_observations)
 
@@ -194,6 +195,9 @@ def load_result(folder):
     result.start = SimpleNamespace(modes=list(summary.get("modes", [])))
     result.settings = None
     result.samples = _derived_from_table(table, model)
+    # The frame terms, the precession scale and the periapsis advances come from the
+    # sampled coordinates (frame.*, relativity.*), which the table keeps as such.
+    result.samples.update(extra_samples(model, model.physical(theta)))
     result.warnings = list(summary.get("warnings", []))
     result.record = record
     result.summary = summary

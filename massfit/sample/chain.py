@@ -19,7 +19,10 @@ import emcee
 import numpy as np
 import scipy.fft
 
-__all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed"]
+from massfit.model.compiled_posterior import on_threads
+from massfit.sample.progress import ConvergenceBar
+
+__all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed", "ConvergenceTest"]
 
 #: Required chain length in autocorrelation times.
 TAU_MULTIPLE = 50.0
@@ -47,6 +50,10 @@ class SamplerSettings:
         Seed for the walkers' start and for emcee; the same seed repeats the run.
     progress : bool or None
         Progress bar; None shows it only on a terminal.
+    threads : int or None
+        Threads the compiled log-posterior shares the walkers among
+        (:mod:`massfit.model.compiled_posterior`); None uses every core. The numbers
+        do not depend on it.
     """
 
     walkers: int | None = None
@@ -54,6 +61,7 @@ class SamplerSettings:
     check_every: int = 500
     seed: int | None = None
     progress: bool | None = None
+    threads: int | None = None
 
     def check(self, *, key_prefix: str = "", file=None) -> None:
         """Raise a ConfigError naming the key of the first setting massfit cannot use."""
@@ -61,8 +69,9 @@ class SamplerSettings:
 
         limits = (("walkers", self.walkers, 4), ("max_steps", self.max_steps, 100),
                   ("check_every", self.check_every, 50))
+        limits += (("threads", self.threads, 1),)
         for name, value, least in limits:
-            if value is None and name == "walkers":
+            if value is None and name in ("walkers", "threads"):
                 continue
             if not isinstance(value, int) or isinstance(value, bool) or value < least:
                 raise ConfigError(f"{name} must be a whole number of at least {least}",
@@ -112,7 +121,9 @@ class Chain:
         Mean over walkers.
     seconds : float
         Wall time of the sampling alone.
-    tau_history : list of (steps, max tau)
+    tau_history : list of (steps, tau)
+        The largest autocorrelation time at each check (where a check could stop at
+        the leading coordinate, that coordinate's: see :class:`ConvergenceTest`).
     resumed_from : int
         Steps that were already in the checkpoint when this run began (0 if fresh).
     walker_steps : ndarray, shape (n_kept, walkers, n_dim), optional
@@ -158,7 +169,58 @@ def _moves():
     # departed from the brute-force reference by a KS distance of 0.09. The test suite
     # pins this (tests/test_sampler_target.py). The snooker was also ~35 % dearer per
     # step on a four-companion model (benchmarks/) with no shorter autocorrelation.
-    return [(emcee.moves.DEMove(), 1.0)]
+    return [(_DEMove(), 1.0)]
+
+
+class _DEMove(emcee.moves.DEMove):
+    """emcee's DE move with the acceptance of a half-ensemble decided in one array
+    operation instead of a Python loop over its walkers: the loop draws one uniform
+    number per walker in order, ``rand(n)`` draws the same n numbers, so the chain is
+    emcee's to the bit (tests/test_convergence_checks.py). At a few tenths of a
+    millisecond a step, the loop cost as much as the compiled log-posterior."""
+
+    def propose(self, model, state):
+        nwalkers, ndim = state.coords.shape
+        if nwalkers < 2 * ndim and not self.live_dangerously:
+            raise RuntimeError("It is unadvisable to use a red-blue move with fewer "
+                               "walkers than twice the number of dimensions.")
+        self.setup(state.coords)
+        accepted = np.zeros(nwalkers, dtype=bool)
+        all_inds = np.arange(nwalkers)
+        inds = all_inds % self.nsplits
+        if self.randomize_split:
+            model.random.shuffle(inds)
+        for split in range(self.nsplits):
+            chosen = inds == split
+            sets = [state.coords[inds == j] for j in range(self.nsplits)]
+            q, factors = self.get_proposal(sets[split], sets[:split] + sets[split + 1:],
+                                           model.random)
+            new_log_probs, new_blobs = model.compute_log_prob_fn(q)
+            walkers = all_inds[chosen]
+            with np.errstate(invalid="ignore"):
+                difference = factors + new_log_probs - state.log_prob[walkers]
+                accepted[walkers] = difference > np.log(model.random.rand(walkers.size))
+            new_state = emcee.State(q, log_prob=new_log_probs, blobs=new_blobs)
+            state = self.update(state, new_state, accepted, chosen)
+        return state, accepted
+
+
+class _Sampler(emcee.EnsembleSampler):
+    """emcee's ensemble sampler taking a vectorised log-probability's array as it is
+    (emcee converts it value by value, looking for blobs massfit never returns); the
+    same checks of the coordinates and of NaN results."""
+
+    def compute_log_prob(self, coords):
+        if not self.vectorize or self.params_are_named:
+            return super().compute_log_prob(coords)
+        if np.any(np.isinf(coords)):
+            raise ValueError("At least one parameter value was infinite")
+        if np.any(np.isnan(coords)):
+            raise ValueError("At least one parameter value was NaN")
+        log_prob = np.array(self.log_prob_fn(coords), dtype=float).reshape(-1)
+        if np.any(np.isnan(log_prob)):
+            raise ValueError("Probability function returned NaN")
+        return log_prob, None
 
 
 def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
@@ -195,7 +257,8 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         backend = chain_backend(checkpoint)
         if not resume and backend.initialized:
             backend.reset(n_walkers, n_dim)
-    sampler = emcee.EnsembleSampler(n_walkers, n_dim, log_prob, vectorize=True,
+    sampler = _Sampler(n_walkers, n_dim, on_threads(log_prob, settings.threads),
+                                    vectorize=True,
                                     moves=_moves(), backend=backend)
     steps = resumed_from = int(sampler.iteration)
     if steps > 0:
@@ -204,9 +267,9 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         state = emcee.State(initial, random_state=np.random.RandomState(
             np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state())
     show = settings.progress if settings.progress is not None else sys.stderr.isatty()
-    bar = _progress_bar(show, settings.max_steps, steps)
+    bar = ConvergenceBar(show, settings.max_steps, TAU_MULTIPLE, steps)
     history = []
-    tau_old = None
+    test = ConvergenceTest()
     converged = False
     started = time.perf_counter()
     checked = 0
@@ -218,28 +281,22 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
                                             skip_initial_state_check=True):
                     if interrupted():
                         raise KeyboardInterrupt
-            if bar is not None:
-                bar.update(checked - steps)
+            bar.stepped(checked)
             steps = checked
-        tau = _autocorr(sampler.get_chain()[:checked])
+        tau = test.update(sampler.get_chain()[:checked])
         history.append((checked, float(np.max(tau))))
-        if bar is not None:
-            bar.set_postfix_str(f"tau_max={np.max(tau):.0f}, need {TAU_MULTIPLE:.0f} tau")
-        if (tau_old is not None and np.all(np.isfinite(tau))
-                and checked >= TAU_MULTIPLE * np.max(tau)
-                and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau)):
+        bar.checked(checked, float(np.max(tau)))
+        if test.converged:
             converged = True
             break
-        tau_old = tau
     seconds = time.perf_counter() - started
-    if bar is not None:
-        bar.close()
+    bar.close(converged)
     # A checkpoint never holds more than the run would have taken, but the result is
     # cut at the last check all the same, so it cannot depend on when it was stopped.
     steps = checked
     chain = sampler.get_chain()[:steps]
     lnp = sampler.get_log_prob()[:steps]
-    tau = _autocorr(chain)
+    tau = test.tau_at(chain)
     tau_max = float(np.max(tau)) if np.all(np.isfinite(tau)) else float(steps)
     burn_in = min(int(np.ceil(2 * tau_max)), steps // 2)
     thin = max(1, int(tau_max // 2))
@@ -254,6 +311,65 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         acceptance_fraction=float(np.mean(accepted / max(sampler.iteration, 1))),
         seconds=seconds, tau_history=history, resumed_from=resumed_from,
         walker_steps=chain[keep])
+
+
+class ConvergenceTest:
+    """The convergence criterion of this module, checked at growing lengths of one chain.
+
+    A check at n steps passes when every coordinate's autocorrelation time tau(n) is
+    finite, n >= 50 max tau(n), and every tau(n) is within 3 % of its value at the
+    previous check. Most checks fail on the length alone, and that needs only one
+    coordinate: n >= 50 max tau(n) requires n >= 50 tau_k(n) for the coordinate k
+    that led at the last full check. So a check first computes tau_k(n) alone (each
+    coordinate's estimate is computed on its own, so it is the number the full
+    computation gives) and stops there if it fails; only checks that pass it compute
+    every coordinate, and the previous check's values where those were skipped. The
+    decisions, and the step a run stops at, are those of computing everything at every
+    check (tests/test_convergence_checks.py); a check costs about 1/n_dim of that.
+
+    Parameters
+    ----------
+    every_coordinate : bool
+        Compute every coordinate at every check (the plain way; the reference).
+    """
+
+    def __init__(self, *, every_coordinate=False):
+        self.every_coordinate = every_coordinate
+        self.converged = False
+        self._lead = None  # the leading coordinate at the last full check
+        self._full = {}  # steps -> tau of every coordinate
+        self._checks = []  # steps of the checks so far
+
+    def update(self, chain):
+        """Check the chain so far (steps, walkers, dim); returns the tau computed
+        (every coordinate, or the leading one alone) and sets :attr:`converged`."""
+        n = chain.shape[0]
+        previous = self._checks[-1] if self._checks else None
+        self._checks.append(n)
+        if self._lead is not None and not self.every_coordinate:
+            lead = _autocorr(chain[:, :, self._lead:self._lead + 1])
+            if not (np.isfinite(lead[0]) and n >= TAU_MULTIPLE * lead[0]):
+                return lead
+        tau = self._full_tau(chain, n)
+        if np.all(np.isfinite(tau)):
+            self._lead = int(np.argmax(tau))
+        if previous is None:
+            return tau
+        tau_old = self._full_tau(chain, previous)
+        self.converged = bool(np.all(np.isfinite(tau)) and n >= TAU_MULTIPLE * np.max(tau)
+                              and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau))
+        return tau
+
+    def _full_tau(self, chain, n):
+        if n not in self._full:
+            keep = set(self._checks[-2:])  # only this check's and the previous one's
+            self._full = {k: v for k, v in self._full.items() if k in keep}
+            self._full[n] = _autocorr(chain[:n])
+        return self._full[n]
+
+    def tau_at(self, chain):
+        """Every coordinate's tau of ``chain`` (computed once per length)."""
+        return self._full_tau(chain, chain.shape[0])
 
 
 def _autocorr(chain, *, window_factor=5.0):
@@ -321,11 +437,3 @@ def _interrupt_between_steps():
         yield lambda: bool(pressed)
     finally:
         signal.signal(signal.SIGINT, previous)
-
-
-def _progress_bar(show, total, done=0):
-    if not show:
-        return None
-    from tqdm.auto import tqdm
-
-    return tqdm(total=total, initial=done, desc="sampling", unit="step", file=sys.stderr)

@@ -115,6 +115,7 @@ class SamplerCoordinates:
                                  f"{', '.join(missing)}")
             self._columns[body] = [index[f"{body}.{c}"] for c in _ELEMENTS]
         self.names = list(model.names)
+        self._tables = None  # (the model's window centres, compiled_tables())
         for body in self.bodies:
             for k, label in zip(self._columns[body], _STATE_DEPTH):
                 self.names[k] = f"{body}.{label}"
@@ -226,8 +227,12 @@ class SamplerCoordinates:
                 scale, angle = self.depth_frame[body]
                 if self._mirrored(body):
                     log_jac[state[:, 2] < 0] = -np.inf
-                c = (state[:, 2] + 1j * state[:, 5]) * np.exp(1j * angle)
-                state[:, 2], state[:, 5] = c.real, c.imag / scale
+                # (depth_1 + i depth_2) exp(i phi), written out in real numbers (numpy's
+                # complex product fuses a multiply-add on some machines, not on others).
+                depth_1, depth_2 = state[:, 2].copy(), state[:, 5].copy()
+                cos_a, sin_a = np.cos(angle), np.sin(angle)
+                state[:, 2] = depth_1 * cos_a - depth_2 * sin_a
+                state[:, 5] = (depth_1 * sin_a + depth_2 * cos_a) / scale
                 log_jac -= np.log(scale)
                 elements, lj = elements_of_state(state[:, :3], state[:, 3:], gm[body])
                 theta[:, cols] = self._model_columns(body, elements)
@@ -251,15 +256,53 @@ class SamplerCoordinates:
         return np.column_stack([np.log10(period), root * np.cos(omega), root * np.sin(omega),
                                 cos_inc, node, phase])
 
+    def compiled_tables(self):
+        """This change of coordinates as the compiled log-posterior's tables
+        (:mod:`massfit.model.compiled_posterior`): per sky-fixed-angle body its six
+        element columns and (sign, phase centre, the model's phase window low), per
+        state-vector body its six columns, (T, phi, mirrored, node window low, node
+        window width, phase window low) and its companion index."""
+        model = self.model
+        companions = list(model.companions)
+        lon_f = [(sign, centre, model.window(body, "phase")[0])
+                 for body, (sign, centre) in self.longitude.items()]
+        st_f = [self.depth_frame[body] + (float(self._mirrored(body)),
+                                          model.window(body, "node")[0],
+                                          model.node_width[body],
+                                          model.window(body, "phase")[0])
+                for body in self.bodies]
+        return (np.array([self._columns[b] for b in self.longitude],
+                         dtype=np.int64).reshape(-1, 6),
+                np.array(lon_f, dtype=float).reshape(-1, 3),
+                np.array([self._columns[b] for b in self.bodies],
+                         dtype=np.int64).reshape(-1, 6),
+                np.array(st_f, dtype=float).reshape(-1, 6),
+                np.array([companions.index(b) for b in self.bodies], dtype=np.int64))
+
     def log_prob(self, sampled):
-        """Log-posterior density in the sampler's coordinates, shape (n,)."""
+        """Log-posterior density in the sampler's coordinates, shape (n,).
+
+        Compiled in one call where the model's log-posterior is
+        (:mod:`massfit.model.compiled_posterior`); :meth:`log_prob_python` is the
+        reference.
+        """
+        compiled = self.model.compiled
+        if compiled is not None and compiled.available:
+            key = compiled.window_key()
+            if self._tables is None or self._tables[0] != key:
+                self._tables = (key, self.compiled_tables())
+            return compiled(sampled, self._tables[1], window_key=key)
+        return self.log_prob_python(sampled)
+
+    def log_prob_python(self, sampled):
+        """:meth:`log_prob` through :meth:`to_model` and the model's Python path."""
         if not self:
-            return self.model.log_prob(sampled)
+            return self.model.log_prob_python(sampled)
         theta, log_jac = self.to_model(sampled)
         lp = np.full(theta.shape[0], -np.inf)
         good = np.isfinite(log_jac)
         if np.any(good):
-            lp[good] = self.model.log_prob(theta[good]) + log_jac[good]
+            lp[good] = self.model.log_prob_python(theta[good]) + log_jac[good]
         return np.where(np.isfinite(lp), lp, -np.inf)
 
     def restore(self, chain):

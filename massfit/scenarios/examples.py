@@ -23,6 +23,12 @@ the velocities of both stars from two invented spectrographs (Halden and Quillon
 zero points differ by 0.9 km/s). No parallax is given: the visual orbit in mas and the
 velocity orbit in km/s give the distance, and both masses follow.
 
+*Brannock*: an invented unseen mass of 2.2 million solar masses at 5.6 kpc and four
+stars about it (:mod:`massfit.scenarios.dark_mass`: REBOUND with REBOUNDx's first
+post-Newtonian force), positions in a frame where the mass is not at the origin and
+velocities with the gravitational redshift; yearly positions over 32 years, dense
+positions and velocities near each periapsis passage.
+
 *Tamsin* (tests and validation only, not in ``example_obs``): a companion of an
 invented 1.15 M_sun star at 25 mas on a 305-day orbit, imaged on twelve nights one
 year apart. Its period aliases with the yearly cadence (1/P -+ 1/yr: about 1825 and
@@ -38,6 +44,7 @@ import numpy as np
 from astropy.time import Time
 
 from massfit.constants import GM_SUN_KM3_S2, MASS_UNITS
+from massfit.scenarios import dark_mass
 from massfit.scenarios.simulate import Elements, simulate_astrometry, write_scenario
 from massfit.read.timescales import quiet_leap_seconds
 
@@ -413,6 +420,8 @@ folder = "fit-out"
 
 
 def _readme(name, truth):
+    if name == "brannock":
+        return dark_mass.brannock_readme(truth)
     if name == "orvane":
         comps = truth["companions"].values()
         return _README[name].format(
@@ -455,7 +464,9 @@ def _write_orvane(folder):
 #: Scenario name -> writer of its folder (returns the truth).
 SCENARIOS = {"orvane": _write_orvane,
              "mirren": lambda folder: _write_tables(folder, mirren, _MIRREN_CONFIG),
-             "sorrel": lambda folder: _write_tables(folder, sorrel, _SORREL_CONFIG)}
+             "sorrel": lambda folder: _write_tables(folder, sorrel, _SORREL_CONFIG),
+             "brannock": lambda folder: _write_tables(folder, dark_mass.brannock,
+                                                      dark_mass.BRANNOCK_CONFIG)}
 
 
 def write_all(root="example_obs"):

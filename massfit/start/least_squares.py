@@ -161,6 +161,10 @@ def values_from_theta(model, theta):
         ecc_prior = model.companions[name].eccentricity
         top = 0.98 if ecc_prior.is_fixed else min(0.98, 0.999 * ecc_prior.high)
         values[name]["ecc"] = min(values[name]["ecc"], top)
+    if phys.get("frame") is not None:
+        values["frame"] = {key: float(value[0]) for key, value in phys["frame"].items()}
+    if "precession_scale" in phys:
+        values["precession_scale"] = float(phys["precession_scale"][0])
     if "rv" in phys:
         rv = phys["rv"]
         labels = model.velocity_rows.labels

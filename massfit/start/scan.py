@@ -101,7 +101,10 @@ def _sub_model(model, name):
         # Astrometry alone cannot part the companion's mass from the central one;
         # the joint step sets it from the primary's reflex.
         comp = replace(comp, mass=Fixed(0.0))
-    sub_spec = replace(spec, parallax=parallax, companions={name: comp})
+    # One star's search is on its own: the frame terms and relativity wait for the
+    # joint polish (they are small against an orbit, and shared by every star).
+    sub_spec = replace(spec, parallax=parallax, companions={name: comp}, frame=None,
+                       relativity=None)
     return OrbitModel(sub_obs, sub_spec)
 
 

@@ -28,6 +28,7 @@ from massfit.priors import Fixed
 from massfit.start.joint import best_combination, comparable_modes, joint_polish
 from massfit.start.least_squares import parameter_bounds, values_from_theta
 from massfit.start.modes import laplace_log_mass, merge_same_modes
+from massfit.start.progress import start_reporter
 from massfit.start.result import COMPARABLE_DELTA_CHI2, WEIGH_DELTA_CHI2, Start
 from massfit.start.scan import single_companion_modes
 from massfit.start.staged import perturbed_start, sight_start, staged_start
@@ -56,7 +57,10 @@ def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
     -------
     Start
     """
+    say = start_reporter(progress)
     if model.velocity_only:
+        say(f"periodogram and scan of the velocities for {len(model.companions)} "
+            f"companion(s)")
         return velocity_only_start(model)
     if getattr(model.dynamics, "start_evaluations", None):
         return staged_start(model, two_body_start(model), progress)
@@ -64,7 +68,12 @@ def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
         return perturbed_start(model, two_body_start(model))
     if model.sight is not None:
         return sight_start(model)
-    singles = {name: single_companion_modes(model, name) for name in model.companions}
+    singles = {}
+    for k, name in enumerate(model.companions):
+        say(f"period search for '{name}' ({k + 1} of {len(model.companions)} "
+            f"companion(s))")
+        singles[name] = single_companion_modes(model, name)
+    say("joint least squares of the companions' best periods")
     best, joint = best_combination(model, singles)
     found = [_mode_record(model, joint, best)]
     # Each companion's runner-ups, swapped into the joint solution, are candidate
@@ -74,6 +83,7 @@ def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
         for alt in comparable_modes(candidates, WEIGH_DELTA_CHI2)[:_ALTERNATIVES + 1]:
             if alt is best[name]:
                 continue
+            say(f"weighing the alternative period {alt['period']:.6g} d of '{name}'")
             trial = dict(best, **{name: alt})
             result = joint_polish(model, trial)
             if result[0] is not None:

@@ -19,6 +19,7 @@ from massfit.start.least_squares import (
     solve_least_squares,
     values_from_theta,
 )
+from massfit.start.progress import start_reporter
 from massfit.start.result import Start
 from massfit.start.scan import SCREEN_EVALUATIONS, prior_centre, single_companion_modes
 from massfit.start.velocities import inside_support
@@ -182,19 +183,13 @@ def staged_start(model, two_body, progress=None):
     ``start_evaluations``; a pass that stops there is reported in ``notes``.
     ``two_body`` is what :func:`two_body_start` returned for the model.
     """
-    import sys
-
-    show = sys.stderr.isatty() if progress is None else bool(progress)
     dynamics = model.dynamics
     limit = dynamics.start_evaluations
     _, found, values = two_body
     windows = _stage_windows(model, values)
     models = [_window_model(model, half) for half in windows[:-1]] + [model]
 
-    def say(text):
-        if show:
-            print(f"start ({dynamics.label}): {text}", file=sys.stderr, flush=True)
-
+    say = start_reporter(progress, dynamics.label)
     say(f"two-body search done; {len(models)} stage(s), windows of +/- "
         + ", ".join(f"{h:.4g}" for h in windows) + " d about the epoch")
     screened = []

@@ -232,6 +232,11 @@ def with_velocities(model, values):
         orbit["mass"] = inside_support(comp.mass, share * total)
         values["central_mass"] = max(total - orbit["mass"], 1e-30)
     values["rv"] = _velocity_nuisance(model, coef, fitted)
+    if model.spec.frame is not None:
+        # The instruments' zero points are the frame's: the fitted systemic velocity
+        # of the first instrument starts the primary's own velocity.
+        values["frame"] = dict(values.get("frame", {}),
+                               velocity=float(coef[("offset", vel.labels[0])]))
     return values
 
 

@@ -26,6 +26,7 @@ from dataclasses import replace
 import numpy as np
 
 from massfit.model.fit_quality import POOR_FIT_P_VALUE, chi2_block
+from massfit.summarise.dark_mass import relativity_adequacy, relativity_lines
 from massfit.summarise.residuals import peak_text
 
 __all__ = ["assess", "report_lines", "panels", "chi2_text", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
@@ -69,6 +70,7 @@ def assess(model, theta, *, periods=None, compare=None) -> dict:
     sky = model_residuals(model, theta) if model.rows else {}
     out = {"dynamics": model.dynamics.describe(),
            "romer_delay": bool(getattr(model.spec, "romer_delay", False)),
+           "relativity": relativity_adequacy(model, theta),
            "companions": {}}
     start = 0
     chi2_astrometry, n_astrometry = 0.0, 0
@@ -229,7 +231,10 @@ def _verdicts(block):
         out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
                    f"{comparison['delta_bic']:.1f} (positive favours "
                    f"{block['dynamics']['model']}); preferred: {comparison['preferred']}")
-    if not out:
+    if not out and not block["companions"]:
+        # Velocities alone: the fitted jitter absorbs misfit, so only the periodogram tests.
+        out.append("no residual periodic signal (chi2 is no test with a fitted jitter)")
+    elif not out:
         out.append("no sign that the model misses anything (chi2 and residual "
                    "periodograms consistent with noise)")
     return out
@@ -326,5 +331,6 @@ def report_lines(block) -> list:
                      f"{comparison['delta_aic']:.1f}, delta BIC {comparison['delta_bic']:.1f}")
     elif comparison:
         lines.append(f"  comparison: {comparison['error']}")
+    lines += relativity_lines(block.get("relativity"))
     lines += [f"  -> {text}" for text in block["verdicts"]]
     return lines

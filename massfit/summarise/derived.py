@@ -10,6 +10,7 @@ import numpy as np
 
 from massfit.constants import AU_KM, DAY_S, G_REL_UNCERTAINTY, GM_SUN_KM3_S2, MASS_UNITS
 from massfit.model.orbit_model import DEFAULT_CENTRAL_MASS_PRIOR, OrbitModel
+from massfit.summarise.dark_mass import extra_samples
 from massfit.summarise.quantities import MASS_UNIT_KEYS, MASS_UNIT_LABELS
 
 __all__ = ["interval", "derived_samples", "mass_function", "in_best_mass_unit",
@@ -102,6 +103,7 @@ def derived_samples(model: OrbitModel, samples: np.ndarray, *, seed=None) -> dic
         out["companions"][name] = _companion_samples(model, name, orbit, phys["parallax"])
         if "k_primary" in orbit:
             out["companions"][name].update(_amplitude_samples(model, name, orbit))
+    out.update(extra_samples(model, phys))
     if "rv" in phys:
         out["rv"] = _velocity_terms(model, phys["rv"])
     return out

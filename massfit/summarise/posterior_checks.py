@@ -18,9 +18,11 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.priors import LogUniform, Normal, Uniform
+from massfit.summarise.derived import interval
 from massfit.summarise.rounding import NARROW_LABEL, WIDE_LABEL, format_interval, format_range
 
 __all__ = ["split_modes", "posterior_modes", "prior_sensitivity", "mode_report_lines",
+           "weighed_mode_blocks",
            "SEPARATION", "MIN_MODE_FRACTION", "SHIFT_LIMIT"]
 
 #: Two groups of samples are separate modes when the empty gap between them is wider
@@ -289,3 +291,32 @@ def mode_report_lines(census, over_modes=None) -> list:
 def _block_text(block) -> str:
     return (f"{format_interval(block)} ({NARROW_LABEL}: {format_range(block, '68')}; "
             f"{WIDE_LABEL}: {format_range(block)})")
+
+
+def weighed_mode_blocks(modes, members, samples) -> list:
+    """The nested sampler's modes for the summary: each mode's probability with its
+    error, and the central mass and every period within it (interval blocks).
+
+    Parameters
+    ----------
+    modes : list of dict
+        :attr:`massfit.sample.nested.NestedChain.modes`.
+    members : list of ndarray
+        Per mode, the boolean mask of the samples drawn from it.
+    samples : dict
+        :func:`massfit.summarise.derived.derived_samples` of those samples.
+    """
+    out = []
+    for mode, member in zip(modes, members):
+        block = {key: mode[key] for key in (
+            "probability", "probability_err", "probability_runs", "log_z", "log_z_err",
+            "log_z_runs", "log_z_err_runs", "runs_agree", "period_boxes_days",
+            "start_periods", "laplace_weight") if key in mode}
+        block["draws"] = int(np.sum(member))
+        if "central_mass_Msun" in samples:
+            block["central_mass_solar"] = interval(samples["central_mass_Msun"][member],
+                                                   "M_sun")
+        block["period"] = {name: interval(comp["period"][member], "d")
+                           for name, comp in samples["companions"].items()}
+        out.append(block)
+    return out

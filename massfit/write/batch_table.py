@@ -75,9 +75,12 @@ def _strongest_signal(companions):
     return name, with_f[name]
 
 
-def failed_row(job, reason: str, seconds: float) -> dict:
-    """The results-table row of a system that could not be fitted."""
+def failed_row(job, reason: str, seconds: float, *, seed=None) -> dict:
+    """The results-table row of a system that could not be fitted (``seed``: the one its
+    config states, where the job does not set one)."""
     row = _row_base(job, seconds)
+    if seed is not None and "seed" not in job.sampler:
+        row["seed"] = int(seed)
     row["failure"] = " ".join(reason.split()) or "unknown failure"
     return row
 

@@ -38,10 +38,11 @@ __all__ = ["check_output_folder", "atomic_folder", "massfit_files", "FILES_WRITT
 FILES_WRITTEN_KEY = "files_written"
 #: Record files (which list the files written) and, for results written before that
 #: list existed, another file such a folder always holds.
-_RECORDS = {"run.json": "summary.json", "plan.json": "next_epochs.ecsv"}
+_RECORDS = {"run.json": "summary.json", "plan.json": "next_epochs.ecsv",
+            "comparison.json": "comparison.txt"}
 #: Stems of the files a fit or a plan writes, besides the figures of massfit.plot.figures.
 _OWN_STEMS = ("summary", "samples", "run", "observations", "velocities", "parameters",
-              "plan", "next_epochs", "precision")
+              "plan", "next_epochs", "precision", "comparison")
 
 
 def _own_stems() -> set:

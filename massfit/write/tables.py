@@ -13,6 +13,7 @@ from astropy.table import Table
 
 from massfit.summarise.derived import (MASS_UNIT_LABELS, SCALED_MASSES, best_mass_unit,
                                        in_best_mass_unit)
+from massfit.summarise.dark_mass import table_entries
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
 from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, format_interval,
                                         format_range, print_exponent, round_interval)
@@ -75,6 +76,7 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None) -> list:
     if "parallax" in summary:
         central.append("parallax")
     rows = [_row("", key, summary[key]) for key in central]
+    rows += [_Row("", *entry) for entry in table_entries(summary)]
     for name, comp in summary["companions"].items():
         rows += [_row(name, key, comp[key]) for key in COMPANION if key in comp]
     return rows

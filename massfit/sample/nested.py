@@ -1,0 +1,419 @@
+"""Nested sampling (dynesty): the evidence, and the weight of each separated mode.
+
+emcee's walkers do not cross between separated modes of the posterior (period aliases,
+a short arc that several periods fit), so they cannot weigh them. Nested sampling
+integrates the posterior mass instead: it gives the evidence
+
+    Z = integral of p(data | theta) p(theta) dtheta
+
+with its error, and posterior samples weighted by it. Single runs over the whole
+period range lose whole modes on sparse data (their live points leave a narrow mode
+before it is found), so where the start found several modes
+(:mod:`massfit.start.modes`) each mode is integrated on its own, with every period
+prior cut to the mode's box (:func:`massfit.start.modes.period_box`):
+
+    Z_k = Z(box k) * P(box k),   P(box k) = the prior probability of the box,
+
+and the weight of mode k is Z_k / sum_j Z_j. Each box is run :attr:`NestedSettings.runs`
+times with independent seeds; the runs of a box must agree within their stated errors
+(:data:`AGREEMENT_SIGMAS`), or the result is not converged. What lies outside all the
+boxes (where the start found no solution) is taken to hold no posterior mass.
+
+The likelihood is the model's own (``OrbitModel.log_likelihood``, its Gaussian
+normalisation included, so ln Z is absolute). The prior is the model's, drawn through
+:class:`PriorTransform`, which maps dynesty's unit cube to the model's coordinates by
+each prior's inverse cdf (:meth:`massfit.priors.Prior.quantile`). The model's
+coordinates are used as they are; the sampler coordinates of emcee
+(:mod:`massfit.sample.reparameterisation`) exist for the walkers' mixing, which nested
+sampling's moves within the unit cube do not need. Improper flat priors (velocity
+offsets and trends without a stated prior) have no inverse cdf: they become uniform
+boxes wide enough for any orbit the data allow (:func:`flat_box`), named in the
+result's notes, since the evidence depends on their width.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from massfit.sample.chain import Chain
+from massfit.start.modes import MIN_WEIGHT, period_box
+
+__all__ = ["NestedSettings", "NestedChain", "PriorTransform", "flat_box", "run_nested", "boxes_of",
+           "nested_box", "weigh_boxes", "AGREEMENT_SIGMAS", "ENGINES"]
+
+#: Two runs of one box agree when their ln Z differ by at most this many combined errors.
+AGREEMENT_SIGMAS = 3.0
+#: The engines ``--sampler`` accepts.
+ENGINES = ("emcee", "nested")
+#: Draws from the (weighted) posterior handed on as the result's samples.
+POSTERIOR_DRAWS = 20_000
+#: Draws of the ln Z errors used to propagate them into the modes' weights.
+ERROR_DRAWS = 4000
+TWO_PI = 2.0 * np.pi
+
+
+@dataclass
+class NestedSettings:
+    """How the nested sampler runs.
+
+    Parameters
+    ----------
+    live_points : int
+        dynesty's live points per run.
+    sample : str
+        dynesty's way of drawing a new live point: "rslice" (random slices) or
+        "rwalk" (random walks), both from existing live points.
+    dynamic : bool
+        dynesty's dynamic sampler (more live points where the posterior is) instead
+        of the static one.
+    runs : int
+        Independent runs of each mode's box (at least 1); with 2 or more they must
+        agree.
+    dlogz : float
+        Stop when the live points could add at most this much to ln Z.
+    seed : int or None
+    """
+
+    live_points: int = 400
+    sample: str = "rslice"
+    dynamic: bool = False
+    runs: int = 2
+    dlogz: float = 0.1
+    seed: int | None = None
+    max_calls: int | None = None
+
+    def check(self, *, key_prefix: str = "", file=None) -> None:
+        """Raise a ConfigError naming the first setting that cannot be used."""
+        from massfit.errors import ConfigError
+
+        for name, least in (("live_points", 20), ("runs", 1)):
+            value = getattr(self, name)
+            if not isinstance(value, int) or isinstance(value, bool) or value < least:
+                raise ConfigError(f"{name} must be a whole number of at least {least}",
+                                  key=f"{key_prefix}{name}", file=file)
+        if self.sample not in ("rslice", "rwalk"):
+            raise ConfigError("accepted: rslice, rwalk", key=f"{key_prefix}nested_sample",
+                              file=file)
+        if not (isinstance(self.dlogz, (int, float)) and 0 < self.dlogz <= 10):
+            raise ConfigError("dlogz must be a number in (0, 10]", key=f"{key_prefix}dlogz",
+                              file=file)
+
+
+@dataclass
+class NestedChain(Chain):
+    """A :class:`~massfit.sample.chain.Chain` made by nested sampling.
+
+    ``samples`` are equally weighted draws from the posterior (over all modes);
+    ``walkers`` holds the live points, ``steps`` the iterations of all runs, ``tau``
+    ones (the draws are independent). ``evidence`` is ``log_evidence`` and
+    ``log_evidence_err`` (natural log, the likelihood's normalisation included) and
+    ``modes`` one entry per box (see :func:`weigh_boxes`), ``mode_members`` per box a
+    boolean mask of the samples drawn from it.
+    """
+
+    evidence: dict = field(default_factory=dict)
+    modes: list = field(default_factory=list)
+    mode_members: list = field(default_factory=list)
+    engine: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+    kish_samples: float = 0.0
+
+    def effective_samples(self, k: int = 0) -> float:
+        """Kish's effective sample size of the importance weights (all coordinates)."""
+        return float(self.kish_samples)
+
+
+def flat_box(model, param):
+    """(low, high) of a uniform box standing in for an improper flat prior.
+
+    Offsets: the instrument's velocities' range widened by that range (at least 10
+    errors) each way. Trend slope: the velocities' full range per the data's span,
+    each way; curvature: that per span squared, times 8. Any orbit the data allow
+    lies well inside.
+    """
+    vel = model.velocity_rows
+    spread = float(np.ptp(vel.rv)) + 10.0 * float(np.sqrt(np.max(vel.err2)))
+    span = max(float(np.ptp(vel.t)), 1.0)
+    kind, label = param.target
+    if kind == "offset":
+        rv = vel.rv[vel.instrument == vel.labels.index(label)]
+        return float(np.min(rv) - spread), float(np.max(rv) + spread)
+    half = spread / span if kind == "slope" else 8.0 * spread / span ** 2
+    return -half, half
+
+
+class PriorTransform:
+    """dynesty's unit cube -> the model's coordinates, distributed as the model's prior.
+
+    Parameters
+    ----------
+    model : OrbitModel
+        Its node and phase windows must already be centred (the start does that).
+    boxes : dict, optional
+        Companion name -> (low, high) days: that period prior cut to the box (the
+        prior renormalised within it); :attr:`log_box_mass` is then the log of the
+        box's prior probability.
+
+    Notes
+    -----
+    Per coordinate: a period, mass, parallax, jitter or semi-amplitude is its prior's
+    quantile of u (then log10 where sampled as log10); cos i is uniform on [-1, 1] for
+    the default isotropic orientation, else the cosine of the inclination prior's
+    quantile; (sqrt e cos w, sqrt e sin w) take e from its prior's quantile and w
+    uniform (uniform on the sqrt(e) disc in w, as the model's prior); node and phase
+    are uniform over their windows, a fixed-eccentricity omega over 2 pi.
+    """
+
+    def __init__(self, model, boxes=None):
+        self.model = model
+        self.notes = []
+        self.log_box_mass = 0.0
+        self._maps = []
+        boxes = dict(boxes or {})
+        for k, param in enumerate(model.parameters):
+            self._maps.append(self._map_of(param, boxes))
+
+    def _map_of(self, param, boxes):
+        name, kind, prior = param.name, param.transform, param.prior
+        if kind == "disc":
+            if name.endswith("sqrt_e_sin_w"):
+                return None  # drawn with its partner
+            return ("disc", prior, self.model.column_of[name.replace("cos_w", "sin_w")])
+        if kind == "window":
+            body, which = name.rsplit(".", 1)
+            low, high = ((-np.pi, np.pi) if which == "omega"
+                         else self.model.window(body, which))
+            return ("linear", low, high)
+        if kind == "flat":
+            low, high = flat_box(self.model, param)
+            self.notes.append(f"{name}: an improper flat prior, drawn uniform on "
+                              f"[{low:.6g}, {high:.6g}] (the evidence depends on this width)")
+            return ("linear", low, high)
+        if kind == "cos":
+            if type(prior).__name__ == "Uniform" and prior.low == 0.0 \
+                    and prior.high == np.pi:
+                return ("linear", -1.0, 1.0)  # isotropic: uniform in cos i
+            return ("quantile", prior, 0.0, 1.0, np.cos)
+        body = name.split(".")[0]
+        lo, hi = 0.0, 1.0
+        if name.endswith(".log10_period") and body in boxes:
+            lo, hi = (float(c) for c in prior.cdf(np.asarray(boxes[body], dtype=float)))
+            if not hi > lo:
+                raise ValueError(f"the period box {boxes[body]} of {body} holds no prior mass")
+            self.log_box_mass += float(np.log(hi - lo))
+        outer = np.log10 if kind == "log10" else None
+        return ("quantile", prior, lo, hi, outer)
+
+    def __call__(self, u):
+        u = np.asarray(u, dtype=float)
+        theta = np.empty(u.size)
+        for k, how in enumerate(self._maps):
+            if how is None:
+                continue
+            if how[0] == "linear":
+                theta[k] = how[1] + u[k] * (how[2] - how[1])
+            elif how[0] == "disc":
+                ecc = float(how[1].quantile(u[k]))
+                omega = TWO_PI * u[how[2]] - np.pi
+                theta[k] = np.sqrt(ecc) * np.cos(omega)
+                theta[how[2]] = np.sqrt(ecc) * np.sin(omega)
+            else:
+                _, prior, lo, hi, outer = how
+                value = float(prior.quantile(lo + u[k] * (hi - lo)))
+                theta[k] = value if outer is None else outer(value)
+        return theta
+
+
+def _log_likelihood(model):
+    def log_like(theta):
+        value = float(model.log_likelihood(theta[None, :])[0])
+        # dynesty wants a finite number; -1e300 is below any live point.
+        return value if np.isfinite(value) else -1e300
+    return log_like
+
+
+def nested_box(model, settings, seed, boxes=None) -> dict:
+    """One dynesty run over the prior (with the periods of ``boxes`` cut to them).
+
+    Returns
+    -------
+    dict
+        ``log_z`` (of the box's own renormalised prior), ``log_z_err``,
+        ``log_box_mass``, ``samples`` (model coordinates), ``weights`` (normalised),
+        ``iterations``, ``calls``, ``seconds``, ``efficiency`` (%).
+    """
+    import dynesty
+
+    transform = PriorTransform(model, boxes)
+    rng = np.random.default_rng(seed)
+    started = time.perf_counter()
+    common = dict(sample=settings.sample, bound="multi", rstate=rng)
+    if settings.dynamic:
+        sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
+                                               model.n_dim, **common)
+        sampler.run_nested(nlive_init=settings.live_points, dlogz_init=settings.dlogz,
+                           maxcall=settings.max_calls, print_progress=False)
+    else:
+        sampler = dynesty.NestedSampler(_log_likelihood(model), transform, model.n_dim,
+                                        nlive=settings.live_points, **common)
+        sampler.run_nested(dlogz=settings.dlogz, maxcall=settings.max_calls,
+                           print_progress=False)
+    res = sampler.results
+    weights = np.exp(res.logwt - res.logz[-1])
+    calls = int(np.sum(res.ncall))
+    return {"log_z": float(res.logz[-1]), "log_z_err": float(res.logzerr[-1]),
+            "log_box_mass": transform.log_box_mass, "samples": np.asarray(res.samples),
+            "weights": weights / weights.sum(), "iterations": int(res.niter),
+            "calls": calls, "seconds": time.perf_counter() - started,
+            "efficiency": float(res.eff),
+            "reached_dlogz": settings.max_calls is None or calls < settings.max_calls,
+            "notes": transform.notes}
+
+
+def weigh_boxes(runs, *, seed=None, agreement=AGREEMENT_SIGMAS) -> dict:
+    """Each box's evidence over its runs, the boxes' weights with errors, the total.
+
+    Parameters
+    ----------
+    runs : list of list of dict
+        Per box, its runs (:func:`nested_box`).
+
+    Returns
+    -------
+    dict
+        ``log_evidence``, ``log_evidence_err`` (the sum over the boxes), ``boxes``:
+        per box ``log_z`` (with the box's prior probability, the runs averaged),
+        ``log_z_err``, ``log_z_runs``, ``log_z_err_runs``, ``runs_agree``,
+        ``probability``, ``probability_err``, ``probability_runs`` (the weights each
+        set of runs alone gives).
+    """
+    from scipy.special import logsumexp
+
+    boxes = []
+    for box_runs in runs:
+        values = np.array([r["log_z"] + r["log_box_mass"] for r in box_runs])
+        errors = np.array([r["log_z_err"] for r in box_runs])
+        mean = float(np.mean(values))
+        # The runs' own scatter counts too where it exceeds their stated errors.
+        err = float(np.sqrt(np.mean(errors ** 2) / values.size))
+        if values.size > 1:
+            err = max(err, float(np.std(values, ddof=1) / np.sqrt(values.size)))
+        agree = all(abs(a - b) <= agreement * np.hypot(ea, eb)
+                    for i, (a, ea) in enumerate(zip(values, errors))
+                    for b, eb in list(zip(values, errors))[i + 1:])
+        boxes.append({"log_z": mean, "log_z_err": err, "log_z_runs": values.tolist(),
+                      "log_z_err_runs": errors.tolist(), "runs_agree": bool(agree)})
+    log_z = np.array([b["log_z"] for b in boxes])
+    log_err = np.array([b["log_z_err"] for b in boxes])
+    rng = np.random.default_rng(seed)
+    draws = log_z + log_err * rng.standard_normal((ERROR_DRAWS, log_z.size))
+    total = logsumexp(draws, axis=1)
+    weights = np.exp(log_z - logsumexp(log_z))
+    spread = np.exp(draws - total[:, None]).std(axis=0)
+    n_runs = min(len(r) for r in runs)
+    for j, box in enumerate(boxes):
+        box["probability"] = float(weights[j])
+        box["probability_err"] = float(spread[j])
+        per_run = []
+        for i in range(n_runs):
+            lz = np.array([runs[b][i]["log_z"] + runs[b][i]["log_box_mass"]
+                           for b in range(len(runs))])
+            per_run.append(float(np.exp(lz[j] - logsumexp(lz))))
+        box["probability_runs"] = per_run
+    return {"log_evidence": float(logsumexp(log_z)),
+            "log_evidence_err": float(np.std(total)), "boxes": boxes}
+
+
+def _mixture(runs, probabilities, rng, draws=POSTERIOR_DRAWS):
+    """Equal-weight posterior draws over all boxes, and Kish's effective size."""
+    counts = rng.multinomial(draws, probabilities)
+    parts, squares = [], 0.0
+    for box_runs, count, p in zip(runs, counts, probabilities):
+        samples = np.concatenate([r["samples"] for r in box_runs])
+        weights = np.concatenate([r["weights"] / len(box_runs) for r in box_runs])
+        squares += float(np.sum((p * weights) ** 2))
+        if count:
+            parts.append(samples[rng.choice(samples.shape[0], size=count, p=weights)])
+    return np.concatenate(parts), 1.0 / squares
+
+
+def boxes_of(start, model):
+    """Period boxes of the start's weighty modes: list of (mode, {body: (lo, hi)}),
+    or [(None, {})] (one run over the whole prior) where there is one mode."""
+    candidates = list(getattr(start, "candidate_modes", []) or [])
+    heavy = [m for m in candidates if m["weight"] >= MIN_WEIGHT]
+    if len(heavy) < 2 or any(c.get("searched_with") for c in candidates):
+        return [(None, {})]
+    out = []
+    for mode in heavy:
+        others = [c for c in candidates if c is not mode]
+        boxes = {}
+        for name in mode["periods"]:
+            if not model.companions[name].period.is_fixed:
+                boxes[name] = period_box(mode, others, name)
+        out.append((mode, boxes))
+    return out
+
+
+def run_nested(model, start, settings: NestedSettings) -> NestedChain:
+    """Nested sampling of the model's posterior, mode by mode where the start found
+    several (see the module notes); the result as a :class:`NestedChain`."""
+    import dynesty
+
+    started = time.perf_counter()
+    seeds = np.random.SeedSequence(settings.seed).spawn(64)
+    plan = boxes_of(start, model)
+    runs, k = [], 0
+    for mode, boxes in plan:
+        box_runs = []
+        for _ in range(settings.runs):
+            seed = int(seeds[k % 64].generate_state(1)[0])
+            box_runs.append(nested_box(model, settings, seed, boxes))
+            k += 1
+        runs.append(box_runs)
+    weighed = weigh_boxes(runs, seed=settings.seed)
+    probabilities = np.array([b["probability"] for b in weighed["boxes"]])
+    rng = np.random.default_rng(seeds[-1])
+    samples, kish = _mixture(runs, probabilities, rng)
+    modes = []
+    for (mode, boxes), box in zip(plan, weighed["boxes"]):
+        entry = dict(box, period_boxes_days={n: list(b) for n, b in boxes.items()})
+        if mode is not None:
+            entry["start_periods"] = dict(mode["periods"])
+            entry["laplace_weight"] = mode["weight"]
+        modes.append(entry)
+    flat = [r for box_runs in runs for r in box_runs]
+    converged = (all(b["runs_agree"] for b in weighed["boxes"])
+                 and all(r["reached_dlogz"] for r in flat))
+    engine = {"engine": "nested", "library": f"dynesty {dynesty.__version__}",
+              "sampler": "dynamic" if settings.dynamic else "static",
+              "sample": settings.sample, "live_points": settings.live_points,
+              "runs_per_box": settings.runs, "dlogz": settings.dlogz,
+              "boxes": len(plan), "likelihood_calls": int(sum(r["calls"] for r in flat)),
+              "convergence_basis": (
+                  "every run stopped by its dlogz rule and, per box, the runs' ln Z "
+                  f"agree within {AGREEMENT_SIGMAS:g} combined errors")}
+    chain = NestedChain(
+        samples=samples, log_prob=model.log_prob(samples),
+        steps=int(sum(r["iterations"] for r in flat)), walkers=settings.live_points,
+        tau=np.ones(model.n_dim), converged=bool(converged), burn_in=0, thin=1,
+        acceptance_fraction=float(np.mean([r["efficiency"] for r in flat]) / 100.0),
+        seconds=time.perf_counter() - started, tau_history=[],
+        evidence={"log_evidence": weighed["log_evidence"],
+                  "log_evidence_err": weighed["log_evidence_err"]},
+        modes=modes, mode_members=[_member_mask(model, samples, b) for _, b in plan],
+        engine=engine, notes=list(dict.fromkeys(flat[0]["notes"])),
+        kish_samples=kish)
+    return chain
+
+
+def _member_mask(model, samples, boxes):
+    """Which samples lie in the period boxes (all True without boxes)."""
+    inside = np.ones(samples.shape[0], dtype=bool)
+    for name, (low, high) in boxes.items():
+        period = 10.0 ** samples[:, model.column_of[f"{name}.log10_period"]]
+        inside &= (period >= low) & (period <= high)
+    return inside
