@@ -16,7 +16,8 @@ import time
 
 import numpy as np
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.priors import Fixed
 
 from common import HERE, best_time, one_companion_table, observations_from

@@ -29,7 +29,8 @@ import numpy as np
 
 import massfit
 from massfit.orbits import kepler
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.run import distance_prior
 from massfit.sample.chain import _moves
 from massfit.start.search import find_start

@@ -34,7 +34,8 @@ import emcee
 import numpy as np
 from astropy.time import Time
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.orbits import kepler
 from massfit.run import distance_prior
 from massfit.sample.chain import ConvergenceTest, SamplerSettings, run_sampler

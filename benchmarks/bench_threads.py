@@ -17,7 +17,8 @@ import numba
 import numpy as np
 
 from massfit.model.compiled_posterior import on_threads
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.run import distance_prior
 from massfit.sample.chain import SamplerSettings, run_sampler
 from massfit.sample.reparameterisation import SamplerCoordinates

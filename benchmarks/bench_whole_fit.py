@@ -13,7 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.plot.figures import FIGURES, applicable_figures
 from massfit.plot.style import save_figure
 from massfit.run import assemble_result, distance_prior

@@ -14,7 +14,8 @@ import time
 
 import numpy as np
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.run import distance_prior
 from massfit.sample.chain import SamplerSettings, run_sampler
 from massfit.sample.reparameterisation import SamplerCoordinates

@@ -14,7 +14,9 @@ Three lines from a notebook::
 from massfit.config.fit import load_config
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import ConfigError, InputError, MassfitError, ModelError
-from massfit.model.orbit_model import CompanionSpec, FrameSpec, RelativitySpec, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
+from massfit.model.frame import FrameSpec
+from massfit.orbits.relativity import RelativitySpec
 from massfit.orbits.perturbed import NBody
 from massfit.orbits.oblate import Oblate
 from massfit.plan.forecast import forecast_precision

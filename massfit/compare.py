@@ -1,7 +1,7 @@
 """Models of one data set compared by their evidence (nested sampling).
 
 Each model (two-body or J2 or mutual pulls; N or N + 1 companions; with or without a
-velocity trend: any :class:`~massfit.model.orbit_model.SystemSpec`) is fitted to the
+velocity trend: any :class:`~massfit.model.specs.SystemSpec`) is fitted to the
 same observations with the nested engine (:mod:`massfit.sample.nested`), which gives
 its evidence Z_i = p(data | model i). With equal prior odds the models' posterior
 probabilities are Z_i / sum_j Z_j, and the Bayes factor of model i over model j is
@@ -41,7 +41,7 @@ def compare_models(observations, models, *, nested=None, seed=None, progress=Fal
     observations : Observations
         The one data set every model is fitted to.
     models : dict
-        Label -> :class:`~massfit.model.orbit_model.SystemSpec` (at least two).
+        Label -> :class:`~massfit.model.specs.SystemSpec` (at least two).
     nested : NestedSettings, optional
     seed : int, optional
         The same seed for every model (each fit's runs are independent of the others').

@@ -8,7 +8,8 @@ import sys
 import numpy as np
 
 from massfit.errors import ConfigError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.read.observations import Observations
 from massfit.priors import Fixed, Normal
 from massfit.result.fit_result import FitResult

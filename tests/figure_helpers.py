@@ -124,7 +124,7 @@ def planet_result():
     from pathlib import Path
 
     import massfit
-    from massfit.model.orbit_model import SystemSpec
+    from massfit.model.specs import SystemSpec
 
     path = write_planet_velocities(Path(tempfile.mkdtemp(prefix="massfit-planet-")))
     obs = massfit.read_observations(path, primary="Pell")

@@ -18,7 +18,8 @@ import pytest
 from test_speed_paths import _model as speed_paths_model
 
 from massfit.model.compiled_posterior import compiled_posterior, why_not_compiled
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.orbits import kepler
 from massfit.priors import Fixed, Normal, Uniform
 from massfit.sample.reparameterisation import SamplerCoordinates

@@ -15,7 +15,8 @@ import massfit
 from massfit.constants import GM_SUN
 from massfit.sample.reparameterisation import ARC_FRACTION, SamplerCoordinates, _two_body_states
 from massfit.orbits.dynamics import orbit_state
-from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
+from massfit.model.orbit_model import OrbitModel
 from massfit.priors import LogUniform, Uniform
 from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry
 from massfit.start.search import find_start

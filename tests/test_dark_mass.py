@@ -24,7 +24,9 @@ import pytest
 
 from massfit.constants import C_AU_PER_DAY, GM_SUN
 from massfit.errors import ModelError
-from massfit.model.orbit_model import FrameSpec, OrbitModel, RelativitySpec
+from massfit.model.frame import FrameSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.orbits.relativity import RelativitySpec
 from massfit.orbits import relativity
 from massfit.priors import Fixed
 from massfit.scenarios import dark_mass

@@ -100,7 +100,8 @@ def test_light_time_matters_for_the_moons():
     # Negative control for the per-row light time: the moons' positions carry the
     # changing observer distance (4.3-6.3 au, up to 17 minutes of light time); fitted
     # without the correction, the best fit must be clearly worse.
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.start.search import find_start
 
     obs = massfit.read_observations(DEMO_DIR / "moons.ecsv")
@@ -146,7 +147,8 @@ def _aliased_moons():
 def test_shared_mass_picks_the_right_alias():
     # Seen every 4 d, the 3.71 d moon fits equally well at its alias near 51 d; only
     # the mass shared with the outer moon tells them apart.
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.start.search import find_start
 
     model = OrbitModel(_aliased_moons(), SystemSpec())
@@ -160,7 +162,8 @@ def test_shared_mass_picks_the_right_alias():
 def test_poor_fit_is_flagged():
     # Negative control for the goodness-of-fit verdict: errors stated 5x too small.
     from massfit.summarise.adequacy import assess, fit_quality, quality_warnings
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.start.search import find_start
 
     obs = _aliased_moons()
@@ -180,7 +183,8 @@ def test_poor_fit_is_flagged():
 @pytest.fixture(scope="module")
 def wren_start(wren_observations):
     """The Wren set's model maker and its start on every row, the ordinary way."""
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.run import distance_prior
     from massfit.start.search import find_start
 

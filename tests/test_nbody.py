@@ -5,7 +5,8 @@ import pytest
 
 from massfit.orbits.dynamics import Keplerian, orbit_state
 from massfit.errors import ConfigError
-from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
+from massfit.model.orbit_model import OrbitModel
 from massfit.orbits.nbody import HAVE_NUMBA, integrate_system, total_energy
 from massfit.orbits.perturbed import NBody
 from massfit.priors import Fixed, LogUniform

@@ -19,7 +19,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec, CompanionSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec, CompanionSpec
 from massfit.priors import Fixed, LogUniform, Normal, Uniform
 from massfit.sample.nested import NestedSettings, PriorTransform, nested_box, run_nested
 

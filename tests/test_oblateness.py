@@ -7,7 +7,8 @@ import pytest
 
 from massfit import read_observations
 from massfit.errors import ConfigError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.orbits.oblate import (Oblate, integrate_oblate_orbit, mean_and_geometric_axis,
                                 oblate_gm, simulate_equatorial_moons)
 

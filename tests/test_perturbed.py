@@ -257,7 +257,8 @@ def test_start_candidates_mirror_only_on_a_fixed_sky_plane(tmp_path):
     # every candidate, with or without pulls.
     from dataclasses import replace
 
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.orbits.perturbed import Perturbed
 
     obs, moons, values = _moving_observer_moons(tmp_path)
@@ -283,7 +284,8 @@ def test_viewing_pole_is_the_perturbed_models_pole(tmp_path):
     # (cos Dec cos RA, cos Dec sin RA, sin Dec)). The [viewing] pole and that
     # equator must give the same residuals; the mean of the orbit normals (no pole)
     # is the negative control.
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.orbits.perturbed import Perturbed
     from massfit.orbits.viewing import ViewingSpec
 

@@ -7,7 +7,8 @@ from astropy.time import Time
 
 import massfit
 from massfit.summarise.posterior_checks import posterior_modes, prior_sensitivity, split_modes
-from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
+from massfit.model.orbit_model import OrbitModel
 from massfit.priors import LogUniform
 from massfit.run import assemble_result
 from massfit.sample.chain import SamplerSettings, run_sampler

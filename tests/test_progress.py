@@ -33,7 +33,8 @@ def test_sampling_bar_runs_against_convergence_not_the_step_cap(capsys):
 def test_start_search_says_its_stages(tmp_path, capsys):
     from conftest import write_one_companion
 
-    from massfit.model.orbit_model import OrbitModel, SystemSpec
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
     from massfit.read.tables import read_observations
     from massfit.start.search import find_start
 

@@ -10,7 +10,8 @@ from astropy.time import Time
 from massfit import read_observations
 from massfit.constants import C_AU_PER_DAY, GM_SUN
 from massfit.orbits.dynamics import observed_offsets, orbit_state, romer_factor
-from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
+from massfit.model.orbit_model import OrbitModel
 from massfit.priors import Fixed
 
 # An invented wide binary: 2.0 + 0.8 M_sun on a 30-year, e = 0.5 orbit.

@@ -15,7 +15,8 @@ import pytest
 
 import massfit
 from massfit.orbits import kepler
-from massfit.model.orbit_model import CompanionSpec, OrbitModel
+from massfit.model.specs import CompanionSpec
+from massfit.model.orbit_model import OrbitModel
 from massfit.priors import Normal, Uniform
 from massfit.read.tables import read_observations
 from massfit.scenarios.examples import demo_setup

@@ -18,7 +18,8 @@ import massfit
 from massfit.orbits import kepler
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY, MASS_UNITS
 from massfit.errors import ConfigError, InputError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.scenarios.simulate import Elements, simulate_astrometry, simulate_velocities, write_scenario
 
 M_JUP = MASS_UNITS["Mjup"] / MASS_UNITS["Msun"]
@@ -310,7 +311,7 @@ def test_instrument_with_no_rows_left_is_an_error(tmp_path):
     obs = massfit.read_observations(path, time_format="jd", time_scale="tdb",
                                     units=RV_UNITS, skip_bad_rows=True)
     assert len(obs.rejected) == 2
-    spec = SystemSpec(instruments={"B": massfit.model.orbit_model.InstrumentSpec(
+    spec = SystemSpec(instruments={"B": massfit.model.specs.InstrumentSpec(
         jitter=massfit.Fixed(0.0))})
     with pytest.raises(ConfigError) as info:
         OrbitModel(obs, spec)

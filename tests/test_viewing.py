@@ -20,7 +20,8 @@ from scipy.stats import chi2 as chi2_dist
 from massfit.constants import AU_KM, GM_SUN_KM3_S2
 from massfit.orbits.dynamics import Keplerian
 from massfit.errors import InputError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.scenarios.moving_observer import CircularPath, MoonOrbit, moon_times, observe_moons
 from massfit.read.tables import read_observations
 from massfit.model.fit_quality import POOR_FIT_P_VALUE

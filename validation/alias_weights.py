@@ -33,7 +33,8 @@ from pathlib import Path
 
 import numpy as np
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.start.modes import MIN_WEIGHT, period_box
 from massfit.priors import Fixed
 from massfit.scenarios.examples import tamsin

@@ -78,7 +78,7 @@ def fit_system(design, *, walkers=None, max_steps=50_000, check_every=250,
     from astropy.time import Time
 
     import massfit
-    from massfit.model.orbit_model import CompanionSpec, SystemSpec
+    from massfit.model.specs import CompanionSpec, SystemSpec
     from massfit.priors import LogUniform, Uniform
     from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry
 

@@ -22,7 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.priors import Fixed
 from massfit.sample.nested import NestedSettings, boxes_of, nested_box
 from massfit.scenarios.examples import tamsin

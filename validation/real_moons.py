@@ -45,7 +45,8 @@ from meeus_moons import PUBLISHED_GM, meeus_table  # noqa: E402
 
 from massfit import Perturbed  # noqa: E402
 from massfit.constants import GM_SUN_KM3_S2  # noqa: E402
-from massfit.model.orbit_model import OrbitModel, SystemSpec  # noqa: E402
+from massfit.model.orbit_model import OrbitModel  # noqa: E402
+from massfit.model.specs import SystemSpec  # noqa: E402
 from massfit.read.tables import read_observations  # noqa: E402
 from massfit.start.search import find_start  # noqa: E402
 from massfit.summarise.adequacy import assess  # noqa: E402

@@ -36,7 +36,8 @@ import numpy as np  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
 import massfit  # noqa: E402
-from massfit.model.orbit_model import CompanionSpec, SystemSpec  # noqa: E402
+from massfit.model.specs import CompanionSpec
+from massfit.model.specs import SystemSpec  # noqa: E402
 from massfit.priors import LogUniform, Uniform  # noqa: E402
 from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry  # noqa: E402
 

@@ -31,7 +31,9 @@ import numpy as np  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
 from massfit.sample.reparameterisation import ARC_FRACTION, SamplerCoordinates  # noqa: E402
-from massfit.model.orbit_model import CompanionSpec, OrbitModel, SystemSpec  # noqa: E402
+from massfit.model.specs import CompanionSpec
+from massfit.model.orbit_model import OrbitModel  # noqa: E402
+from massfit.model.specs import SystemSpec  # noqa: E402
 from massfit.priors import LogUniform, Uniform  # noqa: E402
 from massfit.sample.chain import SamplerSettings, run_sampler  # noqa: E402
 from massfit.scenarios.simulate import Elements, read_back, simulate_astrometry  # noqa: E402

@@ -88,7 +88,7 @@ def run(args):
 
 def _setup_from_args(args):
     from massfit.config.fit import FitSetup, load_config
-    from massfit.model.orbit_model import SystemSpec
+    from massfit.model.specs import SystemSpec
     from massfit.sample.chain import SamplerSettings, check_seed
 
     check_seed(args.seed, key="--seed")

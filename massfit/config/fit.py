@@ -101,7 +101,7 @@ from pathlib import Path
 import astropy.units as u
 
 from massfit.errors import ConfigError
-from massfit.model.orbit_model import CompanionSpec, SystemSpec
+from massfit.model.specs import CompanionSpec, SystemSpec
 from massfit.priors import Fixed, prior_from_spec
 from massfit.sample.chain import SamplerSettings
 from massfit.sample.nested import ENGINES, NestedSettings
@@ -322,7 +322,7 @@ def _system(table, companions, file):
 
 
 def _velocities(system, table, file):
-    from massfit.model.orbit_model import TRENDS, InstrumentSpec
+    from massfit.model.specs import TRENDS, InstrumentSpec
 
     trend = table.get("trend", "none")
     if trend not in TRENDS:
@@ -374,7 +374,8 @@ _FRAME_UNITS = {"east": u.mas, "north": u.mas, "motion_east": u.mas / u.yr,
 
 def _frame_and_relativity(spec, raw, file):
     """The [frame] and [relativity] tables (each present turns its terms on)."""
-    from massfit.model.orbit_model import FrameSpec, RelativitySpec
+    from massfit.model.frame import FrameSpec
+    from massfit.orbits.relativity import RelativitySpec
 
     if "frame" in raw:
         frame = FrameSpec()

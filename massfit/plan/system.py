@@ -10,7 +10,8 @@ from astropy.time import Time
 
 from massfit.constants import LIGHT_DAYS_PER_PC
 from massfit.errors import ConfigError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.plan.schedule import Schedule, distance_pc, epoch_rows
 from massfit.priors import Fixed, Normal
 from massfit.read.observations import AstrometryData, Observations
@@ -52,7 +53,7 @@ class AssumedSystem:
         prior: a simulated fit draws it about the true value, as a real measurement
         of the parallax would scatter.
         """
-        from massfit.model.orbit_model import CompanionSpec
+        from massfit.model.specs import CompanionSpec
 
         plx = None
         if self.parallax is not None:

@@ -27,7 +27,8 @@ from astropy.time import Time
 
 from massfit import priors as _priors
 from massfit.errors import InputError
-from massfit.model.orbit_model import OrbitModel, SystemSpec
+from massfit.model.orbit_model import OrbitModel
+from massfit.model.specs import SystemSpec
 from massfit.read.observations import Observations, Rejection
 from massfit.result.fit_result import FitResult
 from massfit.summarise.dark_mass import extra_samples

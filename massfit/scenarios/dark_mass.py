@@ -266,8 +266,9 @@ def fit_spec(system, *, relativity=True, precession_scale=None):
     errors as stated (no jitter); with ``relativity`` the precession (its scale
     sampled with ``precession_scale``, default uniform on [-5, 10]), the redshift, the
     transverse Doppler shift and the light time; without, none of them."""
-    from massfit.model.orbit_model import (CompanionSpec, FrameSpec, RelativitySpec,
-                                           SystemSpec)
+    from massfit.model.specs import CompanionSpec, SystemSpec
+    from massfit.model.frame import FrameSpec
+    from massfit.orbits.relativity import RelativitySpec
     from massfit.priors import Fixed, LogUniform, Uniform
 
     companions = {name: CompanionSpec(name, period=LogUniform(DAYS_PER_YEAR,

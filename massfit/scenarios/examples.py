@@ -135,7 +135,7 @@ def tamsin(seed=4, *, error=3.5 * u.mas, wander=8.0, epochs=12):
 def demo_setup():
     """The fit set-up of the demo: the bundled Orvane data with default priors."""
     from massfit.config.fit import FitSetup
-    from massfit.model.orbit_model import SystemSpec
+    from massfit.model.specs import SystemSpec
     from massfit.sample.chain import SamplerSettings
     from massfit.orbits.viewing import ViewingSpec
 

@@ -10,7 +10,8 @@ import numpy as np
 
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY
 from massfit.errors import ModelError
-from massfit.model.orbit_model import DEFAULT_SEMI_AMPLITUDE_PRIOR, OrbitModel
+from massfit.model.specs import DEFAULT_SEMI_AMPLITUDE_PRIOR
+from massfit.model.orbit_model import OrbitModel
 from massfit.orbits import kepler
 from massfit.start.aliases import candidate_periods
 from massfit.start.least_squares import (

@@ -9,7 +9,8 @@ from __future__ import annotations
 import numpy as np
 
 from massfit.constants import AU_KM, DAY_S, G_REL_UNCERTAINTY, GM_SUN_KM3_S2, MASS_UNITS
-from massfit.model.orbit_model import DEFAULT_CENTRAL_MASS_PRIOR, OrbitModel
+from massfit.model.specs import DEFAULT_CENTRAL_MASS_PRIOR
+from massfit.model.orbit_model import OrbitModel
 from massfit.summarise.dark_mass import extra_samples
 from massfit.summarise.quantities import MASS_UNIT_KEYS, MASS_UNIT_LABELS
 
