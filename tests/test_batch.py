@@ -169,11 +169,20 @@ def _long_batch(systems, tmp_path):
     deadline = time.monotonic() + 240
     while len(workers) < 2 and time.monotonic() < deadline:
         workers = [child for child in parent.children(recursive=True)
-                   if "spawn_main" in " ".join(child.cmdline())]
+                   if "spawn_main" in " ".join(_command_line(child, psutil))]
         time.sleep(0.2)
     assert len(workers) == 2, "the batch started no workers"
     time.sleep(1.0)
     return proc, workers, psutil
+
+
+def _command_line(process, psutil):
+    """A process's command line, or none where it ended between listing and reading
+    (short-lived helpers of the pool come and go)."""
+    try:
+        return process.cmdline()
+    except (psutil.NoSuchProcess, psutil.ZombieProcess):
+        return []
 
 
 def test_ctrl_c_stops_a_batch_and_writes_what_is_done(systems, tmp_path):

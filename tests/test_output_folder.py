@@ -68,7 +68,7 @@ def test_cli_refuses_to_overwrite_and_records_the_run(small_data_file, tmp_path)
     for package in ("massfit", "numpy", "scipy", "emcee", "astropy"):
         assert record["versions"][package], package
     assert record["sampler"] == {"walkers": 16, "max_steps": 200, "check_every": 100,
-                                 "seed": 8}
+                                 "seed": 8, "threads": None}
 
     summary = (tmp_path / "res" / "summary.json").read_bytes()
     second = subprocess.run(command, cwd=tmp_path, env=env, capture_output=True, text=True)

@@ -28,7 +28,9 @@ from astropy.time import Time
 from massfit import priors as _priors
 from massfit.errors import InputError
 from massfit.model.orbit_model import OrbitModel
-from massfit.model.specs import SystemSpec
+from massfit.model.frame import FrameSpec
+from massfit.model.specs import CompanionSpec, InstrumentSpec, SystemSpec
+from massfit.orbits.relativity import RelativitySpec
 from massfit.read.observations import Observations, Rejection
 from massfit.result.fit_result import FitResult
 from massfit.summarise.dark_mass import extra_samples
@@ -39,6 +41,9 @@ __all__ = ["load_result", "model_state", "write_observations", "STATE_VERSION"]
 
 _PRIORS = {cls.__name__: cls for cls in (_priors.Uniform, _priors.LogUniform,
                                          _priors.Normal, _priors.Fixed)}
+#: The parts of a model's spec that a saved folder may hold, by class name.
+_SAVED_PARTS = {cls.__name__: cls for cls in (SystemSpec, CompanionSpec, InstrumentSpec,
+                                              FrameSpec, RelativitySpec)}
 
 
 # ------------------------------------------------------------------ reading
@@ -59,10 +64,8 @@ def _decode(value):
             return make_dynamics(value["dynamics_model"],
                                  **{k: v for k, v in value.items() if k != "dynamics_model"})
         if "dataclass" in value:
-            from massfit.model import orbit_model as _model
-
-            cls = getattr(_model, str(value["dataclass"]), None)
-            if not (isinstance(cls, type) and dataclasses.is_dataclass(cls)):
+            cls = _SAVED_PARTS.get(str(value["dataclass"]))
+            if cls is None:
                 raise InputError(f"unknown part {value['dataclass']!r} in the saved model")
             return _build(cls, value)
         return {k: _decode(v) for k, v in value.items()}
