@@ -15,7 +15,7 @@ from massfit.priors import Fixed, Normal
 from massfit.result.fit_result import FitResult
 from massfit.sample.reparameterisation import SamplerCoordinates
 from massfit.sample.chain import SamplerSettings, run_sampler
-from massfit.sample.nested import ENGINES, NestedSettings, run_nested
+from massfit.sample.nested import ENGINES, NestedSettings, require_dynesty, run_nested
 from massfit.start.search import find_start
 
 __all__ = ["fit", "distance_prior", "not_converged_text", "NESTED_PROPOSAL"]
@@ -147,6 +147,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     if engine not in ENGINES:
         raise ConfigError(f"unknown sampler {engine!r}; accepted: {', '.join(ENGINES)}",
                           key="sampler")
+    if engine == "nested":
+        require_dynesty()  # before any work: one line if it is missing
     if engine == "nested" and (resume or checkpoint is not None):
         # dynesty's own checkpoints are per run; a box-by-box resume is not built.
         checkpoint, resume = None, False

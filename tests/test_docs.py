@@ -81,6 +81,9 @@ def test_extras_install_what_the_docs_promise():
     assert "jupyterlab" in _names(extras["notebooks"])
     assert {"sphinx", "myst-nb", "furo"} <= _names(extras["docs"])
     assert "arviz" in _names(extras["arviz"]) and "arviz" in _names(extras["test"])
+    # The nested engine's library: its own extra, and in the test extra so that the
+    # nested engine's tests run in CI.
+    assert "dynesty" in _names(extras["nested"]) and "dynesty" in _names(extras["test"])
     assert "arviz" not in _names(tomllib.loads(
         (ROOT / "pyproject.toml").read_text())["project"]["dependencies"])
 

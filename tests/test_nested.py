@@ -223,3 +223,19 @@ def test_improper_flat_priors_become_named_boxes():
         if name.endswith(".offset"):
             column = theta[:, model.column_of[name]]
             assert column.min() < rv.min() and column.max() > rv.max()
+
+
+def test_nested_engine_without_dynesty_is_one_config_error(tmp_path, monkeypatch):
+    # dynesty is an extra: without it, asking for the nested engine is refused before
+    # any fitting, with the command that installs it (no traceback on the CLI).
+    import sys
+
+    from massfit import fit
+    from massfit.errors import ConfigError
+
+    from conftest import write_one_companion
+
+    path = write_one_companion(tmp_path)
+    monkeypatch.setitem(sys.modules, "dynesty", None)  # import dynesty -> ImportError
+    with pytest.raises(ConfigError, match=r'massfit\[nested\]'):
+        fit(path, engine="nested", progress=False)

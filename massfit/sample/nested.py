@@ -43,6 +43,7 @@ from massfit.sample.chain import Chain
 from massfit.start.modes import MIN_WEIGHT, period_box
 
 __all__ = ["NestedSettings", "NestedChain", "PriorTransform", "flat_box", "run_nested", "boxes_of",
+           "require_dynesty",
            "nested_box", "weigh_boxes", "AGREEMENT_SIGMAS", "ENGINES"]
 
 #: Two runs of one box agree when their ln Z differ by at most this many combined errors.
@@ -236,9 +237,21 @@ def _log_likelihood(model):
     return log_like
 
 
+def require_dynesty():
+    """The dynesty module, or a ConfigError that says how to install it."""
+    try:
+        import dynesty
+    except ImportError:
+        from massfit.errors import ConfigError
+
+        raise ConfigError('the nested sampler needs dynesty: pip install "massfit[nested]"',
+                          key="sampler") from None
+    return dynesty
+
+
 def _sample(model, transform, settings, common):
     """dynesty's sampler, run to its stopping rule."""
-    import dynesty
+    dynesty = require_dynesty()
 
     if settings.dynamic:
         sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
@@ -371,7 +384,7 @@ def boxes_of(start, model):
 def run_nested(model, start, settings: NestedSettings) -> NestedChain:
     """Nested sampling of the model's posterior, mode by mode where the start found
     several (see the module notes); the result as a :class:`NestedChain`."""
-    import dynesty
+    dynesty = require_dynesty()
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
