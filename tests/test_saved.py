@@ -59,6 +59,19 @@ def test_redraw_command_writes_the_chosen_figures(saved, tmp_path):
     assert (tmp_path / "orbits.svg").read_text().lstrip().startswith("<?xml")
 
 
+def test_redraw_by_default_draws_the_figures_the_fit_writes(saved, tmp_path):
+    # Not every registered figure: none the data cannot fill (velocity figures for an
+    # astrometric fit) and not the full corner, which is drawn only on request.
+    from massfit.plot.figures import applicable_figures
+
+    result, folder = saved
+    assert main(["redraw", str(folder), "--formats", "png", "--to", str(tmp_path),
+                 "--no-tables"]) == 0
+    drawn = sorted(p.stem for p in tmp_path.iterdir())
+    assert drawn == sorted(applicable_figures(result))
+    assert "corner_full" not in drawn and "rv" not in drawn
+
+
 @pytest.mark.parametrize("args, needle", [
     (["--figures", "orbit"], "--figures"),
     (["--formats", "docx"], "--formats"),

@@ -19,8 +19,9 @@ def add_parser(sub):
                     "'massfit fit', without refitting: the model is rebuilt from the "
                     "folder's own copy of the observations and its posterior samples.")
     redraw.add_argument("folder", metavar="DIR", help="a massfit output folder")
-    redraw.add_argument("--figures", metavar="NAME,...", default=",".join(FIGURES),
-                        help="figures to draw, from: %(default)s")
+    redraw.add_argument("--figures", metavar="NAME,...", default=None,
+                        help="figures to draw (default: those the fit writes), from: "
+                             + ", ".join(FIGURES))
     redraw.add_argument("--formats", metavar="EXT,...", default="png,pdf",
                         help="file formats (any matplotlib writes: png, pdf, svg, "
                              "eps...; default %(default)s)")
@@ -35,7 +36,7 @@ def run(args):
     import matplotlib
     from matplotlib.figure import Figure
 
-    from massfit.plot.figures import FIGURES
+    from massfit.plot.figures import FIGURES, applicable_figures
     from massfit.result.loading import load_result
 
     matplotlib.use("Agg")  # files only: no window, whatever the environment says
@@ -45,12 +46,16 @@ def run(args):
     if bad or not formats:
         raise ConfigError(f"cannot write {', '.join(bad) or 'no format'}; accepted: "
                           f"{', '.join(sorted(supported))}", key="--formats")
-    figures = [f.strip() for f in args.figures.split(",") if f.strip()]
-    unknown = [f for f in figures if f not in FIGURES]
-    if unknown or not figures:
-        raise ConfigError(f"no figure called {', '.join(unknown) or '(none given)'}; "
-                          f"accepted: {', '.join(FIGURES)}", key="--figures")
+    figures = None
+    if args.figures is not None:
+        figures = [f.strip() for f in args.figures.split(",") if f.strip()]
+        unknown = [f for f in figures if f not in FIGURES]
+        if unknown or not figures:
+            raise ConfigError(f"no figure called {', '.join(unknown) or '(none given)'}; "
+                              f"accepted: {', '.join(FIGURES)}", key="--figures")
     result = load_result(args.folder)
+    if figures is None:  # the ones the fit itself writes (corner_full only on request)
+        figures = applicable_figures(result)
     out = Path(args.to) if args.to else Path(args.folder)
     out.mkdir(parents=True, exist_ok=True)
     written = result.write_figures(out, figures=figures, formats=formats)
