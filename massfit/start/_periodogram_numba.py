@@ -27,6 +27,7 @@ _jit = dict(cache=True, error_model="numpy", fastmath=False)
 
 @numba.njit(**_jit)
 def _seed(t, f, zr, zi, z2r, z2i):
+    """exp(2 pi i f t_j) and its square, exactly."""
     for j in range(t.size):
         phase = 2.0 * math.pi * f * t[j]
         zr[j] = math.cos(phase)
@@ -42,20 +43,9 @@ def floating_mean_power(t, y, w, f0, df, n_freq):
     ``f0 + k df``, k = 0 .. n_freq-1. ``t`` should be centred; ``w`` sums to 1."""
     n = t.size
     out = np.empty(n_freq)
-    zr = np.empty(n)
-    zi = np.empty(n)
-    z2r = np.empty(n)
-    z2i = np.empty(n)
-    sr = np.empty(n)
-    si = np.empty(n)
-    s2r = np.empty(n)
-    s2i = np.empty(n)
-    for j in range(n):
-        step = 2.0 * math.pi * df * t[j]
-        sr[j] = math.cos(step)
-        si[j] = math.sin(step)
-        s2r[j] = math.cos(2.0 * step)
-        s2i[j] = math.sin(2.0 * step)
+    zr, zi, z2r, z2i = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    sr, si, s2r, s2i = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    _seed(t, df, sr, si, s2r, s2i)  # the step from one frequency to the next
     mean_y = 0.0
     for j in range(n):
         mean_y += w[j] * y[j]
@@ -98,16 +88,9 @@ def window(t, f0, df, n_freq):
     """Spectral window ``|sum_j exp(2 pi i f t_j)|^2 / n^2`` at ``f0 + k df``."""
     n = t.size
     out = np.empty(n_freq)
-    zr = np.empty(n)
-    zi = np.empty(n)
-    z2r = np.empty(n)
-    z2i = np.empty(n)
-    sr = np.empty(n)
-    si = np.empty(n)
-    for j in range(n):
-        step = 2.0 * math.pi * df * t[j]
-        sr[j] = math.cos(step)
-        si[j] = math.sin(step)
+    zr, zi, z2r, z2i = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    sr, si, s2r, s2i = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    _seed(t, df, sr, si, s2r, s2i)
     for k in range(n_freq):
         if k % RESEED == 0:
             _seed(t, f0 + k * df, zr, zi, z2r, z2i)
