@@ -128,16 +128,21 @@ def test_log_jacobian_equals_finite_differences(short_arc):
     coords = SamplerCoordinates.for_start(model, walkers[0], arc_fraction=np.inf)
     s = coords.to_sampled(walkers[:3])
     for row in s:
-        jac = np.empty((row.size, row.size))
-        for k in range(row.size):
-            step = 1e-6 * max(abs(row[k]), 1e-3)
-            up, down = row.copy(), row.copy()
-            up[k] += step
-            down[k] -= step
-            jac[:, k] = (coords.to_model(up[None])[0][0]
-                         - coords.to_model(down[None])[0][0]) / (2 * step)
-        assert np.linalg.slogdet(jac)[1] == pytest.approx(coords.to_model(row[None])[1][0],
-                                                          abs=1e-5)
+        assert _difference_log_jacobian(coords, row) == pytest.approx(
+            coords.to_model(row[None])[1][0], abs=1e-5)
+
+
+def _difference_log_jacobian(coords, row):
+    """log |det d theta / d s| at the sampled point ``row``, by central differences."""
+    jac = np.empty((row.size, row.size))
+    for k in range(row.size):
+        step = 1e-6 * max(abs(row[k]), 1e-3)
+        up, down = row.copy(), row.copy()
+        up[k] += step
+        down[k] -= step
+        jac[:, k] = (coords.to_model(up[None])[0][0]
+                     - coords.to_model(down[None])[0][0]) / (2 * step)
+    return np.linalg.slogdet(jac)[1]
 
 
 def test_angular_units_round_trip_with_the_right_jacobian():
@@ -159,15 +164,7 @@ def test_angular_units_round_trip_with_the_right_jacobian():
         theta, log_jac = coordinates.to_model(s)
         np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-9)
         for row in s[:3]:
-            jac = np.empty((row.size, row.size))
-            for k in range(row.size):
-                step = 1e-6 * max(abs(row[k]), 1e-3)
-                up, down = row.copy(), row.copy()
-                up[k] += step
-                down[k] -= step
-                jac[:, k] = (coordinates.to_model(up[None])[0][0]
-                             - coordinates.to_model(down[None])[0][0]) / (2 * step)
-            assert np.linalg.slogdet(jac)[1] == pytest.approx(
+            assert _difference_log_jacobian(coordinates, row) == pytest.approx(
                 coordinates.to_model(row[None])[1][0], abs=1e-5)
     # Not where the offsets are lengths (no parallax) or velocities fix the mass.
     short = _model(4000.0)[0]
