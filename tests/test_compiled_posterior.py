@@ -31,10 +31,17 @@ pytestmark = pytest.mark.skipif(kepler.numba_kernel is None,
 RTOL = 1e-12
 
 
-def _model(example, *, fixed_plane=False, system_changes=None, **companion_priors):
+def _model(example, *, fixed_plane=False, system_changes=None, velocities_only=False,
+           primary_only=False, **companion_priors):
     model = speed_paths_model(example, fixed_plane=fixed_plane, **companion_priors)
     if system_changes:
         model = OrbitModel(model.observations, replace(model.spec, **system_changes))
+    if velocities_only:  # the same velocities without the visual orbit
+        obs = replace(model.observations, astrometry=None)
+        if primary_only:  # a single-lined binary: the primary's reflex alone
+            obs = replace(obs, velocities=obs.velocities.select(
+                obs.velocities.body == obs.primary))
+        model = OrbitModel(obs, model.spec)
     return model
 
 
@@ -78,6 +85,14 @@ CONFIGURATIONS = {
         0.2, 0.1, low=0.0, high=0.95), inclination=Uniform(0.2, 1.4)),
     "sorrel, fixed e and i": dict(example="sorrel", eccentricity=Fixed(0.3),
                                   inclination=Fixed(1.1)),
+    # velocities alone: both stars' semi-amplitudes, two instruments; then one star's
+    # (the primary's rows only), a fixed e, a trend
+    "sorrel, velocities alone": dict(example="sorrel", velocities_only=True),
+    "sorrel, velocities alone, fixed e, trend": dict(
+        example="sorrel", velocities_only=True, eccentricity=Fixed(0.3),
+        system_changes={"trend": "quadratic"}),
+    "sorrel, the primary's velocities alone": dict(example="sorrel", velocities_only=True,
+                                                   primary_only=True),
 }
 
 
