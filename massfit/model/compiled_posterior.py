@@ -11,8 +11,11 @@ path by itself where the model qualifies (:func:`compiled_posterior` says why no
 otherwise) and the Python path, ``OrbitModel.log_prob_python``, stays the reference:
 tests/test_compiled_posterior.py compares the two to 1e-12.
 
+A per-row line of sight (a moving observer: the orbit in ICRS axes, each row projected
+onto the tangent plane at the primary, with the light time along it) is compiled too.
+
 Models that do not qualify keep the general path: other dynamics
-(J2, integrated pulls), the light time across the system, a moving line of sight,
+(J2, integrated pulls), the light time across the system, apparent offsets,
 offsets measured from another companion, any setting of the model this module does not
 know (so terms added to the model later fall back until they are compiled here), and
 priors other than uniform, log-uniform and normal.
@@ -58,8 +61,8 @@ def why_not_compiled(model) -> str | None:
         return f"the {model.dynamics.label} dynamics"
     if spec.romer_delay:
         return "the light time across the system"
-    if model.sight is not None:
-        return "a moving line of sight"
+    if model.sight is not None and model.sight.apparent is not None:
+        return "apparent offsets (differential aberration)"
     if any(rows.reference is not None for rows in model.rows.values()):
         return "offsets from another companion"
     for k in model.prior_plan.varying:
@@ -135,13 +138,24 @@ class CompiledPosterior:
             dtype=float).reshape(8, first))
         self.uses_parallax = np.concatenate(
             [p.uses_parallax for p in rows] or [np.zeros(0, dtype=bool)]).astype(bool)
+        self.sight = np.zeros((10, 0))
+        if model.sight is not None:  # per row, in the order of the packed rows
+            parts = []
+            for name in (n for n in model.companions if n in model.rows):
+                own = model.rows[name]
+                part = own.sight.select(np.concatenate([own.cart, own.polar]))
+                parts.append(np.vstack([part.toward.T, part.east.T, part.north.T,
+                                        part.distance[None, :]]))
+            self.sight = np.ascontiguousarray(np.hstack(parts), dtype=float)
         spec = model.spec
         plx = spec.parallax
         self.glob_i = np.array([column.get("central.log10_mass", -1),
                                 column.get("parallax", -1), int(model.needs_parallax),
                                 column.get("rv.trend.slope", -1),
                                 column.get("rv.trend.curvature", -1),
-                                int(model.velocity_only)], dtype=np.int64)
+                                int(model.velocity_only), int(model.sight is not None),
+                                int(bool(getattr(spec, "light_time", True)))],
+                               dtype=np.int64)
         self.glob_f = np.array([
             spec.central_mass.value if spec.central_mass.is_fixed else 0.0,
             plx.value if plx is not None and plx.is_fixed else 0.0,
@@ -236,7 +250,7 @@ class CompiledPosterior:
         _use_threads(sampled.shape[0] * (self.rows.shape[1] + self.vel.shape[1]))
         kepler.posterior_kernel.log_posterior(
             sampled, out, self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
-            self.uses_parallax, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
+            self.uses_parallax, self.sight, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
             self.high, self.discs_i, self.discs_f, win_i, win_f, self.var_i, self.var_f,
             *change)
         return out
