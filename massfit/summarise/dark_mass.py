@@ -27,7 +27,7 @@ import numpy as np
 
 from massfit.constants import GM_SUN
 from massfit.model.frame import FRAME_UNITS
-from massfit.orbits.relativity import periapsis_advance
+from massfit.orbits.relativity import TERMS, periapsis_advance
 
 __all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines",
            "summary_lines", "corner_quantity", "corner_defaults", "table_entries"]
@@ -110,8 +110,7 @@ def relativity_adequacy(model, theta):
     rel = model.spec.relativity
     terms = []
     if rel is not None:
-        terms = [t for t in ("precession", "gravitational_redshift", "transverse_doppler")
-                 if getattr(rel, t)]
+        terms = [t for t in TERMS if getattr(rel, t)]
     if model.spec.romer_delay:
         terms.append("romer_delay")
     if not terms:
@@ -163,8 +162,7 @@ def summary_lines(summary, format_value) -> list:
                 lines.append(f"  {term:<13}= {format_value(block)} {block['unit']}")
     rel = summary.get("relativity")
     if rel:
-        on = [k.replace("_", " ") for k in ("precession", "gravitational_redshift",
-                                            "transverse_doppler") if rel[k]]
+        on = [k.replace("_", " ") for k in TERMS if rel.get(k)]
         lines.append(f"Relativistic terms: {', '.join(on) or 'none'}")
         scale = rel["precession_scale"]
         if isinstance(scale, dict):
