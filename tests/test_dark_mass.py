@@ -340,8 +340,17 @@ def test_short_fit_summary_and_figures(brannock_two, tmp_path):
     assert 8.0 < advance < 14.0  # arcmin per orbit (10.7 for the simulated orbit)
     terms = s["adequacy"]["relativity"]["terms"]
     assert set(terms) == {"precession", "gravitational_redshift", "transverse_doppler",
-                          "romer_delay"}
+                          "exact_doppler", "romer_delay"}
     assert terms["gravitational_redshift"]["delta_chi2"] > 25.0
+    # The jitter is fixed: the velocities test the fit with the positions (a verdict
+    # over every value), and the fixed zero point and jitter are printed as fixed.
+    quality = s["fit_quality"]
+    assert quality["verdict"] in ("good", "poor")
+    assert quality["n_values"] == (2 * len(obs.astrometry) + len(obs.velocities))
+    assert s["adequacy"]["velocities"]["p_value"] is not None
+    text = str(result)
+    assert "gamma   = fixed at 0 km/s" in text and "jitter  = fixed at 0 km/s" in text
+    assert "+/- 0 km/s" not in text
     sky = frame_orbit_plot(result, n_tracks=5)
     left, right = sky.axes[:2]
     assert left.xaxis_inverted() and right.xaxis_inverted()
