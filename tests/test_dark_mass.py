@@ -382,3 +382,16 @@ def test_short_fit_summary_and_figures(brannock_two, tmp_path):
 
     table = markdown_table(result.summary)
     assert "| central | distance |" in table and "proper motion of the mass, east" in table
+    # A batch's row of this fit carries the distance, its correlation with the mass,
+    # the precession scale and the frame terms.
+    from types import SimpleNamespace
+
+    from massfit.write.batch_table import result_row
+
+    job = SimpleNamespace(system="two stars", sampler={"seed": 2}, output="out")
+    row = result_row(job, s, 1.0)
+    assert row["distance_median"] == s["distance"]["median"]
+    assert row["frame_motion_north_upper_95"] == s["frame"]["motion_north"]["upper_95"]
+    assert row["precession_scale_lower_68"] == s["relativity"]["precession_scale"]["lower_68"]
+    assert row["mass_distance_correlation"] == \
+        s["mass_distance_correlation"]["log_mass_log_distance"]
