@@ -197,7 +197,7 @@ def redshift_plot(result, *, width=None):
             top.tick_params(labelbottom=False)
             if col == 0:
                 top.set_ylabel(r"$v_r$ [km/s]")
-                bottom.set_ylabel(r"$v_r - v_\mathrm{Newton}$ [km/s]")
+                bottom.set_ylabel("$v_r - v_\\mathrm{Newton}$\n[km/s]")
             if block == blocks - 1:
                 bottom.set_xlabel("Julian year (TDB)")
         handles, labels = [], []
@@ -205,7 +205,7 @@ def redshift_plot(result, *, width=None):
             h, lab = ax.get_legend_handles_labels()
             handles += h
             labels += lab
-        fig.legend(handles, labels, loc="outside upper center", ncol=len(labels),
+        fig.legend(handles, labels, loc="outside upper center", ncol=min(len(labels), 3),
                    frameon=False)
     return fig
 
@@ -230,8 +230,8 @@ def _draw_star_velocities(top, bottom, model, best, name):
              gid="model_newtonian", label="its Newtonian part")
     bottom.errorbar(data_years, vel.rv[own] - at_rows["newtonian"], yerr=err, fmt="o",
                     ms=1.5, color="k", elinewidth=0.4, gid="data_shift")
-    bottom.plot(years, shift, color="C0", lw=0.8, gid="relativistic_shift",
-                label="redshift + transverse Doppler")
+    bottom.plot(years, shift, color="C3", lw=0.8, gid="relativistic_shift",
+                label="relativistic shift (redshift + transverse Doppler)")
     bottom.plot(years, dense["gravitational_redshift"], color="C2", lw=0.7, ls=":",
                 gid="gravitational_redshift", label="gravitational redshift")
     bottom.axhline(0.0, color="0.5", lw=0.5)
