@@ -52,8 +52,9 @@ class SamplerSettings:
         Progress bar; None shows it only on a terminal.
     threads : int or None
         Threads the compiled log-posterior shares the walkers among
-        (:mod:`massfit.model.compiled_posterior`); None uses every core. The numbers
-        do not depend on it.
+        (:mod:`massfit.model.compiled_posterior`, ``--threads``); None uses every core
+        where a call is large enough to gain from it (``thread_count``). The numbers do
+        not depend on it.
     """
 
     walkers: int | None = None
