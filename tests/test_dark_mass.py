@@ -294,7 +294,7 @@ def test_config_tables_for_frame_and_relativity(tmp_path):
            "frame": {"motion_east_prior": {"kind": "normal", "mean": "0.1 mas/yr",
                                            "sd": "36 uas/yr"},
                      "velocity_prior": {"kind": "fixed", "value": "-21 km/s"}},
-           "relativity": {"transverse_doppler": False,
+           "relativity": {"transverse_doppler": False, "exact_doppler": False,
                           "precession_scale_prior": {"kind": "uniform", "low": 0,
                                                      "high": 2}}}
     system = parse_config(raw, base=tmp_path).system
@@ -304,6 +304,8 @@ def test_config_tables_for_frame_and_relativity(tmp_path):
     assert system.frame.east is None  # flat
     assert system.relativity.transverse_doppler is False
     assert system.relativity.gravitational_redshift is True
+    assert system.relativity.exact_doppler is False
+    assert RelativitySpec().exact_doppler is True  # the default: the whole factor
     assert isinstance(system.relativity.precession_scale, Uniform)
     for bad, key in (({"relativity": {"redshift": True}}, "relativity.redshift"),
                      ({"relativity": {"precession": False, "precession_scale_prior":
