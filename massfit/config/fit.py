@@ -65,7 +65,7 @@ instead)::
                                       #   fixed at 1, the relativistic value)
     gravitational_redshift = true     # GM / (r c) on the companions' own velocities
     transverse_doppler = true         # v^2 / (2 c) on them
-    exact_doppler = true              # the Doppler factor and redshift whole (default;
+    exact_doppler = true              # the Doppler factor and redshift whole (default
                                       #   false: the first-order terms alone)
 
     [viewing]                         # a primary inside the solar system (moving line of sight)
