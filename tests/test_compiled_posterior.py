@@ -31,10 +31,17 @@ pytestmark = pytest.mark.skipif(kepler.numba_kernel is None,
 RTOL = 1e-12
 
 
-def _model(example, *, fixed_plane=False, system_changes=None, **companion_priors):
+def _model(example, *, fixed_plane=False, system_changes=None, velocities_only=False,
+           primary_only=False, **companion_priors):
     model = speed_paths_model(example, fixed_plane=fixed_plane, **companion_priors)
     if system_changes:
         model = OrbitModel(model.observations, replace(model.spec, **system_changes))
+    if velocities_only:  # the same velocities without the visual orbit
+        obs = replace(model.observations, astrometry=None)
+        if primary_only:  # a single-lined binary: the primary's reflex alone
+            obs = replace(obs, velocities=obs.velocities.select(
+                obs.velocities.body == obs.primary))
+        model = OrbitModel(obs, model.spec)
     return model
 
 
@@ -78,6 +85,14 @@ CONFIGURATIONS = {
         0.2, 0.1, low=0.0, high=0.95), inclination=Uniform(0.2, 1.4)),
     "sorrel, fixed e and i": dict(example="sorrel", eccentricity=Fixed(0.3),
                                   inclination=Fixed(1.1)),
+    # velocities alone: both stars' semi-amplitudes, two instruments; then one star's
+    # (the primary's rows only), a fixed e, a trend
+    "sorrel, velocities alone": dict(example="sorrel", velocities_only=True),
+    "sorrel, velocities alone, fixed e, trend": dict(
+        example="sorrel", velocities_only=True, eccentricity=Fixed(0.3),
+        system_changes={"trend": "quadratic"}),
+    "sorrel, the primary's velocities alone": dict(example="sorrel", velocities_only=True,
+                                                   primary_only=True),
 }
 
 
@@ -111,6 +126,24 @@ def test_compiled_change_of_coordinates_equals_the_python_path(name):
         # the state vectors' mirror wall: depth_1 < 0 is outside
         k = coordinates.names.index(f"{body}.depth_1")
         assert np.all(fast[sampled[:, k] < 0] == -np.inf) or model.node_width[body] > 4
+
+
+def test_compiled_angular_units_equal_the_python_path():
+    # The parallax sampled and every offset an angle: the mass as log10(M plx^3) and a
+    # state-vector companion in mas and mas/day (both paths, all walkers, plx <= 0 too).
+    model = _model(**CONFIGURATIONS["mirren"])
+    theta = _points(model, n=400, seed=5)
+    inside = theta[np.isfinite(model.log_prob_python(theta))]
+    body = next(iter(model.companions))
+    coordinates = SamplerCoordinates(model, state={body: (40.0, 0.7)}, angular_mass=True)
+    assert "central.log10_angular_mass" in coordinates.names
+    sampled = coordinates.to_sampled(np.repeat(inside, 4, axis=0))
+    rng = np.random.default_rng(8)
+    sampled = sampled * (1.0 + 0.05 * rng.standard_normal(sampled.shape))
+    sampled[:5, model.names.index("parallax")] *= -1.0  # no density at plx < 0
+    fast = coordinates.log_prob(sampled)
+    _assert_same(fast, coordinates.log_prob_python(sampled))
+    assert np.all(fast[:5] == -np.inf)
 
 
 def test_models_the_kernel_does_not_cover_take_the_python_path():

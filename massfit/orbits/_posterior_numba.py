@@ -12,10 +12,11 @@ Tables (all rows of int64 or float64; -1 marks a fixed value in a column slot):
 
 ``comp_i`` per companion: log10 P, sqrt(e) cos w, sqrt(e) sin w, omega, cos i, node,
 phase, mass columns; the mass's kind (0 fixed, 1 sampled, 2 log10 sampled); the
-first, last east/north and last row of its astrometry.
+first, last east/north and last row of its astrometry; with velocities alone, the kind
+and column of the primary's and the companion's semi-amplitudes.
 ``comp_f`` per companion: fixed e, fixed i, fixed mass, the velocity reference epoch.
 ``glob_i``: central-mass column, parallax column, parallax needed (0/1), slope and
-curvature columns. ``glob_f``: fixed central mass, fixed parallax (mas), the
+curvature columns, velocities alone (0/1). ``glob_f``: fixed central mass, fixed parallax (mas), the
 likelihood's normalisation, the trend's epoch, fixed slope, fixed curvature, the
 prior's constant.
 """
@@ -39,10 +40,12 @@ _jit = dict(cache=True, error_model="numpy", fastmath=False)
 # Column slots of comp_i.
 C_LOGP, C_H, C_K, C_OMEGA, C_COSI, C_NODE, C_PHASE, C_MASS, C_MASS_KIND = range(9)
 C_FIRST, C_END_CART, C_END = 9, 10, 11
+# Velocities alone: the semi-amplitudes' kinds (0 none, 1 sampled, 2 log10) and columns.
+C_KP_KIND, C_KP, C_KC_KIND, C_KC = 12, 13, 14, 15
 # Slots of comp_f.
 F_ECC, F_INC, F_MASS, F_TREF = range(4)
 # glob_i and glob_f.
-G_CENTRAL, G_PLX, G_NEEDS_PLX, G_SLOPE, G_CURV = range(5)
+G_CENTRAL, G_PLX, G_NEEDS_PLX, G_SLOPE, G_CURV, G_VELOCITY_ONLY = range(6)
 GF_CENTRAL, GF_PLX, GF_NORM, GF_TTREND, GF_SLOPE, GF_CURV, GF_CONST = range(7)
 # Transform and prior codes of the coordinates whose prior density varies.
 T_IDENTITY, T_LOG10, T_COS, T_DISC = range(4)
@@ -225,23 +228,27 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i
             ecc = h * h + kk * kk
             omega = math.atan2(kk, h)
         m0 = theta[ci[C_PHASE]] - omega
-        inc = cf[F_INC] if ci[C_COSI] < 0 else math.acos(min(max(theta[ci[C_COSI]], -1.0),
-                                                             1.0))
-        node = theta[ci[C_NODE]]
-        mass = _scaled(theta, ci[C_MASS], ci[C_MASS_KIND], cf[F_MASS])
-        gm = GM_SUN * (central + mass)
-        a = np.cbrt(gm * period ** 2 / (4.0 * math.pi ** 2))
-        chi2 += companion_chi2(rows[0], period, m0, ecc, a, inc, omega, node, pw, rows[1],
-                               uses_parallax, ci[C_FIRST], ci[C_END_CART], ci[C_END],
-                               rows[2], rows[3], rows[4], rows[5], rows[6], rows[7], east,
-                               north)
-        if n_vel == 0:
-            continue
-        k_rel = KM_S_PER_AU_DAY * (TWO_PI * a * math.sin(inc)
-                                   / (period * math.sqrt(1.0 - ecc * ecc)))
-        share = mass / (central + mass)
-        k_primary = share * k_rel
-        k_companion = (1.0 - share) * k_rel
+        if glob_i[G_VELOCITY_ONLY]:  # the semi-amplitudes themselves are parameters
+            k_primary = _scaled(theta, ci[C_KP], ci[C_KP_KIND], 0.0)
+            k_companion = _scaled(theta, ci[C_KC], ci[C_KC_KIND], 0.0)
+        else:
+            inc = cf[F_INC] if ci[C_COSI] < 0 else math.acos(
+                min(max(theta[ci[C_COSI]], -1.0), 1.0))
+            node = theta[ci[C_NODE]]
+            mass = _scaled(theta, ci[C_MASS], ci[C_MASS_KIND], cf[F_MASS])
+            gm = GM_SUN * (central + mass)
+            a = np.cbrt(gm * period ** 2 / (4.0 * math.pi ** 2))
+            chi2 += companion_chi2(rows[0], period, m0, ecc, a, inc, omega, node, pw,
+                                   rows[1], uses_parallax, ci[C_FIRST], ci[C_END_CART],
+                                   ci[C_END], rows[2], rows[3], rows[4], rows[5], rows[6],
+                                   rows[7], east, north)
+            if n_vel == 0:
+                continue
+            k_rel = KM_S_PER_AU_DAY * (TWO_PI * a * math.sin(inc)
+                                       / (period * math.sqrt(1.0 - ecc * ecc)))
+            share = mass / (central + mass)
+            k_primary = share * k_rel
+            k_companion = (1.0 - share) * k_rel
         cos_w, sin_w = math.cos(omega), math.sin(omega)
         root = math.sqrt(1.0 - ecc * ecc)
         for v in range(n_vel):
@@ -270,17 +277,33 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i
 @numba.njit(parallel=True, **_jit)
 def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel,
                   vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
-                  var_f, lon_i, lon_f, st_i, st_f, st_comp):  # pragma: no cover - compiled
+                  var_f, lon_i, lon_f, st_i, st_f, st_comp,
+                  angular_i):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
 
     The walkers are shared among numba's threads (``numba.set_num_threads``).
+    ``angular_i`` = (mass column, parallax column) where the mass is sampled as
+    log10(M plx^3) and the state vectors in angular units, else (-1, -1).
     """
     n_walkers, n_dim = sampled.shape
     n_rows = rows.shape[1]
     for w in numba.prange(n_walkers):
-        s = sampled[w]
+        s = sampled[w].copy()
+        log_angular = 0.0
+        if angular_i[0] >= 0:
+            # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
+            # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
+            plx = s[angular_i[1]]
+            if not plx > 0.0:
+                out[w] = -np.inf
+                continue
+            s[angular_i[0]] -= 3.0 * math.log10(plx)
+            for b in range(st_i.shape[0]):
+                for c in range(6):
+                    s[st_i[b, c]] /= plx
+                log_angular -= 6.0 * math.log(plx)
         theta = s.copy()
-        log_jac = _longitude(s, theta, lon_i, lon_f)
+        log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
         for b in range(st_i.shape[0]):
             k = st_comp[b]
             central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
