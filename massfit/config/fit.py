@@ -371,21 +371,17 @@ def _dynamics(spec, table, file):
 
 
 #: The frame terms' units in a config.
-_FRAME_UNITS = {"east": u.mas, "north": u.mas, "motion_east": u.mas / u.yr,
-                "motion_north": u.mas / u.yr, "velocity": _KM_S}
-
-
 def _frame_and_relativity(spec, raw, file):
     """The [frame] and [relativity] tables (each present turns its terms on)."""
-    from massfit.model.frame import FrameSpec
+    from massfit.model.frame import FRAME_UNITS, FrameSpec
     from massfit.orbits.relativity import RelativitySpec
 
     if "frame" in raw:
         frame = FrameSpec()
-        for term, unit in _FRAME_UNITS.items():
+        for term, unit in FRAME_UNITS.items():
             key = f"{term}_prior"
             if key in raw["frame"]:
-                setattr(frame, term, prior_from_spec(raw["frame"][key], unit=unit,
+                setattr(frame, term, prior_from_spec(raw["frame"][key], unit=u.Unit(unit),
                                                      key=f"frame.{key}", file=file))
         spec.frame = frame
     if "relativity" in raw:

@@ -14,6 +14,8 @@ from dataclasses import dataclass
 
 import astropy.units as u
 
+from massfit.model.frame import FRAME_UNITS
+
 __all__ = ["Described", "CENTRAL", "COMPANION", "SYSTEM", "SYSTEM_SAMPLED",
            "MASS_UNIT_KEYS", "MASS_UNIT_LABELS",
            "MASS_UNIT_ASTROPY", "described", "sample_key_of_mass_unit"]
@@ -120,16 +122,20 @@ SYSTEM = {d.key: d for d in (
     Described("distance", "distance", "d", u.pc, "pc", r"\mathrm{pc}"),
     Described("precession_scale", "precession scale (1 = relativistic)",
               r"f_\mathrm{prec}", u.one, "", "", plain="f_prec"),
+    # the frame terms' units are the model's own (massfit.model.frame.FRAME_UNITS)
     Described("frame.east", "position of the mass, east, at the reference epoch", "x_0",
-              u.mas, "mas", _MAS),
+              u.Unit(FRAME_UNITS["east"]), FRAME_UNITS["east"], _MAS),
     Described("frame.north", "position of the mass, north, at the reference epoch", "y_0",
-              u.mas, "mas", _MAS),
+              u.Unit(FRAME_UNITS["north"]), FRAME_UNITS["north"], _MAS),
     Described("frame.motion_east", "proper motion of the mass, east", r"\mu_x",
-              u.mas / u.yr, "mas / yr", _MAS_YR, plain="mu_x"),
+              u.Unit(FRAME_UNITS["motion_east"]), FRAME_UNITS["motion_east"], _MAS_YR,
+              plain="mu_x"),
     Described("frame.motion_north", "proper motion of the mass, north", r"\mu_y",
-              u.mas / u.yr, "mas / yr", _MAS_YR, plain="mu_y"),
+              u.Unit(FRAME_UNITS["motion_north"]), FRAME_UNITS["motion_north"], _MAS_YR,
+              plain="mu_y"),
     Described("frame.velocity", "line-of-sight velocity of the mass", r"v_{z,0}",
-              u.km / u.s, "km / s", _KM_S, plain="v_z0"),
+              u.Unit(FRAME_UNITS["velocity"]), FRAME_UNITS["velocity"], _KM_S,
+              plain="v_z0"),
     Described("mass_distance_correlation", "correlation of log mass and log distance",
               r"\rho_{\ln M,\ln d}", u.one, "", "", plain="rho(ln M, ln d)"),
 )}
