@@ -97,7 +97,7 @@ def _real_moons_model(folder):
     path = Path(folder) / "real_moons.ecsv"
     meeus_table(n_epochs=150).write(path, overwrite=True)
     model = OrbitModel(read_observations(path), SystemSpec(dynamics=perturbed_dynamics()))
-    return model, np.array(theta)
+    return model, model.recentre(np.array(theta))
 
 
 def _truth_theta(model, central, orbits):
