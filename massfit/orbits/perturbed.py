@@ -325,7 +325,10 @@ class Perturbed(Keplerian):
         field[:, 5] = 1.0 if self.mutual_pulls else 0.0
         return field
 
-    def states(self, model, phys, *, want_velocity=False) -> dict:
+    def _integrate(self, model, phys, t):
+        """Every companion integrated to the times ``t`` (days since the model's
+        epoch): (the distinct times, ascending; positions and velocities, each
+        (n, K, T, 3) in the order of ``model.rows``)."""
         from massfit.orbits.nbody import integrate_system
 
         names = list(model.rows)
@@ -346,26 +349,50 @@ class Perturbed(Keplerian):
             pos0[:, k] = np.column_stack(position)
             vel0[:, k] = np.column_stack(velocity)
         field = self._field(model, orbits, masses.shape[0])
-        all_t = np.concatenate([model.rows[name].t for name in names]) - t0
-        unique_t, where = np.unique(all_t, return_inverse=True)
-        positions = np.full(masses.shape + (unique_t.size, 3), np.nan)
+        times = np.unique(np.asarray(t, dtype=float))
+        positions = np.full(masses.shape + (times.size, 3), np.nan)
         velocities = np.full_like(positions, np.nan)
         good = np.flatnonzero(np.all(np.isfinite(pos0) & np.isfinite(vel0), axis=(1, 2))
                               & np.all(np.isfinite(field), axis=1))
         if good.size:
             positions[good], velocities[good] = integrate_system(
-                unique_t, phys["central_mass"][good], masses[good], pos0[good], vel0[good],
-                rtol=self.rtol, compiled=self.compiled, field=field[good],
+                times - t0, phys["central_mass"][good], masses[good], pos0[good],
+                vel0[good], rtol=self.rtol, compiled=self.compiled, field=field[good],
                 steps_per_orbit=self.steps_per_orbit)
-        out, start = {}, 0
-        for k, name in enumerate(names):
-            rows = where[start:start + model.rows[name].t.size]
-            start += rows.size
-            pos = positions[:, k][:, rows]
-            vel = velocities[:, k][:, rows]
-            out[name] = ((pos[..., 0], pos[..., 1], pos[..., 2]),
-                         (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
-        return out
+        return times, positions, velocities
+
+    def states(self, model, phys, *, want_velocity=False) -> dict:
+        names = list(model.rows)
+        times, positions, velocities = self._integrate(
+            model, phys, np.concatenate([model.rows[name].t for name in names]))
+        # Kept for states_at: an offset measured from another companion needs that
+        # companion at the same rows' times, which this integration already holds.
+        self._last = (phys, times, positions, velocities)
+        return {name: _picked(times, positions, velocities, k, model.rows[name].t,
+                              want_velocity)
+                for k, name in enumerate(names)}
+
+    def states_at(self, model, phys, name, t):
+        """Position and velocity of one companion at the times ``t`` (days since the
+        model's epoch): read off the integration :meth:`states` made for the same
+        ``phys`` where it holds those times (offsets measured from another companion),
+        else integrated anew."""
+        k = list(model.rows).index(name)
+        last = getattr(self, "_last", None)
+        t = np.asarray(t, dtype=float)
+        if last is not None and last[0] is phys and np.all(np.isin(t, last[1])):
+            return _picked(*last[1:], k, t, True)
+        return _picked(*self._integrate(model, phys, t), k, t, True)
+
+
+def _picked(times, positions, velocities, k, t, want_velocity):
+    """Companion ``k``'s ((x, y, z), (vx, vy, vz) or None) at the times ``t``, each
+    of them one of ``times`` (ascending)."""
+    index = np.searchsorted(times, t)
+    pos = positions[:, k][:, index]
+    vel = velocities[:, k][:, index]
+    return ((pos[..., 0], pos[..., 1], pos[..., 2]),
+            (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
 
 
 def _normal(inc, node):
