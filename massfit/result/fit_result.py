@@ -184,6 +184,10 @@ class FitResult:
             "steps": int(chain.steps),
             "max_autocorr_steps": float(np.max(chain.tau)),
             "effective_samples": chain.effective_samples(k_mass),
+            # The mass's own autocorrelation time where the sampler moved in the
+            # angular mass (massfit.sample.reparameterisation), else None.
+            "mass_autocorr_steps": (None if getattr(chain, "key_tau", None) is None
+                                    else float(chain.key_tau)),
             # Of the central mass where it is sampled, else of the first coordinate.
             "effective_samples_of": names[k_mass] if names else None,
             "sampling_seconds": float(chain.seconds),
@@ -524,7 +528,7 @@ class FitResult:
 
     # --------------------------------------------------------------------- save
     def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf"),
-             arviz=False) -> Path:
+             arviz=False, processes=1) -> Path:
         """Write the output folder: summary, samples, observations, tables and figures.
 
         ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
@@ -538,7 +542,9 @@ class FitResult:
         wrote; a folder massfit did not write is never touched (see
         :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
         as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
-        :meth:`to_inference_data`; needs arviz).
+        :meth:`to_inference_data`; needs arviz). With ``processes=2`` the corner plot
+        is drawn in a forked second process beside the other figures (``massfit fit``
+        does so on a machine with two cores or more).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
@@ -561,18 +567,42 @@ class FitResult:
                 posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
             write_json(tmp / RUN_FILE, record)
             if plots:
-                record["figures"] = self._write_figures_or_warn(tmp, formats)
+                record["figures"] = self._write_figures_or_warn(tmp, formats, processes)
                 write_json(tmp / RUN_FILE, record)
         return out
 
-    def _write_figures_or_warn(self, folder, formats) -> dict:
-        """Draw every figure that applies; one that fails is a warning, not a lost result."""
+    def _write_figures_or_warn(self, folder, formats, processes=1) -> dict:
+        """Draw every figure that applies; one that fails is a warning, not a lost result.
+
+        With ``processes`` = 2 (and fork available) the corner plots are drawn in a
+        second process while this one draws the rest.
+        """
         import warnings
 
         from massfit.plot.figures import applicable_figures
+        from massfit.write.beside import beside, can_fork
 
+        stems = applicable_figures(self)
+        apart = [stem for stem in stems if stem.startswith("corner")]
+        if processes > 1 and can_fork() and apart and len(apart) < len(stems):
+            rest = [stem for stem in stems if stem not in apart]
+            first, second = beside(lambda: self._draw_each(folder, apart, formats),
+                                   lambda: self._draw_each(folder, rest, formats))
+            done = {key: sorted(first[key] + second[key],
+                                key=lambda d: stems.index(d if isinstance(d, str)
+                                                          else d["figure"]))
+                    for key in ("written", "failed")}
+        else:
+            done = self._draw_each(folder, stems, formats)
+        for failure in done["failed"]:
+            warnings.warn(f"the figure '{failure['figure']}' could not be drawn "
+                          f"({failure['error']}); the numbers are saved without it",
+                          FigureWarning, stacklevel=3)
+        return done
+
+    def _draw_each(self, folder, stems, formats) -> dict:
         done = {"written": [], "failed": []}
-        for stem in applicable_figures(self):
+        for stem in stems:
             try:
                 self.write_figures(folder, figures=[stem], formats=formats)
             except OSError:
@@ -582,8 +612,6 @@ class FitResult:
                     path.unlink()  # half a figure is no figure
                 reason = " ".join(f"{type(exc).__name__}: {exc}".split())
                 done["failed"].append({"figure": stem, "error": reason})
-                warnings.warn(f"the figure '{stem}' could not be drawn ({reason}); the "
-                              f"numbers are saved without it", FigureWarning, stacklevel=2)
             else:
                 done["written"].append(stem)
         return done
