@@ -249,7 +249,13 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
     assert again.describe() == model.describe()
     assert again.describe()["forces"] == ["zonal harmonics"]
     assert isinstance(make_dynamics("n-body", rtol=1e-11), NBody)
-    for options, key in (({"j2": 0.2, "equatorial_radius": "1 km"}, "dynamics.j2"),
+    fixed = make_dynamics("n-body", steps_per_orbit=24)
+    assert make_dynamics(fixed.label, **fixed.settings).describe() == fixed.describe()
+    assert fixed.describe()["steps_per_orbit"] == 24 and "rtol" not in fixed.describe()
+    for options, key in (({"steps_per_orbit": 4}, "dynamics.steps_per_orbit"),
+                         ({"steps_per_orbit": 24.5}, "dynamics.steps_per_orbit"),
+                         ({"steps_per_orbit": True}, "dynamics.steps_per_orbit"),
+                         ({"j2": 0.2, "equatorial_radius": "1 km"}, "dynamics.j2"),
                          ({"j4": 0.5, "equatorial_radius": "1 km"}, "dynamics.j4"),
                          ({"j2": 0.01}, "dynamics.equatorial_radius"),
                          ({"mutual_pulls": False}, "dynamics.mutual_pulls"),
