@@ -97,12 +97,20 @@ def _velocity_lines(rv) -> list:
     lines = ["Radial velocities (per instrument)"]
     for label in rv["offset"]:
         name = label or "(no instrument)"
-        lines.append(f"  {'gamma':<8}= {format_value(rv['offset'][label])} km/s   {name}")
-        lines.append(f"  {'jitter':<8}= {format_value(rv['jitter'][label])} km/s   {name}")
+        for term, key in (("gamma", "offset"), ("jitter", "jitter")):
+            lines.append(f"  {term:<8}= {_value_or_fixed(rv[key][label])} km/s   {name}")
     for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
         if term in rv:
             lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
     return lines
+
+
+def _value_or_fixed(block) -> str:
+    """``fixed at v`` for a value that was not sampled (an interval of no width), else
+    the interval as :func:`format_value` writes it."""
+    if block["lower_95"] == block["upper_95"] == block["median"]:
+        return f"fixed at {block['median']:g}"
+    return format_value(block)
 
 
 def format_value(block) -> str:
@@ -171,12 +179,13 @@ class FitResult:
                     "companion's radial velocities with its relative astrometry")
         summary.update(summary_blocks(self.model, s, interval))
         summary["converged"] = self.converged
-        from massfit.summarise.adequacy import fit_quality, quality_warnings
+        from massfit.summarise.adequacy import fit_quality, fitted_jitter, quality_warnings
 
         companions = self._companion_blocks()
         adequacy = self._adequacy({name: comp["period"]["median"]
                                    for name, comp in companions.items()})
-        summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
+        summary["fit_quality"] = fit_quality(
+            adequacy, tested=not (self.model.has_velocities and fitted_jitter(self.model)))
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
         summary["diagnostics"] = {
