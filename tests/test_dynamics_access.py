@@ -40,6 +40,10 @@ def test_config_builds_each_model():
      "dynamics.pole"),
     ({"model": "n-body", "rtol": 0.5}, "dynamics.rtol"),
     ({"model": "n-body", "j2": 0.01}, "dynamics.j2"),
+    ({"model": "perturbed", "mutual_pulls": True, "steps_per_orbit": 2},
+     "dynamics.steps_per_orbit"),
+    ({"model": "perturbed", "mutual_pulls": True, "steps_per_orbit": "many"},
+     "dynamics.steps_per_orbit"),
 ])
 def test_config_errors_name_the_key(dynamics, key):
     with pytest.raises(ConfigError) as info:
@@ -54,6 +58,11 @@ def test_cli_reports_bad_dynamics_options_without_traceback(tmp_path, capsys):
     err = capsys.readouterr().err
     assert status == 2
     assert "--equatorial-radius" in err and "Traceback" not in err
+    status = main(["fit", str(tmp_path / "none.ecsv"), "--out", str(tmp_path / "o"),
+                   "--dynamics", "n-body", "--steps-per-orbit", "3"])
+    err = capsys.readouterr().err
+    assert status == 2 and len(err.strip().splitlines()) == 1
+    assert "--steps-per-orbit" in err and "8 to 1000" in err and "Traceback" not in err
 
 
 def test_api_names():
@@ -69,7 +78,8 @@ def test_saved_model_state_rebuilds_the_dynamics():
     from massfit.write.saved_state import _encode
 
     for dynamics in (massfit.Oblate(0.015, "70000 km", "80 deg", "20 deg"),
-                     massfit.NBody(rtol=1e-11), Keplerian()):
+                     massfit.NBody(rtol=1e-11), massfit.NBody(steps_per_orbit=32),
+                     Keplerian()):
         spec = massfit.SystemSpec(dynamics=dynamics, romer_delay=True)
         back = _decode(json.loads(json.dumps(_encode(spec))))
         assert type(back.dynamics) is type(dynamics)

@@ -147,6 +147,70 @@ def test_secular_j2_rates_of_the_integrated_orbit():
     assert abs(np.polyfit(times[:200], np.unwrap(node0), 1)[0]) < 1e-6 * abs(expected_node)
 
 
+def _rebound_positions(rebound, reboundx, masses, pos, vel, times, harmonics):
+    """Astrocentric positions (K, T, 3) by REBOUND's IAS15 (+ REBOUNDx's J2, J4 about z),
+    forward and backward from time 0."""
+    theirs = np.empty((len(masses), times.size, 3))
+    for direction in (1.0, -1.0):
+        index = np.flatnonzero(direction * times >= 0)
+        if index.size == 0:
+            continue
+        sim = rebound.Simulation()
+        sim.G = GM_SUN
+        sim.add(m=PLANET)
+        for m, p, v in zip(masses, pos, vel):
+            # Astrocentric state -> REBOUND's inertial frame (primary at rest at first);
+            # backwards in time as forwards with the velocities reversed.
+            sim.add(m=m, x=p[0], y=p[1], z=p[2], vx=direction * v[0], vy=direction * v[1],
+                    vz=direction * v[2])
+        sim.move_to_com()
+        sim.integrator = "ias15"
+        if harmonics:
+            extras = reboundx.Extras(sim)
+            force = extras.load_force("gravitational_harmonics")
+            extras.add_force(force)
+            sim.particles[0].params["J2"] = J2
+            sim.particles[0].params["J4"] = J4
+            sim.particles[0].params["R_eq"] = RADIUS
+        for j in index[np.argsort(direction * times[index])]:
+            sim.integrate(direction * times[j], exact_finish_time=1)
+            centre = np.array(sim.particles[0].xyz)
+            for k in range(len(masses)):
+                theirs[k, j] = np.array(sim.particles[k + 1].xyz) - centre
+    return theirs
+
+
+@pytest.mark.parametrize("compiled", COMPILED)
+def test_fixed_steps_agree_with_rebound_to_the_stated_accuracy(compiled):
+    # The fixed-step path (DOP853's 8th-order solution, steps_per_orbit steps per
+    # orbit of the fastest moon at its periapsis rate) against REBOUND's IAS15 with
+    # REBOUNDx's J2 and J4 (Rein & Liu 2012; Tamayo et al. 2020): three heavy
+    # invented moons near 2:1 resonances, the inner one eccentric (e = 0.3, so that
+    # the periapsis rule matters), output times off any grid, forward and backward
+    # over +/- 12 orbits of the inner moon. Stated accuracy (measured here, and on a
+    # real planet's moons in benchmarks/RESULTS.md): 24 steps per orbit, within
+    # 1e-7 of each orbit's size (32 steps: 5e-9); 12 steps are off by far more (the
+    # control).
+    rebound = pytest.importorskip("rebound")
+    reboundx = pytest.importorskip("reboundx")
+    masses = np.array([4e-8, 9e-8, 6e-8])
+    states = [_moon_state(a, ecc, 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
+              for k, (a, ecc) in enumerate(((3.0, 0.3), (4.77, 0.02), (7.6, 0.03)))]
+    pos = np.array([s[0] for s in states])
+    vel = np.array([s[1] for s in states])
+    times = np.sort(np.random.default_rng(4).uniform(-12, 12, 21)) * states[0][2]
+    theirs = _rebound_positions(rebound, reboundx, masses, pos, vel, times, True)
+    scale = np.linalg.norm(pos, axis=1)[:, None, None]
+    errors = {}
+    for steps in (12, 24):
+        ours, _ = integrate_system(times, np.array([PLANET]), masses[None], pos[None],
+                                   vel[None], compiled=compiled, field=_field()[None],
+                                   steps_per_orbit=steps)
+        errors[steps] = np.max(np.abs(ours[0] - theirs) / scale)
+    assert errors[24] < 1e-7  # measured 6.7e-8
+    assert errors[12] > 100 * errors[24]  # measured 3.1e-5
+
+
 @pytest.mark.slow  # a statistical or end-to-end check: .ci/run runs it second
 @pytest.mark.parametrize("compiled", COMPILED)
 @pytest.mark.parametrize("harmonics", [False, True])
@@ -162,27 +226,7 @@ def test_pulls_and_harmonics_agree_with_rebound_and_reboundx(compiled, harmonics
     field = _field() if harmonics else _field(j2=0.0, j4=0.0)
     ours, _ = integrate_system(times, np.array([PLANET]), masses[None], pos[None], vel[None],
                                rtol=1e-13, compiled=compiled, field=field[None])
-    sim = rebound.Simulation()
-    sim.G = GM_SUN
-    sim.add(m=PLANET)
-    for m, p, v in zip(masses, pos, vel):
-        # Astrocentric state -> REBOUND's inertial frame (primary at rest at first).
-        sim.add(m=m, x=p[0], y=p[1], z=p[2], vx=v[0], vy=v[1], vz=v[2])
-    sim.move_to_com()
-    sim.integrator = "ias15"
-    if harmonics:
-        extras = reboundx.Extras(sim)
-        force = extras.load_force("gravitational_harmonics")
-        extras.add_force(force)
-        sim.particles[0].params["J2"] = J2
-        sim.particles[0].params["J4"] = J4
-        sim.particles[0].params["R_eq"] = RADIUS
-    theirs = np.empty_like(ours[0])
-    for j, t in enumerate(times):
-        sim.integrate(t, exact_finish_time=1)
-        centre = np.array(sim.particles[0].xyz)
-        for k in range(3):
-            theirs[k, j] = np.array(sim.particles[k + 1].xyz) - centre
+    theirs = _rebound_positions(rebound, reboundx, masses, pos, vel, times, harmonics)
     scale = np.linalg.norm(pos, axis=1)[:, None, None]
     assert np.max(np.abs(ours[0] - theirs) / scale) < 1e-9
     # Negative control: the moons' pulls on each other are far above that tolerance.
@@ -205,7 +249,13 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
     assert again.describe() == model.describe()
     assert again.describe()["forces"] == ["zonal harmonics"]
     assert isinstance(make_dynamics("n-body", rtol=1e-11), NBody)
-    for options, key in (({"j2": 0.2, "equatorial_radius": "1 km"}, "dynamics.j2"),
+    fixed = make_dynamics("n-body", steps_per_orbit=24)
+    assert make_dynamics(fixed.label, **fixed.settings).describe() == fixed.describe()
+    assert fixed.describe()["steps_per_orbit"] == 24 and "rtol" not in fixed.describe()
+    for options, key in (({"steps_per_orbit": 4}, "dynamics.steps_per_orbit"),
+                         ({"steps_per_orbit": 24.5}, "dynamics.steps_per_orbit"),
+                         ({"steps_per_orbit": True}, "dynamics.steps_per_orbit"),
+                         ({"j2": 0.2, "equatorial_radius": "1 km"}, "dynamics.j2"),
                          ({"j4": 0.5, "equatorial_radius": "1 km"}, "dynamics.j4"),
                          ({"j2": 0.01}, "dynamics.equatorial_radius"),
                          ({"mutual_pulls": False}, "dynamics.mutual_pulls"),
@@ -307,3 +357,57 @@ def test_viewing_pole_is_the_perturbed_models_pole(tmp_path):
     assert np.max(np.abs(out["viewing"] - out["orbits"])) > 1.0  # sigma: the pole matters
     # Both count as a given pole: every node over the full circle.
     assert by_viewing.node_width == by_equator.node_width
+
+
+def test_offsets_from_another_moon_follow_rebound(tmp_path):
+    # Rows of moon b measured from moon a (reference_body), the rest from the planet:
+    # offsets made by REBOUND's IAS15 with REBOUNDx's J2 and J4 (Rein & Liu 2012;
+    # Tamayo et al. 2020) on a fixed sky plane, north and east of the sky frame.
+    # At the truth, the perturbed model's residuals are the integrators' difference
+    # (~1e-9 of the orbits, far below the 150 km errors).
+    from astropy.table import Table
+
+    from massfit import Perturbed, SystemSpec, read_observations
+    from massfit.constants import AU_KM
+    from massfit.errors import ModelError
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.orbits.nbody import write_offsets
+    from massfit.orbits.oblate import Oblate
+
+    rebound = pytest.importorskip("rebound")
+    reboundx = pytest.importorskip("reboundx")
+    masses = np.array([4e-8, 9e-8])
+    states = [_moon_state(a, 0.01 + 0.01 * k, 0.3 + 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
+              for k, a in enumerate((3.0, 4.77))]
+    pos = np.array([s[0] for s in states])
+    vel = np.array([s[1] for s in states])
+    t = np.linspace(-8.0, 8.0, 17) * states[0][2]  # symmetric: the model's epoch is 0
+    km = _rebound_positions(rebound, reboundx, masses, pos, vel, t, True) * AU_KM
+    path = write_offsets(tmp_path / "pair.ecsv", 2461000.5, ["a", "b"], [t, t],
+                         [km[0, :, 1], km[1, :, 1] - km[0, :, 1]],
+                         [km[0, :, 0], km[1, :, 0] - km[0, :, 0]], 150.0, "km", "pair")
+    table = Table.read(path)
+    table["reference_body"] = np.where(table["body"] == "b", "a", "")
+    table.write(path, overwrite=True)
+    dynamics = Perturbed(j2=J2, j4=J4, equatorial_radius=f"{RADIUS} au",
+                         equator_inclination="0 deg", equator_node="0 deg")
+    model = OrbitModel(read_observations(path), SystemSpec(dynamics=dynamics))
+    values = {"central_mass": PLANET, "parallax": None}
+    for k, name in enumerate(("a", "b")):
+        (period, ecc, cos_i, node, omega, mean0), _ = elements_of_state(
+            pos[k:k + 1], vel[k:k + 1], np.array([GM_SUN * (PLANET + masses[k])]))
+        values[name] = dict(period=period[0], ecc=ecc[0], inc=np.arccos(cos_i[0]),
+                            omega=omega[0], node=node[0], mass=masses[k],
+                            mean_anomaly_ref=mean0[0] + 2 * np.pi / period[0]
+                            * (model.reference_epoch(name) + model.epoch_jd - 2461000.5))
+    theta = model.recentre(model.from_physical(values))
+    residuals = model.residuals(theta[None])[0]
+    assert np.max(np.abs(residuals)) < 1e-3  # in sigma: 0.15 km
+    # Negative control: the same rows read as offsets from the planet.
+    plain = OrbitModel(read_observations(path), SystemSpec(dynamics=dynamics))
+    plain.rows["b"].reference = None
+    plain.centres = model.centres
+    assert np.max(np.abs(plain.residuals(theta[None])[0])) > 100
+    # The secular J2 model has no states of its own to take a difference of.
+    with pytest.raises(ModelError, match="reference_body"):
+        OrbitModel(read_observations(path), SystemSpec(dynamics=Oblate(J2, f"{RADIUS} au")))

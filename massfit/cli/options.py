@@ -57,6 +57,9 @@ def dynamics_options(parser):
     group.add_argument("--rtol", type=float, metavar="TOL",
                        help="perturbed, n-body: relative tolerance of the integrator "
                             "(default 1e-12)")
+    group.add_argument("--steps-per-orbit", type=int, metavar="N",
+                       help="perturbed, n-body: fixed integrator steps per orbit of the "
+                            "fastest companion instead of adaptive ones (8-1000)")
     group.add_argument("--start-evaluations", type=int, metavar="N",
                        help="perturbed, n-body: cap on the evaluations of each "
                             "least-squares pass of the start (default 300)")
@@ -65,7 +68,8 @@ def dynamics_options(parser):
 
 
 DYNAMICS_OPTIONS = ("j2", "j4", "equatorial_radius", "equator_inclination",
-                     "equator_node", "mutual_pulls", "rtol", "start_evaluations")
+                     "equator_node", "mutual_pulls", "rtol", "steps_per_orbit",
+                     "start_evaluations")
 
 
 def apply_dynamics_options(args, system):

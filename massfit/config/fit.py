@@ -47,6 +47,8 @@ instead)::
     equator_node = "33 deg"           #   the sky (default: from the orbits)
     mutual_pulls = true               # perturbed: the companions pull on each other
     rtol = 1e-12                      # perturbed, n-body: the integrator's tolerance
+    # steps_per_orbit = 24            # perturbed, n-body: fixed steps instead (faster
+                                      #   where the data's errors allow; see the docs)
     start_evaluations = 300           # perturbed, n-body: cap per least-squares pass
     compare_keplerian = true          # adequacy: also fit the two-body model
 
@@ -126,6 +128,7 @@ _SCHEMA = {
                    "jitter_prior": dict, "instruments": dict},
     "dynamics": {"model": str, "j2": float, "j4": float, "equatorial_radius": str,
                  "equator_inclination": str, "equator_node": str, "rtol": float,
+                 "steps_per_orbit": int,
                  "mutual_pulls": bool, "start_evaluations": int,
                  "compare_keplerian": bool},
     "frame": {f"{term}_prior": dict for term in ("east", "north", "motion_east",

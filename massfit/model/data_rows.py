@@ -98,9 +98,9 @@ class ModelData:
                     f"('{self.observations.primary}') nor a companion with astrometry "
                     f"({', '.join(self.companions)})", file=astrometry.file[row],
                     line=int(astrometry.line[row]), column="reference_body")
-        if type(self.dynamics) is not Keplerian:
+        if not self.dynamics.offsets_between_companions:
             raise ModelError(f"offsets measured from another companion (reference_body) "
-                             f"need the keplerian model for now, not the "
+                             f"need the keplerian, perturbed or n-body model, not the "
                              f"{self.dynamics.label} one")
 
     def _unlisted_body(self, observations, name):

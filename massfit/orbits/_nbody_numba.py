@@ -70,13 +70,14 @@ def _central_field(x, y, z, field):  # pragma: no cover - compiled
 
 
 @numba.njit(**_jit)
-def _derivative(y, gm_central, gm_bodies, field, out):  # pragma: no cover - compiled
+def _derivative(y, gm_central, gm_bodies, field, out, g):  # pragma: no cover - compiled
     """d/dt of the astrocentric state y (K*6: x, y, z, vx, vy, vz per companion),
-    in the primary's field with the companions' pulls as ``field`` says."""
+    in the primary's field with the companions' pulls as ``field`` says; ``g`` (K, 3)
+    is scratch space for the primary's field at each companion."""
     if field[0] == 0.0 and field[1] == 0.0 and field[5] != 0.0:
         _derivative_point(y, gm_central, gm_bodies, out)
     else:
-        _derivative_zonal(y, gm_central, gm_bodies, field, out)
+        _derivative_zonal(y, gm_central, gm_bodies, field, out, g)
 
 
 @numba.njit(**_jit)
@@ -117,41 +118,49 @@ def _derivative_point(y, gm_central, gm_bodies, out):  # pragma: no cover - comp
 
 
 @numba.njit(**_jit)
-def _derivative_zonal(y, gm_central, gm_bodies, field, out):  # pragma: no cover - compiled
-    """The general form: the primary's zonal field, pulls on or off. The field at
-    each other companion is evaluated again for each k (K is small)."""
+def _derivative_zonal(y, gm_central, gm_bodies, field, out, g):  # pragma: no cover - compiled
+    """The general form: the primary's zonal field, pulls on or off. The field per
+    unit GM at each companion is evaluated once (into ``g``) and serves both the
+    direct term of that companion and the indirect term of every other, and each
+    pair's separation once for both of its members: with four moons, 0.22 us per
+    derivative against 0.54 us evaluating both again for each ordered pair
+    (measured side by side, one core)."""
     k_bodies = gm_bodies.shape[0]
-    pulls = field[5] != 0.0
     for k in range(k_bodies):
         base = 6 * k
-        x, yy, z = y[base], y[base + 1], y[base + 2]
+        gx, gy, gz = _central_field(y[base], y[base + 1], y[base + 2], field)
+        g[k, 0] = gx
+        g[k, 1] = gy
+        g[k, 2] = gz
         gk = gm_central + gm_bodies[k]
-        gx, gy, gz = _central_field(x, yy, z, field)
-        ax = gk * gx
-        ay = gk * gy
-        az = gk * gz
-        if pulls:
-            for j in range(k_bodies):
-                if j == k:
-                    continue
-                other = 6 * j
-                xj, yj, zj = y[other], y[other + 1], y[other + 2]
-                dx, dy, dz = xj - x, yj - yy, zj - z
-                d2 = dx * dx + dy * dy + dz * dz
-                inv_d3 = 1.0 / (d2 * math.sqrt(d2))
-                # Direct pull of j, plus the primary's own acceleration towards j
-                # (the field per unit GM of the primary, which points at it).
-                hx, hy, hz = _central_field(xj, yj, zj, field)
-                gj = gm_bodies[j]
-                ax += gj * (dx * inv_d3 + hx)
-                ay += gj * (dy * inv_d3 + hy)
-                az += gj * (dz * inv_d3 + hz)
         out[base] = y[base + 3]
         out[base + 1] = y[base + 4]
         out[base + 2] = y[base + 5]
-        out[base + 3] = ax
-        out[base + 4] = ay
-        out[base + 5] = az
+        out[base + 3] = gk * gx
+        out[base + 4] = gk * gy
+        out[base + 5] = gk * gz
+    if field[5] == 0.0:
+        return
+    for k in range(k_bodies):
+        base = 6 * k
+        for j in range(k + 1, k_bodies):
+            other = 6 * j
+            dx = y[other] - y[base]
+            dy = y[other + 1] - y[base + 1]
+            dz = y[other + 2] - y[base + 2]
+            d2 = dx * dx + dy * dy + dz * dz
+            inv_d3 = 1.0 / (d2 * math.sqrt(d2))
+            # On k: the direct pull of j, plus the primary's own acceleration towards
+            # j (the field per unit GM of the primary, which points at it); on j the
+            # same with the roles swapped.
+            gj = gm_bodies[j]
+            gk = gm_bodies[k]
+            out[base + 3] += gj * (dx * inv_d3 + g[j, 0])
+            out[base + 4] += gj * (dy * inv_d3 + g[j, 1])
+            out[base + 5] += gj * (dz * inv_d3 + g[j, 2])
+            out[other + 3] += gk * (g[k, 0] - dx * inv_d3)
+            out[other + 4] += gk * (g[k, 1] - dy * inv_d3)
+            out[other + 5] += gk * (g[k, 2] - dz * inv_d3)
 
 
 @numba.njit(**_jit)
@@ -177,7 +186,7 @@ def _error_norm(stages, h, scale):  # pragma: no cover - compiled
 
 @numba.njit(**_jit)
 def _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, atol,
-                  work, f1):  # pragma: no cover - compiled
+                  work, f1, g):  # pragma: no cover - compiled
     """scipy's empirical first step (Hairer, Norsett and Wanner, sec. II.4)."""
     n = y.shape[0]
     d0 = 0.0
@@ -192,7 +201,7 @@ def _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, ato
     h0 = min(h0, span)
     for i in range(n):
         work[i] = y[i] + h0 * direction * f[i]
-    _derivative(work, gm_central, gm_bodies, field, f1)
+    _derivative(work, gm_central, gm_bodies, field, f1, g)
     d2 = 0.0
     for i in range(n):
         sc = atol[i] + abs(y[i]) * rtol
@@ -203,6 +212,26 @@ def _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, ato
     else:
         h1 = (0.01 / max(d1, d2)) ** (1.0 / 8.0)
     return min(100.0 * h0, h1, span)
+
+
+@numba.njit(**_jit)
+def _rk_step(y, h, gm_central, gm_bodies, field, stages, work, g,
+             y_new):  # pragma: no cover - compiled
+    """One DOP853 step of length h from y, whose derivative is already in stages[0]:
+    the other stages into ``stages`` and the eighth-order solution into ``y_new``."""
+    n = y.shape[0]
+    for s in range(1, N_STAGES):
+        for i in range(n):
+            acc = 0.0
+            for r in range(s):
+                acc += A[s, r] * stages[r, i]
+            work[i] = y[i] + h * acc
+        _derivative(work, gm_central, gm_bodies, field, stages[s], g)
+    for i in range(n):
+        acc = 0.0
+        for r in range(N_STAGES):
+            acc += B[r] * stages[r, i]
+        y_new[i] = y[i] + h * acc
 
 
 @numba.njit(**_jit)
@@ -222,11 +251,12 @@ def _integrate_one(y0, gm_central, gm_bodies, field, targets, rtol, atol, out): 
     f = np.empty(n)
     stages = np.empty((N_STAGES + 1, n))
     scale = np.empty(n)
-    _derivative(y, gm_central, gm_bodies, field, f)
+    g = np.empty((gm_bodies.shape[0], 3))
+    _derivative(y, gm_central, gm_bodies, field, f, g)
     t = 0.0
     span = abs(targets[targets.shape[0] - 1])
     h_abs = _initial_step(y, f, gm_central, gm_bodies, field, direction, span, rtol, atol,
-                          work, y_new)
+                          work, y_new, g)
     steps = 0
     for j in range(targets.shape[0]):
         t_target = targets[j]
@@ -244,19 +274,8 @@ def _integrate_one(y0, gm_central, gm_bodies, field, targets, rtol, atol, out): 
                 h = direction * (remaining if landing else h_abs)
                 for i in range(n):
                     stages[0, i] = f[i]
-                for s in range(1, N_STAGES):
-                    for i in range(n):
-                        acc = 0.0
-                        for r in range(s):
-                            acc += A[s, r] * stages[r, i]
-                        work[i] = y[i] + h * acc
-                    _derivative(work, gm_central, gm_bodies, field, stages[s])
-                for i in range(n):
-                    acc = 0.0
-                    for r in range(N_STAGES):
-                        acc += B[r] * stages[r, i]
-                    y_new[i] = y[i] + h * acc
-                _derivative(y_new, gm_central, gm_bodies, field, stages[N_STAGES])
+                _rk_step(y, h, gm_central, gm_bodies, field, stages, work, g, y_new)
+                _derivative(y_new, gm_central, gm_bodies, field, stages[N_STAGES], g)
                 finite = True
                 for i in range(n):
                     scale[i] = atol[i] + max(abs(y[i]), abs(y_new[i])) * rtol
@@ -300,5 +319,58 @@ def integrate(y0, gm_central, gm_bodies, field, forward, backward, rtol, atol,
         if ok:
             ok = _integrate_one(y0[w], gm_central[w], gm_bodies[w], field[w], backward,
                                 rtol, atol[w], out[w, n_fwd:])
+        if not ok:
+            out[w, :, :] = np.nan
+
+
+@numba.njit(**_jit)
+def _fixed_one(y0, gm_central, gm_bodies, field, targets, h_max, out):  # pragma: no cover
+    """Integrate one system from t = 0 to each of ``targets`` (same sign, sorted by
+    |t|) with DOP853's eighth-order solution at fixed steps: each stretch between two
+    output times is cut into the fewest equal steps no longer than ``h_max``. No
+    error estimate, no rejected steps; the grid depends on the output times and on
+    ``h_max`` only, so the result is a smooth function of the initial state (what a
+    least-squares Jacobian by finite differences needs). Returns False where the
+    state stopped being finite."""
+    n = y0.shape[0]
+    y = y0.copy()
+    y_new = np.empty(n)
+    work = np.empty(n)
+    stages = np.empty((N_STAGES, n))
+    g = np.empty((gm_bodies.shape[0], 3))
+    t = 0.0
+    for j in range(targets.shape[0]):
+        span = targets[j] - t
+        count = int(math.ceil(abs(span) / h_max * (1.0 - 1e-12)))
+        if count > 0:
+            h = span / count
+            for _ in range(count):
+                _derivative(y, gm_central, gm_bodies, field, stages[0], g)
+                _rk_step(y, h, gm_central, gm_bodies, field, stages, work, g, y_new)
+                for i in range(n):
+                    y[i] = y_new[i]
+        t = targets[j]
+        for i in range(n):
+            if not math.isfinite(y[i]):
+                return False
+            out[j, i] = y[i]
+    return True
+
+
+@numba.njit(parallel=True, **_jit)
+def integrate_fixed(y0, gm_central, gm_bodies, field, forward, backward, h_max,
+                    out):  # pragma: no cover - compiled
+    """:func:`integrate` with fixed steps of at most ``h_max[w]`` days per walker
+    (:func:`_fixed_one`) instead of the adaptive ones."""
+    n_walkers = y0.shape[0]
+    n_fwd = forward.shape[0]
+    for w in numba.prange(n_walkers):
+        ok = math.isfinite(h_max[w]) and h_max[w] > 0.0
+        if ok:
+            ok = _fixed_one(y0[w], gm_central[w], gm_bodies[w], field[w], forward, h_max[w],
+                            out[w, :n_fwd])
+        if ok:
+            ok = _fixed_one(y0[w], gm_central[w], gm_bodies[w], field[w], backward,
+                            h_max[w], out[w, n_fwd:])
         if not ok:
             out[w, :, :] = np.nan

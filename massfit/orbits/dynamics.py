@@ -97,6 +97,9 @@ class Keplerian:
     label = "keplerian"
     #: The settings as given, for the run record (``make_dynamics`` takes them back).
     settings: dict = {}
+    #: Whether :meth:`states_at` follows this model's orbits, so that rows measured
+    #: from another companion (``reference_body``) can be fitted.
+    offsets_between_companions = True
 
     def describe(self) -> dict:
         """The settings of this model, for the summary."""

@@ -46,7 +46,7 @@ import numpy as np
 from massfit.constants import GM_SUN
 from massfit.orbits.dynamics import orbit_state
 
-__all__ = ["integrate_system", "total_energy", "zonal_field", "zonal_potential",
+__all__ = ["integrate_system", "fixed_step", "total_energy", "zonal_field", "zonal_potential",
            "POINT_MASS_FIELD", "write_offsets",
            "PAIR_TRUTH", "simulate_interacting_pair"]
 
@@ -126,7 +126,7 @@ def _accelerations(pos, gm_central, gm_bodies, field):
 
 
 def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=1e-12,
-                     compiled=None, field=None):
+                     compiled=None, field=None, steps_per_orbit=None):
     """Integrate primary plus companions from an astrocentric state at time 0.
 
     Parameters
@@ -149,6 +149,11 @@ def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=
         The primary's field and the pulls, per system: (J2 R^2 in au^2, J4 R^4 in
         au^4, the pole's unit vector, 1 for mutual pulls or 0 without);
         default :data:`POINT_MASS_FIELD` (a point mass, pulls on).
+    steps_per_orbit : int, optional
+        Fixed steps instead of adaptive ones (``rtol`` is then unused): DOP853's
+        eighth-order solution with steps of at most :func:`fixed_step` days, i.e.
+        ``steps_per_orbit`` steps per orbit of the fastest companion (counted at its
+        periapsis rate). None: adaptive DOP853 at ``rtol``.
 
     Returns
     -------
@@ -162,38 +167,125 @@ def integrate_system(times, central_mass, masses, position0, velocity0, *, rtol=
     field = np.ascontiguousarray(np.broadcast_to(
         POINT_MASS_FIELD if field is None else np.asarray(field, dtype=float), (n, 6)))
     use_compiled = _fast is not None if compiled is None else bool(compiled)
+    if use_compiled and _fast is None:
+        raise RuntimeError("the compiled integrator needs numba, which is not installed")
+    if steps_per_orbit is not None:
+        h_max = fixed_step(gm_central, gm_bodies, position0, velocity0, steps_per_orbit)
+        if use_compiled:
+            return _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0,
+                                       None, field, h_max)
+        return _integrate_stacked_fixed(times, gm_central, gm_bodies, position0, velocity0,
+                                        field, h_max)
     if use_compiled:
-        if _fast is None:
-            raise RuntimeError("the compiled integrator needs numba, which is not installed")
         return _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0,
                                    rtol, field)
     return _integrate_stacked(times, gm_central, gm_bodies, position0, velocity0, rtol,
                               field)
 
 
-def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol, field):
+def fixed_step(gm_central, gm_bodies, position0, velocity0, steps_per_orbit):
+    """The longest fixed step (days) per system: min over its companions of
+    P (1 - e)^1.5 / (1 + e)^0.5 / ``steps_per_orbit``.
+
+    P and e are each companion's two-body (osculating) period and eccentricity at
+    time 0 under G (M1 + m_k); P (1 - e)^1.5 / (1 + e)^0.5 is 2 pi over its angular
+    rate at periapsis, so an eccentric orbit gets the steps its fastest part needs.
+    NaN for a system with an unbound companion (its walker then fails).
+
+    Parameters
+    ----------
+    gm_central : ndarray, shape (n,)
+    gm_bodies : ndarray, shape (n, K)
+        au^3/day^2.
+    position0, velocity0 : ndarray, shape (n, K, 3)
+    steps_per_orbit : float
+    """
+    gm = (gm_central[:, None] + gm_bodies)[..., None]
+    radius = np.linalg.norm(position0, axis=-1, keepdims=True)
+    speed2 = np.sum(velocity0 * velocity0, axis=-1, keepdims=True)
+    energy = 0.5 * speed2 - gm / radius
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = -gm / (2.0 * energy)
+        e_vec = ((speed2 - gm / radius) * position0
+                 - np.sum(position0 * velocity0, axis=-1, keepdims=True) * velocity0) / gm
+        ecc = np.linalg.norm(e_vec, axis=-1)
+        period = 2.0 * np.pi * np.sqrt(a[..., 0] ** 3 / gm[..., 0])
+        step = period * (1.0 - ecc) ** 1.5 / np.sqrt(1.0 + ecc) / float(steps_per_orbit)
+    step = np.where((energy[..., 0] < 0) & (ecc < 1.0), step, np.nan)
+    return np.min(step, axis=1)
+
+
+def _integrate_compiled(times, gm_central, gm_bodies, position0, velocity0, rtol, field,
+                        h_max=None):
+    """Adaptive steps at ``rtol``, or fixed ones of at most ``h_max`` (n,) days."""
     n, k = gm_bodies.shape
     y0 = np.ascontiguousarray(np.concatenate([position0, velocity0], axis=-1).reshape(n, -1),
                               dtype=float)
     # Absolute tolerance per walker and companion: rtol times its own distance and
     # speed (so that a component passing through zero does not ask for the impossible).
-    r_scale = np.linalg.norm(position0, axis=-1)
-    v_scale = np.linalg.norm(velocity0, axis=-1)
-    atol = rtol * np.concatenate([np.repeat(r_scale[..., None], 3, -1),
-                                  np.repeat(v_scale[..., None], 3, -1)], axis=-1)
+    forward, backward = _sides(times)
+    raw = np.empty((n, times.size, 6 * k))
+    masses = (np.ascontiguousarray(gm_central), np.ascontiguousarray(gm_bodies))
+    with np.errstate(all="ignore"):
+        if h_max is not None:
+            _fast.integrate_fixed(y0, *masses, field, times[forward].copy(),
+                                  times[backward].copy(), np.ascontiguousarray(h_max), raw)
+        else:
+            r_scale = np.linalg.norm(position0, axis=-1)
+            v_scale = np.linalg.norm(velocity0, axis=-1)
+            atol = rtol * np.concatenate([np.repeat(r_scale[..., None], 3, -1),
+                                          np.repeat(v_scale[..., None], 3, -1)], axis=-1)
+            _fast.integrate(y0, *masses, field, times[forward].copy(),
+                            times[backward].copy(), float(rtol),
+                            np.ascontiguousarray(atol.reshape(n, -1)), raw)
+    out = np.empty_like(raw)
+    out[:, np.concatenate([forward, backward])] = raw
+    out = out.reshape(n, times.size, k, 6).transpose(0, 2, 1, 3)
+    return out[..., :3], out[..., 3:]
+
+
+def _sides(times):
+    """Indices of the times >= 0 in ascending order and of those < 0 descending."""
     forward = np.flatnonzero(times >= 0)
     forward = forward[np.argsort(times[forward], kind="stable")]
     backward = np.flatnonzero(times < 0)
     backward = backward[np.argsort(-times[backward], kind="stable")]
-    raw = np.empty((n, times.size, 6 * k))
-    with np.errstate(all="ignore"):
-        _fast.integrate(y0, np.ascontiguousarray(gm_central),
-                        np.ascontiguousarray(gm_bodies), field, times[forward].copy(),
-                        times[backward].copy(), float(rtol),
-                        np.ascontiguousarray(atol.reshape(n, -1)), raw)
-    out = np.empty_like(raw)
-    out[:, np.concatenate([forward, backward])] = raw
-    out = out.reshape(n, times.size, k, 6).transpose(0, 2, 1, 3)
+    return forward, backward
+
+
+def _integrate_stacked_fixed(times, gm_central, gm_bodies, position0, velocity0, field,
+                             h_max):
+    """The fixed-step path in numpy, all walkers stacked with the shortest of their
+    steps (so it may take more steps than the compiled path, never fewer)."""
+    from scipy.integrate._ivp import dop853_coefficients as coef
+
+    n, k = gm_bodies.shape
+    out = np.full((n, times.size, k, 6), np.nan)
+    h_max = float(np.min(h_max))
+    if not (np.isfinite(h_max) and h_max > 0):
+        return out.transpose(0, 2, 1, 3)[..., :3], out.transpose(0, 2, 1, 3)[..., 3:]
+    stages_a, weights = coef.A[:coef.N_STAGES, :coef.N_STAGES], coef.B
+
+    def rhs(state):
+        return np.concatenate([state[..., 3:], _accelerations(
+            state[..., :3], gm_central, gm_bodies, field)], axis=-1)
+
+    for side in _sides(times):
+        state = np.concatenate([position0, velocity0], axis=-1)
+        t = 0.0
+        for index in side:
+            span = times[index] - t
+            count = int(np.ceil(abs(span) / h_max * (1.0 - 1e-12)))
+            for _ in range(count):
+                h = span / count
+                stages = [rhs(state)]
+                for s in range(1, coef.N_STAGES):
+                    stages.append(rhs(state + h * sum(
+                        stages_a[s, r] * stages[r] for r in range(s))))
+                state = state + h * sum(w * f for w, f in zip(weights, stages))
+            t = times[index]
+            out[:, index] = state
+    out = out.transpose(0, 2, 1, 3)
     return out[..., :3], out[..., 3:]
 
 

@@ -252,6 +252,8 @@ class Oblate(Keplerian):
     """
 
     label = "oblate"
+    #: Its states_at would be the two-body one (no precession): not offered.
+    offsets_between_companions = False
 
     def __init__(self, j2, radius, equator_inclination=None, equator_node=None):
         #: The settings as given (the command line changes them one by one).

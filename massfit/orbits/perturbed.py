@@ -79,6 +79,12 @@ class Perturbed(Keplerian):
         Whether the companions pull on each other (and their masses become parameters).
     rtol : float
         Relative tolerance of the integrator, from 1e-14 to 1e-6.
+    steps_per_orbit : int, optional
+        Fixed steps instead of adaptive ones: DOP853's eighth-order solution with this
+        many steps per orbit of the fastest companion (counted at its periapsis rate;
+        from 8 to 1000; ``rtol`` then unused). The grid does not move with the
+        parameters, so the model is a smooth function of them. See
+        ``benchmarks/RESULTS.md`` for what a number of steps costs in accuracy.
     start_evaluations : int
         Cap on the residual evaluations of each least-squares pass of the start (at
         least 20); a start that reaches it says so in the summary's warnings.
@@ -96,12 +102,17 @@ class Perturbed(Keplerian):
     START_SHARES = (1e-4, 1e-3, 1e-2)
 
     def __init__(self, *, j2=0.0, j4=0.0, equatorial_radius=None, equator_inclination=None,
-                 equator_node=None, mutual_pulls=True, rtol=1e-12, start_evaluations=300,
-                 mass_prior=None, compiled=None):
+                 equator_node=None, mutual_pulls=True, rtol=1e-12, steps_per_orbit=None,
+                 start_evaluations=300, mass_prior=None, compiled=None):
         if isinstance(rtol, bool) or not isinstance(rtol, (int, float)) \
                 or not 1e-14 <= rtol <= 1e-6:
             raise ConfigError(f"the integrator's relative tolerance must be a number "
                               f"from 1e-14 to 1e-6, got {rtol!r}", key="dynamics.rtol")
+        if steps_per_orbit is not None and (
+                isinstance(steps_per_orbit, bool) or not isinstance(steps_per_orbit, int)
+                or not 8 <= steps_per_orbit <= 1000):
+            raise ConfigError(f"steps_per_orbit must be a whole number from 8 to 1000, got "
+                              f"{steps_per_orbit!r}", key="dynamics.steps_per_orbit")
         if not isinstance(mutual_pulls, bool):
             raise ConfigError(f"mutual_pulls must be true or false, got {mutual_pulls!r}",
                               key="dynamics.mutual_pulls")
@@ -117,6 +128,7 @@ class Perturbed(Keplerian):
         self.figure = figure
         self.mutual_pulls = mutual_pulls
         self.rtol = float(rtol)
+        self.steps_per_orbit = steps_per_orbit
         self.start_evaluations = start_evaluations
         self.mass_prior = mass_prior if mass_prior is not None else DEFAULT_MASS_PRIOR
         self.compiled = compiled
@@ -126,8 +138,15 @@ class Perturbed(Keplerian):
         self.settings = {k: v for k, v in dict(
             j2=j2, j4=j4, equatorial_radius=equatorial_radius,
             equator_inclination=equator_inclination, equator_node=equator_node,
-            mutual_pulls=mutual_pulls, rtol=rtol,
+            mutual_pulls=mutual_pulls, rtol=rtol, steps_per_orbit=steps_per_orbit,
             start_evaluations=start_evaluations).items() if v is not None}
+
+    def _steps(self) -> dict:
+        """The integrator's setting, for ``describe()``."""
+        if self.steps_per_orbit is None:
+            return {"integrator": "DOP853, adaptive steps", "rtol": self.rtol}
+        return {"integrator": "DOP853's 8th-order solution, fixed steps",
+                "steps_per_orbit": self.steps_per_orbit}
 
     @property
     def has_harmonics(self) -> bool:
@@ -140,7 +159,7 @@ class Perturbed(Keplerian):
         return out
 
     def describe(self) -> dict:
-        out = {"model": self.label, "rtol": self.rtol,
+        out = {"model": self.label, **self._steps(),
                "forces": [f for f, on in zip(FORCES, (self.has_harmonics, self.mutual_pulls))
                           if on],
                "coordinates": "astrocentric osculating elements at the model epoch"}
@@ -306,7 +325,10 @@ class Perturbed(Keplerian):
         field[:, 5] = 1.0 if self.mutual_pulls else 0.0
         return field
 
-    def states(self, model, phys, *, want_velocity=False) -> dict:
+    def _integrate(self, model, phys, t):
+        """Every companion integrated to the times ``t`` (days since the model's
+        epoch): (the distinct times, ascending; positions and velocities, each
+        (n, K, T, 3) in the order of ``model.rows``)."""
         from massfit.orbits.nbody import integrate_system
 
         names = list(model.rows)
@@ -327,25 +349,50 @@ class Perturbed(Keplerian):
             pos0[:, k] = np.column_stack(position)
             vel0[:, k] = np.column_stack(velocity)
         field = self._field(model, orbits, masses.shape[0])
-        all_t = np.concatenate([model.rows[name].t for name in names]) - t0
-        unique_t, where = np.unique(all_t, return_inverse=True)
-        positions = np.full(masses.shape + (unique_t.size, 3), np.nan)
+        times = np.unique(np.asarray(t, dtype=float))
+        positions = np.full(masses.shape + (times.size, 3), np.nan)
         velocities = np.full_like(positions, np.nan)
         good = np.flatnonzero(np.all(np.isfinite(pos0) & np.isfinite(vel0), axis=(1, 2))
                               & np.all(np.isfinite(field), axis=1))
         if good.size:
             positions[good], velocities[good] = integrate_system(
-                unique_t, phys["central_mass"][good], masses[good], pos0[good], vel0[good],
-                rtol=self.rtol, compiled=self.compiled, field=field[good])
-        out, start = {}, 0
-        for k, name in enumerate(names):
-            rows = where[start:start + model.rows[name].t.size]
-            start += rows.size
-            pos = positions[:, k][:, rows]
-            vel = velocities[:, k][:, rows]
-            out[name] = ((pos[..., 0], pos[..., 1], pos[..., 2]),
-                         (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
-        return out
+                times - t0, phys["central_mass"][good], masses[good], pos0[good],
+                vel0[good], rtol=self.rtol, compiled=self.compiled, field=field[good],
+                steps_per_orbit=self.steps_per_orbit)
+        return times, positions, velocities
+
+    def states(self, model, phys, *, want_velocity=False) -> dict:
+        names = list(model.rows)
+        times, positions, velocities = self._integrate(
+            model, phys, np.concatenate([model.rows[name].t for name in names]))
+        # Kept for states_at: an offset measured from another companion needs that
+        # companion at the same rows' times, which this integration already holds.
+        self._last = (phys, times, positions, velocities)
+        return {name: _picked(times, positions, velocities, k, model.rows[name].t,
+                              want_velocity)
+                for k, name in enumerate(names)}
+
+    def states_at(self, model, phys, name, t):
+        """Position and velocity of one companion at the times ``t`` (days since the
+        model's epoch): read off the integration :meth:`states` made for the same
+        ``phys`` where it holds those times (offsets measured from another companion),
+        else integrated anew."""
+        k = list(model.rows).index(name)
+        last = getattr(self, "_last", None)
+        t = np.asarray(t, dtype=float)
+        if last is not None and last[0] is phys and np.all(np.isin(t, last[1])):
+            return _picked(*last[1:], k, t, True)
+        return _picked(*self._integrate(model, phys, t), k, t, True)
+
+
+def _picked(times, positions, velocities, k, t, want_velocity):
+    """Companion ``k``'s ((x, y, z), (vx, vy, vz) or None) at the times ``t``, each
+    of them one of ``times`` (ascending)."""
+    index = np.searchsorted(times, t)
+    pos = positions[:, k][:, index]
+    vel = velocities[:, k][:, index]
+    return ((pos[..., 0], pos[..., 1], pos[..., 2]),
+            (vel[..., 0], vel[..., 1], vel[..., 2]) if want_velocity else None)
 
 
 def _normal(inc, node):
@@ -455,6 +502,8 @@ class NBody(Perturbed):
     ----------
     rtol : float
         Relative tolerance of the integrator (DOP853), from 1e-14 to 1e-6.
+    steps_per_orbit : int, optional
+        Fixed steps instead (see :class:`Perturbed`).
     mass_prior : Prior, optional
         Prior for the masses of companions whose mass is left unstated;
         :data:`DEFAULT_MASS_PRIOR` by default. A companion with a stated mass or mass
@@ -474,13 +523,17 @@ class NBody(Perturbed):
 
     label = "n-body"
 
-    def __init__(self, rtol=1e-12, mass_prior=None, compiled=None, start_evaluations=300):
+    def __init__(self, rtol=1e-12, mass_prior=None, compiled=None, start_evaluations=300,
+                 steps_per_orbit=None):
         super().__init__(mutual_pulls=True, rtol=rtol, mass_prior=mass_prior,
-                         compiled=compiled, start_evaluations=start_evaluations)
-        self.settings = {"rtol": rtol, "start_evaluations": start_evaluations}
+                         compiled=compiled, start_evaluations=start_evaluations,
+                         steps_per_orbit=steps_per_orbit)
+        self.settings = {k: v for k, v in dict(
+            rtol=rtol, steps_per_orbit=steps_per_orbit,
+            start_evaluations=start_evaluations).items() if v is not None}
 
     def describe(self) -> dict:
-        return {"model": self.label, "rtol": self.rtol,
+        return {"model": self.label, **self._steps(),
                 "coordinates": "astrocentric osculating elements at the model epoch"}
 
 

@@ -13,9 +13,9 @@ __all__ = ["make_dynamics", "MODEL_OPTIONS"]
 MODEL_OPTIONS = {
     "keplerian": (),
     "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
-    "n-body": ("rtol", "start_evaluations"),
+    "n-body": ("rtol", "steps_per_orbit", "start_evaluations"),
     "perturbed": ("j2", "j4", "equatorial_radius", "equator_inclination", "equator_node",
-                  "mutual_pulls", "rtol", "start_evaluations"),
+                  "mutual_pulls", "rtol", "steps_per_orbit", "start_evaluations"),
 }
 
 
