@@ -366,13 +366,15 @@ def _overlay_groups(fig, data, groups, title="groups"):
                 ax.set_xlim(limits[0])
                 if row != col:
                     ax.set_ylim(limits[1])
+        shown = label if title != "groups" else f"{label} ({mask.mean():.0%})"
         handles.append(Line2D([], [], color=colour, marker="o", ms=3, ls="none",
-                              label=f"{label} ({mask.mean():.0%} of draws)"))
-    # In the empty upper triangle just above the last diagonal panel, below the list
-    # of values that starts at the top right.
-    home = axes[max(k - 2, 0), -1]
-    home.legend(handles=handles, loc="lower right" if k > 1 else "upper left",
-                frameon=False, fontsize=7, title=title, title_fontsize=7)
+                              label=shown))
+    # In the empty upper triangle, the second row's last panel (below the list of
+    # values that starts at the top right of the figure).
+    home = axes[1, -1] if k >= 3 else axes[0, -1]
+    home.legend(handles=handles, loc="upper right" if k > 1 else "upper left",
+                frameon=False, fontsize=7, title=title, title_fontsize=7,
+                borderaxespad=0.0)
 
 
 def _tidy_corner(fig, columns, width, show_titles):

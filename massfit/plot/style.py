@@ -200,6 +200,8 @@ def mode_groups(result) -> dict:
     for k, (mode, mask) in enumerate(zip(modes, members)):
         periods = mode.get("start_periods") or {}
         where = ", ".join(f"P {p:.4g} d" for p in periods.values()) or f"mode {k + 1}"
+        where = where if len(periods) < 2 else ", ".join(
+            f"P({n}) {p:.4g} d" for n, p in periods.items())
         chance = mode.get("probability")
         label = where if chance is None else (
             f"{where}: p = {chance:.2f} \u00b1 {mode.get('probability_err', 0.0):.2f}")
