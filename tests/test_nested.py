@@ -126,13 +126,15 @@ def _two_mode_model(weights, centres, width=0.01):
                        ("y", "identity", Uniform(-1.0, 1.0))], log_like)
 
 
-def test_two_modes_of_known_weight():
+def test_two_modes_of_known_weight(tmp_path, monkeypatch):
     weights, centres = (0.7, 0.3), (0.8, 2.1)
     model = _two_mode_model(weights, centres)
     start = SimpleNamespace(candidate_modes=[
         {"periods": {"b": 10 ** c}, "log10_period_sd": {"b": 0.01}, "weight": 0.5}
         for c in centres])
-    chain = run_nested(model, start, NestedSettings(live_points=60, runs=2, seed=2))
+    settings = NestedSettings(live_points=60, runs=2, seed=2)
+    checkpoint = tmp_path / "checkpoint.json"
+    chain = run_nested(model, start, settings, checkpoint=checkpoint)
     found = np.array([m["probability"] for m in chain.modes])
     err = np.array([m["probability_err"] for m in chain.modes])
     assert chain.converged and all(m["runs_agree"] for m in chain.modes)
@@ -146,6 +148,21 @@ def test_two_modes_of_known_weight():
     # log10 P), times the nuisance's (its bump's mass over the width 2).
     exact = np.log(sum(weights) / 3.0) + np.log(0.5)
     assert abs(chain.evidence["log_evidence"] - exact) < 3 * chain.evidence["log_evidence_err"]
+    # Resuming: the saved runs are taken, only the lost one is repeated, and the result
+    # is the uninterrupted one.
+    import massfit.sample.nested as nested
+
+    saved = sorted(tmp_path.glob("checkpoint.json.nested-*.npz"))
+    assert len(saved) == 4
+    saved[-1].unlink()
+    repeated = []
+    real = nested.nested_box
+    monkeypatch.setattr(nested, "nested_box",
+                        lambda *a, **k: repeated.append(a[3]) or real(*a, **k))
+    again = run_nested(model, start, settings, checkpoint=checkpoint)
+    assert len(repeated) == 1
+    assert [m["probability"] for m in again.modes] == [m["probability"] for m in chain.modes]
+    assert np.array_equal(again.samples, chain.samples)
 
 
 def test_fixed_priors_and_bad_settings_named():

@@ -437,23 +437,20 @@ def boxes_of(start, model):
     return out
 
 
-def run_nested(model, start, settings: NestedSettings) -> NestedChain:
+def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> NestedChain:
     """Nested sampling of the model's posterior, mode by mode where the start found
-    several (see the module notes); the result as a :class:`NestedChain`."""
+    several (see the module notes); the result as a :class:`NestedChain`.
+
+    With ``checkpoint`` (:mod:`massfit.sample.checkpoint`) each finished run is saved
+    beside it, and runs saved there by an interrupted fit with the same settings are
+    taken instead of repeated (each run's seed is fixed by the fit's).
+    """
     dynesty = require_dynesty()
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
     plan = boxes_of(start, model)
-    runs, k = [], 0
-    for mode, boxes in plan:
-        box_runs = []
-        for _ in range(settings.runs):
-            seed = int(seeds[k % 64].generate_state(1)[0])
-            centres = None if mode is None else mode.get("window_centres")
-            box_runs.append(nested_box(model, settings, seed, boxes, centres))
-            k += 1
-        runs.append(box_runs)
+    runs = _box_runs(model, settings, plan, seeds, checkpoint)
     weighed = weigh_boxes(runs, seed=settings.seed)
     probabilities = np.array([b["probability"] for b in weighed["boxes"]])
     rng = np.random.default_rng(seeds[-1])
@@ -489,6 +486,35 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
         engine=engine, notes=list(dict.fromkeys(n for r in flat for n in r["notes"])),
         kish_samples=kish)
     return chain
+
+
+def _box_runs(model, settings, plan, seeds, checkpoint):
+    """Per box, its runs: taken from the checkpoint where saved with the same seed,
+    live points, move and box, else run (and saved)."""
+    from massfit.sample.checkpoint import read_nested_runs, write_nested_run
+
+    saved = read_nested_runs(checkpoint) if checkpoint is not None else {}
+    live = settings.live_points_for(model.n_dim)
+    runs, k = [], 0
+    for b, (mode, boxes) in enumerate(plan):
+        box_runs = []
+        for r in range(settings.runs):
+            seed = int(seeds[k % 64].generate_state(1)[0])
+            k += 1
+            key = {"seed": seed, "live_points": live, "sample": settings.sample,
+                   "dynamic": settings.dynamic, "dlogz": settings.dlogz,
+                   "boxes": {n: list(v) for n, v in boxes.items()}}
+            old = saved.get((b, r))
+            if old is not None and old.get("key") == key:
+                box_runs.append(old)
+                continue
+            centres = None if mode is None else mode.get("window_centres")
+            record = dict(nested_box(model, settings, seed, boxes, centres), key=key)
+            if checkpoint is not None:
+                write_nested_run(checkpoint, b, r, record)
+            box_runs.append(record)
+        runs.append(box_runs)
+    return runs
 
 
 def _member_mask(model, samples, boxes):
