@@ -419,8 +419,10 @@ def _execute(jobs, workers, scheduler):
     context = multiprocessing.get_context("spawn")
     stop = context.Event()
     # One thread per worker process: the workers are the parallelism, and threaded
-    # BLAS inside each would only fight over the same cores.
-    with _single_threaded_children():
+    # BLAS inside each would only fight over the same cores. The compiled kernel gets
+    # the threads a job asks for (``--threads``), else one.
+    asked = max((job.sampler.get("threads") or 1 for job in jobs), default=1)
+    with _single_threaded_children(numba_threads=asked):
         pool = ProcessPoolExecutor(max_workers=min(n, len(jobs)), mp_context=context,
                                    initializer=_worker_setup, initargs=(os.getpid(), stop))
     finished, workers = False, set()
@@ -513,10 +515,14 @@ class _single_threaded_children:
     _KEYS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
              "NUMBA_NUM_THREADS")
 
+    def __init__(self, numba_threads=1):
+        self._numba_threads = int(numba_threads)
+
     def __enter__(self):
         self._saved = {k: os.environ.get(k) for k in self._KEYS}
         for key in self._KEYS:
-            os.environ.setdefault(key, "1")
+            os.environ.setdefault(key, str(self._numba_threads) if key.startswith("NUMBA")
+                                  else "1")
         return self
 
     def __exit__(self, *exc):

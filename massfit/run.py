@@ -191,7 +191,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         # resumed run makes the same one.
         coordinates = SamplerCoordinates.for_start(model, start.theta)
         chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial),
-                            settings, checkpoint=checkpoint, resume=resume)
+                            settings, checkpoint=checkpoint, resume=resume,
+                            key=coordinates.mass_key())
         coordinates.restore(chain)
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),

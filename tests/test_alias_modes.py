@@ -81,6 +81,29 @@ def test_yearly_cadence_and_its_aliases_below_half_the_spacing():
     assert sampling_cadences(random_t, freq, top_frequency=1.0).size == 0
 
 
+def test_compiled_grid_periodograms_equal_astropys_exact_sums():
+    # Reference: astropy's LombScargle with its exact ('cython') sums, floating mean and
+    # 'standard' normalisation (Zechmeister & Kuerster 2009, A&A 496, 577, the
+    # generalised periodogram); the spectral window against its defining sum.
+    from astropy.timeseries import LombScargle
+
+    from massfit.start.aliases import grid_power, grid_window
+
+    rng = np.random.default_rng(4)
+    t = np.sort(rng.uniform(0.0, 3000.0, 70))
+    t[::9] += 0.04  # close pairs, as in nights with two exposures
+    sig = rng.uniform(0.2, 0.6, t.size)
+    east = np.sin(2 * np.pi * t / 455.0) + rng.normal(0.0, sig)
+    north = 0.5 * np.cos(2 * np.pi * t / 455.0) + rng.normal(0.0, sig)
+    freq = np.linspace(1.0 / 9000.0, 4.0, 30_001)  # past several reseeds of the recurrence
+    compiled = grid_power(t, [(east, sig), (north, sig)], freq)
+    exact = sum(LombScargle(t, values, sig).power(freq, method="cython")
+                for values in (east, north))
+    assert np.max(np.abs(compiled - exact)) < 1e-9
+    assert np.argmax(compiled) == np.argmax(exact)
+    assert np.max(np.abs(grid_window(t, freq) - window_power(t, freq))) < 1e-10
+
+
 def test_the_search_stays_inside_a_narrow_prior():
     t = YEAR * np.arange(12) + np.random.default_rng(2).normal(0.0, 5.0, 12)
     y = np.sin(2 * np.pi * t / TRUE_PERIOD)

@@ -306,3 +306,19 @@ def test_table_rows_say_the_seed_used_and_what_velocities_alone_measured(
     assert 1.0e-8 < wisp["mass_function_msun_median"] < 2.4e-8
     assert 1.5e-3 < wisp["minimum_mass_msun_median"] < 3.5e-3
     assert "central_mass_prior" in wisp["note"] or "primary mass" in wisp["note"]
+
+
+def test_threads_asked_for_reach_the_workers(systems, tmp_path, monkeypatch):
+    """``--threads`` is not dropped by the one-thread-per-worker rule: the compiled
+    kernel's thread cap in the workers is the largest asked for, BLAS stays at one."""
+    _, configs = systems
+    jobs = batch.collect_jobs(configs, tmp_path / "out", sampler={"threads": 2})
+    assert all(job.sampler["threads"] == 2 for job in jobs)
+    for key in batch._single_threaded_children._KEYS:
+        monkeypatch.delenv(key, raising=False)
+    import os
+
+    with batch._single_threaded_children(numba_threads=2):
+        assert os.environ["NUMBA_NUM_THREADS"] == "2"
+        assert os.environ["OMP_NUM_THREADS"] == "1"
+    assert "NUMBA_NUM_THREADS" not in os.environ

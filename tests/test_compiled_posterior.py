@@ -113,6 +113,24 @@ def test_compiled_change_of_coordinates_equals_the_python_path(name):
         assert np.all(fast[sampled[:, k] < 0] == -np.inf) or model.node_width[body] > 4
 
 
+def test_compiled_angular_units_equal_the_python_path():
+    # The parallax sampled and every offset an angle: the mass as log10(M plx^3) and a
+    # state-vector companion in mas and mas/day (both paths, all walkers, plx <= 0 too).
+    model = _model(**CONFIGURATIONS["mirren"])
+    theta = _points(model, n=400, seed=5)
+    inside = theta[np.isfinite(model.log_prob_python(theta))]
+    body = next(iter(model.companions))
+    coordinates = SamplerCoordinates(model, state={body: (40.0, 0.7)}, angular_mass=True)
+    assert "central.log10_angular_mass" in coordinates.names
+    sampled = coordinates.to_sampled(np.repeat(inside, 4, axis=0))
+    rng = np.random.default_rng(8)
+    sampled = sampled * (1.0 + 0.05 * rng.standard_normal(sampled.shape))
+    sampled[:5, model.names.index("parallax")] *= -1.0  # no density at plx < 0
+    fast = coordinates.log_prob(sampled)
+    _assert_same(fast, coordinates.log_prob_python(sampled))
+    assert np.all(fast[:5] == -np.inf)
+
+
 def test_models_the_kernel_does_not_cover_take_the_python_path():
     # (Each named reason is one the compiled kernel does not compute.)
     assert "light time" in why_not_compiled(

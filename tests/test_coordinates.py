@@ -128,16 +128,72 @@ def test_log_jacobian_equals_finite_differences(short_arc):
     coords = SamplerCoordinates.for_start(model, walkers[0], arc_fraction=np.inf)
     s = coords.to_sampled(walkers[:3])
     for row in s:
-        jac = np.empty((row.size, row.size))
-        for k in range(row.size):
-            step = 1e-6 * max(abs(row[k]), 1e-3)
-            up, down = row.copy(), row.copy()
-            up[k] += step
-            down[k] -= step
-            jac[:, k] = (coords.to_model(up[None])[0][0]
-                         - coords.to_model(down[None])[0][0]) / (2 * step)
-        assert np.linalg.slogdet(jac)[1] == pytest.approx(coords.to_model(row[None])[1][0],
-                                                          abs=1e-5)
+        assert _difference_log_jacobian(coords, row) == pytest.approx(
+            coords.to_model(row[None])[1][0], abs=1e-5)
+
+
+def _difference_log_jacobian(coords, row):
+    """log |det d theta / d s| at the sampled point ``row``, by central differences."""
+    jac = np.empty((row.size, row.size))
+    for k in range(row.size):
+        step = 1e-6 * max(abs(row[k]), 1e-3)
+        up, down = row.copy(), row.copy()
+        up[k] += step
+        down[k] -= step
+        jac[:, k] = (coords.to_model(up[None])[0][0]
+                     - coords.to_model(down[None])[0][0]) / (2 * step)
+    return np.linalg.slogdet(jac)[1]
+
+
+def test_angular_units_round_trip_with_the_right_jacobian():
+    # Where the parallax is sampled, the mass is sampled as log10(M plx^3) and state
+    # vectors in mas: a bijection whose log-Jacobian is -6 ln(plx) per state vector on
+    # top of the state's own (checked here by finite differences of the whole map).
+    from test_speed_paths import _model as speed_paths_model
+
+    model = speed_paths_model("mirren")
+    start = find_start(model)
+    walkers = start.walkers(model, 12, np.random.default_rng(2))
+    coords = SamplerCoordinates.for_start(model, start.theta)
+    assert coords.angular_mass == (model.names.index("central.log10_mass"),
+                                   model.names.index("parallax"))
+    body = next(iter(model.companions))
+    state = SamplerCoordinates(model, state={body: (40.0, 0.7)}, angular_mass=True)
+    for coordinates in (coords, state):
+        s = coordinates.to_sampled(walkers)
+        theta, log_jac = coordinates.to_model(s)
+        np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-9)
+        for row in s[:3]:
+            assert _difference_log_jacobian(coordinates, row) == pytest.approx(
+                coordinates.to_model(row[None])[1][0], abs=1e-5)
+    # Not where the offsets are lengths (no parallax) or velocities fix the mass.
+    short = _model(4000.0)[0]
+    assert SamplerCoordinates.for_start(short, find_start(short).theta).angular_mass is None
+    sorrel = speed_paths_model("sorrel")
+    assert SamplerCoordinates.for_start(sorrel, find_start(sorrel).theta).angular_mass is None
+
+
+def test_effective_samples_of_the_mass_are_the_masss_own(tmp_path):
+    # Sampled as the angular mass, the mass's autocorrelation time is measured on the
+    # whole chain in the model's log10 M, reported, used for its effective samples and
+    # read back with a saved result.
+    from massfit.sample.chain import SamplerSettings
+    from test_speed_paths import _model as speed_paths_model
+
+    model = speed_paths_model("mirren")
+    result = massfit.fit(model.observations, model.spec, progress=False,
+                         sampler=SamplerSettings(walkers=24, max_steps=400,
+                                                 check_every=200, seed=4))
+    diag = result.summary["diagnostics"]
+    assert diag["autocorr_steps"].get("central.log10_angular_mass") is not None
+    tau = diag["mass_autocorr_steps"]
+    assert tau is not None and tau != diag["autocorr_steps"]["central.log10_angular_mass"]
+    assert diag["effective_samples"] == pytest.approx(
+        diag["walkers"] * (diag["steps"] - diag["burn_in_steps"]) / max(tau, 1.0))
+    result.save(tmp_path / "out", plots=False)
+    again = massfit.load_result(tmp_path / "out")
+    assert again.summary["diagnostics"]["effective_samples"] == pytest.approx(
+        diag["effective_samples"])
 
 
 def test_volume_element_of_the_two_body_state():

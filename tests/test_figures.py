@@ -210,6 +210,34 @@ def test_corner_plot_has_no_degenerate_or_fixed_panels(result):
     assert _copies([mass, a]) == []
 
 
+def test_key_corner_of_many_companions_keeps_to_what_carries_the_mass(result):
+    # Four companions would make 18 columns with P, a, e, i each: the key corner keeps
+    # each one's P and a (the mass is a^3/P^2), at most MAX_KEY_COLUMNS; then a alone.
+    from types import SimpleNamespace
+
+    comps = result.samples["companions"]
+    summary = result.summary["companions"]
+    names = {"Aster": "Aster", "Brel": "Brel", "Cade": "Aster", "Dorn": "Brel"}
+    many = SimpleNamespace(
+        model=result.model, samples={**result.samples, "companions": {
+            new: comps[old] for new, old in names.items()}},
+        summary={**result.summary, "companions": {new: summary[old]
+                                                  for new, old in names.items()}})
+    shown = plots.default_corner_parameters(many)
+    assert len(shown) <= plots.corner.MAX_KEY_COLUMNS
+    assert shown[:2] == ["mass", "parallax"]
+    assert sorted(shown[2:]) == sorted(f"{n}.{q}" for n in names
+                                       for q in ("period", "semi_major_axis"))
+    five = {**names, "Eske": "Aster"}
+    many.samples["companions"] = {new: comps[old] for new, old in five.items()}
+    many.summary["companions"] = {new: summary[old] for new, old in five.items()}
+    assert sorted(plots.default_corner_parameters(many)[2:]) == sorted(
+        f"{n}.semi_major_axis" for n in five)
+    # Asked for, the quantities are shown as asked; the full corner has everything.
+    assert len(plots.default_corner_parameters(many, quantities=("period", "eccentricity"))) == 12
+    assert len(plots.default_corner_parameters(many, full=True)) == 2 + 6 * 5
+
+
 def test_full_corner_plot_on_request(result):
     full = plots.default_corner_parameters(result, full=True)
     assert full == [

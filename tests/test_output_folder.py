@@ -51,7 +51,7 @@ def test_cli_refuses_to_overwrite_and_records_the_run(small_data_file, tmp_path)
     env = dict(os.environ, PYTHONPATH=str(ROOT), MPLBACKEND="Agg")
     command = [sys.executable, "-m", "massfit", "fit", str(small_data_file), "--out", "res",
                "--seed", "8", "--walkers", "16", "--max-steps", "200", "--check-every",
-               "100", "--no-plots", "--quiet"]
+               "100", "--threads", "1", "--no-plots", "--quiet"]
     before = dt.datetime.now(dt.timezone.utc)
     first = subprocess.run(command, cwd=tmp_path, env=env, capture_output=True, text=True)
     after = dt.datetime.now(dt.timezone.utc)
@@ -68,7 +68,7 @@ def test_cli_refuses_to_overwrite_and_records_the_run(small_data_file, tmp_path)
     for package in ("massfit", "numpy", "scipy", "emcee", "astropy"):
         assert record["versions"][package], package
     assert record["sampler"] == {"walkers": 16, "max_steps": 200, "check_every": 100,
-                                 "seed": 8, "threads": None}
+                                 "seed": 8, "threads": 1}
 
     summary = (tmp_path / "res" / "summary.json").read_bytes()
     second = subprocess.run(command, cwd=tmp_path, env=env, capture_output=True, text=True)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from massfit.cli.options import sampler_options
+from massfit.cli.options import sampler_options, sampler_overrides
 from massfit.cli.status import EXIT_INTERRUPTED, EXIT_NOT_CONVERGED, EXIT_OK
 
 __all__ = ["add_parser", "run"]
@@ -40,8 +40,8 @@ def add_parser(sub):
 def run(args):
     from massfit.batch import NOT_RUN, RESULTS_FILE, collect_jobs, run_batch
 
-    overrides = {k: getattr(args, k) for k in ("walkers", "max_steps")
-                 if getattr(args, k) is not None}
+    # The seed is the batch's base seed (each system gets its own from it).
+    overrides = sampler_overrides(args, ("walkers", "max_steps", "check_every", "threads"))
     jobs = collect_jobs(args.source, args.out, seed=args.seed, sampler=overrides,
                         plots=args.plots)
     results = Path(args.out) / RESULTS_FILE

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from massfit.cli.options import (apply_central_mass_options, apply_dynamics_options,
                                  apply_viewing_options, central_mass_options,
-                                 dynamics_options, sampler_options, units_option,
+                                 dynamics_options, sampler_options, sampler_overrides, units_option,
                                  viewing_options)
 from massfit.cli.status import (EXIT_NOT_CONVERGED, EXIT_OK, EXIT_POOR_FIT, FIT_EXIT_STATUS,
                                 notice)
@@ -138,9 +138,7 @@ def _run(setup, args, *, record, force):
                          getattr(args, "distance", None))
     if plx is not None:
         system = replace(system, parallax=plx)
-    overrides = {k: getattr(args, k) for k in ("seed", "walkers", "max_steps", "check_every")
-                 if getattr(args, k) is not None}
-    sampler = replace(setup.sampler, **overrides)
+    sampler = replace(setup.sampler, **sampler_overrides(args))
     engine = getattr(args, "sampler", None) or setup.engine
     nested = setup.nested
     if getattr(args, "live_points", None) is not None:

@@ -6,7 +6,7 @@ import argparse
 
 from massfit.errors import ConfigError
 
-__all__ = ["sampler_options", "dynamics_options", "apply_dynamics_options",
+__all__ = ["sampler_options", "sampler_overrides", "SAMPLER_OVERRIDES", "dynamics_options", "apply_dynamics_options",
            "viewing_options", "apply_viewing_options", "units_option", "central_mass_options",
            "apply_central_mass_options"]
 
@@ -17,6 +17,19 @@ def sampler_options(parser):
     parser.add_argument("--max-steps", type=int, metavar="N", help="step cap (default 50000)")
     parser.add_argument("--check-every", type=int, metavar="N", help="steps between "
                         "convergence checks (default 500)")
+    parser.add_argument("--threads", type=int, metavar="N",
+                        help="threads that share the walkers in the compiled log-posterior "
+                             "(default: every core for large data sets, else one; the "
+                             "numbers do not depend on it)")
+
+
+#: The sampler options above that become SamplerSettings fields of the same name.
+SAMPLER_OVERRIDES = ("seed", "walkers", "max_steps", "check_every", "threads")
+
+
+def sampler_overrides(args, keys=SAMPLER_OVERRIDES) -> dict:
+    """The sampler options given on the command line, as SamplerSettings fields."""
+    return {k: getattr(args, k) for k in keys if getattr(args, k, None) is not None}
 
 
 

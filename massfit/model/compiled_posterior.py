@@ -224,7 +224,7 @@ class CompiledPosterior:
         """Log-posterior of each row of ``sampled`` (n, n_dim), -inf outside the support.
 
         ``change`` holds the sampler's change of coordinates as the kernel's tables
-        ``(lon_i, lon_f, st_i, st_f, st_comp)``
+        ``(lon_i, lon_f, st_i, st_f, st_comp, angular_i)``
         (:meth:`massfit.sample.reparameterisation.SamplerCoordinates.compiled_tables`);
         None for the model's own coordinates.
         """
@@ -244,7 +244,7 @@ class CompiledPosterior:
 
 _NO_CHANGE = (np.zeros((0, 6), dtype=np.int64), np.zeros((0, 3)),
               np.zeros((0, 6), dtype=np.int64), np.zeros((0, 6)),
-              np.zeros(0, dtype=np.int64))
+              np.zeros(0, dtype=np.int64), np.full(2, -1, dtype=np.int64))
 
 
 def _scale_slot(column, name, prior):

@@ -270,17 +270,33 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i
 @numba.njit(parallel=True, **_jit)
 def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel,
                   vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
-                  var_f, lon_i, lon_f, st_i, st_f, st_comp):  # pragma: no cover - compiled
+                  var_f, lon_i, lon_f, st_i, st_f, st_comp,
+                  angular_i):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
 
     The walkers are shared among numba's threads (``numba.set_num_threads``).
+    ``angular_i`` = (mass column, parallax column) where the mass is sampled as
+    log10(M plx^3) and the state vectors in angular units, else (-1, -1).
     """
     n_walkers, n_dim = sampled.shape
     n_rows = rows.shape[1]
     for w in numba.prange(n_walkers):
-        s = sampled[w]
+        s = sampled[w].copy()
+        log_angular = 0.0
+        if angular_i[0] >= 0:
+            # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
+            # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
+            plx = s[angular_i[1]]
+            if not plx > 0.0:
+                out[w] = -np.inf
+                continue
+            s[angular_i[0]] -= 3.0 * math.log10(plx)
+            for b in range(st_i.shape[0]):
+                for c in range(6):
+                    s[st_i[b, c]] /= plx
+                log_angular -= 6.0 * math.log(plx)
         theta = s.copy()
-        log_jac = _longitude(s, theta, lon_i, lon_f)
+        log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
         for b in range(st_i.shape[0]):
             k = st_comp[b]
             central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,

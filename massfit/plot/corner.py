@@ -18,7 +18,8 @@ from massfit.summarise.quantities import COMPANION, MASS_UNIT_ASTROPY, MASS_UNIT
 from massfit.summarise.rounding import round_interval
 
 __all__ = ["corner_plot", "full_corner_plot", "default_corner_parameters", "Column",
-           "DEFAULT_COMPANION_QUANTITIES", "FULL_COMPANION_QUANTITIES"]
+           "DEFAULT_COMPANION_QUANTITIES", "FULL_COMPANION_QUANTITIES",
+           "MAX_KEY_COLUMNS"]
 
 _MASS_SAMPLES = MASS_UNIT_KEYS
 _MASS_ASTROPY = MASS_UNIT_ASTROPY
@@ -27,6 +28,9 @@ _MASS_ASTROPY = MASS_UNIT_ASTROPY
 _COMPANION_QUANTITIES = {key: (d.symbol, d.unit_latex, d.unit) for key, d in COMPANION.items()
                          if key != "periapsis_time"}
 DEFAULT_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "inclination")
+#: The default corner's columns at most, where fewer quantities per companion allow it
+#: (four companions: the mass, the parallax, and each one's P and a).
+MAX_KEY_COLUMNS = 10
 
 
 
@@ -143,12 +147,14 @@ def default_corner_parameters(result, companions=None, quantities=None, *,
                               full=False) -> list:
     """The corner plot's parameters: the central mass, the parallax, then per companion.
 
-    By default each companion's P, a, e and i (and its mass, where sampled); with
-    velocities alone P, e and the semi-amplitudes. ``full`` gives every sampled element
+    By default each companion's P, a, e and i (and its mass, where sampled); where that
+    makes more than :data:`MAX_KEY_COLUMNS` columns, each companion's P and a, then a
+    alone; with velocities alone P, e and the semi-amplitudes. ``full`` gives every sampled element
     of each companion. GM is not listed: it is the mass times a constant, and its panel
     against the mass would be a line.
     """
     names = list(result.samples["companions"]) if companions is None else list(companions)
+    asked = quantities
     if quantities is None and full:
         quantities = FULL_COMPANION_QUANTITIES
     elif quantities is None and result.model.velocity_only:
@@ -168,8 +174,21 @@ def default_corner_parameters(result, companions=None, quantities=None, *,
         # stars; the stars' own elements on request (``companions``).
         return [key for key in out if key != "parallax"] + extra
     comps = result.samples["companions"]
-    return out + [f"{name}.{q}" for name in by_period(result, names)
-                  for q in quantities if q in comps[name]]
+    ordered = by_period(result, names)
+
+    def listed(kept):
+        return out + [f"{name}.{q}" for name in ordered for q in kept if q in comps[name]]
+
+    shown = listed(quantities)
+    if asked is None and not full:
+        # Many companions: the key corner keeps to the quantities that carry the mass
+        # (a^3 / P^2), then to a alone, so that it stays readable and quick to draw;
+        # every element is in the full corner (``full``).
+        for fewer in (("period", "semi_major_axis", "mass"), ("semi_major_axis", "mass")):
+            if len(shown) <= MAX_KEY_COLUMNS:
+                break
+            shown = listed([q for q in quantities if q in fewer])
+    return shown
 
 
 

@@ -61,15 +61,18 @@ def style():
 def save_figure(fig, stem, formats=("png", "pdf")) -> list:
     """Write ``fig`` as ``stem.png``, ``stem.pdf`` ...; returns the paths written.
 
-    The bounding box is tightened so that nothing (labels, colour bars) is clipped.
+    The bounding box is tightened so that nothing (labels, colour bars) is clipped. It
+    is found once for every format (``bbox_inches="tight"`` would lay the figure out
+    twice per file: a third of a big corner plot's writing time).
     """
     from pathlib import Path
 
+    fig.draw_without_rendering()
+    box = fig.get_tightbbox(fig.canvas.get_renderer()).padded(0.03)
     paths = []
     for ext in formats:
         path = Path(f"{stem}.{ext}")
-        fig.savefig(path, bbox_inches="tight", pad_inches=0.03,
-                    dpi=STYLE["savefig.dpi"] if ext == "png" else None)
+        fig.savefig(path, bbox_inches=box, dpi=STYLE["savefig.dpi"] if ext == "png" else None)
         paths.append(path)
     return paths
 

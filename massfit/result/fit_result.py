@@ -184,6 +184,10 @@ class FitResult:
             "steps": int(chain.steps),
             "max_autocorr_steps": float(np.max(chain.tau)),
             "effective_samples": chain.effective_samples(k_mass),
+            # The mass's own autocorrelation time where the sampler moved in the
+            # angular mass (massfit.sample.reparameterisation), else None.
+            "mass_autocorr_steps": (None if getattr(chain, "key_tau", None) is None
+                                    else float(chain.key_tau)),
             # Of the central mass where it is sampled, else of the first coordinate.
             "effective_samples_of": names[k_mass] if names else None,
             "sampling_seconds": float(chain.seconds),

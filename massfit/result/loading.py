@@ -192,7 +192,10 @@ def load_result(folder):
                   acceptance_fraction=float(diag["acceptance_fraction"]),
                   seconds=float(diag["sampling_seconds"]), tau_history=[],
                   coordinate_names=moved_in,
-                  state_bodies=list(diag.get("sampled_as_state", [])))
+                  state_bodies=list(diag.get("sampled_as_state", [])),
+                  key_tau=diag.get("mass_autocorr_steps"),
+                  key_column=(model.names.index("central.log10_mass")
+                              if diag.get("mass_autocorr_steps") is not None else None))
     chain.modes, chain.mode_members = _saved_modes(summary, model, theta)
     result = FitResult.__new__(FitResult)
     result.model = model

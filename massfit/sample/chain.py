@@ -52,8 +52,9 @@ class SamplerSettings:
         Progress bar; None shows it only on a terminal.
     threads : int or None
         Threads the compiled log-posterior shares the walkers among
-        (:mod:`massfit.model.compiled_posterior`); None uses every core. The numbers
-        do not depend on it.
+        (:mod:`massfit.model.compiled_posterior`, ``--threads``); None uses every core
+        where a call is large enough to gain from it (``thread_count``). The numbers do
+        not depend on it.
     """
 
     walkers: int | None = None
@@ -134,6 +135,10 @@ class Chain:
         differ from the model's (see :mod:`massfit.sample.reparameterisation`).
     state_bodies : list of str
         Companions sampled as a position and velocity rather than as elements.
+    key_column, key_tau : int and float, optional
+        Where the sampler moved in other coordinates than the model's: the model column
+        of the central mass and its own autocorrelation time (steps), measured on the
+        whole chain (``run_sampler``'s ``key``); the effective samples of the mass use it.
     """
 
     samples: np.ndarray
@@ -151,10 +156,14 @@ class Chain:
     walker_steps: np.ndarray | None = None
     coordinate_names: list | None = None
     state_bodies: list = field(default_factory=list)
+    key_column: int | None = None
+    key_tau: float | None = None
 
     def effective_samples(self, k: int = 0) -> float:
-        """Effective number of independent samples of coordinate ``k``."""
-        return float(self.walkers * (self.steps - self.burn_in) / max(self.tau[k], 1.0))
+        """Effective number of independent samples of coordinate ``k`` (of the model's
+        quantity ``key_tau`` was measured for, where ``k`` is its column)."""
+        tau = self.key_tau if self.key_tau is not None and k == self.key_column else self.tau[k]
+        return float(self.walkers * (self.steps - self.burn_in) / max(tau, 1.0))
 
 
 def _moves():
@@ -224,7 +233,7 @@ class _Sampler(emcee.EnsembleSampler):
 
 
 def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
-                resume=False) -> Chain:
+                resume=False, key=None) -> Chain:
     """Run emcee from ``initial`` until converged or at the step cap.
 
     Convergence is checked every ``settings.check_every`` steps, counted from the
@@ -244,6 +253,10 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         blocks beside it (see :mod:`massfit.sample.checkpoint`). In memory only when None.
     resume : bool
         Continue the chain stored in ``checkpoint`` instead of starting afresh.
+    key : (int, callable), optional
+        A model column and a map from the sampled chain (steps, walkers, dim) to that
+        column's values (steps, walkers): its autocorrelation time is measured on the
+        whole chain (``Chain.key_tau``), where the sampler does not move in it directly.
 
     Returns
     -------
@@ -310,7 +323,9 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         burn_in=burn_in, thin=thin,
         acceptance_fraction=float(np.mean(accepted / max(sampler.iteration, 1))),
         seconds=seconds, tau_history=history, resumed_from=resumed_from,
-        walker_steps=chain[keep])
+        walker_steps=chain[keep],
+        key_column=None if key is None else key[0],
+        key_tau=None if key is None else float(_autocorr(key[1](chain)[:, :, None])[0]))
 
 
 class ConvergenceTest:
