@@ -310,11 +310,7 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
             options["truths"] = [c.truth(truths.get(c.key)) for c in columns]
         options.update(corner_kwargs or {})
         corner.corner(data, **options)
-        title = "groups"
-        if groups is None:
-            groups, title = mode_groups(result), "modes (nested sampling)"
-        if groups:
-            _overlay_groups(fig, data, groups, title)
+        _overlay_groups(fig, data, groups, result)
         _tidy_corner(fig, columns, width, show_titles)
     fig.massfit_parameters = list(parameters)
     return fig
@@ -357,11 +353,17 @@ def _shown_columns(result, parameters, mass_unit, companions, quantities, truths
     return columns
 
 
-def _overlay_groups(fig, data, groups, title="groups"):
+def _overlay_groups(fig, data, groups, result):
     """Each group's samples in its own colour over the corner plot (a colouring hook
-    for modes or any other split of the samples), and a legend of the groups."""
+    for modes or any other split of the samples), and a legend of the groups; the
+    result's weighed modes where ``groups`` is None."""
     from matplotlib.lines import Line2D
 
+    title = "groups"
+    if groups is None:
+        groups, title = mode_groups(result), "modes (nested sampling)"
+    if not groups:
+        return
     k = data.shape[1]
     axes = np.array(fig.axes).reshape(k, k)
     handles = []
