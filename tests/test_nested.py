@@ -286,3 +286,12 @@ def test_fast_likelihood_and_folding_keep_the_same_orbits():
     assert np.allclose(model.log_likelihood(folded), slow, rtol=1e-9, atol=1e-8)
     names = model.names
     assert [names[k] for k in periodic_columns(model)] == ["Tamsin.phase"]
+    # The model's log-prior is the proper density for the mass, period and sqrt(e)
+    # disc, but leaves the isotropic cos i and the node and phase windows at density
+    # 1: a Laplace ln Z exceeds the nested one by ln(2 * pi * 2 pi) per astrometric
+    # companion (DEVELOPERS.md). Default priors: log-uniform 1e-12..1e11 M_sun and
+    # 0.01..1e9 d, e uniform below 0.99 (uniform density on the disc, 1 / (0.99 pi)).
+    proper = -(np.log(23.0) + np.log(11.0) + np.log(0.99 * np.pi) + np.log(2.0)
+               + np.log(np.pi) + np.log(2 * np.pi))
+    assert np.allclose(model.log_prior(folded), proper + np.log(2 * np.pi * 2 * np.pi),
+                       rtol=0, atol=1e-9)
