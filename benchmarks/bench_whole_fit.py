@@ -64,16 +64,28 @@ def run(report, threads=None):
                 plt.close(fig)
             clock(f"figure {stem} (png, pdf)", draw)
         clock("tables", lambda: result.write_tables(tmp))
+        # The output folder as massfit fit writes it: numbers alone, then with the
+        # figures in one process and in two (the corner beside the rest).
+        saving = _Clock()
+        saving("save, numbers only", lambda: result.save(Path(tmp) / "a", plots=False))
+        for n in (1, 2):
+            saving(f"save with figures, {n} process(es)",
+                   lambda n=n: result.save(Path(tmp) / f"p{n}", processes=n))
     total = {"step": "total", "cpu_s": sum(r["cpu_s"] for r in clock.rows),
              "wall_s": sum(r["wall_s"] for r in clock.rows)}
     rows = clock.rows + [total]
+    report.table("the output folder as massfit fit writes it (wall time; the CPU time of "
+                 "a second process is not counted in cpu_s)", saving.rows,
+                 ["step", "cpu_s", "wall_s"])
     report.table(f"a fit of the Tarrant set, step by step ({chain.steps} steps, "
                  f"{chain.walkers} walkers, converged={chain.converged})", rows,
                  ["step", "cpu_s", "wall_s"])
     figures = sum(r["cpu_s"] for r in clock.rows if r["step"].startswith("figure"))
     start_cpu = clock.rows[1]["cpu_s"]
-    report.target("default figures of a 4-companion fit in <= 5 s", figures <= 5.0,
-                  f"{figures:.1f} s CPU")
+    numbers, _, two = (r["wall_s"] for r in saving.rows)
+    report.target("default figures of a 4-companion fit in <= 5 s", two - numbers <= 5.0,
+                  f"{two - numbers:.1f} s wall in two processes (as massfit fit draws "
+                  f"them); {figures:.1f} s CPU one after another")
     report.target("the start of a 4-companion fit in <= 3 s", start_cpu <= 3.0,
                   f"{start_cpu:.1f} s CPU")
     report.target("a 4-companion fit, figures included, in <= 20 s", total["cpu_s"] <= 20,

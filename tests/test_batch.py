@@ -306,6 +306,14 @@ def test_table_rows_say_the_seed_used_and_what_velocities_alone_measured(
     assert 1.0e-8 < wisp["mass_function_msun_median"] < 2.4e-8
     assert 1.5e-3 < wisp["minimum_mass_msun_median"] < 3.5e-3
     assert "central_mass_prior" in wisp["note"] or "primary mass" in wisp["note"]
+    # The system's quantities (distance, precession scale, frame terms) have their
+    # columns with the units of the table of quantities; empty (NaN) where a fit has
+    # none of them (tests/test_dark_mass.py fills them).
+    assert table["distance_median"].unit == "pc"
+    assert table["frame_motion_east_lower_95"].unit == "mas / yr"
+    assert table["frame_velocity_median"].unit == "km / s"
+    assert np.isnan(rows["Arlo"]["frame_east_median"])
+    assert np.isnan(rows["Arlo"]["mass_distance_correlation"])
 
 
 def test_threads_asked_for_reach_the_workers(systems, tmp_path, monkeypatch):

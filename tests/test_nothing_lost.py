@@ -151,26 +151,51 @@ def test_a_fixed_parallax_keeps_the_result_and_draws_no_panel_for_it(tmp_path):
     assert summary["parallax"]["lower_95"] == summary["parallax"]["upper_95"] == 25.0
 
 
-def test_a_figure_that_fails_is_a_warning_and_the_numbers_are_kept(tmp_path):
+@pytest.mark.parametrize("broken, kept", [("orbits", "corner"), ("corner", "orbits")])
+def test_a_figure_that_fails_is_a_warning_and_the_numbers_are_kept(tmp_path, broken, kept):
+    # On two cores the corner is drawn in a second process: a failure there is
+    # reported the same way as one here.
     write_one_companion(tmp_path)
-    prelude = """
+    prelude = f"""
         import massfit.plot.figures
         def broken(result, **options):
             raise ValueError("no ink")
-        massfit.plot.figures.FIGURES["orbits"] = broken
+        massfit.plot.figures.FIGURES["{broken}"] = broken
     """
     run = _massfit("fit", "quill.ecsv", "--out", "res", *TINY, cwd=tmp_path,
                    prelude=prelude)
     assert run.returncode == 3, run.stderr  # not converged: the figure changes nothing
     warnings = [line for line in run.stderr.splitlines() if "warning" in line]
-    assert len(warnings) == 1 and "'orbits'" in warnings[0] and "no ink" in warnings[0]
+    assert len(warnings) == 1 and f"'{broken}'" in warnings[0] and "no ink" in warnings[0]
     assert "Traceback" not in run.stderr
     record = json.loads((tmp_path / "res" / "run.json").read_text())
-    assert record["figures"]["failed"] == [{"figure": "orbits",
+    assert record["figures"]["failed"] == [{"figure": broken,
                                             "error": "ValueError: no ink"}]
-    assert (tmp_path / "res" / "corner.png").exists()
-    assert not list((tmp_path / "res").glob("orbits.*"))
+    from massfit.plot.figures import FIGURES
+
+    written = record["figures"]["written"]
+    assert kept in written and broken not in written
+    assert written == sorted(written, key=list(FIGURES).index)  # in the figures' order
+    assert (tmp_path / "res" / f"{kept}.png").exists()
+    assert not list((tmp_path / "res").glob(f"{broken}.*"))
     assert (tmp_path / "res" / "summary.json").exists()
+
+
+def test_work_beside_a_forked_process():
+    from massfit.write.beside import beside, can_fork
+
+    assert beside(lambda: 6 * 7, lambda: "here") == (42, "here")
+
+    def disc_full():
+        raise OSError(28, "No space left on device")
+
+    with pytest.raises(OSError, match="No space left"):
+        beside(disc_full, lambda: None)
+    if can_fork():
+        import os
+
+        with pytest.raises(RuntimeError, match="without a result"):
+            beside(lambda: os._exit(5), lambda: None)
 
 
 # ------------------------------------------------------------------ checkpoint

@@ -111,6 +111,8 @@ def test_fit_command_writes_figures_unless_told_not_to(binary_file, tmp_path, mo
     calls = []
     monkeypatch.setattr(FitResult, "write_figures",
                         lambda self, folder, **kw: calls.append((folder, kw)) or [])
+    # All in this process (a forked one's calls would not reach this list).
+    monkeypatch.setattr("massfit.write.beside.can_fork", lambda: False)
     path, _ = binary_file
     common = ["fit", str(path), "--parallax", "25 mas", "--parallax-err", "0.25 mas",
               "--max-steps", "200", "--quiet"]

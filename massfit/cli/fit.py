@@ -5,6 +5,7 @@
 
 from __future__ import annotations
 
+import os
 import sys
 from pathlib import Path
 
@@ -184,7 +185,9 @@ def _save(result, out, *, plots, force, arviz=False):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", FigureWarning)
         try:
-            result.save(out, plots=plots, force=force, arviz=arviz)
+            # The corner plot in a second process where there is a second core.
+            result.save(out, plots=plots, force=force, arviz=arviz,
+                        processes=min(2, os.cpu_count() or 1))
         except OSError as exc:
             raise WriteError(f"cannot write the result into '{out}': {os_error_text(exc)}; "
                              f"the chain is kept in '{checkpoint_path(out)}': make room, "

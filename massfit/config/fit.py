@@ -65,6 +65,8 @@ instead)::
                                       #   fixed at 1, the relativistic value)
     gravitational_redshift = true     # GM / (r c) on the companions' own velocities
     transverse_doppler = true         # v^2 / (2 c) on them
+    exact_doppler = true              # the Doppler factor and redshift whole (default
+                                      #   false: the first-order terms alone)
 
     [viewing]                         # a primary inside the solar system (moving line of sight)
     ephemeris_body = "jupiter"        # its direction and distance per row from astropy
@@ -130,7 +132,8 @@ _SCHEMA = {
     "frame": {f"{term}_prior": dict for term in ("east", "north", "motion_east",
                                                  "motion_north", "velocity")},
     "relativity": {"precession": bool, "precession_scale_prior": dict,
-                   "gravitational_redshift": bool, "transverse_doppler": bool},
+                   "gravitational_redshift": bool, "transverse_doppler": bool,
+                   "exact_doppler": bool},
     "viewing": {"ephemeris_body": str, "ephemeris": str, "site": list, "offsets": str,
                 "pole_ra": str, "pole_dec": str},
     "sampler": {"walkers": int, "max_steps": int, "check_every": int, "seed": int,
@@ -369,27 +372,24 @@ def _dynamics(spec, table, file):
 
 
 #: The frame terms' units in a config.
-_FRAME_UNITS = {"east": u.mas, "north": u.mas, "motion_east": u.mas / u.yr,
-                "motion_north": u.mas / u.yr, "velocity": _KM_S}
-
-
 def _frame_and_relativity(spec, raw, file):
     """The [frame] and [relativity] tables (each present turns its terms on)."""
-    from massfit.model.frame import FrameSpec
+    from massfit.model.frame import FRAME_UNITS, FrameSpec
     from massfit.orbits.relativity import RelativitySpec
 
     if "frame" in raw:
         frame = FrameSpec()
-        for term, unit in _FRAME_UNITS.items():
+        for term, unit in FRAME_UNITS.items():
             key = f"{term}_prior"
             if key in raw["frame"]:
-                setattr(frame, term, prior_from_spec(raw["frame"][key], unit=unit,
+                setattr(frame, term, prior_from_spec(raw["frame"][key], unit=u.Unit(unit),
                                                      key=f"frame.{key}", file=file))
         spec.frame = frame
     if "relativity" in raw:
         table = raw["relativity"]
         rel = RelativitySpec(**{k: table[k] for k in ("precession", "gravitational_redshift",
-                                                      "transverse_doppler") if k in table})
+                                                      "transverse_doppler", "exact_doppler")
+                                if k in table})
         if "precession_scale_prior" in table:
             if not rel.precession:
                 raise ConfigError("a precession scale needs precession = true",

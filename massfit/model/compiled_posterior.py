@@ -1,7 +1,8 @@
 """One compiled log-posterior for the models people run most.
 
-Two-body relative astrometry, with or without radial velocities, the parallax sampled
-or fixed, the priors and the sampler's change of coordinates
+Two-body relative astrometry, with or without radial velocities, or radial velocities
+alone (the semi-amplitudes then parameters themselves), the parallax sampled or fixed,
+the priors and the sampler's change of coordinates
 (:mod:`massfit.sample.reparameterisation`) go from the sampled coordinates of all
 walkers to their log-posteriors in one call of a numba kernel
 (:mod:`massfit.orbits._posterior_numba`), the walkers shared among threads.
@@ -10,8 +11,11 @@ path by itself where the model qualifies (:func:`compiled_posterior` says why no
 otherwise) and the Python path, ``OrbitModel.log_prob_python``, stays the reference:
 tests/test_compiled_posterior.py compares the two to 1e-12.
 
-Models that do not qualify keep the general path: velocities alone, other dynamics
-(J2, integrated pulls), the light time across the system, a moving line of sight,
+A per-row line of sight (a moving observer: the orbit in ICRS axes, each row projected
+onto the tangent plane at the primary, with the light time along it) is compiled too.
+
+Models that do not qualify keep the general path: other dynamics
+(J2, integrated pulls), the light time across the system, apparent offsets,
 offsets measured from another companion, any setting of the model this module does not
 know (so terms added to the model later fall back until they are compiled here), and
 priors other than uniform, log-uniform and normal.
@@ -27,6 +31,7 @@ import threading
 import numpy as np
 
 from massfit.orbits import kepler
+from massfit.model.specs import DEFAULT_SEMI_AMPLITUDE_PRIOR
 from massfit.orbits.dynamics import Keplerian
 from massfit.priors import LogUniform, Normal, Uniform
 
@@ -53,14 +58,12 @@ def why_not_compiled(model) -> str | None:
     for item in dataclasses.fields(spec):
         if item.name not in KNOWN_SETTINGS and getattr(spec, item.name) != _default(item):
             return f"the model setting '{item.name}' is not compiled"
-    if model.velocity_only:
-        return "velocities alone"
     if type(model.dynamics) is not Keplerian:
         return f"the {model.dynamics.label} dynamics"
     if spec.romer_delay:
         return "the light time across the system"
-    if model.sight is not None:
-        return "a moving line of sight"
+    if model.sight is not None and model.sight.apparent is not None:
+        return "apparent offsets (differential aberration)"
     if any(rows.reference is not None for rows in model.rows.values()):
         return "offsets from another companion"
     for k in model.prior_plan.varying:
@@ -99,7 +102,8 @@ class CompiledPosterior:
         self.model = model
         column = model.column_of
         n_comp = len(model.companions)
-        comp_i = np.full((n_comp, 12), -1, dtype=np.int64)
+        comp_i = np.full((n_comp, 16), -1, dtype=np.int64)
+        comp_i[:, 12:16:2] = 0  # no semi-amplitude columns (kind 0) unless velocities alone
         comp_f = np.zeros((n_comp, 4))
         rows, first = [], 0
         packs = model.packed_rows()
@@ -107,28 +111,52 @@ class CompiledPosterior:
             for slot, kind in enumerate(("log10_period", "sqrt_e_cos_w", "sqrt_e_sin_w",
                                          "omega", "cos_inc", "node", "phase")):
                 comp_i[k, slot] = column.get(f"{name}.{kind}", -1)
-            comp_i[k, 7:9] = _scale_slot(column, f"{name}.mass", comp.mass)
+            if model.velocity_only:  # the semi-amplitudes are parameters (km/s)
+                prior = comp.semi_amplitude or DEFAULT_SEMI_AMPLITUDE_PRIOR
+                for slot, kind in ((12, "k_primary"), (14, "k_companion")):
+                    if f"{name}.{kind}" in column or f"{name}.log10_{kind}" in column:
+                        comp_i[k, slot + 1], comp_i[k, slot] = _scale_slot(
+                            column, f"{name}.{kind}", prior)
+                comp_i[k, 7:9] = -1, 0
+            else:
+                comp_i[k, 7:9] = _scale_slot(column, f"{name}.mass", comp.mass)
             comp_f[k] = (comp.eccentricity.value if comp.eccentricity.is_fixed else 0.0,
                          comp.inclination.value if comp.inclination is not None
                          and comp.inclination.is_fixed else 0.0,
-                         comp.mass.value if comp.mass.is_fixed else 0.0,
+                         comp.mass.value if comp.mass.is_fixed and not model.velocity_only
+                         else 0.0,
                          model.reference_epoch(name))
-            pack = packs[name]
-            comp_i[k, 9:12] = first, first + pack.n_cart, first + pack.dt.size
-            first += pack.dt.size
-            rows.append(pack)
+            pack = packs.get(name)
+            size = 0 if pack is None else pack.dt.size
+            comp_i[k, 9:12] = first, first + (0 if pack is None else pack.n_cart), first + size
+            first += size
+            if pack is not None:
+                rows.append(pack)
         self.comp_i, self.comp_f = comp_i, comp_f
         self.rows = np.ascontiguousarray(np.array([np.concatenate(
-            [getattr(p, key) for p in rows]) for key in (
+            [getattr(p, key) for p in rows] or [np.zeros(0)]) for key in (
                 "dt", "scale", "obs1", "obs2", "err1", "err2", "corr", "corr_factor")],
             dtype=float).reshape(8, first))
-        self.uses_parallax = np.concatenate([p.uses_parallax for p in rows]).astype(bool)
+        self.uses_parallax = np.concatenate(
+            [p.uses_parallax for p in rows] or [np.zeros(0, dtype=bool)]).astype(bool)
+        self.sight = np.zeros((10, 0))
+        if model.sight is not None:  # per row, in the order of the packed rows
+            parts = []
+            for name in (n for n in model.companions if n in model.rows):
+                own = model.rows[name]
+                part = own.sight.select(np.concatenate([own.cart, own.polar]))
+                parts.append(np.vstack([part.toward.T, part.east.T, part.north.T,
+                                        part.distance[None, :]]))
+            self.sight = np.ascontiguousarray(np.hstack(parts), dtype=float)
         spec = model.spec
         plx = spec.parallax
         self.glob_i = np.array([column.get("central.log10_mass", -1),
                                 column.get("parallax", -1), int(model.needs_parallax),
                                 column.get("rv.trend.slope", -1),
-                                column.get("rv.trend.curvature", -1)], dtype=np.int64)
+                                column.get("rv.trend.curvature", -1),
+                                int(model.velocity_only), int(model.sight is not None),
+                                int(bool(getattr(spec, "light_time", True)))],
+                               dtype=np.int64)
         self.glob_f = np.array([
             spec.central_mass.value if spec.central_mass.is_fixed else 0.0,
             plx.value if plx is not None and plx.is_fixed else 0.0,
@@ -236,7 +264,7 @@ class CompiledPosterior:
         _use_threads(sampled.shape[0] * (self.rows.shape[1] + self.vel.shape[1]))
         kepler.posterior_kernel.log_posterior(
             sampled, out, self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
-            self.uses_parallax, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
+            self.uses_parallax, self.sight, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
             self.high, self.discs_i, self.discs_f, win_i, win_f, self.var_i, self.var_f,
             *change)
         return out

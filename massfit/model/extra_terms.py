@@ -10,13 +10,18 @@ from __future__ import annotations
 
 import numpy as np
 
-from massfit.constants import GM_SUN
+from massfit.constants import C_AU_PER_DAY, GM_SUN, KM_S_PER_AU_DAY
 from massfit.errors import ModelError
 from massfit.model import frame as frame_terms
 from massfit.orbits.dynamics import Keplerian, romer_factor
-from massfit.orbits.relativity import velocity_terms_of_state
+from massfit.orbits.relativity import exact_shift, velocity_terms_of_state
 
-__all__ = ["check", "parameters", "frame_values", "precession_scale", "velocity_terms"]
+__all__ = ["check", "parameters", "frame_values", "precession_scale", "velocity_terms",
+           "star_velocity_terms"]
+
+#: Light-time iterations for the emission epochs of the exact Doppler factor (the
+#: delay changes by (v/c) of itself per iteration: two leave ~1e-4 of a day's delay).
+EMISSION_ITERATIONS = 2
 
 #: Name of the sampled precession scale.
 PRECESSION_SCALE = "relativity.precession_scale"
@@ -83,19 +88,55 @@ def velocity_terms(model, phys) -> dict:
     km/s, each shape (n, n_rows); zero on the primary's rows."""
     vel = model.velocity_rows
     n = next(iter(phys["companions"].values()))["period"].shape[0]
-    out = {key: np.zeros((n, vel.t.size)) for key in
-           ("gravitational_redshift", "transverse_doppler", "romer")}
-    for k, (name, orbit) in enumerate(phys["companions"].items()):
+    out = {}
+    for k, name in enumerate(phys["companions"]):
         own = np.flatnonzero(vel.owner == k)
         if own.size == 0:
             continue
-        position, velocity = model.dynamics.states_at(model, phys, name, vel.t[own])
-        gm = GM_SUN * (phys["central_mass"] + orbit["mass"])
-        romer = None
-        if model.spec.romer_delay:
-            romer = romer_factor(phys["central_mass"], orbit["mass"])
-        terms = velocity_terms_of_state(position, velocity, gm, model.spec.relativity,
-                                        romer)
-        for key, value in terms.items():
-            out[key][:, own] = value
+        for key, value in star_velocity_terms(model, phys, name, vel.t[own]).items():
+            out.setdefault(key, np.zeros((n, vel.t.size)))[:, own] = value
     return out
+
+
+def star_velocity_terms(model, phys, name, t, *, newtonian=None) -> dict:
+    """The terms on one companion's own velocity at days ``t`` (km/s, each shape
+    (n, len(t))): ``gravitational_redshift``, ``transverse_doppler`` and ``romer``
+    (the light time, to first order), and ``exact_doppler`` (the part of the whole
+    Doppler and redshift factor beyond those, where switched on).
+
+    ``newtonian`` collects the state at ``t`` where a dict is given (``velocity_z``:
+    the companion's own line-of-sight velocity, km/s), for the figures.
+    """
+    orbit = phys["companions"][name]
+    position, velocity = model.dynamics.states_at(model, phys, name, t)
+    central = phys["central_mass"]
+    gm = GM_SUN * (central + orbit["mass"])
+    romer = romer_factor(central, orbit["mass"]) if model.spec.romer_delay else None
+    rel = model.spec.relativity
+    terms = velocity_terms_of_state(position, velocity, gm, rel, romer)
+    share = central / (central + orbit["mass"])
+    own = share[:, None] * velocity[2] * KM_S_PER_AU_DAY
+    if newtonian is not None:
+        newtonian["velocity_z"] = own
+    if rel is not None and rel.exact_doppler:
+        first = own + sum(terms.values())
+        emitted = _emission_states(model, phys, name, t, (position, velocity), share)
+        exact = exact_shift(*emitted, gm, rel, share)
+        if phys.get("frame") is not None:
+            # The mass's own line-of-sight motion: Doppler factors multiply.
+            exact = exact + exact * phys["frame"]["velocity"][:, None] / (
+                C_AU_PER_DAY * KM_S_PER_AU_DAY)
+        terms["exact_doppler"] = exact - first
+    return terms
+
+
+def _emission_states(model, phys, name, t, state, share):
+    """The companion's state at the emission epochs of light received at ``t``
+    (t - z_own / c, iterated; ``state`` at ``t`` itself without the light time)."""
+    if not model.spec.romer_delay:
+        return state
+    received = np.asarray(t, dtype=float)[None, :]
+    for _ in range(EMISSION_ITERATIONS):
+        delay = share[:, None] * state[0][2] / C_AU_PER_DAY
+        state = model.dynamics.states_at(model, phys, name, received - delay)
+    return state

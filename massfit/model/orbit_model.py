@@ -85,7 +85,7 @@ from massfit.model.specs import (
 )
 from massfit.orbits import kepler
 from massfit.orbits.dynamics import Keplerian, observed_offsets
-from massfit.orbits.relativity import omega_at, precession_rate
+from massfit.orbits.relativity import accumulated_anomaly, omega_at, precession_per_anomaly
 from massfit.priors import LogUniform
 from massfit.read.observations import Observations
 
@@ -283,8 +283,8 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
             a = self.dynamics.semi_major_axis(GM_SUN * (central + mass), period, orbit)
             orbit["semi_major_axis"] = a
             if precessing:
-                orbit["omega_rate"] = precession_rate(GM_SUN * (central + mass), a, ecc,
-                                                      period, out["precession_scale"])
+                orbit["omega_per_anomaly"] = precession_per_anomaly(
+                    GM_SUN * (central + mass), a, ecc, out["precession_scale"])
             if self.velocity_rows is not None:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     k_rel = KM_S_PER_AU_DAY * kepler.radial_velocity_amplitude(
@@ -414,7 +414,8 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
         return parts
 
     def velocity_shape(self, name, orbit, t=None):
-        """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K."""
+        """cos(nu + omega) + e cos(omega) at every velocity row (or at ``t``): v_rel / K
+        (with a turning periapsis, omega at each row and the turning's term)."""
         column = {key: value[:, None] for key, value in orbit.items()}
         t = self.velocity_rows.t if t is None else t
         mean = column["mean_anomaly_ref"] + TWO_PI * (
@@ -426,9 +427,16 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
             denominator = 1.0 - ecc * cos_e
             cos_nu = (cos_e - ecc) / denominator
             sin_nu = np.sqrt(1.0 - ecc * ecc) * sin_e / denominator
-        omega = omega_at(column, t, self.reference_epoch(name))
+        if "omega_per_anomaly" not in column:
+            cos_w, sin_w = np.cos(column["omega"]), np.sin(column["omega"])
+            return cos_w * (cos_nu + ecc) - sin_w * sin_nu
+        # A turning periapsis (relativity): omega at this anomaly, and the turning's
+        # own velocity, omega_dot r sin i cos(nu + omega) = k (1 + e cos nu) K cos(..).
+        omega = omega_at(column, mean, accumulated_anomaly(mean, cos_nu, sin_nu))
         cos_w, sin_w = np.cos(omega), np.sin(omega)
-        return cos_w * (cos_nu + ecc) - sin_w * sin_nu
+        along = cos_w * cos_nu - sin_w * sin_nu
+        return along + ecc * cos_w + column["omega_per_anomaly"] * (
+            1.0 + ecc * cos_nu) * along
 
     def _velocity_residuals(self, phys):
         vel = self.velocity_rows

@@ -29,6 +29,8 @@ import math
 import numba
 import numpy as np
 
+from massfit.constants import C_AU_PER_DAY
+
 PI = math.pi
 TWO_PI = 2.0 * math.pi
 HALF_PI = 0.5 * math.pi
@@ -232,6 +234,69 @@ def companion_chi2(dt, period, m0, ew, a, inc, omega, node, pw, scale, uses_para
             y = rw * s
             east[j - first] = bw * x + gw * y
             north[j - first] = aw * x + fw * y
+    return _residual_chi2(pw, scale, uses_parallax, first, end_cart, end, obs1, obs2,
+                          err1, err2, corr, corr_factor, east, north)
+
+
+@numba.njit(**_jit)
+def companion_chi2_sight(dt, period, m0, ew, a, inc, omega, node, pw, scale,
+                         uses_parallax, first, end_cart, end, obs1, obs2, err1, err2, corr,
+                         corr_factor, sight, delay_factor, east,
+                         north):  # pragma: no cover - compiled
+    """:func:`companion_chi2` seen along a per-row line of sight.
+
+    The orbit is read in ICRS axes (x, y, z) as :func:`massfit.orbits.kepler.orbit_state`
+    gives it; each row's position is taken ``delay_factor * (d . r) / c`` earlier
+    (the light time, first order; no delay where ``delay_factor`` is 0) and projected
+    onto the tangent plane at the primary as :func:`massfit.orbits.viewing.project`
+    does: angle times the primary's distance D, D (e . r) / (D + d . r). ``sight``
+    rows 0-2, 3-5, 6-8 are the unit vectors d, e, n of each row, row 9 is D (au).
+    """
+    mw = TWO_PI / period
+    rw = math.sqrt(1.0 - ew * ew)
+    cw, sw = math.cos(omega), math.sin(omega)
+    cn, sn = math.cos(node), math.sin(node)
+    ci, si = math.cos(inc), math.sin(inc)
+    # orbit_axes: P towards periapsis, Q a quarter-turn ahead
+    p0, p1, p2 = cw * cn - sw * sn * ci, cw * sn + sw * cn * ci, sw * si
+    q0, q1, q2 = -sw * cn - cw * sn * ci, -sw * sn + cw * cn * ci, cw * si
+    # cos E and sin E first (in east and north), in a loop without branches that the
+    # compiler vectorises; the rare points the fast sequence does not trust after it
+    for j in range(first, end):
+        _, c, s, good = _core(m0 + mw * dt[j], ew)
+        east[j - first] = c if good else np.nan
+        north[j - first] = s
+    for j in range(first, end):
+        if east[j - first] != east[j - first]:
+            _, east[j - first], north[j - first] = _safe(m0 + mw * dt[j], ew)
+    for j in range(first, end):
+        c, s = east[j - first], north[j - first]
+        x = c - ew
+        y = rw * s
+        r0, r1, r2 = a * (x * p0 + y * q0), a * (x * p1 + y * q1), a * (x * p2 + y * q2)
+        # the light time (r - v * 0 is r where there is none: no branch in the loop)
+        e_dot = mw / (1.0 - ew * c)
+        vx = -a * e_dot * s
+        vy = a * e_dot * rw * c
+        depth = sight[0, j] * r0 + sight[1, j] * r1 + sight[2, j] * r2
+        delay = delay_factor * depth / C_AU_PER_DAY
+        r0 = r0 - (vx * p0 + vy * q0) * delay
+        r1 = r1 - (vx * p1 + vy * q1) * delay
+        r2 = r2 - (vx * p2 + vy * q2) * delay
+        distance = sight[9, j]
+        depth = distance + (sight[0, j] * r0 + sight[1, j] * r1 + sight[2, j] * r2)
+        factor = distance / depth
+        east[j - first] = factor * (sight[3, j] * r0 + sight[4, j] * r1 + sight[5, j] * r2)
+        north[j - first] = factor * (sight[6, j] * r0 + sight[7, j] * r1 + sight[8, j] * r2)
+    return _residual_chi2(pw, scale, uses_parallax, first, end_cart, end, obs1, obs2,
+                          err1, err2, corr, corr_factor, east, north)
+
+
+@numba.njit(**_jit)
+def _residual_chi2(pw, scale, uses_parallax, first, end_cart, end, obs1, obs2, err1,
+                   err2, corr, corr_factor, east, north):  # pragma: no cover - compiled
+    """chi^2 of the offsets ``east``, ``north`` (au, rows ``[first, end)``) against the
+    east/north rows, then the separation/position-angle rows."""
     total = 0.0
     for j in range(first, end_cart):
         f = scale[j] * pw if uses_parallax[j] else scale[j]

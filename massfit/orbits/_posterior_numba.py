@@ -12,10 +12,13 @@ Tables (all rows of int64 or float64; -1 marks a fixed value in a column slot):
 
 ``comp_i`` per companion: log10 P, sqrt(e) cos w, sqrt(e) sin w, omega, cos i, node,
 phase, mass columns; the mass's kind (0 fixed, 1 sampled, 2 log10 sampled); the
-first, last east/north and last row of its astrometry.
+first, last east/north and last row of its astrometry; with velocities alone, the kind
+and column of the primary's and the companion's semi-amplitudes.
 ``comp_f`` per companion: fixed e, fixed i, fixed mass, the velocity reference epoch.
 ``glob_i``: central-mass column, parallax column, parallax needed (0/1), slope and
-curvature columns. ``glob_f``: fixed central mass, fixed parallax (mas), the
+curvature columns, velocities alone (0/1), a line of sight per row (0/1), the light
+time along it (0/1). ``sight`` (10, rows): each row's unit vectors towards the primary,
+east and north (ICRS), and its distance (au); empty without a line of sight. ``glob_f``: fixed central mass, fixed parallax (mas), the
 likelihood's normalisation, the trend's epoch, fixed slope, fixed curvature, the
 prior's constant.
 """
@@ -28,7 +31,8 @@ import numba
 import numpy as np
 
 from massfit.constants import GM_SUN, KM_S_PER_AU_DAY
-from massfit.orbits._kepler_numba import companion_chi2, point, point_safe
+from massfit.orbits._kepler_numba import (companion_chi2, companion_chi2_sight, point,
+                                          point_safe)
 
 TWO_PI = 2.0 * math.pi
 LN10 = math.log(10.0)
@@ -39,10 +43,12 @@ _jit = dict(cache=True, error_model="numpy", fastmath=False)
 # Column slots of comp_i.
 C_LOGP, C_H, C_K, C_OMEGA, C_COSI, C_NODE, C_PHASE, C_MASS, C_MASS_KIND = range(9)
 C_FIRST, C_END_CART, C_END = 9, 10, 11
+# Velocities alone: the semi-amplitudes' kinds (0 none, 1 sampled, 2 log10) and columns.
+C_KP_KIND, C_KP, C_KC_KIND, C_KC = 12, 13, 14, 15
 # Slots of comp_f.
 F_ECC, F_INC, F_MASS, F_TREF = range(4)
 # glob_i and glob_f.
-G_CENTRAL, G_PLX, G_NEEDS_PLX, G_SLOPE, G_CURV = range(5)
+G_CENTRAL, G_PLX, G_NEEDS_PLX, G_SLOPE, G_CURV, G_VELOCITY_ONLY, G_SIGHT, G_LIGHT_TIME = range(8)
 GF_CENTRAL, GF_PLX, GF_NORM, GF_TTREND, GF_SLOPE, GF_CURV, GF_CONST = range(7)
 # Transform and prior codes of the coordinates whose prior density varies.
 T_IDENTITY, T_LOG10, T_COS, T_DISC = range(4)
@@ -194,7 +200,7 @@ def _state(s, theta, st_i, st_f, gm, log_jac):  # pragma: no cover - compiled
 
 
 @numba.njit(**_jit)
-def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i,
+def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel, vel_i,
           inst_i, inst_f, east, north):  # pragma: no cover - compiled
     # OrbitModel.physical and the chi^2 of the astrometry and the velocities.
     central = _scaled(theta, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
@@ -225,23 +231,34 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i
             ecc = h * h + kk * kk
             omega = math.atan2(kk, h)
         m0 = theta[ci[C_PHASE]] - omega
-        inc = cf[F_INC] if ci[C_COSI] < 0 else math.acos(min(max(theta[ci[C_COSI]], -1.0),
-                                                             1.0))
-        node = theta[ci[C_NODE]]
-        mass = _scaled(theta, ci[C_MASS], ci[C_MASS_KIND], cf[F_MASS])
-        gm = GM_SUN * (central + mass)
-        a = np.cbrt(gm * period ** 2 / (4.0 * math.pi ** 2))
-        chi2 += companion_chi2(rows[0], period, m0, ecc, a, inc, omega, node, pw, rows[1],
-                               uses_parallax, ci[C_FIRST], ci[C_END_CART], ci[C_END],
-                               rows[2], rows[3], rows[4], rows[5], rows[6], rows[7], east,
-                               north)
-        if n_vel == 0:
-            continue
-        k_rel = KM_S_PER_AU_DAY * (TWO_PI * a * math.sin(inc)
-                                   / (period * math.sqrt(1.0 - ecc * ecc)))
-        share = mass / (central + mass)
-        k_primary = share * k_rel
-        k_companion = (1.0 - share) * k_rel
+        if glob_i[G_VELOCITY_ONLY]:  # the semi-amplitudes themselves are parameters
+            k_primary = _scaled(theta, ci[C_KP], ci[C_KP_KIND], 0.0)
+            k_companion = _scaled(theta, ci[C_KC], ci[C_KC_KIND], 0.0)
+        else:
+            inc = cf[F_INC] if ci[C_COSI] < 0 else math.acos(
+                min(max(theta[ci[C_COSI]], -1.0), 1.0))
+            node = theta[ci[C_NODE]]
+            mass = _scaled(theta, ci[C_MASS], ci[C_MASS_KIND], cf[F_MASS])
+            gm = GM_SUN * (central + mass)
+            a = np.cbrt(gm * period ** 2 / (4.0 * math.pi ** 2))
+            if glob_i[G_SIGHT]:  # a line of sight per row (ICRS orbit, light time)
+                delay = (central - mass) / (central + mass) if glob_i[G_LIGHT_TIME] else 0.0
+                chi2 += companion_chi2_sight(
+                    rows[0], period, m0, ecc, a, inc, omega, node, pw, rows[1],
+                    uses_parallax, ci[C_FIRST], ci[C_END_CART], ci[C_END], rows[2],
+                    rows[3], rows[4], rows[5], rows[6], rows[7], sight, delay, east, north)
+            else:
+                chi2 += companion_chi2(rows[0], period, m0, ecc, a, inc, omega, node, pw,
+                                       rows[1], uses_parallax, ci[C_FIRST], ci[C_END_CART],
+                                       ci[C_END], rows[2], rows[3], rows[4], rows[5],
+                                       rows[6], rows[7], east, north)
+            if n_vel == 0:
+                continue
+            k_rel = KM_S_PER_AU_DAY * (TWO_PI * a * math.sin(inc)
+                                       / (period * math.sqrt(1.0 - ecc * ecc)))
+            share = mass / (central + mass)
+            k_primary = share * k_rel
+            k_companion = (1.0 - share) * k_rel
         cos_w, sin_w = math.cos(omega), math.sin(omega)
         root = math.sqrt(1.0 - ecc * ecc)
         for v in range(n_vel):
@@ -268,8 +285,8 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel, vel_i
 
 
 @numba.njit(parallel=True, **_jit)
-def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel,
-                  vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
+def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
+                  sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
                   var_f, lon_i, lon_f, st_i, st_f, st_comp,
                   angular_i):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
@@ -315,8 +332,8 @@ def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_paral
         if math.isfinite(lp):
             east = np.empty(n_rows)
             north = np.empty(n_rows)
-            chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, vel,
-                         vel_i, inst_i, inst_f, east, north)
+            chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
+                         vel, vel_i, inst_i, inst_f, east, north)
             lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
         lp = lp + log_jac
         out[w] = lp if math.isfinite(lp) else -np.inf

@@ -25,7 +25,7 @@ from massfit.orbits import kepler
 from massfit.orbits.kepler import orbit_axes, orbit_state
 
 from massfit.orbits import viewing
-from massfit.orbits.relativity import omega_at
+from massfit.orbits.relativity import as_row_times, turning_periapsis
 from massfit.constants import C_AU_PER_DAY
 
 __all__ = ["Keplerian", "orbit_state", "orbit_axes", "elements_of_state", "observed_offsets",
@@ -139,7 +139,7 @@ class Keplerian:
         out = {}
         for name, rows in model.rows.items():
             # A turning periapsis (relativity) takes the general evaluator.
-            if want_velocity or "omega_rate" in phys["companions"][name]:
+            if want_velocity or "omega_per_anomaly" in phys["companions"][name]:
                 out[name] = self.states_at(model, phys, name, rows.t)
                 continue
             orbit = phys["companions"][name]
@@ -153,16 +153,18 @@ class Keplerian:
 
     def states_at(self, model, phys, name, t):
         """Position and velocity of one companion at the times ``t`` (days since the
-        model's epoch): what an offset measured from that companion needs."""
+        model's epoch; shape (n_times,), or (n, n_times) with each walker's own
+        times): what an offset measured from that companion needs."""
         orbit = phys["companions"][name]
         column = {key: value[:, None] for key, value in orbit.items()}
         n_motion = TWO_PI / column["period"]
         mean = column["mean_anomaly_ref"] + n_motion * (
-            np.asarray(t)[None, :] - model.reference_epoch(name))
-        omega = omega_at(column, t, model.reference_epoch(name))
+            as_row_times(t) - model.reference_epoch(name))
+        omega, omega_dot = turning_periapsis(column, mean)
         with np.errstate(invalid="ignore", divide="ignore"):
             return orbit_state(column["semi_major_axis"], column["ecc"], column["inc"],
-                               omega, column["node"], mean, n_motion)
+                               omega, column["node"], mean, n_motion,
+                               omega_dot=omega_dot)
 
 
 def romer_factor(central_mass, companion_mass):

@@ -294,7 +294,8 @@ def orbit_axes(inc, omega, node):
     return p_vec, q_vec
 
 
-def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_velocity=True):
+def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_velocity=True,
+                omega_dot=None):
     """Position and velocity on a Keplerian ellipse, in the sky frame.
 
     Parameters
@@ -308,6 +309,9 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
         dM/dt (rad/day), used for the velocity only.
     want_velocity : bool
         Also return the velocity.
+    omega_dot : array_like or None
+        d omega / dt (rad/day) of a turning periapsis: the velocity gains the turning,
+        omega_dot times d position / d omega = omega_dot a (x Q - y P).
 
     Returns
     -------
@@ -334,5 +338,7 @@ def orbit_state(a, ecc, inc, omega, node, mean_anomaly, mean_motion, *, want_vel
     e_dot = mean_motion / (1.0 - ecc * cos_e)
     vx = -a * e_dot * sin_e
     vy = a * e_dot * root * cos_e
+    if omega_dot is not None:
+        vx, vy = vx - omega_dot * a * y, vy + omega_dot * a * x
     velocity = tuple(vx * p + vy * q for p, q in zip(p_vec, q_vec))
     return position, velocity

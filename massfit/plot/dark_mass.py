@@ -12,11 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from massfit.constants import GM_SUN, KM_S_PER_AU_DAY
 from massfit.errors import ConfigError
+from massfit.model.extra_terms import star_velocity_terms
 from massfit.model.frame import frame_shift
-from massfit.orbits.dynamics import romer_factor
-from massfit.orbits.relativity import velocity_terms_of_state
 from massfit.plot.style import PAGE_WIDTH, style
 from massfit.summarise.residuals import best_sample
 
@@ -156,15 +154,11 @@ def _position_regions(ax, east, north):
 def frame_curves(model, phys, name, t):
     """A star's modelled velocity at days ``t`` from the model's epoch, split:
     ``newtonian`` (its orbit, the light time and the mass's own velocity) and each
-    relativistic term (km/s), for one parameter set (``phys`` of one sample)."""
-    position, velocity = model.dynamics.states_at(model, phys, name, t)
-    orbit = phys["companions"][name]
-    gm = GM_SUN * (phys["central_mass"] + orbit["mass"])
-    romer = romer_factor(phys["central_mass"], orbit["mass"]) if model.spec.romer_delay \
-        else None
-    terms = velocity_terms_of_state(position, velocity, gm, model.spec.relativity, romer)
-    share = phys["central_mass"] / (phys["central_mass"] + orbit["mass"])
-    newtonian = (share[:, None] * velocity[2] * KM_S_PER_AU_DAY + terms.pop("romer")
+    relativistic term (km/s; ``exact_doppler`` where the fit takes the Doppler factor
+    whole), for one parameter set (``phys`` of one sample)."""
+    state = {}
+    terms = star_velocity_terms(model, phys, name, t, newtonian=state)
+    newtonian = (state["velocity_z"] + terms.pop("romer")
                  + _frame(phys)["velocity"][:, None])
     return {"newtonian": newtonian[0], **{k: v[0] for k, v in terms.items()}}
 
@@ -175,7 +169,8 @@ def redshift_plot(result, *, width=None):
     Top panel per star: the velocities (1-sigma errors), the best model (solid) and its
     Newtonian part (dashed: the orbit, the light time and the mass's own velocity).
     Bottom panel: the data minus the Newtonian part against the modelled gravitational
-    redshift plus transverse Doppler shift (solid) and the redshift alone (dotted).
+    redshift plus transverse Doppler shift (solid; with the part of the whole factor
+    beyond first order where the fit has it) and the redshift alone (dotted).
     """
     import matplotlib.pyplot as plt
 
@@ -202,7 +197,7 @@ def redshift_plot(result, *, width=None):
             top.tick_params(labelbottom=False)
             if col == 0:
                 top.set_ylabel(r"$v_r$ [km/s]")
-                bottom.set_ylabel(r"$v_r - v_\mathrm{Newton}$ [km/s]")
+                bottom.set_ylabel("$v_r - v_\\mathrm{Newton}$\n[km/s]")
             if block == blocks - 1:
                 bottom.set_xlabel("Julian year (TDB)")
         handles, labels = [], []
@@ -210,7 +205,7 @@ def redshift_plot(result, *, width=None):
             h, lab = ax.get_legend_handles_labels()
             handles += h
             labels += lab
-        fig.legend(handles, labels, loc="outside upper center", ncol=len(labels),
+        fig.legend(handles, labels, loc="outside upper center", ncol=min(len(labels), 3),
                    frameon=False)
     return fig
 
@@ -224,7 +219,8 @@ def _draw_star_velocities(top, bottom, model, best, name):
     at_rows = frame_curves(model, best, name, vel.t[own])
     years = 2000.0 + (model.epoch_jd + t - 2451545.0) / _YEAR
     data_years = 2000.0 + (model.epoch_jd + vel.t[own] - 2451545.0) / _YEAR
-    shift = dense["gravitational_redshift"] + dense["transverse_doppler"]
+    shift = (dense["gravitational_redshift"] + dense["transverse_doppler"]
+             + dense.get("exact_doppler", 0.0))
     err = np.sqrt(vel.err2[own])
     top.errorbar(data_years, vel.rv[own], yerr=err, fmt="o", ms=1.5, color="k",
                  elinewidth=0.4, gid="data", label="data")
@@ -234,8 +230,8 @@ def _draw_star_velocities(top, bottom, model, best, name):
              gid="model_newtonian", label="its Newtonian part")
     bottom.errorbar(data_years, vel.rv[own] - at_rows["newtonian"], yerr=err, fmt="o",
                     ms=1.5, color="k", elinewidth=0.4, gid="data_shift")
-    bottom.plot(years, shift, color="C0", lw=0.8, gid="relativistic_shift",
-                label="redshift + transverse Doppler")
+    bottom.plot(years, shift, color="C3", lw=0.8, gid="relativistic_shift",
+                label="relativistic shift (redshift + transverse Doppler)")
     bottom.plot(years, dense["gravitational_redshift"], color="C2", lw=0.7, ls=":",
                 gid="gravitational_redshift", label="gravitational redshift")
     bottom.axhline(0.0, color="0.5", lw=0.5)

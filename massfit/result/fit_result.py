@@ -97,12 +97,20 @@ def _velocity_lines(rv) -> list:
     lines = ["Radial velocities (per instrument)"]
     for label in rv["offset"]:
         name = label or "(no instrument)"
-        lines.append(f"  {'gamma':<8}= {format_value(rv['offset'][label])} km/s   {name}")
-        lines.append(f"  {'jitter':<8}= {format_value(rv['jitter'][label])} km/s   {name}")
+        for term, key in (("gamma", "offset"), ("jitter", "jitter")):
+            lines.append(f"  {term:<8}= {_value_or_fixed(rv[key][label])} km/s   {name}")
     for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
         if term in rv:
             lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
     return lines
+
+
+def _value_or_fixed(block) -> str:
+    """``fixed at v`` for a value that was not sampled (an interval of no width), else
+    the interval as :func:`format_value` writes it."""
+    if block["lower_95"] == block["upper_95"] == block["median"]:
+        return f"fixed at {block['median']:g}"
+    return format_value(block)
 
 
 def format_value(block) -> str:
@@ -171,12 +179,13 @@ class FitResult:
                     "companion's radial velocities with its relative astrometry")
         summary.update(summary_blocks(self.model, s, interval))
         summary["converged"] = self.converged
-        from massfit.summarise.adequacy import fit_quality, quality_warnings
+        from massfit.summarise.adequacy import fit_quality, fitted_jitter, quality_warnings
 
         companions = self._companion_blocks()
         adequacy = self._adequacy({name: comp["period"]["median"]
                                    for name, comp in companions.items()})
-        summary["fit_quality"] = fit_quality(adequacy, tested=not self.model.has_velocities)
+        summary["fit_quality"] = fit_quality(
+            adequacy, tested=not (self.model.has_velocities and fitted_jitter(self.model)))
         names = self.model.names
         k_mass = names.index("central.log10_mass") if "central.log10_mass" in names else 0
         summary["diagnostics"] = {
@@ -528,7 +537,7 @@ class FitResult:
 
     # --------------------------------------------------------------------- save
     def save(self, out_dir, *, plots=True, force=False, formats=("png", "pdf"),
-             arviz=False) -> Path:
+             arviz=False, processes=1) -> Path:
         """Write the output folder: summary, samples, observations, tables and figures.
 
         ``massfit.load_result`` reads the folder back (``massfit redraw`` on the
@@ -542,7 +551,9 @@ class FitResult:
         wrote; a folder massfit did not write is never touched (see
         :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
         as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
-        :meth:`to_inference_data`; needs arviz).
+        :meth:`to_inference_data`; needs arviz). With ``processes=2`` the corner plot
+        is drawn in a forked second process beside the other figures (``massfit fit``
+        does so on a machine with two cores or more).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
@@ -565,18 +576,42 @@ class FitResult:
                 posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
             write_json(tmp / RUN_FILE, record)
             if plots:
-                record["figures"] = self._write_figures_or_warn(tmp, formats)
+                record["figures"] = self._write_figures_or_warn(tmp, formats, processes)
                 write_json(tmp / RUN_FILE, record)
         return out
 
-    def _write_figures_or_warn(self, folder, formats) -> dict:
-        """Draw every figure that applies; one that fails is a warning, not a lost result."""
+    def _write_figures_or_warn(self, folder, formats, processes=1) -> dict:
+        """Draw every figure that applies; one that fails is a warning, not a lost result.
+
+        With ``processes`` = 2 (and fork available) the corner plots are drawn in a
+        second process while this one draws the rest.
+        """
         import warnings
 
         from massfit.plot.figures import applicable_figures
+        from massfit.write.beside import beside, can_fork
 
+        stems = applicable_figures(self)
+        apart = [stem for stem in stems if stem.startswith("corner")]
+        if processes > 1 and can_fork() and apart and len(apart) < len(stems):
+            rest = [stem for stem in stems if stem not in apart]
+            first, second = beside(lambda: self._draw_each(folder, apart, formats),
+                                   lambda: self._draw_each(folder, rest, formats))
+            done = {key: sorted(first[key] + second[key],
+                                key=lambda d: stems.index(d if isinstance(d, str)
+                                                          else d["figure"]))
+                    for key in ("written", "failed")}
+        else:
+            done = self._draw_each(folder, stems, formats)
+        for failure in done["failed"]:
+            warnings.warn(f"the figure '{failure['figure']}' could not be drawn "
+                          f"({failure['error']}); the numbers are saved without it",
+                          FigureWarning, stacklevel=3)
+        return done
+
+    def _draw_each(self, folder, stems, formats) -> dict:
         done = {"written": [], "failed": []}
-        for stem in applicable_figures(self):
+        for stem in stems:
             try:
                 self.write_figures(folder, figures=[stem], formats=formats)
             except OSError:
@@ -586,8 +621,6 @@ class FitResult:
                     path.unlink()  # half a figure is no figure
                 reason = " ".join(f"{type(exc).__name__}: {exc}".split())
                 done["failed"].append({"figure": stem, "error": reason})
-                warnings.warn(f"the figure '{stem}' could not be drawn ({reason}); the "
-                              f"numbers are saved without it", FigureWarning, stacklevel=2)
             else:
                 done["written"].append(stem)
         return done

@@ -152,14 +152,16 @@ def radial_velocities(system, name, times):
     return c_km_s * (one_plus_z - 1.0)
 
 
-def observe(system, schedule, *, seed):
-    """Noisy observations of every star.
+def observe(system, schedule, *, seed, noise=True):
+    """Noisy observations of every star (``noise=False``: the exact values, the
+    errors still stated, for measuring a model's own bias).
 
     ``schedule`` maps a star to ``{"astrometry": (times, error_mas), "velocities":
     (times, error_km_s)}`` (times JD TDB). Returns (astrometry rows, velocity rows),
     each a dict of columns.
     """
     rng = np.random.default_rng(seed)
+    scale = 1.0 if noise else 0.0
     ast = {"time": [], "body": [], "east": [], "north": [], "east_err": [],
            "north_err": []}
     vel = {"time": [], "body": [], "rv": [], "rv_err": []}
@@ -169,8 +171,8 @@ def observe(system, schedule, *, seed):
         error = np.broadcast_to(np.asarray(error, dtype=float), np.shape(times))
         ast["time"].append(times)
         ast["body"].append(np.full(len(times), name))
-        ast["east"].append(east + error * rng.standard_normal(len(times)))
-        ast["north"].append(north + error * rng.standard_normal(len(times)))
+        ast["east"].append(east + scale * error * rng.standard_normal(len(times)))
+        ast["north"].append(north + scale * error * rng.standard_normal(len(times)))
         ast["east_err"].append(error)
         ast["north_err"].append(error)
         if "velocities" not in schedule[name]:
@@ -180,7 +182,7 @@ def observe(system, schedule, *, seed):
         rv = radial_velocities(system, name, times)
         vel["time"].append(times)
         vel["body"].append(np.full(len(times), name))
-        vel["rv"].append(rv + error * rng.standard_normal(len(times)))
+        vel["rv"].append(rv + scale * error * rng.standard_normal(len(times)))
         vel["rv_err"].append(error)
     return ({k: np.concatenate(v) for k, v in ast.items()},
             {k: np.concatenate(v) for k, v in vel.items()})
@@ -281,13 +283,14 @@ def fit_spec(system, *, relativity=True, precession_scale=None):
                       romer_delay=relativity, companions=companions, jitter=Fixed(0.0))
 
 
-def simulated_observations(system, schedule, *, seed, folder):
-    """Noisy observations written as ECSV into ``folder`` and read back by massfit."""
+def simulated_observations(system, schedule, *, seed, folder, noise=True):
+    """Noisy (or, ``noise=False``, exact) observations written as ECSV into
+    ``folder`` and read back by massfit."""
     from pathlib import Path
 
     from massfit.read.tables import read_observations
 
-    ast, vel = observe(system, schedule, seed=seed)
+    ast, vel = observe(system, schedule, seed=seed, noise=noise)
     paths = []
     for file_name, table in tables(ast, vel).items():
         table.write(Path(folder) / file_name, format="ascii.ecsv", overwrite=True)

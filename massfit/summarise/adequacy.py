@@ -29,7 +29,8 @@ from massfit.model.fit_quality import POOR_FIT_P_VALUE, chi2_block
 from massfit.summarise.dark_mass import relativity_adequacy, relativity_lines
 from massfit.summarise.residuals import peak_text
 
-__all__ = ["assess", "report_lines", "panels", "chi2_text", "fit_quality", "quality_warnings", "FAP_THRESHOLD",
+__all__ = ["assess", "report_lines", "panels", "chi2_text", "fit_quality", "fitted_jitter",
+           "quality_warnings", "FAP_THRESHOLD",
            "POOR_FIT_P_VALUE"]
 
 #: False-alarm probability below which a residual peak is called significant.
@@ -89,6 +90,10 @@ def assess(model, theta, *, periods=None, compare=None) -> dict:
         }
     if model.has_velocities:
         out["velocities"] = _velocity_block(model, theta)
+        if not fitted_jitter(model):
+            # Jitter fixed: the velocities test the fit with their stated errors too.
+            chi2_astrometry += out["velocities"]["chi2"]
+            n_astrometry += out["velocities"]["n_values"]
     out["total"] = chi2_block(chi2_astrometry, n_astrometry, model.n_dim)
     out["total"]["n_parameters"] = model.n_dim
     if compare is None:
@@ -122,17 +127,25 @@ def _peak(residuals, orbital_period):
     return out
 
 
+def fitted_jitter(model) -> bool:
+    """True where a velocity jitter is a sampled parameter (it absorbs any misfit)."""
+    return any(p.startswith("rv.") and "jitter" in p.rsplit(".", 1)[-1]
+               for p in model.names)
+
+
 def _velocity_block(model, theta):
-    """chi^2 of the radial velocities (the fitted jitter in their errors) and their
-    residual periodogram; the jitter absorbs misfit, so no p-value is given."""
+    """chi^2 of the radial velocities (the jitter in their errors) and their residual
+    periodogram; a fitted jitter absorbs misfit, so then no p-value is given."""
     from massfit.summarise.residuals import model_velocity_residuals
 
     res = model_velocity_residuals(model, theta)
     own = sum(1 for p in model.names if p.startswith("rv."))
     block = chi2_block(res.chi2, res.normalised.size, own)
-    block["p_value"] = None
-    return {**block, "n_own_parameters": own,
-            "note": "the fitted jitter is in the errors: chi^2 is no test of the fit",
+    note = "the jitter is fixed: chi^2 tests the velocities with their stated errors"
+    if fitted_jitter(model):
+        block["p_value"] = None
+        note = "the fitted jitter is in the errors: chi^2 is no test of the fit"
+    return {**block, "n_own_parameters": own, "note": note,
             "periodogram": _peak(res, None)}
 
 
@@ -231,7 +244,8 @@ def _verdicts(block):
         out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
                    f"{comparison['delta_bic']:.1f} (positive favours "
                    f"{block['dynamics']['model']}); preferred: {comparison['preferred']}")
-    if not out and not block["companions"]:
+    if not out and not block["companions"] \
+            and (block.get("velocities") or {}).get("p_value") is None:
         # Velocities alone: the fitted jitter absorbs misfit, so only the periodogram tests.
         out.append("no residual periodic signal (chi2 is no test with a fitted jitter)")
     elif not out:
@@ -248,8 +262,9 @@ def fit_quality(block, *, tested=True) -> dict:
     block : dict or None
         The adequacy block of the fit (:func:`assess`), at the best posterior sample.
     tested : bool
-        False where fitted jitter terms absorb any misfit (radial velocities): the
-        verdict is then ``"not tested"``.
+        False where fitted jitter terms absorb any misfit (radial velocities with a
+        sampled jitter, :func:`fitted_jitter`): the verdict is then ``"not tested"``.
+        With a fixed jitter the block's ``total`` holds the velocities too.
 
     Returns
     -------

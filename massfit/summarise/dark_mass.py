@@ -26,11 +26,12 @@ from dataclasses import replace
 import numpy as np
 
 from massfit.constants import GM_SUN
-from massfit.model.frame import FRAME_UNITS
-from massfit.orbits.relativity import periapsis_advance
+from massfit.orbits.relativity import TERMS, periapsis_advance
+from massfit.summarise.quantities import SYSTEM, SYSTEM_SAMPLED
 
 __all__ = ["extra_samples", "summary_blocks", "relativity_adequacy", "relativity_lines",
-           "summary_lines", "corner_quantity", "corner_defaults", "table_entries"]
+           "summary_lines", "corner_quantity", "corner_defaults", "table_entries",
+           "system_blocks"]
 
 ARCMIN_PER_RAD = 180.0 * 60.0 / np.pi
 
@@ -68,19 +69,20 @@ def summary_blocks(model, samples, interval) -> dict:
     ``mass_distance_correlation`` entries (``interval(values, unit)`` makes a block)."""
     out = {}
     if "frame" in samples:
-        out["frame"] = {term: interval(values, FRAME_UNITS[term])
+        out["frame"] = {term: interval(values, SYSTEM[f"frame.{term}"].unit_text)
                         for term, values in samples["frame"].items()}
         out["frame"]["reference_epoch_jd"] = float(model.epoch_jd)
     if "relativity" in samples:
         rel = samples["relativity"]
         block = model.spec.relativity.describe()
         if "precession_scale" in rel:
-            block["precession_scale"] = interval(rel["precession_scale"], "")
+            block["precession_scale"] = interval(rel["precession_scale"],
+                                                 SYSTEM["precession_scale"].unit_text)
         block["periapsis_advance"] = {name: interval(values, "arcmin / orbit")
                                       for name, values in rel["advance"].items()}
         out["relativity"] = block
     if "distance" in samples:
-        out["distance"] = interval(samples["distance"], "pc")
+        out["distance"] = interval(samples["distance"], SYSTEM["distance"].unit_text)
         mass = samples["central_mass_solar"]
         out["mass_distance_correlation"] = {
             "log_mass_log_distance": _correlation(np.log(mass), np.log(samples["distance"])),
@@ -110,8 +112,7 @@ def relativity_adequacy(model, theta):
     rel = model.spec.relativity
     terms = []
     if rel is not None:
-        terms = [t for t in ("precession", "gravitational_redshift", "transverse_doppler")
-                 if getattr(rel, t)]
+        terms = [t for t in TERMS if getattr(rel, t)]
     if model.spec.romer_delay:
         terms.append("romer_delay")
     if not terms:
@@ -163,8 +164,7 @@ def summary_lines(summary, format_value) -> list:
                 lines.append(f"  {term:<13}= {format_value(block)} {block['unit']}")
     rel = summary.get("relativity")
     if rel:
-        on = [k.replace("_", " ") for k in ("precession", "gravitational_redshift",
-                                            "transverse_doppler") if rel[k]]
+        on = [k.replace("_", " ") for k in TERMS if rel.get(k)]
         lines.append(f"Relativistic terms: {', '.join(on) or 'none'}")
         scale = rel["precession_scale"]
         if isinstance(scale, dict):
@@ -175,53 +175,48 @@ def summary_lines(summary, format_value) -> list:
     return lines
 
 
-#: Corner-plot symbols and units (LaTeX) of the quantities this module adds.
-_CORNER = {"distance": ("d", r"\mathrm{pc}", "pc"),
-           "precession_scale": (r"f_\mathrm{prec}", "", ""),
-           "frame.east": ("x_0", r"\mathrm{mas}", "mas"),
-           "frame.north": ("y_0", r"\mathrm{mas}", "mas"),
-           "frame.motion_east": (r"\mu_x", r"\mathrm{mas\,yr^{-1}}", "mas / yr"),
-           "frame.motion_north": (r"\mu_y", r"\mathrm{mas\,yr^{-1}}", "mas / yr"),
-           "frame.velocity": (r"v_{z,0}", r"\mathrm{km\,s^{-1}}", "km / s")}
+def _sampled_values(samples, key):
+    """Samples of one of :data:`SYSTEM_SAMPLED`'s keys, or None."""
+    if key == "distance":
+        return samples.get("distance")
+    if key == "precession_scale":
+        return samples.get("relativity", {}).get("precession_scale")
+    return samples.get("frame", {}).get(key.split(".", 1)[1])
 
 
 def corner_quantity(samples, key):
     """(values, symbol, LaTeX unit, unit text) of a corner key this module adds
-    (``distance``, ``precession_scale``, ``frame.<term>``), or None."""
-    if key not in _CORNER:
+    (``distance``, ``precession_scale``, ``frame.<term>``), or None; the words and
+    units from :data:`massfit.summarise.quantities.SYSTEM`."""
+    if key not in SYSTEM_SAMPLED:
         return None
-    if key == "distance":
-        values = samples.get("distance")
-    elif key == "precession_scale":
-        values = samples.get("relativity", {}).get("precession_scale")
-    else:
-        values = samples.get("frame", {}).get(key.split(".", 1)[1])
-    return None if values is None else (values, *_CORNER[key])
+    values = _sampled_values(samples, key)
+    d = SYSTEM[key]
+    return None if values is None else (values, d.symbol, d.unit_latex, d.unit_text)
 
 
 def corner_defaults(samples) -> list:
     """The corner keys of a fit with frame or relativistic terms: the distance, the
     precession scale and the frame terms that were sampled."""
-    return [key for key in _CORNER if corner_quantity(samples, key) is not None]
+    return [key for key in SYSTEM_SAMPLED if corner_quantity(samples, key) is not None]
 
 
-#: Words of the table rows this module adds (the symbols and units as in the corner).
-_WORDS = {"distance": "distance", "precession_scale": "precession scale (1 = relativistic)",
-          "frame.east": "position of the mass, east, at the reference epoch",
-          "frame.north": "position of the mass, north, at the reference epoch",
-          "frame.motion_east": "proper motion of the mass, east",
-          "frame.motion_north": "proper motion of the mass, north",
-          "frame.velocity": "line-of-sight velocity of the mass"}
+def system_blocks(summary) -> dict:
+    """The summary's interval block of each of :data:`SYSTEM_SAMPLED`'s keys (None
+    where the fit has no such sampled quantity)."""
+    scale = (summary.get("relativity") or {}).get("precession_scale")
+    blocks = {"distance": summary.get("distance"),
+              "precession_scale": scale if isinstance(scale, dict) else None}
+    for term, block in (summary.get("frame") or {}).items():
+        if isinstance(block, dict):
+            blocks[f"frame.{term}"] = block
+    return {key: blocks.get(key) for key in SYSTEM_SAMPLED}
 
 
 def table_entries(summary) -> list:
     """Rows for the parameter tables: (key, words, symbol, LaTeX unit, unit text,
     interval block) of the distance, the precession scale and the frame terms."""
-    blocks = {"distance": summary.get("distance"),
-              "precession_scale": (summary.get("relativity") or {}).get("precession_scale")}
-    for term, block in (summary.get("frame") or {}).items():
-        blocks[f"frame.{term}"] = block
-    return [(key, _WORDS[key], _CORNER[key][0],
-             f"${_CORNER[key][1]}$" if _CORNER[key][1] else "", _CORNER[key][2],
-             blocks[key])
-            for key in _CORNER if isinstance(blocks.get(key), dict)]
+    return [(key, SYSTEM[key].words, SYSTEM[key].symbol,
+             f"${SYSTEM[key].unit_latex}$" if SYSTEM[key].unit_latex else "",
+             SYSTEM[key].unit_text, block)
+            for key, block in system_blocks(summary).items() if block is not None]

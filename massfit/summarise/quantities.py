@@ -14,7 +14,10 @@ from dataclasses import dataclass
 
 import astropy.units as u
 
-__all__ = ["Described", "CENTRAL", "COMPANION", "MASS_UNIT_KEYS", "MASS_UNIT_LABELS",
+from massfit.model.frame import FRAME_UNITS
+
+__all__ = ["Described", "CENTRAL", "COMPANION", "SYSTEM", "SYSTEM_SAMPLED",
+           "MASS_UNIT_KEYS", "MASS_UNIT_LABELS",
            "MASS_UNIT_ASTROPY", "described", "sample_key_of_mass_unit"]
 
 
@@ -109,6 +112,36 @@ COMPANION = {d.key: d for d in (
               u.deg, "deg", _DEG, plain="Om_eq"),
 )}
 
+_MAS = r"\mathrm{mas}"
+_MAS_YR = r"\mathrm{mas\,yr^{-1}}"
+
+#: The whole system's quantities beyond the central mass (where a fit has them): the
+#: distance, the precession scale, the frame terms (``frame.<term>``: the primary's
+#: place and motion in the data's frame) and the mass-distance correlation.
+SYSTEM = {d.key: d for d in (
+    Described("distance", "distance", "d", u.pc, "pc", r"\mathrm{pc}"),
+    Described("precession_scale", "precession scale (1 = relativistic)",
+              r"f_\mathrm{prec}", u.one, "", "", plain="f_prec"),
+    # the frame terms' units are the model's own (massfit.model.frame.FRAME_UNITS)
+    Described("frame.east", "position of the mass, east, at the reference epoch", "x_0",
+              u.Unit(FRAME_UNITS["east"]), FRAME_UNITS["east"], _MAS),
+    Described("frame.north", "position of the mass, north, at the reference epoch", "y_0",
+              u.Unit(FRAME_UNITS["north"]), FRAME_UNITS["north"], _MAS),
+    Described("frame.motion_east", "proper motion of the mass, east", r"\mu_x",
+              u.Unit(FRAME_UNITS["motion_east"]), FRAME_UNITS["motion_east"], _MAS_YR,
+              plain="mu_x"),
+    Described("frame.motion_north", "proper motion of the mass, north", r"\mu_y",
+              u.Unit(FRAME_UNITS["motion_north"]), FRAME_UNITS["motion_north"], _MAS_YR,
+              plain="mu_y"),
+    Described("frame.velocity", "line-of-sight velocity of the mass", r"v_{z,0}",
+              u.Unit(FRAME_UNITS["velocity"]), FRAME_UNITS["velocity"], _KM_S,
+              plain="v_z0"),
+    Described("mass_distance_correlation", "correlation of log mass and log distance",
+              r"\rho_{\ln M,\ln d}", u.one, "", "", plain="rho(ln M, ln d)"),
+)}
+#: Those of them with samples (interval blocks): the corner's and the tables' rows.
+SYSTEM_SAMPLED = tuple(key for key in SYSTEM if key != "mass_distance_correlation")
+
 #: Mass units offered for the central mass: the name users give -> its summary key.
 MASS_UNIT_KEYS = {"Msun": "central_mass_solar", "Mjup": "central_mass_jupiter",
                   "Mearth": "central_mass_earth", "kg": "central_mass"}
@@ -118,10 +151,12 @@ MASS_UNIT_ASTROPY = {name: CENTRAL[key].unit for name, key in MASS_UNIT_KEYS.ite
 
 
 def described(key: str) -> Described:
-    """The description of a summary key: central (``central_gm``) or a companion's
-    (``period`` or ``b.period``)."""
+    """The description of a summary key: central (``central_gm``), the system's
+    (``distance``, ``frame.east``) or a companion's (``period`` or ``b.period``)."""
     if key in CENTRAL:
         return CENTRAL[key]
+    if key in SYSTEM:
+        return SYSTEM[key]
     return COMPANION[key.rsplit(".", 1)[-1]]
 
 

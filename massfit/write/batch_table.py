@@ -9,7 +9,11 @@ from __future__ import annotations
 
 import os
 
+import astropy.units as u
 import numpy as np
+
+from massfit.summarise.dark_mass import system_blocks
+from massfit.summarise.quantities import SYSTEM, SYSTEM_SAMPLED
 
 __all__ = ["result_row", "failed_row", "not_run_row", "write_results_table",
            "RESULTS_FILE", "NOT_RUN"]
@@ -51,11 +55,25 @@ def result_row(job, summary: dict, seconds: float, *, seed=None) -> dict:
             row["companion"] = name
             _put_blocks(row, {"mass_function_msun": comp.get("mass_function"),
                               "minimum_mass_msun": comp.get("minimum_mass")})
+    _put_blocks(row, {_column(key): block for key, block in system_blocks(summary).items()})
+    correlation = (summary.get("mass_distance_correlation") or {}).get("log_mass_log_distance")
+    row["mass_distance_correlation"] = np.nan if correlation is None else float(correlation)
     diag = summary["diagnostics"]
     row["steps"] = int(diag["steps"])
     row["max_autocorr_steps"] = float(diag["max_autocorr_steps"])
     row["effective_samples"] = float(diag["effective_samples"])
     return row
+
+
+def _column(key):
+    """A summary key as a column prefix (``frame.east`` -> ``frame_east``)."""
+    return key.replace(".", "_")
+
+
+def _unit(key):
+    """The astropy unit string of a :data:`SYSTEM` quantity (None for a pure number)."""
+    unit = SYSTEM[key].unit
+    return None if unit == u.one else unit.to_string()
 
 
 def _put_blocks(row, blocks):
@@ -102,6 +120,11 @@ _COLUMNS = [
     ("measured", str, None), ("companion", str, None),
     *[(f"mass_function_msun_{p}", float, "solMass") for p in _INTERVAL_KEYS],
     *[(f"minimum_mass_msun_{p}", float, "solMass") for p in _INTERVAL_KEYS],
+    # The system's quantities where a fit has them (frame and relativistic terms, a
+    # sampled parallax), named and measured as summarise/quantities.py's SYSTEM says.
+    *[(f"{_column(key)}_{p}", float, _unit(key)) for key in SYSTEM_SAMPLED
+      for p in _INTERVAL_KEYS],
+    ("mass_distance_correlation", float, None),
     ("steps", int, None), ("max_autocorr_steps", float, None),
     ("effective_samples", float, None), ("seconds", float, "s"), ("seed", int, None),
     ("failure", str, None), ("note", str, None), ("output", str, None),
@@ -126,8 +149,12 @@ def write_results_table(out, jobs, rows):
                                  "central mass (median and 68.27 %/95.45 % interval "
                                  "bounds); measured says whether the data fixed it or, "
                                  "for velocities alone, only the mass function and "
-                                 "minimum mass of companion; failure says why a "
-                                 "system has no result")
+                                 "minimum mass of companion; distance_*, "
+                                 "precession_scale_* and frame_*_* (the mass's place "
+                                 "and motion in the data's frame) where the fit has "
+                                 "them, and mass_distance_correlation (of log mass and "
+                                 "log distance); failure says why a system has no "
+                                 "result")
     table.meta["systems_listed"] = len(jobs)
     table.meta["systems_done"] = len(listed)
     tmp = out / f".{RESULTS_FILE}.partial"
