@@ -119,7 +119,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     engine : {"emcee", "nested"}
         The sampler: emcee's ensemble (default), or nested sampling with dynesty
         (:mod:`massfit.sample.nested`), which weighs separated modes, each in its own
-        period box, and gives the evidence. The nested engine keeps no checkpoint.
+        period box, and gives the evidence. Its checkpoint keeps each finished run;
+        a resumed nested fit repeats only the run that was cut short.
     nested : NestedSettings, optional
         Live points, runs per box and the like for ``engine="nested"``; its seed is
         the fit's.
@@ -149,9 +150,6 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
                           key="sampler")
     if engine == "nested":
         require_dynesty()  # before any work: one line if it is missing
-    if engine == "nested" and (resume or checkpoint is not None):
-        # dynesty's own checkpoints are per run; a box-by-box resume is not built.
-        checkpoint, resume = None, False
     if settings.seed is None and not resume:
         # Draw the seed here so that the run record always holds one that repeats it.
         settings = replace(settings, seed=int(np.random.SeedSequence().generate_state(1)[0]))
@@ -186,7 +184,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     if engine == "nested":
         nested = replace(nested or NestedSettings(), seed=settings.seed)
         nested.check()
-        chain = run_nested(model, start, nested)
+        chain = run_nested(model, start, nested, checkpoint=checkpoint)
     else:
         # The sampler's own coordinates (short arcs as a position and velocity, other
         # orbits with sky-fixed angles); the choice depends only on the start, so a

@@ -441,3 +441,31 @@ def test_orbit_plot_is_legible_at_notebook_size(result):
 
     sizes = [t.get_fontsize() for t in fig.findobj(Text) if t.get_text().strip()]
     assert min(sizes) >= 6
+
+
+def test_weighed_modes_coloured_in_corner_and_orbits(result):
+    # A nested fit's weighed modes (chain.modes, chain.mode_members) colour the corner
+    # and the orbit plot by themselves, in the same colours, named with their
+    # probability; without them (an emcee fit) nothing changes.
+    from massfit.plot.style import MODE_COLOURS, mode_groups
+
+    assert mode_groups(result) == {}
+    period = result.samples["companions"]["Aster"]["period"]
+    short = period < np.median(period)
+    chain = result.chain
+    try:
+        chain.modes = [{"start_periods": {"Aster": float(np.median(period[short]))},
+                        "probability": 0.5, "probability_err": 0.04},
+                       {"start_periods": {"Aster": float(np.median(period[~short]))},
+                        "probability": 0.5, "probability_err": 0.04}]
+        chain.mode_members = [short, ~short]
+        fig = plots.corner_plot(result, parameters=["mass", "Aster.period"])
+        legend = [t.get_text() for ax in fig.axes if ax.get_legend()
+                  for t in ax.get_legend().get_texts()]
+        assert len(legend) == 2 and all("p = 0.50 \u00b1 0.04" in t for t in legend)
+        fig = plots.orbit_plot(result, n_tracks=30, residuals=False)
+        colours = {ln.get_color() for ax in fig.axes for ln in ax.lines
+                   if ln.get_gid() == "posterior-track"}
+        assert colours == set(MODE_COLOURS[:2])
+    finally:
+        del chain.modes, chain.mode_members

@@ -1,27 +1,34 @@
-"""The start's Laplace weights of period aliases against nested sampling, mode by mode.
+"""The weights of period aliases on a sparse yearly set: nested engine, importance
+sampling and the start's Laplace estimate, box by box.
 
 The invented yearly-sampled system of :func:`massfit.scenarios.examples.tamsin` has three
-aliases (about 305, 1825 and 166 days). Here each alias is integrated on its own by
-nested sampling (dynesty, an open library independent of massfit's start): the same
-likelihood (``OrbitModel.log_likelihood``) and the same default priors, with the
+aliases (about 305, 1825 and 166 days). Each alias is integrated on its own, with the
 period restricted to the alias's box (:func:`massfit.start.modes.period_box`), so that
 
-    Z_k = Z(box k) * P(box k),   P(box k) = prior probability of the box
-        = (log10 of the box's width) / (log10 of the prior's width)  (log-uniform P)
+    Z_k = Z(box k) * P(box k),   P(box k) = prior probability of the box,
 
-and the reference weights are Z_k / sum_j Z_j. Whole-range nested runs lose modes on
-such posteriors; one run per box does not. Every box is run twice with independent
-seeds, and the two must agree within their stated errors.
+and the weights are Z_k / sum_j Z_j. Two independent integrators:
 
-The mass marginalised over the modes is the mixture of the per-box posterior samples
-with those weights.
+- massfit's nested engine (:func:`massfit.sample.nested.nested_box`, dynesty), ``--runs``
+  independent runs per box with ``--live`` live points;
+- importance sampling, the reference: ``--draws`` draws per box from a heavy-tailed
+  proposal (Student t, 4 degrees of freedom, 1.5 times the covariance of the box's own
+  least-squares solution) and, as its check, from a wider one (2 degrees of freedom,
+  4 times the covariance). Both are unbiased for any proposal that covers the
+  posterior; the spread between them and their effective sample sizes say how well.
+
+ln Z is absolute for both: the importance sampling integrates the model's
+log-posterior, whose constant leaves out the normalisation of some priors; the
+difference (the proper prior's log-density less the model's, a constant for these
+priors) is added (:func:`prior_offset`).
 
 Usage::
 
-    PYTHONPATH=. python validation/alias_weights.py            # ~ several minutes
-    PYTHONPATH=. python validation/alias_weights.py --seeds 4 5
+    PYTHONPATH=. python validation/alias_weights.py --live 500 --runs 3   # ~ 20 min
+    PYTHONPATH=. python validation/alias_weights.py --laplace-seeds 20    # the weights'
+                                               # spread over noise realisations, ~2 min
 
-Writes ``validation/results/alias_weights.json``.
+Writes ``validation/results/alias_weights.json`` (and ``alias_weights_seeds.json``).
 """
 
 from __future__ import annotations
@@ -32,67 +39,60 @@ import time
 from pathlib import Path
 
 import numpy as np
+from scipy.special import logsumexp
 
 from massfit.model.orbit_model import OrbitModel
 from massfit.model.specs import SystemSpec
-from massfit.start.modes import MIN_WEIGHT, period_box
+from massfit.modechains import boxed_spec
 from massfit.priors import Fixed
+from massfit.sample.nested import NestedSettings, boxes_of, nested_box, weigh_boxes
 from massfit.scenarios.examples import tamsin
 from massfit.scenarios.simulate import read_back
+from massfit.start.modes import MIN_WEIGHT
 from massfit.start.search import find_start
 
 OUT = Path(__file__).parent / "results" / "alias_weights.json"
+SEEDS_OUT = Path(__file__).parent / "results" / "alias_weights_seeds.json"
+LEVELS = [0.02275, 0.15865, 0.5, 0.84135, 0.97725]
 
 
-def prior_transform(model, name, box):
-    """Unit cube -> the model's sampled coordinates, distributed as its prior (with the
-    period restricted to ``box``)."""
-    names = model.names
-    mass_prior = model.spec.central_mass
-    ecc_prior = model.companions[name].eccentricity
-    node_low, node_high = model.window(name, "node")
-    phase_low, phase_high = model.window(name, "phase")
-    log_box = np.log10(box)
-    log_mass = np.log10([mass_prior.low, mass_prior.high])
-    expected = ["central.log10_mass", f"{name}.log10_period", f"{name}.sqrt_e_cos_w",
-                f"{name}.sqrt_e_sin_w", f"{name}.cos_inc", f"{name}.node", f"{name}.phase"]
-    if names != expected:
-        raise SystemExit(f"this study expects the coordinates {expected}, not {names}")
-
-    def transform(u):
-        ecc = ecc_prior.low + u[2] * (ecc_prior.high - ecc_prior.low)
-        omega = 2 * np.pi * u[3]
-        return np.array([log_mass[0] + u[0] * (log_mass[1] - log_mass[0]),
-                         log_box[0] + u[1] * (log_box[1] - log_box[0]),
-                         np.sqrt(ecc) * np.cos(omega), np.sqrt(ecc) * np.sin(omega),
-                         -1.0 + 2.0 * u[4],
-                         node_low + u[5] * (node_high - node_low),
-                         phase_low + u[6] * (phase_high - phase_low)])
-    return transform
+def prior_offset(model, theta) -> float:
+    """ln(proper prior density) - (model's log_prob - log_likelihood) at ``theta``, for
+    the default priors of a one-companion astrometric model (log-uniform mass and
+    period, uniform eccentricity on the sqrt(e) disc, isotropic orientation, node
+    over its window, phase over a turn): each a constant density in the sampled
+    coordinates."""
+    spec = model.spec
+    comp = next(iter(model.companions.values()))
+    name = comp.name
+    proper = -(np.log(np.log10(spec.central_mass.high / spec.central_mass.low))
+               + np.log(np.log10(comp.period.high / comp.period.low))
+               + np.log(np.pi * comp.eccentricity.high) + np.log(2.0)
+               + np.log(model.node_width[name]) + np.log(2 * np.pi))
+    own = float(model.log_prob(theta[None])[0] - model.log_likelihood(theta[None])[0])
+    return float(proper - own)
 
 
-def nested_box(model, name, box, seed, nlive, dlogz=0.05):
-    """(ln Z of the box with its prior probability, its error, mass samples, weights)."""
-    import dynesty
+def importance(model, theta, covariance, box, rng, draws, scale, df):
+    """(ln Z of the box with its prior probability, its error, effective fraction)."""
+    from scipy.stats import multivariate_t
 
-    def log_like(theta):
-        value = model.log_likelihood(theta[None, :])[0]
-        return float(value) if np.isfinite(value) else -1e300
-
-    # Random walks from live points: dynesty's uniform draws within ellipsoids lose
-    # their efficiency on the narrow curved ridges of an orbit's posterior.
-    sampler = dynesty.NestedSampler(log_like, prior_transform(model, name, box),
-                                    model.n_dim, nlive=nlive, sample="rwalk",
-                                    rstate=np.random.default_rng(seed))
-    sampler.run_nested(dlogz=dlogz, print_progress=False)
-    res = sampler.results
-    print(f"  box {box[0]:.5g}-{box[1]:.5g} d, seed {seed}: ln Z {res.logz[-1]:.3f} "
-          f"+- {res.logzerr[-1]:.3f}", flush=True)
-    prior = model.companions[name].period
-    log_share = np.log(np.log(box[1] / box[0]) / np.log(prior.high / prior.low))
-    weights = np.exp(res.logwt - res.logz[-1])
-    masses = 10.0 ** res.samples[:, 0]
-    return float(res.logz[-1] + log_share), float(res.logzerr[-1]), masses, weights
+    col = model.column_of[f"{next(iter(model.companions))}.log10_period"]
+    low, high = np.log10(box)
+    model.recentre(theta)
+    proposal = multivariate_t(theta, scale * covariance, df=df, allow_singular=True)
+    parts = []
+    for _ in range(max(draws // 100_000, 1)):
+        x = proposal.rvs(size=min(draws, 100_000), random_state=rng)
+        log_w = model.log_prob(x) - proposal.logpdf(x)
+        log_w[(x[:, col] < low) | (x[:, col] > high)] = -np.inf
+        parts.append(log_w)
+    log_w = np.concatenate(parts)
+    log_z = float(logsumexp(log_w) - np.log(log_w.size))
+    ratio = np.exp(log_w - log_z)
+    err = float(np.std(ratio) / np.sqrt(log_w.size))  # relative error of Z ~ of ln Z
+    ess = float(np.sum(ratio) ** 2 / np.sum(ratio ** 2) / log_w.size)
+    return log_z + prior_offset(model, theta), err, ess
 
 
 def weighted_quantiles(x, w, q):
@@ -101,70 +101,105 @@ def weighted_quantiles(x, w, q):
     return np.interp(q, cdf, x[order])
 
 
-def study(seed, nlive, repeats=2, dlogz=0.05):
+def study(seed, live, runs, sample, draws):
     table, truth = tamsin(seed)
-    model = OrbitModel(read_back(table), SystemSpec(parallax=Fixed(25.0)))
+    observations = read_back(table)
+    model = OrbitModel(observations, SystemSpec(parallax=Fixed(25.0)))
     started = time.perf_counter()
     start = find_start(model)
     start_seconds = time.perf_counter() - started
-    modes = [m for m in start.candidate_modes if m["weight"] >= MIN_WEIGHT]
-    rows = []
-    for mode in modes:
-        others = [m for m in start.candidate_modes if m is not mode]
-        box = period_box(mode, others, "Tamsin")
-        runs = []
-        for rep in range(repeats):
-            runs.append(nested_box(model, "Tamsin", box, 1000 * seed + rep, nlive, dlogz))
-        rows.append({"period": mode["periods"]["Tamsin"], "box": box,
+    plan = boxes_of(start, model)
+    rng = np.random.default_rng(11)
+    settings = NestedSettings(live_points=live, sample=sample, runs=runs)
+    rows, nested_runs = [], []
+    for b, (mode, boxes) in enumerate(plan):
+        others = [c for c in start.candidate_modes if c is not mode]
+        box_start = find_start(OrbitModel(observations, boxed_spec(model, mode, others)))
+        box = boxes["Tamsin"]
+        reference = [importance(model, box_start.theta, box_start.covariance, box, rng,
+                                draws, scale, df) for scale, df in ((1.5, 4), (4.0, 2))]
+        model.recentre(start.theta)
+        box_runs = [nested_box(model, settings, 1000 * seed + 10 * b + r, boxes,
+                               mode.get("window_centres")) for r in range(runs)]
+        nested_runs.append(box_runs)
+        rows.append({"period": mode["periods"]["Tamsin"], "box": list(box),
                      "central_mass": mode["central_mass"], "laplace_weight": mode["weight"],
-                     "runs": runs})
-    out = {"seed": seed, "start_seconds": start_seconds, "modes": []}
-    for rep in range(repeats):
-        log_z = np.array([row["runs"][rep][0] for row in rows])
-        w = np.exp(log_z - log_z.max())
-        w /= w.sum()
-        for row, weight in zip(rows, w):
-            row.setdefault("nested_weights", []).append(float(weight))
-    for row in rows:
-        logz = [r[0] for r in row["runs"]]
-        err = [r[1] for r in row["runs"]]
-        out["modes"].append({"period": row["period"], "box": row["box"],
-                             "central_mass": row["central_mass"],
-                             "laplace_weight": row["laplace_weight"],
-                             "nested_weights": row["nested_weights"],
-                             "log_z": logz, "log_z_err": err})
-    # The mass over all modes (first run of each box), mixed by the nested weights.
-    masses = np.concatenate([row["runs"][0][2] for row in rows])
-    mix = np.concatenate([row["runs"][0][3] / row["runs"][0][3].sum() * wt
-                          for row, wt in zip(rows, [r["nested_weights"][0] for r in rows])])
-    q = weighted_quantiles(masses, mix, [0.02275, 0.15865, 0.5, 0.84135, 0.97725])
-    out["mass_over_modes_Msun"] = dict(zip(["lower_95", "lower_68", "median", "upper_68",
-                                            "upper_95"], map(float, q)))
-    out["truth_Msun"] = truth["central_mass_Msun"]
+                     "log_z_importance": [r[0] for r in reference],
+                     "log_z_importance_err": [r[1] for r in reference],
+                     "importance_effective_fraction": [r[2] for r in reference],
+                     "log_z_nested": [r["log_z"] + r["log_box_mass"] for r in box_runs],
+                     "log_z_nested_err": [r["log_z_err"] for r in box_runs],
+                     "nested_calls": [r["calls"] for r in box_runs],
+                     "nested_seconds": [r["seconds"] for r in box_runs]})
+        print(json.dumps(rows[-1]), flush=True)
+    weighed = weigh_boxes(nested_runs, seed=seed)
+    for row, box in zip(rows, weighed["boxes"]):
+        row.update(nested_weight=box["probability"], nested_weight_err=box["probability_err"],
+                   nested_weight_runs=box["probability_runs"], runs_agree=box["runs_agree"])
+    for j in range(2):
+        log_z = np.array([row["log_z_importance"][j] for row in rows])
+        for row, w in zip(rows, np.exp(log_z - logsumexp(log_z))):
+            row.setdefault("importance_weight", []).append(float(w))
+    masses, mix = [], []
+    for row, box_runs in zip(rows, nested_runs):
+        for r in box_runs:
+            masses.append(10.0 ** r["samples"][:, model.column_of["central.log10_mass"]])
+            mix.append(r["weights"] * row["nested_weight"] / len(box_runs))
+    q = weighted_quantiles(np.concatenate(masses), np.concatenate(mix), LEVELS)
+    return {"seed": seed, "live_points": live, "runs": runs, "sample": sample,
+            "importance_draws": draws, "start_seconds": start_seconds, "modes": rows,
+            "log_evidence": weighed["log_evidence"],
+            "log_evidence_err": weighed["log_evidence_err"],
+            "mass_over_modes_Msun": dict(zip(["lower_95", "lower_68", "median",
+                                              "upper_68", "upper_95"], map(float, q))),
+            "truth_Msun": truth["central_mass_Msun"]}
+
+
+def laplace_over_seeds(seeds):
+    """The start's modes and Laplace weights on other noise realisations of the set."""
+    out = []
+    for seed in seeds:
+        table, _ = tamsin(seed)
+        start = find_start(OrbitModel(read_back(table), SystemSpec(parallax=Fixed(25.0))))
+        heavy = [m for m in start.candidate_modes if m["weight"] >= MIN_WEIGHT]
+        out.append({"seed": seed, "modes": [
+            {"period": m["periods"]["Tamsin"], "central_mass": m["central_mass"],
+             "chi2": m["chi2"], "weight": m["weight"]} for m in heavy]})
+        print(seed, " ".join(f"{m['periods']['Tamsin']:.0f} d {m['weight']:.3f}"
+                             for m in heavy), flush=True)
     return out
 
 
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, nargs="+", default=[4])
-    parser.add_argument("--nlive", type=int, default=400)
-    parser.add_argument("--dlogz", type=float, default=0.05,
-                        help="dynesty's stopping tolerance on ln Z")
+    parser.add_argument("--live", type=int, default=500)
+    parser.add_argument("--runs", type=int, default=3)
+    parser.add_argument("--sample", default="rslice")
+    parser.add_argument("--draws", type=int, default=1_000_000)
+    parser.add_argument("--laplace-seeds", type=int, default=0,
+                        help="only the Laplace weights of this many noise realisations")
+    parser.add_argument("--out", default=None)
     args = parser.parse_args(argv)
-    results = [study(seed, args.nlive, dlogz=args.dlogz) for seed in args.seeds]
-    OUT.parent.mkdir(parents=True, exist_ok=True)
-    OUT.write_text(json.dumps(results, indent=2))
+    if args.laplace_seeds:
+        result = laplace_over_seeds(range(1, args.laplace_seeds + 1))
+        Path(args.out or SEEDS_OUT).write_text(json.dumps(result, indent=1))
+        return
+    results = [study(seed, args.live, args.runs, args.sample, args.draws)
+               for seed in args.seeds]
+    out = Path(args.out or OUT)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(json.dumps(results, indent=1))
     for res in results:
-        print(f"seed {res['seed']}: start {res['start_seconds']:.1f} s")
+        print(f"seed {res['seed']}: {res['live_points']} live points, {res['runs']} runs")
         for m in res["modes"]:
-            nested = " / ".join(f"{w:.3f}" for w in m["nested_weights"])
-            errs = " / ".join(f"{e:.2f}" for e in m["log_z_err"])
-            print(f"  P = {m['period']:8.2f} d  M = {m['central_mass']:.4g}  Laplace "
-                  f"{m['laplace_weight']:.3f}  nested {nested}  (ln Z errors {errs})")
+            print(f"  P = {m['period']:8.2f} d  Laplace {m['laplace_weight']:.3f}  "
+                  f"importance {' / '.join(f'{w:.3f}' for w in m['importance_weight'])}  "
+                  f"nested {m['nested_weight']:.3f} +- {m['nested_weight_err']:.3f} "
+                  f"(runs {' / '.join(f'{w:.3f}' for w in m['nested_weight_runs'])})")
         q = res["mass_over_modes_Msun"]
-        print(f"  mass over the modes: median {q['median']:.4g}, 68 % {q['lower_68']:.4g}"
-              f"..{q['upper_68']:.4g}, 95 % {q['lower_95']:.4g}..{q['upper_95']:.4g} "
-              f"M_sun (truth {res['truth_Msun']})")
+        print(f"  mass over the modes: median {q['median']:.4g}, 95 % {q['lower_95']:.4g}"
+              f"..{q['upper_95']:.4g} M_sun (truth {res['truth_Msun']})")
 
 
 if __name__ == "__main__":

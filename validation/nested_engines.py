@@ -54,7 +54,9 @@ def main(argv=None):
     for label in args.settings:
         settings = NestedSettings(live_points=args.live, **SETTINGS[label])
         for mode, boxes in plan:
-            runs = [nested_box(model, settings, 100 + r, boxes) for r in range(args.repeats)]
+            centres = None if mode is None else mode.get("window_centres")
+            runs = [nested_box(model, settings, 100 + r, boxes, centres)
+                    for r in range(args.repeats)]
             log_z = np.array([r["log_z"] + r["log_box_mass"] for r in runs])
             row = {"setting": label, "period": mode["periods"] if mode else None,
                    "log_z": log_z.tolist(),

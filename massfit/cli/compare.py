@@ -35,7 +35,8 @@ def add_parser(sub):
                         help="folder for comparison.json and comparison.txt")
     parser.add_argument("--seed", type=int, metavar="N", help="random seed (repeats the run)")
     parser.add_argument("--live-points", type=int, metavar="N",
-                        help="live points per nested run (default: each config's, 400)")
+                        help="live points per nested run (default: each config's, or 75 "
+                             "per sampled coordinate)")
     parser.add_argument("--force", action="store_true",
                         help="replace a comparison massfit wrote in the output folder")
     parser.add_argument("--quiet", action="store_true", help="print only the table")

@@ -61,7 +61,8 @@ def add_parser(sub):
                      "nested sampling with dynesty: each mode of the posterior weighed in "
                      "its own period box, and the evidence")
     fit.add_argument("--live-points", type=int, metavar="N",
-                     help="nested: live points per run (default 400)")
+                     help="nested: live points per run (default 75 per sampled "
+                          "coordinate: 525 for one companion and a known parallax)")
     fit.add_argument("--weigh-modes", action="store_true",
                      help="where the walkers missed modes of the posterior, sample each "
                           "in its own period box and give the mass over all of them "

@@ -86,7 +86,8 @@ instead)::
     seed = 1
     threads = 2                       # cores for the log-posterior (default: all)
     engine = "nested"                 # "emcee" (default) or "nested" (dynesty: evidence,
-    live_points = 400                 #   modes weighed, each in its own period box)
+    live_points = 525                 #   modes weighed, each in its own period box;
+                                      #   default 75 per sampled coordinate)
     runs_per_box = 2                  # nested: independent runs of each box (must agree)
 
     [output]
@@ -234,7 +235,7 @@ def _engine(raw, file):
     if engine not in ENGINES:
         raise ConfigError(f"unknown engine {engine!r}; accepted: {', '.join(ENGINES)}",
                           key="sampler.engine", file=file)
-    nested = NestedSettings(live_points=raw.pop("live_points", NestedSettings.live_points),
+    nested = NestedSettings(live_points=raw.pop("live_points", None),
                             runs=raw.pop("runs_per_box", NestedSettings.runs))
     try:
         nested.check(key_prefix="sampler.", file=file)

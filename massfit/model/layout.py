@@ -175,3 +175,33 @@ class ParameterLayout:
                 k = self.column_of[f"{name}.{kind}"]
                 self.centres[name][kind] = float(theta[k])
         return theta
+
+    def fold_into_windows(self, theta):
+        """Rows of ``theta`` (n, n_dim) moved into the current angle windows, the same
+        orbits: each phase by whole turns; where the node window is half a turn
+        (astrometry alone), the node by half turns, each half turn with omega + pi
+        (the sqrt(e) pair's signs flipped, or the omega coordinate moved) and the
+        phase (M0 + omega) + pi. For samples drawn while the windows were centred
+        elsewhere (nested sampling centres them on each mode)."""
+        theta = np.array(np.atleast_2d(theta), dtype=float)
+        for name in self.companions:
+            column = self.column_of
+            phase = theta[:, column[f"{name}.phase"]]
+            if not self.velocity_only:
+                node = theta[:, column[f"{name}.node"]]
+                low, _ = self.window(name, "node")
+                turns = np.floor((node - low) / self.node_width[name])
+                node -= turns * self.node_width[name]
+                if self.node_width[name] < TWO_PI:
+                    odd = np.mod(turns, 2.0) == 1.0
+                    phase += np.pi * turns
+                    if f"{name}.sqrt_e_cos_w" in column:
+                        for part in ("cos", "sin"):
+                            k = column[f"{name}.sqrt_e_{part}_w"]
+                            theta[odd, k] = -theta[odd, k]
+                    elif f"{name}.omega" in column:
+                        k = column[f"{name}.omega"]
+                        theta[odd, k] = np.mod(theta[odd, k] + 2.0 * np.pi, TWO_PI) - np.pi
+            low, high = self.window(name, "phase")
+            phase[:] = low + np.mod(phase - low, high - low)
+        return theta

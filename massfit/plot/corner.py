@@ -10,7 +10,8 @@ import astropy.units as u
 import numpy as np
 
 from massfit.errors import ConfigError
-from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, by_period, math_name, style
+from massfit.plot.style import (COLUMN_WIDTH, MODE_COLOURS, PAGE_WIDTH, by_period, math_name,
+                                mode_groups, style)
 from massfit.summarise.dark_mass import corner_defaults, corner_quantity
 from massfit.summarise.derived import MASS_UNIT_LABELS, best_mass_unit, interval
 from massfit.summarise.quantities import COMPANION, MASS_UNIT_ASTROPY, MASS_UNIT_KEYS
@@ -271,9 +272,10 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         Every sampled element of each companion (:data:`FULL_COMPANION_QUANTITIES`)
         instead of P, a, e and i; written as ``corner_full`` on request.
     groups : dict, optional
-        Label -> boolean array over the samples (e.g. the posterior's modes): each
-        group's samples are drawn over the plot in a colour of their own, with a
-        legend. Groups need not cover every sample.
+        Label -> boolean array over the samples: each group's samples are drawn over
+        the plot in a colour of their own, with a legend. Groups need not cover every
+        sample. By default the weighed modes of a nested fit
+        (:func:`massfit.plot.style.mode_groups`); ``{}`` for none.
     corner_kwargs : dict, optional
         Passed to :func:`corner.corner` last (overrides the choices above).
 
@@ -308,8 +310,7 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
             options["truths"] = [c.truth(truths.get(c.key)) for c in columns]
         options.update(corner_kwargs or {})
         corner.corner(data, **options)
-        if groups:
-            _overlay_groups(fig, data, groups)
+        _overlay_groups(fig, data, groups, result)
         _tidy_corner(fig, columns, width, show_titles)
     fig.massfit_parameters = list(parameters)
     return fig
@@ -352,11 +353,17 @@ def _shown_columns(result, parameters, mass_unit, companions, quantities, truths
     return columns
 
 
-def _overlay_groups(fig, data, groups):
+def _overlay_groups(fig, data, groups, result):
     """Each group's samples in its own colour over the corner plot (a colouring hook
-    for modes or any other split of the samples), and a legend of the groups."""
+    for modes or any other split of the samples), and a legend of the groups; the
+    result's weighed modes where ``groups`` is None."""
     from matplotlib.lines import Line2D
 
+    title = "groups"
+    if groups is None:
+        groups, title = mode_groups(result), "modes (nested sampling)"
+    if not groups:
+        return
     k = data.shape[1]
     axes = np.array(fig.axes).reshape(k, k)
     handles = []
@@ -365,7 +372,7 @@ def _overlay_groups(fig, data, groups):
         if mask.shape != (len(data),):
             raise ConfigError(f"group {label!r} has {mask.size} flags for {len(data)} "
                               "samples", key="groups")
-        colour = f"C{j % 10}"
+        colour = MODE_COLOURS[j % len(MODE_COLOURS)]
         for row in range(k):
             for col in range(row + 1):
                 ax = axes[row, col]
@@ -380,13 +387,15 @@ def _overlay_groups(fig, data, groups):
                 ax.set_xlim(limits[0])
                 if row != col:
                     ax.set_ylim(limits[1])
+        shown = label if title != "groups" else f"{label} ({mask.mean():.0%})"
         handles.append(Line2D([], [], color=colour, marker="o", ms=3, ls="none",
-                              label=f"{label} ({mask.mean():.0%})"))
-    # In the empty upper triangle just above the last diagonal panel, below the list
-    # of values that starts at the top right.
-    home = axes[max(k - 2, 0), -1]
-    home.legend(handles=handles, loc="lower right" if k > 1 else "upper left",
-                frameon=False, fontsize=7, title="groups", title_fontsize=7)
+                              label=shown))
+    # In the empty upper triangle, the second row's last panel (below the list of
+    # values that starts at the top right of the figure).
+    home = axes[1, -1] if k >= 3 else axes[0, -1]
+    home.legend(handles=handles, loc="upper right" if k > 1 else "upper left",
+                frameon=False, fontsize=7, title=title, title_fontsize=7,
+                borderaxespad=0.0)
 
 
 def _tidy_corner(fig, columns, width, show_titles):

@@ -14,8 +14,8 @@ import numpy as np
 from massfit.constants import AU_KM
 from massfit.errors import ConfigError
 from massfit.orbits import kepler
-from massfit.plot.style import (COLUMN_WIDTH, PAGE_WIDTH, TIME_CMAP, by_period, style, time_axis,
-                                time_cmap)
+from massfit.plot.style import (COLUMN_WIDTH, MODE_COLOURS, PAGE_WIDTH, TIME_CMAP, by_period,
+                                mode_groups, style, time_axis, time_cmap)
 from massfit.summarise.residuals import best_sample
 
 __all__ = ["orbit_plot", "error_ellipses", "SkyFrame", "observed_offsets"]
@@ -145,7 +145,9 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
     correlation included; separation/position-angle rows propagated into east and
     north) and are coloured by time; grey lines are orbits drawn from the posterior,
     the black line the best posterior sample, with an arrow for the sense of motion.
-    Under each sky panel, the observed minus the best model offsets against time.
+    Where a nested fit weighed several modes, each posterior orbit takes its mode's
+    colour (those of the corner plot), named in the legend. Under each sky panel,
+    the observed minus the best model offsets against time.
 
     Parameters
     ----------
@@ -180,6 +182,10 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
                        replace=False)
     theta_best = best_sample(result)
     draws = model.physical(chain.samples[picks])
+    groups = mode_groups(result)
+    track_colours = np.full(len(picks), "0.55", dtype=object)
+    for j, mask in enumerate(groups.values()):
+        track_colours[np.asarray(mask)[picks]] = MODE_COLOURS[j % len(MODE_COLOURS)]
     best = model.physical(theta_best[None, :])
     jd = model.observations.astrometry.time.tdb.jd
     axis = time_axis(model.observations, jd)
@@ -202,12 +208,12 @@ def orbit_plot(result, *, companions=None, n_tracks=40, seed=0, residuals=True,
                 res_axes[0].sharex(res_axes[1])
                 res_axes[1].set_xlabel(axis.label)
             _draw_companion(sky, res_axes, model, name, draws, best, theta_best,
-                            times, norm)
-        _orbit_keys(fig, norm, axis.label, len(picks))
+                            times, norm, track_colours)
+        _orbit_keys(fig, norm, axis.label, len(picks), groups)
     return fig
 
 
-def _orbit_keys(fig, norm, time_label, n_tracks):
+def _orbit_keys(fig, norm, time_label, n_tracks, groups=None):
     """The colour bar of time above the panels and the legend of what is drawn below."""
     import matplotlib.pyplot as plt
     from matplotlib.lines import Line2D
@@ -221,17 +227,22 @@ def _orbit_keys(fig, norm, time_label, n_tracks):
     handles = [Line2D([], [], color=time_cmap()(0.5), marker="o", ms=3, ls="none",
                       label=r"data (1$\sigma$ ellipse)"),
                Line2D([], [], color="k", lw=0.9, label="best orbit")]
-    if n_tracks:
+    if n_tracks and groups:
+        handles.extend(Line2D([], [], color=MODE_COLOURS[j % len(MODE_COLOURS)], lw=0.8,
+                              label=f"posterior orbits, {label}")
+                       for j, label in enumerate(groups))
+    elif n_tracks:
         handles.append(Line2D([], [], color="0.55", lw=0.6,
                               label=f"{n_tracks} orbits from the posterior"))
     handles.append(Line2D([], [], color="k", marker="+", ms=6, ls="none", label="primary"))
     wide = fig.get_size_inches()[0] > COLUMN_WIDTH  # one row on a page, two in a column
     fig.legend(handles=handles, loc="outside lower center",
-               ncol=len(handles) if wide else 2,
+               ncol=len(handles) if wide and not groups else 2,
                frameon=False, fontsize=7, handlelength=1.6, columnspacing=1.2)
 
 
-def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, norm):
+def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, norm,
+                    track_colours):
     data = model.observations.astrometry
     frame = SkyFrame(model, name, best)
     idx = frame.index
@@ -247,8 +258,9 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, 
     for k in range(len(orbit_d["period"])):
         te, tn = _track_points(orbit_d, k, sight=model.sight)
         scale = frame.track_factor(draws, k) * factor
-        sky.plot(te * scale, tn * scale, color="0.55", lw=0.4, alpha=0.35, zorder=1,
-                 gid="posterior-track")
+        grey = track_colours[k] == "0.55"
+        sky.plot(te * scale, tn * scale, color=track_colours[k], lw=0.4 if grey else 0.5,
+                 alpha=0.35 if grey else 0.6, zorder=1, gid="posterior-track")
     sky.plot(tb_e * factor, tb_n * factor, color="k", lw=0.9, zorder=3, gid="best-orbit",
              label="best orbit")
     _motion_arrow(sky, tb_e * factor, tb_n * factor)

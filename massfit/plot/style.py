@@ -15,7 +15,7 @@ from massfit.errors import ConfigError
 
 __all__ = ["COLUMN_WIDTH", "PAGE_WIDTH", "STYLE", "TIME_CMAP", "INSTRUMENT_MARKERS", "style",
            "save_figure", "math_name", "plain_log_ticks", "jyear", "time_cmap", "chosen",
-           "TimeAxis", "time_axis", "by_period"]
+           "TimeAxis", "time_axis", "by_period", "MODE_COLOURS", "mode_groups"]
 
 #: Width of one column of a two-column journal page, inches (ApJ, A&A and MNRAS all
 #: lie within 3.3-3.5 in; common practice), and of the full page.
@@ -183,3 +183,30 @@ def by_period(result, names) -> list:
         return float("inf") if value is None else float(value)
 
     return sorted(names, key=period)
+
+
+#: Colours of the posterior's weighed modes (and of any other groups of samples), in
+#: order; the same in every figure, none of them the time colour map's.
+MODE_COLOURS = ("C0", "C3", "C1", "C4", "C6", "C5", "C8", "C9")
+
+
+def mode_groups(result) -> dict:
+    """Label -> boolean mask over the samples, one per weighed mode of a nested fit
+    (``chain.modes``, ``chain.mode_members``), labelled by its periods and
+    probability; empty where the fit has fewer than two modes."""
+    chain = getattr(result, "chain", None)
+    modes = list(getattr(chain, "modes", []) or [])
+    members = list(getattr(chain, "mode_members", []) or [])
+    if len(modes) < 2 or len(members) != len(modes):
+        return {}
+    groups = {}
+    for k, (mode, mask) in enumerate(zip(modes, members)):
+        periods = mode.get("start_periods") or {}
+        where = ", ".join(f"P {p:.4g} d" for p in periods.values()) or f"mode {k + 1}"
+        where = where if len(periods) < 2 else ", ".join(
+            f"P({n}) {p:.4g} d" for n, p in periods.items())
+        chance = mode.get("probability")
+        label = where if chance is None else (
+            f"{where}: p = {chance:.2f} \u00b1 {mode.get('probability_err', 0.0):.2f}")
+        groups[label] = np.asarray(mask, dtype=bool)
+    return groups

@@ -196,6 +196,7 @@ def load_result(folder):
                   key_tau=diag.get("mass_autocorr_steps"),
                   key_column=(model.names.index("central.log10_mass")
                               if diag.get("mass_autocorr_steps") is not None else None))
+    chain.modes, chain.mode_members = _saved_modes(summary, model, theta)
     result = FitResult.__new__(FitResult)
     result.model = model
     result.chain = chain
@@ -209,6 +210,23 @@ def load_result(folder):
     result.record = record
     result.summary = summary
     return result
+
+
+def _saved_modes(summary, model, theta):
+    """A nested fit's weighed modes (summary.json ``weighed_modes``) and, per mode, which
+    of the saved samples lie in its period boxes: what the figures colour by mode."""
+    modes = [m for m in summary.get("weighed_modes", []) or []
+             if m.get("period_boxes_days")]
+    if len(modes) < 2:
+        return [], []
+    members = []
+    for mode in modes:
+        inside = np.ones(theta.shape[0], dtype=bool)
+        for name, (low, high) in mode["period_boxes_days"].items():
+            period = 10.0 ** theta[:, model.column_of[f"{name}.log10_period"]]
+            inside &= (period >= low) & (period <= high)
+        members.append(inside)
+    return modes, members
 
 
 #: Sample columns of results written before the samples took the summary's keys.

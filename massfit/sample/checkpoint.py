@@ -8,7 +8,10 @@ output folder, ``.NAME.partial``), which never looks like a result. It holds
   starting points, the time the run started, and a fingerprint of the data and the
   model, so that a checkpoint is never continued with other data;
 - the chain in blocks (``checkpoint.json.block-<first step>.npz``), each with the
-  random state after its last step.
+  random state after its last step; or, for the nested engine, each finished run of
+  each mode's box (``checkpoint.json.nested-<box>-<run>.npz``): a resumed nested fit
+  keeps them and repeats only the run that was cut short (its seed is fixed, so the
+  result is the one an uninterrupted run gives).
 
 Every file is written under a temporary name and renamed into place, so a write cut
 short (a full disc) never leaves a file that looks whole, and the blocks before it
@@ -46,7 +49,8 @@ import numpy as np
 from massfit.errors import ConfigError, WriteError, os_error_text
 
 __all__ = ["partial_dir", "checkpoint_path", "fingerprint", "write_meta", "read_meta",
-           "discard", "exclusive_run", "read_blocks", "saved_steps"]
+           "discard", "exclusive_run", "read_blocks", "saved_steps", "write_nested_run",
+           "read_nested_runs"]
 
 CHECKPOINT_FILE = "checkpoint.json"
 LOCK_FILE = "lock"
@@ -230,6 +234,38 @@ def _block_files(path: Path) -> list:
     return sorted(path.parent.glob(f"{path.name}.block-*.npz"))
 
 
+def _nested_files(path: Path) -> list:
+    return sorted(path.parent.glob(f"{path.name}.nested-*.npz"))
+
+
+def write_nested_run(path, box: int, run: int, record: dict) -> None:
+    """Save one finished nested run (:func:`massfit.sample.nested.nested_box`'s dict)
+    beside checkpoint ``path``."""
+    path = Path(path)
+    arrays = {k: np.asarray(v) for k, v in record.items() if isinstance(v, np.ndarray)}
+    facts = {k: v for k, v in record.items() if k not in arrays}
+    target = path.parent / f"{path.name}.nested-{box}-{run}.npz"
+    try:
+        _write_atomically(target, lambda h: np.savez(
+            h, facts=np.array(json.dumps(facts)), **arrays))
+    except OSError as exc:
+        raise write_failure(path, exc) from None
+
+
+def read_nested_runs(path) -> dict:
+    """(box, run) -> the nested runs saved beside checkpoint ``path`` (none: {})."""
+    path = Path(path)
+    out = {}
+    for file in _nested_files(path):
+        box, run = (int(x) for x in file.name.rsplit(".", 1)[0].split("nested-")[1]
+                    .split("-"))
+        with np.load(file) as data:
+            record = json.loads(str(data["facts"]))
+            record.update({k: np.array(data[k]) for k in data.files if k != "facts"})
+        out[(box, run)] = record
+    return out
+
+
 def write_meta(path, *, model, start, initial, settings, started_utc) -> None:
     """Start a checkpoint with everything needed to resume (not yet the chain).
 
@@ -251,7 +287,7 @@ def write_meta(path, *, model, start, initial, settings, started_utc) -> None:
         # Floats survive JSON exactly (shortest round-trip repr).
         "initial": np.asarray(initial, dtype=float).tolist(),
     }
-    for block in _block_files(path):
+    for block in _block_files(path) + _nested_files(path):
         block.unlink()
     try:
         _write_atomically(path, lambda h: h.write(json.dumps(meta).encode()))

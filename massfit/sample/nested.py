@@ -42,12 +42,17 @@ import numpy as np
 from massfit.sample.chain import Chain
 from massfit.start.modes import MIN_WEIGHT, period_box
 
-__all__ = ["NestedSettings", "NestedChain", "PriorTransform", "flat_box", "run_nested", "boxes_of",
-           "require_dynesty",
-           "nested_box", "weigh_boxes", "AGREEMENT_SIGMAS", "ENGINES"]
+__all__ = ["LIVE_PER_DIMENSION", "NestedSettings", "NestedChain", "PriorTransform", "flat_box",
+           "run_nested", "boxes_of", "require_dynesty", "nested_box", "weigh_boxes",
+           "periodic_columns", "AGREEMENT_SIGMAS", "ENGINES"]
 
 #: Two runs of one box agree when their ln Z differ by at most this many combined errors.
 AGREEMENT_SIGMAS = 3.0
+#: Live points per sampled coordinate where none are given: on the yearly-sampled
+#: Tamsin set (7 coordinates, 525 -> measured at 500) three runs per alias box agree
+#: within their stated ln Z errors (0.23) and the weights match importance sampling
+#: to 0.01 (docs/validation.md, "The nested sampler").
+LIVE_PER_DIMENSION = 75
 #: The engines ``--sampler`` accepts.
 ENGINES = ("emcee", "nested")
 #: Draws from the (weighted) posterior handed on as the result's samples.
@@ -63,8 +68,9 @@ class NestedSettings:
 
     Parameters
     ----------
-    live_points : int
-        dynesty's live points per run.
+    live_points : int or None
+        dynesty's live points per run; None: :data:`LIVE_PER_DIMENSION` per sampled
+        coordinate (:meth:`live_points_for`).
     sample : str
         dynesty's way of drawing a new live point: "rslice" (random slices) or
         "rwalk" (random walks), both from existing live points.
@@ -79,7 +85,7 @@ class NestedSettings:
     seed : int or None
     """
 
-    live_points: int = 400
+    live_points: int | None = None
     sample: str = "rslice"
     dynamic: bool = False
     runs: int = 2
@@ -87,12 +93,18 @@ class NestedSettings:
     seed: int | None = None
     max_calls: int | None = None
 
+    def live_points_for(self, n_dim: int) -> int:
+        """The live points of a run over ``n_dim`` coordinates."""
+        return int(self.live_points or LIVE_PER_DIMENSION * n_dim)
+
     def check(self, *, key_prefix: str = "", file=None) -> None:
         """Raise a ConfigError naming the first setting that cannot be used."""
         from massfit.errors import ConfigError
 
         for name, least in (("live_points", 20), ("runs", 1)):
             value = getattr(self, name)
+            if name == "live_points" and value is None:
+                continue
             if not isinstance(value, int) or isinstance(value, bool) or value < least:
                 raise ConfigError(f"{name} must be a whole number of at least {least}",
                                   key=f"{key_prefix}{name}", file=file)
@@ -230,11 +242,38 @@ class PriorTransform:
 
 
 def _log_likelihood(model):
+    """log p(data | theta) of one point, finite (dynesty's need): the compiled kernel
+    without the prior's densities where the model qualifies (about 10 us a call), else
+    the model's Python path (about 1 ms)."""
+    compiled = getattr(model, "compiled", None)
+    if compiled is not None and compiled.available:
+        kernel = compiled.likelihood_only()
+
+        def log_like(theta):
+            value = float(kernel(theta[None, :])[0])
+            return value if np.isfinite(value) else -1e300
+        return log_like
+
     def log_like(theta):
         value = float(model.log_likelihood(theta[None, :])[0])
         # dynesty wants a finite number; -1e300 is below any live point.
         return value if np.isfinite(value) else -1e300
     return log_like
+
+
+def periodic_columns(model) -> list:
+    """Columns whose window is a whole turn (phases, a free node with velocities, a
+    fixed-eccentricity omega): dynesty wraps them, so a mode across the window's
+    edge stays one piece. A half-turn node window (astrometry alone) is no period of
+    the likelihood by itself (it comes with omega + pi) and is not among them."""
+    out = []
+    for k, param in enumerate(model.parameters):
+        if param.transform != "window":
+            continue
+        body, which = param.name.rsplit(".", 1)
+        if which != "node" or model.node_width[body] >= TWO_PI:
+            out.append(k)
+    return out
 
 
 def require_dynesty():
@@ -253,21 +292,28 @@ def _sample(model, transform, settings, common):
     """dynesty's sampler, run to its stopping rule."""
     dynesty = require_dynesty()
 
+    common = dict(common, periodic=periodic_columns(model) or None)
+    live = settings.live_points_for(model.n_dim)
     if settings.dynamic:
         sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
                                                model.n_dim, **common)
-        sampler.run_nested(nlive_init=settings.live_points, dlogz_init=settings.dlogz,
+        sampler.run_nested(nlive_init=live, dlogz_init=settings.dlogz,
                            maxcall=settings.max_calls, print_progress=False)
     else:
         sampler = dynesty.NestedSampler(_log_likelihood(model), transform, model.n_dim,
-                                        nlive=settings.live_points, **common)
+                                        nlive=live, **common)
         sampler.run_nested(dlogz=settings.dlogz, maxcall=settings.max_calls,
                            print_progress=False)
     return sampler
 
 
-def nested_box(model, settings, seed, boxes=None) -> dict:
+def nested_box(model, settings, seed, boxes=None, centres=None) -> dict:
     """One dynesty run over the prior (with the periods of ``boxes`` cut to them).
+
+    ``centres`` (companion -> {"node", "phase"}, the mode's own) centres the angle
+    windows on the mode during the run, so that its posterior does not straddle a
+    window's edge (the start centres them on the heaviest mode only); the samples
+    are folded back into the model's windows after it.
 
     Returns
     -------
@@ -277,18 +323,27 @@ def nested_box(model, settings, seed, boxes=None) -> dict:
         ``iterations``, ``calls``, ``seconds``, ``efficiency`` (%), ``notes``
         (the improper priors' boxes, and dynesty's own warnings, once each).
     """
-    transform = PriorTransform(model, boxes)
-    rng = np.random.default_rng(seed)
-    started = time.perf_counter()
-    common = dict(sample=settings.sample, bound="multi", rstate=rng)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        sampler = _sample(model, transform, settings, common)
+    kept = {name: dict(c) for name, c in getattr(model, "centres", {}).items()}
+    try:
+        for name, centre in (centres or {}).items():
+            model.centres[name].update(centre)
+        transform = PriorTransform(model, boxes)
+        rng = np.random.default_rng(seed)
+        started = time.perf_counter()
+        common = dict(sample=settings.sample, bound="multi", rstate=rng)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            sampler = _sample(model, transform, settings, common)
+    finally:
+        for name, centre in kept.items():
+            model.centres[name].update(centre)
     res = sampler.results
     weights = np.exp(res.logwt - res.logz[-1])
     calls = int(np.sum(res.ncall))
     return {"log_z": float(res.logz[-1]), "log_z_err": float(res.logzerr[-1]),
-            "log_box_mass": transform.log_box_mass, "samples": np.asarray(res.samples),
+            "log_box_mass": transform.log_box_mass,
+            "samples": (model.fold_into_windows(np.asarray(res.samples)) if kept
+                        else np.asarray(res.samples)),
             "weights": weights / weights.sum(), "iterations": int(res.niter),
             "calls": calls, "seconds": time.perf_counter() - started,
             "efficiency": float(res.eff),
@@ -365,10 +420,16 @@ def _mixture(runs, probabilities, rng, draws=POSTERIOR_DRAWS):
 
 def boxes_of(start, model):
     """Period boxes of the start's weighty modes: list of (mode, {body: (lo, hi)}),
-    or [(None, {})] (one run over the whole prior) where there is one mode."""
+    or [(None, {})] (one run over the whole prior) where the start found one
+    solution alone. A mode's
+    ``window_centres`` (the start records them) centre its run's angle windows."""
     candidates = list(getattr(start, "candidate_modes", []) or [])
     heavy = [m for m in candidates if m["weight"] >= MIN_WEIGHT]
-    if len(heavy) < 2 or any(c.get("searched_with") for c in candidates):
+    # One heavy mode among lighter ones is boxed too: a run over the whole prior can
+    # settle in a light alias and never find a narrow heavy mode (measured on a sparse
+    # yearly set: the start's 863-d mode of weight 1.0 lost to its 629-d alias of
+    # weight 1e-5, chi^2 32.6 against 9.7; docs/validation.md).
+    if len(candidates) < 2 or any(c.get("searched_with") for c in candidates):
         return [(None, {})]
     out = []
     for mode in heavy:
@@ -381,22 +442,20 @@ def boxes_of(start, model):
     return out
 
 
-def run_nested(model, start, settings: NestedSettings) -> NestedChain:
+def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> NestedChain:
     """Nested sampling of the model's posterior, mode by mode where the start found
-    several (see the module notes); the result as a :class:`NestedChain`."""
+    several (see the module notes); the result as a :class:`NestedChain`.
+
+    With ``checkpoint`` (:mod:`massfit.sample.checkpoint`) each finished run is saved
+    beside it, and runs saved there by an interrupted fit with the same settings are
+    taken instead of repeated (each run's seed is fixed by the fit's).
+    """
     dynesty = require_dynesty()
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
     plan = boxes_of(start, model)
-    runs, k = [], 0
-    for mode, boxes in plan:
-        box_runs = []
-        for _ in range(settings.runs):
-            seed = int(seeds[k % 64].generate_state(1)[0])
-            box_runs.append(nested_box(model, settings, seed, boxes))
-            k += 1
-        runs.append(box_runs)
+    runs = _box_runs(model, settings, plan, seeds, checkpoint)
     weighed = weigh_boxes(runs, seed=settings.seed)
     probabilities = np.array([b["probability"] for b in weighed["boxes"]])
     rng = np.random.default_rng(seeds[-1])
@@ -411,9 +470,10 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
     flat = [r for box_runs in runs for r in box_runs]
     converged = (all(b["runs_agree"] for b in weighed["boxes"])
                  and all(r["reached_dlogz"] for r in flat))
+    live = settings.live_points_for(model.n_dim)
     engine = {"engine": "nested", "library": f"dynesty {dynesty.__version__}",
               "sampler": "dynamic" if settings.dynamic else "static",
-              "sample": settings.sample, "live_points": settings.live_points,
+              "sample": settings.sample, "live_points": live,
               "runs_per_box": settings.runs, "dlogz": settings.dlogz,
               "boxes": len(plan), "likelihood_calls": int(sum(r["calls"] for r in flat)),
               "convergence_basis": (
@@ -421,7 +481,7 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
                   f"agree within {AGREEMENT_SIGMAS:g} combined errors")}
     chain = NestedChain(
         samples=samples, log_prob=model.log_prob(samples),
-        steps=int(sum(r["iterations"] for r in flat)), walkers=settings.live_points,
+        steps=int(sum(r["iterations"] for r in flat)), walkers=live,
         tau=np.ones(model.n_dim), converged=bool(converged), burn_in=0, thin=1,
         acceptance_fraction=float(np.mean([r["efficiency"] for r in flat]) / 100.0),
         seconds=time.perf_counter() - started, tau_history=[],
@@ -431,6 +491,35 @@ def run_nested(model, start, settings: NestedSettings) -> NestedChain:
         engine=engine, notes=list(dict.fromkeys(n for r in flat for n in r["notes"])),
         kish_samples=kish)
     return chain
+
+
+def _box_runs(model, settings, plan, seeds, checkpoint):
+    """Per box, its runs: taken from the checkpoint where saved with the same seed,
+    live points, move and box, else run (and saved)."""
+    from massfit.sample.checkpoint import read_nested_runs, write_nested_run
+
+    saved = read_nested_runs(checkpoint) if checkpoint is not None else {}
+    live = settings.live_points_for(model.n_dim)
+    runs, k = [], 0
+    for b, (mode, boxes) in enumerate(plan):
+        box_runs = []
+        for r in range(settings.runs):
+            seed = int(seeds[k % 64].generate_state(1)[0])
+            k += 1
+            key = {"seed": seed, "live_points": live, "sample": settings.sample,
+                   "dynamic": settings.dynamic, "dlogz": settings.dlogz,
+                   "boxes": {n: list(v) for n, v in boxes.items()}}
+            old = saved.get((b, r))
+            if old is not None and old.get("key") == key:
+                box_runs.append(old)
+                continue
+            centres = None if mode is None else mode.get("window_centres")
+            record = dict(nested_box(model, settings, seed, boxes, centres), key=key)
+            if checkpoint is not None:
+                write_nested_run(checkpoint, b, r, record)
+            box_runs.append(record)
+        runs.append(box_runs)
+    return runs
 
 
 def _member_mask(model, samples, boxes):

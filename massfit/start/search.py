@@ -130,6 +130,7 @@ def _mode_record(model, joint, values):
     mass = phys["central_mass"]
     return {"periods": periods, "log10_period_sd": sd,
             "central_mass": None if mass is None else float(mass[0]),
+            "window_centres": {n: dict(c) for n, c in model.centres.items()},
             "chi2": float(chi2),
             "log_laplace_mass": laplace_log_mass(model.log_prob, theta, covariance,
                                                  widths=high - low),
