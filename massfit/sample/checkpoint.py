@@ -259,7 +259,7 @@ def read_nested_runs(path) -> dict:
     for file in _nested_files(path):
         box, run = (int(x) for x in file.name.rsplit(".", 1)[0].split("nested-")[1]
                     .split("-"))
-        with np.load(file) as data:
+        with np.load(file, allow_pickle=False) as data:
             record = json.loads(str(data["facts"]))
             record.update({k: np.array(data[k]) for k in data.files if k != "facts"})
         out[(box, run)] = record
