@@ -348,6 +348,7 @@ def _overlaps(cases):
     return problems
 
 
+@pytest.mark.slow  # 7 s: every figure drawn and measured
 def test_no_figure_has_overlapping_text(result):
     # Every text's drawn rectangle (rotation included) against every other text and
     # every other framed panel, after drawing with the Agg renderer: each figure of

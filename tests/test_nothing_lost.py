@@ -107,6 +107,7 @@ def test_the_working_folder_the_inputs_and_files_are_refused(work, out):
     assert _tree(work) == before
 
 
+@pytest.mark.slow  # 15 s; the default run keeps the refusal tests
 def test_force_replaces_only_the_files_massfit_wrote(work):
     first = _massfit("fit", "quill.ecsv", "--out", "res", "--no-plots", *TINY, cwd=work)
     assert first.returncode == 3, first.stderr  # 200 steps: not converged
@@ -135,6 +136,7 @@ def test_force_replaces_only_the_files_massfit_wrote(work):
 
 
 # ------------------------------------------------------------ numbers, figures
+@pytest.mark.slow  # 10 s: a whole CLI fit
 def test_a_fixed_parallax_keeps_the_result_and_draws_no_panel_for_it(tmp_path):
     from massfit.scenarios.simulate import write_scenario
 
@@ -151,7 +153,8 @@ def test_a_fixed_parallax_keeps_the_result_and_draws_no_panel_for_it(tmp_path):
     assert summary["parallax"]["lower_95"] == summary["parallax"]["upper_95"] == 25.0
 
 
-@pytest.mark.parametrize("broken, kept", [("orbits", "corner"), ("corner", "orbits")])
+@pytest.mark.parametrize("broken, kept", [
+    ("orbits", "corner"), pytest.param("corner", "orbits", marks=pytest.mark.slow)])
 def test_a_figure_that_fails_is_a_warning_and_the_numbers_are_kept(tmp_path, broken, kept):
     # On two cores the corner is drawn in a second process: a failure there is
     # reported the same way as one here.

@@ -59,6 +59,7 @@ def test_redraw_command_writes_the_chosen_figures(saved, tmp_path):
     assert (tmp_path / "orbits.svg").read_text().lstrip().startswith("<?xml")
 
 
+@pytest.mark.slow  # 7 s of drawing
 def test_redraw_by_default_draws_the_figures_the_fit_writes(saved, tmp_path):
     # Not every registered figure: none the data cannot fill (velocity figures for an
     # astrometric fit) and not the full corner, which is drawn only on request.
