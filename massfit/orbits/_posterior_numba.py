@@ -295,46 +295,56 @@ def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_paral
     ``angular_i`` = (mass column, parallax column) where the mass is sampled as
     log10(M plx^3) and the state vectors in angular units, else (-1, -1).
     """
-    n_walkers, n_dim = sampled.shape
-    n_rows = rows.shape[1]
-    for w in numba.prange(n_walkers):
-        s = sampled[w].copy()
-        log_angular = 0.0
-        if angular_i[0] >= 0:
-            # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
-            # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
-            plx = s[angular_i[1]]
-            if not plx > 0.0:
-                out[w] = -np.inf
-                continue
-            s[angular_i[0]] -= 3.0 * math.log10(plx)
-            for b in range(st_i.shape[0]):
-                for c in range(6):
-                    s[st_i[b, c]] /= plx
-                log_angular -= 6.0 * math.log(plx)
-        theta = s.copy()
-        log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
-        for b in range(st_i.shape[0]):
-            k = st_comp[b]
-            central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
-                              glob_f[GF_CENTRAL])
-            mass = _scaled(s, comp_i[k, C_MASS], comp_i[k, C_MASS_KIND],
-                           comp_f[k, F_MASS])
-            log_jac = _state(s, theta, st_i[b], st_f[b], GM_SUN * (central + mass), log_jac)
-        for j in range(n_dim):
-            if not math.isfinite(theta[j]):
-                log_jac = -np.inf
-        if not math.isfinite(log_jac):
-            out[w] = -np.inf
-            continue
-        lp = log_prior(theta, low, high, glob_f[GF_CONST], discs_i, discs_f, win_i, win_f,
-                       var_i, var_f)
-        if math.isfinite(lp):
-            east = np.empty(n_rows)
-            north = np.empty(n_rows)
-            chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
-                         vel, vel_i, inst_i, inst_f, east, north)
-            lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
-        lp = lp + log_jac
-        out[w] = lp if math.isfinite(lp) else -np.inf
+    for w in numba.prange(sampled.shape[0]):
+        out[w] = walker_log_posterior(
+            sampled[w], comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel,
+            vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i, var_f,
+            lon_i, lon_f, st_i, st_f, st_comp, angular_i)
 
+
+@numba.njit(**_jit)
+def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
+                         sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f,
+                         win_i, win_f, var_i, var_f, lon_i, lon_f, st_i, st_f, st_comp,
+                         angular_i):  # pragma: no cover - compiled
+    """The log-posterior of one walker's coordinates ``sampled`` (n_dim,), -inf outside
+    the support: :func:`log_posterior`'s work for one row, callable from other
+    compiled code (the sampler's compiled steps)."""
+    n_dim = sampled.shape[0]
+    n_rows = rows.shape[1]
+    s = sampled.copy()
+    log_angular = 0.0
+    if angular_i[0] >= 0:
+        # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
+        # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
+        plx = s[angular_i[1]]
+        if not plx > 0.0:
+            return -np.inf
+        s[angular_i[0]] -= 3.0 * math.log10(plx)
+        for b in range(st_i.shape[0]):
+            for c in range(6):
+                s[st_i[b, c]] /= plx
+            log_angular -= 6.0 * math.log(plx)
+    theta = s.copy()
+    log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
+    for b in range(st_i.shape[0]):
+        k = st_comp[b]
+        central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
+                          glob_f[GF_CENTRAL])
+        mass = _scaled(s, comp_i[k, C_MASS], comp_i[k, C_MASS_KIND], comp_f[k, F_MASS])
+        log_jac = _state(s, theta, st_i[b], st_f[b], GM_SUN * (central + mass), log_jac)
+    for j in range(n_dim):
+        if not math.isfinite(theta[j]):
+            log_jac = -np.inf
+    if not math.isfinite(log_jac):
+        return -np.inf
+    lp = log_prior(theta, low, high, glob_f[GF_CONST], discs_i, discs_f, win_i, win_f,
+                   var_i, var_f)
+    if math.isfinite(lp):
+        east = np.empty(n_rows)
+        north = np.empty(n_rows)
+        chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
+                     vel, vel_i, inst_i, inst_f, east, north)
+        lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
+    lp = lp + log_jac
+    return lp if math.isfinite(lp) else -np.inf
