@@ -270,9 +270,9 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
 
 
 
-def _moving_observer_moons(tmp_path):
-    """Two invented moons seen from an invented moving observer: (observations, the
-    moons, their true physical values as the model takes them)."""
+def _moving_observer_moons(tmp_path, epochs=8):
+    """Two invented moons seen from an invented moving observer, ``epochs`` each:
+    (observations, the moons, their true physical values as the model takes them)."""
     import astropy.units as u
 
     from massfit.model.orbit_model import OrbitModel
@@ -284,7 +284,8 @@ def _moving_observer_moons(tmp_path):
     observer = CircularPath(0.93, 330.0, 25.0, 5.0, 200.0, 2461000.5)
     moons = {"a": MoonOrbit(2.3, 0.01, 21.0, 40.0, 70.0, 2461001.0),
              "b": MoonOrbit(9.7, 0.03, 23.0, 150.0, 65.0, 2461003.0)}
-    times = {name: moon_times(2461000.5, 40.0, 8, seed=k) for k, name in enumerate(moons)}
+    times = {name: moon_times(2461000.5, 40.0, epochs, seed=k)
+             for k, name in enumerate(moons)}
     observe_moons(times, moons, 7.3e-4, planet, observer, error=2e-3 * u.arcsec,
                   seed=1).write(tmp_path / "m.ecsv")
     obs = read_observations(tmp_path / "m.ecsv")

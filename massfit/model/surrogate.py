@@ -39,13 +39,11 @@ import numpy as np
 from massfit.errors import ModelError
 from massfit.model.compiled_posterior import CompiledPosterior, why_not_compiled
 from massfit.orbits.dynamics import Keplerian
+from massfit.orbits.perturbed import SURROGATES
 
 __all__ = ["SURROGATES", "MIN_ESS_FRACTION", "LinearisedPosterior", "packed_values",
-           "surrogate_check", "mean_shift_bound"]
+           "surrogate_check", "mean_shift_bound", "why_not_linearised", "check_line"]
 
-#: What ``[dynamics] surrogate`` accepts: sample the integrated model itself, or the
-#: linearised surrogate with the exact check.
-SURROGATES = ("none", "linearised")
 #: The least effective sample size, as a fraction of the draws checked, for which the
 #: surrogate's posterior is taken as the exact one: every posterior mean then within
 #: 0.33 of its sd of the exact posterior's (:func:`mean_shift_bound`).
@@ -56,6 +54,24 @@ def mean_shift_bound(ess_fraction):
     """The largest shift of any posterior mean, in its posterior sd, between the
     sampled and the importance-weighted posterior: sd(w) = sqrt(1 / f - 1)."""
     return float(np.sqrt(max(1.0 / ess_fraction - 1.0, 0.0)))
+
+
+def why_not_linearised(model) -> str | None:
+    """Why ``model`` cannot be sampled through :class:`LinearisedPosterior` (a short
+    phrase), or None: its two-body part must be one the compiled kernel takes."""
+    return why_not_compiled(model, any_dynamics=True)
+
+
+def check_line(record) -> str:
+    """The report's line on the surrogate's last check (summary key ``surrogate``)."""
+    last = record["rounds"][-1]
+    return (f"  sampled through the linearised surrogate ({len(record['rounds'])} "
+            f"linearisation(s)); exact check of {last['draws']} draws: effective "
+            f"samples {100 * last['ess_fraction']:.1f} % (>= "
+            f"{100 * record['min_ess_fraction']:.0f} % needed), largest |delta chi2| "
+            f"{last['largest_abs_delta_chi2']:.3g}, largest error of a predicted value "
+            f"{last['largest_value_error_sigma']:.3g} sigma: "
+            + ("passed" if record["passed"] else "FAILED"))
 
 
 def packed_values(model, theta) -> np.ndarray:
@@ -103,11 +119,10 @@ class LinearisedPosterior(CompiledPosterior):
     """
 
     def __init__(self, model, theta0, steps):
-        reason = why_not_compiled(model, any_dynamics=True)
+        reason = why_not_linearised(model)
         if reason is not None:
-            raise ModelError(f"the linearised surrogate needs the compiled two-body "
-                             f"kernel, which does not take {reason}; set [dynamics] "
-                             f"surrogate = \"none\"")
+            raise ModelError(f"the linearised surrogate cannot take {reason}; set "
+                             f"[dynamics] surrogate = \"none\"")
         super().__init__(model)
         theta0 = np.asarray(theta0, dtype=float)
         n_dim = theta0.size
