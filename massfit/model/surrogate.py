@@ -149,7 +149,7 @@ class LinearisedPosterior(CompiledPosterior):
         # value); the companions' masses, which move a two-body orbit hardly at all,
         # stay at theta0's in the two-body part.
         kept = np.array([not self._companion_mass(model, name) for name in model.names])
-        errors = self._errors()
+        errors = self.errors()
         whiten = (1.0 / errors).reshape(-1)
         plain_w = slope_plain.reshape(n_dim, -1).T * whiten[:, None]
         exact_w = slope_exact.reshape(n_dim, -1).T * whiten[:, None]
@@ -165,14 +165,15 @@ class LinearisedPosterior(CompiledPosterior):
                        np.ascontiguousarray(base),
                        np.ascontiguousarray(np.moveaxis(rest, 0, -1)))
         self._cheap = cheap
-        self._polar = polar
+        #: Which packed rows are separation and position angle.
+        self.polar = polar
 
     @staticmethod
     def _companion_mass(model, name):
         body, kind = name.rsplit(".", 1) if "." in name else ("", name)
         return body in model.companions and kind in ("mass", "log10_mass")
 
-    def _errors(self):
+    def errors(self):
         """(2, rows): each packed value's error (rows 4 and 5 of the kernel's table)."""
         return self.rows[4:6]
 
@@ -261,7 +262,7 @@ def surrogate_check(model, surrogate, draws, *, detail=None) -> dict:
     chi2_delta = -2.0 * delta[good]
     picked = draws if detail is None else draws[:detail]
     error = np.abs(_wrapped(surrogate.values(picked) - packed_values(model, picked),
-                            surrogate._polar))
+                            surrogate.polar))
     fraction = ess / draws.shape[0]
     return {"draws": int(draws.shape[0]), "finite": int(np.sum(good)),
             "ess": float(ess), "ess_fraction": float(fraction),
@@ -269,5 +270,5 @@ def surrogate_check(model, surrogate, draws, *, detail=None) -> dict:
             "largest_abs_delta_chi2": float(np.max(np.abs(chi2_delta - np.mean(chi2_delta))))
             if chi2_delta.size else None,
             "delta_chi2_sd": float(np.std(chi2_delta)) if chi2_delta.size else None,
-            "largest_value_error_sigma": float(np.nanmax(error / surrogate._errors())),
+            "largest_value_error_sigma": float(np.nanmax(error / surrogate.errors())),
             "weights": weights, "passed": bool(fraction >= MIN_ESS_FRACTION)}
