@@ -74,7 +74,8 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
         first = k == 0
         chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(walkers), settings,
                             checkpoint=checkpoint if first else None,
-                            resume=resume and first, key=coordinates.mass_key())
+                            resume=resume and first, key=coordinates.mass_key(),
+                            compiled=coordinates.compiled_arguments())
         coordinates.restore(chain)
         cpu = time.process_time()
         size = min(CHECK_DRAWS, len(chain.samples))
