@@ -9,8 +9,10 @@ integrations per coordinate). The chain is then checked against the exact model:
 exp(ln p_exact - ln p_surrogate). Where the weights' effective sample size is below
 :data:`massfit.model.surrogate.MIN_ESS_FRACTION` of the draws, the surrogate is
 linearised again at the chain's median (steps of the chain's own spread) and the
-chain is run again from its last walkers, at most :data:`ROUNDS` times in all; a chain
-whose last check fails is not converged, whatever its autocorrelation time. The
+chain is run again from its last walkers, at most :data:`ROUNDS` times in all, but only
+after a chain that passed its autocorrelation test (an unconverged chain is reported
+as such at once); a chain whose last check fails is not converged, whatever its
+autocorrelation time. The
 summary's ``surrogate`` block gives every round's check and the central mass's median
 sampled and importance-weighted.
 
@@ -91,7 +93,9 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
                        "check_cpu_seconds": time.process_time() - cpu,
                        "central_mass_solar": _mass_medians(model, chain.samples, draws,
                                                            weights)})
-        if check["passed"]:
+        if check["passed"] or not chain.converged:
+            # Passed; or the chain itself is not converged, which a new linearisation
+            # would not mend (the fit is not converged either way).
             break
         theta0 = np.median(chain.samples, axis=0)
         steps = np.maximum(np.std(chain.samples, axis=0), 1e-12 * np.abs(theta0) + 1e-30)
