@@ -252,6 +252,10 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
     fixed = make_dynamics("n-body", steps_per_orbit=24)
     assert make_dynamics(fixed.label, **fixed.settings).describe() == fixed.describe()
     assert fixed.describe()["steps_per_orbit"] == 24 and "rtol" not in fixed.describe()
+    linear = make_dynamics("perturbed", j2=0.0138, equatorial_radius="58300 km",
+                           surrogate="linearised")
+    assert make_dynamics(linear.label, **linear.settings).describe()["surrogate"] == \
+        "linearised"
     for options, key in (({"steps_per_orbit": 4}, "dynamics.steps_per_orbit"),
                          ({"steps_per_orbit": 24.5}, "dynamics.steps_per_orbit"),
                          ({"steps_per_orbit": True}, "dynamics.steps_per_orbit"),
@@ -260,7 +264,8 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
                          ({"j2": 0.01}, "dynamics.equatorial_radius"),
                          ({"mutual_pulls": False}, "dynamics.mutual_pulls"),
                          ({"start_evaluations": 3}, "dynamics.start_evaluations"),
-                         ({"rtol": 0.1}, "dynamics.rtol")):
+                         ({"rtol": 0.1}, "dynamics.rtol"),
+                         ({"surrogate": "quadratic"}, "dynamics.surrogate")):
         with pytest.raises(ConfigError) as err:
             make_dynamics("perturbed", **options)
         assert err.value.key == key
