@@ -126,3 +126,4 @@ def test_fit_command_writes_figures_unless_told_not_to(binary_file, tmp_path, mo
     assert len(calls) == n_calls
     # The tables are written either way.
     assert (tmp_path / "b" / "parameters.tex").exists()
+

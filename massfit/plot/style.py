@@ -73,9 +73,14 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
     screen_dpi = fig.dpi
     if "png" in formats:
         fig.set_dpi(STYLE["savefig.dpi"])
+    engine = fig.get_layout_engine()
     try:
         fig.draw_without_rendering()
         box = fig.get_tightbbox(fig.canvas.get_renderer()).padded(0.03)
+        # The layout found once serves every format: a constrained layout is otherwise
+        # solved again for each file (half the tick work of a many-panel figure).
+        if engine is not None:
+            fig.set_layout_engine("none")
         paths = []
         for ext in formats:
             path = Path(f"{stem}.{ext}")
@@ -83,6 +88,8 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
                         dpi=STYLE["savefig.dpi"] if ext == "png" else None)
             paths.append(path)
     finally:
+        if engine is not None:
+            fig.set_layout_engine(engine)
         fig.set_dpi(screen_dpi)
     return paths
 
