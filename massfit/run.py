@@ -167,9 +167,9 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     surrogate, notes = _surrogate(model, engine)
     if surrogate and settings.walkers is None:
         # The surrogate makes a walker cheap; an ensemble of a few times the dimension
-        # mixes far better in the tens of correlated coordinates of a moon system
-        # (validation: on the real moons 4x the walkers gave ~4x the effective samples
-        # per CPU-second).
+        # mixes better in the tens of correlated coordinates of a moon system (on the
+        # real moons 240 walkers gave 3.6x the effective samples of 60 in the same
+        # sampling time; SamplerSettings.walkers).
         settings = replace(settings, walkers=SURROGATE_WALKERS_PER_DIMENSION * model.n_dim)
     resumed = None
     if resume:
