@@ -81,6 +81,22 @@ def test_prior_transform_draws_the_model_prior(tmp_path):
     assert blocks[1]["period"]["Tamsin"]["lower_95"] >= 600.0
     # Negative control: the period against a uniform (not log-uniform) prior fails.
     assert stats.ks_2samp(orbit["period"], Uniform(100.0, 3000.0).sample(rng, n)).pvalue < 1e-6
+    # The inverse map and the prior's density in the model's coordinates (used for the
+    # Laplace check of ln Z), against the change of variables written out by hand:
+    # log10 M and log10 P flat over their decades; the parallax normal; (sqrt e cos w,
+    # sqrt e sin w) = r (cos w, sin w) with e = r^2 uniform on [0, 0.8] and w uniform,
+    # dx dy = de dw / 2, so the density is 2 / (0.8 * 2 pi); cos i with i normal:
+    # p(i) / sin i; the node and phase flat over their windows (pi, 2 pi).
+    for u in rng.uniform(0.05, 0.95, size=(3, model.n_dim)):
+        point = transform(u)
+        assert np.allclose(transform.inverse(point), u, atol=1e-9)
+        inc = np.arccos(point[5])
+        by_hand = (-np.log(2.0) - np.log(np.log10(30.0))
+                   + spec.parallax.log_pdf(np.array([point[1]]))[0]
+                   + np.log(2.0 / (0.8 * 2 * np.pi))
+                   + spec.companions["Tamsin"].inclination.log_pdf(np.array([inc]))[0]
+                   - np.log(np.sin(inc)) - np.log(np.pi) - np.log(2 * np.pi))
+        assert transform.log_density(point) == pytest.approx(by_hand, abs=1e-5)
 
 
 def test_evidence_of_a_linear_gaussian_model():

@@ -40,7 +40,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from massfit.sample.chain import Chain
-from massfit.start.modes import MIN_WEIGHT, period_box
+from massfit.sample.nested_boxes import (EDGE_LIMIT, MAX_WIDENINGS, WIDEN, boxes_of,
+                                         edge_weight,
+                                         laplace_log_evidence, peak_margin)
 
 __all__ = ["LIVE_PER_DIMENSION", "NestedSettings", "NestedChain", "PriorTransform", "flat_box",
            "run_nested", "boxes_of", "require_dynesty", "nested_box", "weigh_boxes",
@@ -221,6 +223,39 @@ class PriorTransform:
         outer = np.log10 if kind == "log10" else None
         return ("quantile", prior, lo, hi, outer)
 
+    def inverse(self, theta):
+        """The unit-cube point that :meth:`__call__` maps to ``theta``."""
+        theta = np.asarray(theta, dtype=float)
+        u = np.empty(theta.size)
+        for k, how in ((k, how) for k, how in enumerate(self._maps) if how is not None):
+            kind = how[0]
+            if kind == "disc":
+                x, y = theta[k], theta[how[2]]
+                u[k] = float(how[1].cdf(x * x + y * y))
+                u[how[2]] = (np.arctan2(y, x) + np.pi) / TWO_PI
+                continue
+            if kind == "linear":
+                u[k] = (theta[k] - how[1]) / (how[2] - how[1])
+                continue
+            _, prior, lo, hi, outer = how
+            value = (theta[k] if outer is None else 10.0 ** theta[k]
+                     if outer is np.log10 else np.arccos(np.clip(theta[k], -1, 1)))
+            u[k] = (float(prior.cdf(value)) - lo) / (hi - lo)
+        return u
+
+    def log_density(self, theta, step=1e-6) -> float:
+        """ln of the (proper) prior density at ``theta`` in the model's coordinates:
+        -ln |det d theta / d u|, the Jacobian by central differences on the cube."""
+        u = np.clip(self.inverse(theta), 2 * step, 1 - 2 * step)
+        jac = np.empty((u.size, u.size))
+        for j in range(u.size):
+            up, down = u.copy(), u.copy()
+            up[j] += step
+            down[j] -= step
+            jac[:, j] = (self(up) - self(down)) / (2 * step)
+        sign, log_det = np.linalg.slogdet(jac)
+        return -float(log_det) if sign != 0 else -np.inf
+
     def __call__(self, u):
         u = np.asarray(u, dtype=float)
         theta = np.empty(u.size)
@@ -345,6 +380,7 @@ def nested_box(model, settings, seed, boxes=None, centres=None) -> dict:
             "samples": (model.fold_into_windows(np.asarray(res.samples)) if kept
                         else np.asarray(res.samples)),
             "weights": weights / weights.sum(), "iterations": int(res.niter),
+            "max_log_like": float(np.max(res.logl)),
             "calls": calls, "seconds": time.perf_counter() - started,
             "efficiency": float(res.eff),
             "reached_dlogz": settings.max_calls is None or calls < settings.max_calls,
@@ -418,30 +454,6 @@ def _mixture(runs, probabilities, rng, draws=POSTERIOR_DRAWS):
     return np.concatenate(parts), 1.0 / squares
 
 
-def boxes_of(start, model):
-    """Period boxes of the start's weighty modes: list of (mode, {body: (lo, hi)}),
-    or [(None, {})] (one run over the whole prior) where the start found one
-    solution alone. A mode's
-    ``window_centres`` (the start records them) centre its run's angle windows."""
-    candidates = list(getattr(start, "candidate_modes", []) or [])
-    heavy = [m for m in candidates if m["weight"] >= MIN_WEIGHT]
-    # One heavy mode among lighter ones is boxed too: a run over the whole prior can
-    # settle in a light alias and never find a narrow heavy mode (measured on a sparse
-    # yearly set: the start's 863-d mode of weight 1.0 lost to its 629-d alias of
-    # weight 1e-5, chi^2 32.6 against 9.7; docs/validation.md).
-    if len(candidates) < 2 or any(c.get("searched_with") for c in candidates):
-        return [(None, {})]
-    out = []
-    for mode in heavy:
-        others = [c for c in candidates if c is not mode]
-        boxes = {}
-        for name in mode["periods"]:
-            if not model.companions[name].period.is_fixed:
-                boxes[name] = period_box(mode, others, name)
-        out.append((mode, boxes))
-    return out
-
-
 def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> NestedChain:
     """Nested sampling of the model's posterior, mode by mode where the start found
     several (see the module notes); the result as a :class:`NestedChain`.
@@ -454,8 +466,7 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
-    plan = boxes_of(start, model)
-    runs = _box_runs(model, settings, plan, seeds, checkpoint)
+    plan, runs, box_notes = _planned_runs(model, start, settings, seeds, checkpoint)
     weighed = weigh_boxes(runs, seed=settings.seed)
     probabilities = np.array([b["probability"] for b in weighed["boxes"]])
     rng = np.random.default_rng(seeds[-1])
@@ -468,8 +479,9 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
             entry["laplace_weight"] = mode["weight"]
         modes.append(entry)
     flat = [r for box_runs in runs for r in box_runs]
+    check = _start_check(model, start, plan, runs)
     converged = (all(b["runs_agree"] for b in weighed["boxes"])
-                 and all(r["reached_dlogz"] for r in flat))
+                 and all(r["reached_dlogz"] for r in flat) and check["peak_reached"])
     live = settings.live_points_for(model.n_dim)
     engine = {"engine": "nested", "library": f"dynesty {dynesty.__version__}",
               "sampler": "dynamic" if settings.dynamic else "static",
@@ -486,11 +498,62 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
         acceptance_fraction=float(np.mean([r["efficiency"] for r in flat]) / 100.0),
         seconds=time.perf_counter() - started, tau_history=[],
         evidence={"log_evidence": weighed["log_evidence"],
-                  "log_evidence_err": weighed["log_evidence_err"]},
+                  "log_evidence_err": weighed["log_evidence_err"], **check},
         modes=modes, mode_members=[_member_mask(model, samples, b) for _, b in plan],
-        engine=engine, notes=list(dict.fromkeys(n for r in flat for n in r["notes"])),
+        engine=engine, notes=list(dict.fromkeys(
+            box_notes + [n for r in flat for n in r["notes"]] + check.pop("notes"))),
         kish_samples=kish)
     return chain
+
+
+def _planned_runs(model, start, settings, seeds, checkpoint):
+    """The boxes and their runs. A single solution's box whose posterior reaches its
+    edges is widened and run again (:mod:`massfit.sample.nested_boxes`), at last
+    replaced by the whole prior; the notes say so."""
+    notes, factor = [], 1.0
+    for widening in range(MAX_WIDENINGS + 2):
+        plan = boxes_of(start, model, factor)
+        if widening > MAX_WIDENINGS:
+            plan = [(None, {})]
+        runs = _box_runs(model, settings, plan, seeds, checkpoint)
+        mode, boxes = plan[0]
+        if len(plan) > 1 or mode is not None or not boxes:
+            return plan, runs, notes
+        share = edge_weight(model, runs[0], boxes)
+        if share <= EDGE_LIMIT:
+            return plan, runs, notes
+        text = ", ".join(f"{n} {lo:.8g}-{hi:.8g} d" for n, (lo, hi) in boxes.items())
+        notes.append(f"the period box about the start's solution ({text}) held "
+                     f"{share:.2g} of the posterior near its edges: "
+                     + (f"widened {WIDEN:g} times" if widening < MAX_WIDENINGS
+                        else "the whole prior used instead"))
+        factor *= WIDEN
+    raise AssertionError("unreachable")
+
+
+def _start_check(model, start, plan, runs) -> dict:
+    """The runs against the start's least-squares solution: the Laplace ln Z about it
+    and whether the box holding it reached its likelihood (see
+    :mod:`massfit.sample.nested_boxes`)."""
+    if getattr(start, "theta", None) is None:
+        return {"peak_reached": True, "notes": []}
+    j = next((b for b, (mode, _) in enumerate(plan)
+              if mode is None or mode.get("started")), 0)
+    # (runs saved by an older version carry no best ln L: not checked then)
+    best = max(r.get("max_log_like", np.inf) for r in runs[j])
+    own = float(model.log_likelihood(np.asarray(start.theta, dtype=float)[None, :])[0])
+    margin = peak_margin(model.n_dim)
+    reached = bool(not np.isfinite(own) or best >= own - margin)
+    best = best if np.isfinite(best) else None
+    notes = [] if reached else [
+        f"the nested runs' best ln L ({best:.6g}) stayed {own - best:.3g} below the "
+        f"start's least-squares solution ({own:.6g}; allowed {margin:g}): they did not "
+        "find the posterior's peak, so ln Z and the weights are not measured"]
+    return {"laplace_log_evidence": laplace_log_evidence(model, start, PriorTransform(model)),
+            "laplace_basis": ("Laplace approximation about the start's least-squares "
+                              "solution, the proper prior's density included"),
+            "start_log_likelihood": own if np.isfinite(own) else None,
+            "best_log_likelihood": best, "peak_reached": reached, "notes": notes}
 
 
 def _box_runs(model, settings, plan, seeds, checkpoint):
