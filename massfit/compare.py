@@ -21,14 +21,12 @@ from pathlib import Path
 import numpy as np
 
 from massfit.errors import ConfigError
+from massfit.summarise.adequacy import KASS_RAFTERY, evidence_words, with_evidence
 from massfit.summarise.derived import interval
 from massfit.run import fit
 
 __all__ = ["compare_models", "Comparison", "KASS_RAFTERY"]
 
-#: ln B thresholds and their words (Kass & Raftery 1995, from memory; on ln B = 2 ln B / 2).
-KASS_RAFTERY = ((5.0, "very strong"), (3.0, "strong"), (1.0, "positive"),
-                (0.0, "not worth more than a bare mention"))
 #: Draws of the mixture of the models' central masses.
 AVERAGE_DRAWS = 40_000
 
@@ -101,10 +99,16 @@ class Comparison:
                 "log_bayes_factor_err": float(np.hypot(err[j], err[best])) if j != best
                 else 0.0,
                 "probability": float(prob[j]), "probability_err": float(shares[:, j].std()),
-                "evidence_against_it": None if j == best else _words(-log_b),
+                "evidence_against_it": None if j == best else evidence_words(-log_b),
                 "central_mass_solar": summary.get("central_mass_solar"),
                 "converged": bool(summary["converged"]),
                 "fit_quality": summary["fit_quality"]["verdict"]}
+        # Each model's adequacy block now judged by the evidence (it says so).
+        for label in labels:
+            summary = self.results[label].summary
+            if summary.get("adequacy"):
+                summary["adequacy"] = with_evidence(summary["adequacy"], label, models)
+                models[label]["adequacy_verdicts"] = list(summary["adequacy"]["verdicts"])
         counts = rng.multinomial(AVERAGE_DRAWS, prob)
         mixture = [rng.choice(self.results[k].samples["central_mass_solar"], size=n)
                    for k, n in zip(labels, counts)
@@ -136,6 +140,8 @@ class Comparison:
             if m["evidence_against_it"] is not None:
                 lines.append(f"  against {label}: {m['evidence_against_it']} evidence "
                              f"for {s['best']}")
+        for label, m in s["models"].items():
+            lines += [f"  adequacy of {label}: {text}" for text in m.get("adequacy_verdicts", [])]
         avg = s["central_mass_solar_averaged"]
         if avg is not None:
             lines.append(f"central mass averaged over the models: {avg['median']:.5g} M_sun "
@@ -153,8 +159,3 @@ class Comparison:
             write_json(tmp / "comparison.json", self.summary)
             (tmp / "comparison.txt").write_text(self.report() + "\n")
         return out
-
-
-def _words(log_b):
-    """Kass & Raftery's words for ln B (of the better model over the other)."""
-    return next(words for limit, words in KASS_RAFTERY if log_b >= limit)
