@@ -5,7 +5,8 @@ set with its parallax sampled, velocities alone, and each at 10x the rows) and i
 this one process:
 
 * **massfit** (now): the sampler to convergence from the start's walkers, with the
-  compiled log-posterior where the model qualifies and the cheap convergence checks;
+  compiled log-posterior where the model qualifies, its steps taken in compiled code
+  (massfit.sample.steps: emcee's chain to the bit) and the cheap convergence checks;
   CPU time of the sampling, effective samples of the key coordinate from its chain.
 * **before**: the same chain on the Python path (the same numbers: tested), its cost a
   step measured on ``BEFORE_STEPS`` steps from the same walkers, plus the plain
@@ -101,8 +102,10 @@ def measure(name, obs, spec, seed=1):
     # Compile before timing (numba's first call per process, or a cold cache).
     coordinates.log_prob(sampled)
     coordinates.log_prob_python(sampled)
+    compiled = coordinates.compiled_arguments()
     chain, ours_cpu = _cpu(lambda: run_sampler(coordinates.log_prob, sampled, settings,
-                                               key=coordinates.mass_key()))
+                                               key=coordinates.mass_key(),
+                                               compiled=compiled))
     ess = chain.effective_samples(k)  # of the key quantity itself (key_tau where sampled
     tau_key = float(chain.key_tau if chain.key_tau is not None else chain.tau[k])  # apart)
 

@@ -52,7 +52,8 @@ def run(report, threads=None):
     initial = start.walkers(model, settings.n_walkers(model.n_dim), np.random.default_rng(1))
     coordinates = SamplerCoordinates.for_start(model, start.theta)
     chain = clock("sampling", lambda: coordinates.restore(run_sampler(
-        coordinates.log_prob, coordinates.to_sampled(initial), settings)))
+        coordinates.log_prob, coordinates.to_sampled(initial), settings,
+        key=coordinates.mass_key(), compiled=coordinates.compiled_arguments())))
     result = clock("result (summary, mode and prior checks)",
                    lambda: assemble_result(model, chain, start, settings))
     clock("summary text", lambda: result.report())

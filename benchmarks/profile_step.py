@@ -39,7 +39,8 @@ def main(steps=3000):
     profile = cProfile.Profile(time.process_time)
     cpu = time.process_time()
     profile.enable()
-    chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings)
+    chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial), settings,
+                        compiled=coordinates.compiled_arguments())
     profile.disable()
     cpu = time.process_time() - cpu
     print(f"sampling: {cpu:.2f} s CPU for {chain.steps} steps, "

@@ -192,7 +192,8 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         coordinates = SamplerCoordinates.for_start(model, start.theta)
         chain = run_sampler(coordinates.log_prob, coordinates.to_sampled(initial),
                             settings, checkpoint=checkpoint, resume=resume,
-                            key=coordinates.mass_key())
+                            key=coordinates.mass_key(),
+                            compiled=coordinates.compiled_arguments())
         coordinates.restore(chain)
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),

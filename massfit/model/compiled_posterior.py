@@ -27,6 +27,7 @@ import copy
 import dataclasses
 import os
 import threading
+from typing import NamedTuple
 
 import numpy as np
 
@@ -86,6 +87,14 @@ def compiled_posterior(model):
     if why_not_compiled(model) is not None:
         return None
     return CompiledPosterior(model)
+
+
+class KernelTables(NamedTuple):
+    """The compiled log-posterior's tables (after a walker's coordinates) and the rows
+    one walker's evaluation reads."""
+
+    tables: tuple
+    work_per_walker: int
 
 
 class CompiledPosterior:
@@ -248,6 +257,25 @@ class CompiledPosterior:
             self._window_key = key
         return self._windows
 
+    def kernel_tables(self, change=None, *, window_key=None) -> KernelTables:
+        """:meth:`arguments` with the work of one walker's evaluation, for compiled
+        code that calls ``walker_log_posterior`` itself."""
+        return KernelTables(self.arguments(change, window_key=window_key),
+                            self.work_per_walker)
+
+    def arguments(self, change=None, *, window_key=None) -> tuple:
+        """The kernel's tables after the coordinates: what
+        ``_posterior_numba.log_posterior`` takes after ``(sampled, out)`` and
+        ``walker_log_posterior`` after one walker's coordinates. ``change`` and
+        ``window_key`` as in :meth:`__call__`."""
+        if change is None:
+            change = _NO_CHANGE
+        win_i, win_f = self.windows(window_key)
+        return (self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
+                self.uses_parallax, self.sight, self.vel, self.vel_i, self.inst_i,
+                self.inst_f, self.low, self.high, self.discs_i, self.discs_f, win_i, win_f,
+                self.var_i, self.var_f, *change)
+
     def __call__(self, sampled, change=None, *, window_key=None):
         """Log-posterior of each row of ``sampled`` (n, n_dim), -inf outside the support.
 
@@ -257,17 +285,16 @@ class CompiledPosterior:
         None for the model's own coordinates.
         """
         sampled = np.ascontiguousarray(np.atleast_2d(sampled), dtype=float)
-        if change is None:
-            change = _NO_CHANGE
-        win_i, win_f = self.windows(window_key)
         out = np.empty(sampled.shape[0])
-        _use_threads(sampled.shape[0] * (self.rows.shape[1] + self.vel.shape[1]))
+        _use_threads(sampled.shape[0] * self.work_per_walker)
         kepler.posterior_kernel.log_posterior(
-            sampled, out, self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
-            self.uses_parallax, self.sight, self.vel, self.vel_i, self.inst_i, self.inst_f, self.low,
-            self.high, self.discs_i, self.discs_f, win_i, win_f, self.var_i, self.var_f,
-            *change)
+            sampled, out, *self.arguments(change, window_key=window_key))
         return out
+
+    @property
+    def work_per_walker(self) -> int:
+        """Rows one walker's evaluation reads (what decides the threads' worth)."""
+        return int(self.rows.shape[1] + self.vel.shape[1])
 
 
 _NO_CHANGE = (np.zeros((0, 6), dtype=np.int64), np.zeros((0, 3)),
@@ -336,9 +363,14 @@ def on_threads(log_prob, requested=None):
 
 
 def _use_threads(work):
+    use_threads(getattr(_requested, "count", None), work)
+
+
+def use_threads(requested, work):
+    """Set numba's threads for the calling thread as :func:`thread_count` decides."""
     # numba's thread count belongs to the calling thread: set it where it changes
     # (setting it costs more than the rest of this function).
-    count = thread_count(getattr(_requested, "count", None), work)
+    count = thread_count(requested, work)
     if getattr(_requested, "set", None) != count:
         import numba
 

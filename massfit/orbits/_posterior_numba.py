@@ -213,6 +213,9 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel
     n_vel = vel.shape[1]
     chi2 = 0.0
     model_v = np.zeros(n_vel)
+    cos_all = np.empty(n_vel)
+    sin_all = np.empty(n_vel)
+    trusted = np.empty(n_vel, dtype=np.bool_)
     for v in range(n_vel):  # the systemic part: offset and trend
         j = vel_i[0, v]
         offset = inst_f[j, 0] if inst_i[j, 0] < 0 else theta[inst_i[j, 0]]
@@ -261,11 +264,18 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel
             k_companion = (1.0 - share) * k_rel
         cos_w, sin_w = math.cos(omega), math.sin(omega)
         root = math.sqrt(1.0 - ecc * ecc)
+        # The fast solver over every row first (a branch-free loop the compiler
+        # vectorises: ~4x faster than row by row with the fallback inline), then the
+        # rare rows it does not trust, then the velocities.
         for v in range(n_vel):
             mean = m0 + TWO_PI * (vel[0, v] - cf[F_TREF]) / period
-            _, cos_e, sin_e, good = point(mean, ecc)
-            if not good:
-                _, cos_e, sin_e = point_safe(mean, ecc)
+            _, cos_all[v], sin_all[v], trusted[v] = point(mean, ecc)
+        for v in range(n_vel):
+            if not trusted[v]:
+                mean = m0 + TWO_PI * (vel[0, v] - cf[F_TREF]) / period
+                _, cos_all[v], sin_all[v] = point_safe(mean, ecc)
+        for v in range(n_vel):
+            cos_e, sin_e = cos_all[v], sin_all[v]
             denominator = 1.0 - ecc * cos_e
             cos_nu = (cos_e - ecc) / denominator
             sin_nu = root * sin_e / denominator
@@ -274,12 +284,13 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel
             if vel_i[1, v] == k:
                 part += (k_primary + k_companion) * shape
             model_v[v] += part
+    jitter2 = np.empty(inst_i.shape[0])  # each instrument's jitter^2, once
+    for j in range(inst_i.shape[0]):
+        jitter2[j] = _scaled(theta, inst_i[j, 1], inst_i[j, 2], inst_f[j, 1]) ** 2
     for v in range(n_vel):
-        j = vel_i[0, v]
-        jitter = _scaled(theta, inst_i[j, 1], inst_i[j, 2], inst_f[j, 1])
-        jitter2 = jitter ** 2
-        whitened = (vel[1, v] - model_v[v]) / math.sqrt(vel[2, v] + jitter2)
-        extra = math.log1p(jitter2 / vel[2, v])
+        j2 = jitter2[vel_i[0, v]]
+        whitened = (vel[1, v] - model_v[v]) / math.sqrt(vel[2, v] + j2)
+        extra = math.log1p(j2 / vel[2, v]) if j2 != 0.0 else 0.0
         chi2 += whitened * whitened + extra
     return chi2
 
@@ -295,46 +306,56 @@ def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_paral
     ``angular_i`` = (mass column, parallax column) where the mass is sampled as
     log10(M plx^3) and the state vectors in angular units, else (-1, -1).
     """
-    n_walkers, n_dim = sampled.shape
-    n_rows = rows.shape[1]
-    for w in numba.prange(n_walkers):
-        s = sampled[w].copy()
-        log_angular = 0.0
-        if angular_i[0] >= 0:
-            # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
-            # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
-            plx = s[angular_i[1]]
-            if not plx > 0.0:
-                out[w] = -np.inf
-                continue
-            s[angular_i[0]] -= 3.0 * math.log10(plx)
-            for b in range(st_i.shape[0]):
-                for c in range(6):
-                    s[st_i[b, c]] /= plx
-                log_angular -= 6.0 * math.log(plx)
-        theta = s.copy()
-        log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
-        for b in range(st_i.shape[0]):
-            k = st_comp[b]
-            central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
-                              glob_f[GF_CENTRAL])
-            mass = _scaled(s, comp_i[k, C_MASS], comp_i[k, C_MASS_KIND],
-                           comp_f[k, F_MASS])
-            log_jac = _state(s, theta, st_i[b], st_f[b], GM_SUN * (central + mass), log_jac)
-        for j in range(n_dim):
-            if not math.isfinite(theta[j]):
-                log_jac = -np.inf
-        if not math.isfinite(log_jac):
-            out[w] = -np.inf
-            continue
-        lp = log_prior(theta, low, high, glob_f[GF_CONST], discs_i, discs_f, win_i, win_f,
-                       var_i, var_f)
-        if math.isfinite(lp):
-            east = np.empty(n_rows)
-            north = np.empty(n_rows)
-            chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
-                         vel, vel_i, inst_i, inst_f, east, north)
-            lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
-        lp = lp + log_jac
-        out[w] = lp if math.isfinite(lp) else -np.inf
+    for w in numba.prange(sampled.shape[0]):
+        out[w] = walker_log_posterior(
+            sampled[w], comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel,
+            vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i, var_f,
+            lon_i, lon_f, st_i, st_f, st_comp, angular_i)
 
+
+@numba.njit(**_jit)
+def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
+                         sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f,
+                         win_i, win_f, var_i, var_f, lon_i, lon_f, st_i, st_f, st_comp,
+                         angular_i):  # pragma: no cover - compiled
+    """The log-posterior of one walker's coordinates ``sampled`` (n_dim,), -inf outside
+    the support: :func:`log_posterior`'s work for one row, callable from other
+    compiled code (the sampler's compiled steps)."""
+    n_dim = sampled.shape[0]
+    n_rows = rows.shape[1]
+    s = sampled.copy()
+    log_angular = 0.0
+    if angular_i[0] >= 0:
+        # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
+        # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).
+        plx = s[angular_i[1]]
+        if not plx > 0.0:
+            return -np.inf
+        s[angular_i[0]] -= 3.0 * math.log10(plx)
+        for b in range(st_i.shape[0]):
+            for c in range(6):
+                s[st_i[b, c]] /= plx
+            log_angular -= 6.0 * math.log(plx)
+    theta = s.copy()
+    log_jac = _longitude(s, theta, lon_i, lon_f) + log_angular
+    for b in range(st_i.shape[0]):
+        k = st_comp[b]
+        central = _scaled(s, glob_i[G_CENTRAL], 0 if glob_i[G_CENTRAL] < 0 else 2,
+                          glob_f[GF_CENTRAL])
+        mass = _scaled(s, comp_i[k, C_MASS], comp_i[k, C_MASS_KIND], comp_f[k, F_MASS])
+        log_jac = _state(s, theta, st_i[b], st_f[b], GM_SUN * (central + mass), log_jac)
+    for j in range(n_dim):
+        if not math.isfinite(theta[j]):
+            log_jac = -np.inf
+    if not math.isfinite(log_jac):
+        return -np.inf
+    lp = log_prior(theta, low, high, glob_f[GF_CONST], discs_i, discs_f, win_i, win_f,
+                   var_i, var_f)
+    if math.isfinite(lp):
+        east = np.empty(n_rows)
+        north = np.empty(n_rows)
+        chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
+                     vel, vel_i, inst_i, inst_f, east, north)
+        lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
+    lp = lp + log_jac
+    return lp if math.isfinite(lp) else -np.inf

@@ -21,6 +21,7 @@ import scipy.fft
 
 from massfit.model.compiled_posterior import on_threads
 from massfit.sample.progress import ConvergenceBar
+from massfit.sample.steps import CompiledSteps, difference_pairs
 
 __all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed", "ConvergenceTest"]
 
@@ -213,6 +214,18 @@ class _DEMove(emcee.moves.DEMove):
             state = self.update(state, new_state, accepted, chosen)
         return state, accepted
 
+    def get_proposal(self, s, c, random):
+        # emcee's DE proposal (emcee 3.1.6), kept here so that the compiled steps
+        # (massfit.sample.steps) and this move draw the same numbers whatever emcee
+        # does next: each walker moves along the difference of a pair of the other
+        # half's walkers, scaled by gamma_0 (1 + sigma N(0, 1)).
+        c = np.concatenate(c, axis=0)
+        pairs = difference_pairs(c.shape[0])
+        pairs = pairs[random.choice(pairs.shape[0], size=s.shape[0], replace=True)]
+        diffs = np.diff(c[pairs], axis=1).squeeze(axis=1)
+        gamma = self.g0 * (1 + self.sigma * random.randn(s.shape[0], 1))
+        return s + gamma * diffs, np.zeros(s.shape[0], dtype=np.float64)
+
 
 class _Sampler(emcee.EnsembleSampler):
     """emcee's ensemble sampler taking a vectorised log-probability's array as it is
@@ -231,9 +244,17 @@ class _Sampler(emcee.EnsembleSampler):
             raise ValueError("Probability function returned NaN")
         return log_prob, None
 
+    def random_generator(self):
+        """The sampler's own ``numpy.random.RandomState`` (what its moves draw from)."""
+        return self._random
+
+    def move_weights(self):
+        """(number of moves, their weights), as the sampler chooses among them."""
+        return len(self._moves), self._weights
+
 
 def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None,
-                resume=False, key=None) -> Chain:
+                resume=False, key=None, compiled=None) -> Chain:
     """Run emcee from ``initial`` until converged or at the step cap.
 
     Convergence is checked every ``settings.check_every`` steps, counted from the
@@ -257,6 +278,9 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         A model column and a map from the sampled chain (steps, walkers, dim) to that
         column's values (steps, walkers): its autocorrelation time is measured on the
         whole chain (``Chain.key_tau``), where the sampler does not move in it directly.
+    compiled : massfit.model.compiled_posterior.KernelTables, optional
+        ``log_prob``'s compiled tables: the steps are then taken in compiled code
+        (:mod:`massfit.sample.steps`), the same chain as emcee's with ``log_prob``.
 
     Returns
     -------
@@ -279,6 +303,9 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
     else:
         state = emcee.State(initial, random_state=np.random.RandomState(
             np.random.SeedSequence(settings.seed).generate_state(1)[0]).get_state())
+    stepper = None
+    if compiled is not None:
+        stepper = CompiledSteps(compiled, settings.threads)
     show = settings.progress if settings.progress is not None else sys.stderr.isatty()
     bar = ConvergenceBar(show, settings.max_steps, TAU_MULTIPLE, steps)
     history = []
@@ -290,10 +317,13 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         checked = min(checked + settings.check_every, settings.max_steps)
         if checked > steps:
             with _interrupt_between_steps() as interrupted:
-                for state in sampler.sample(state, iterations=checked - steps,
-                                            skip_initial_state_check=True):
-                    if interrupted():
-                        raise KeyboardInterrupt
+                if stepper is not None:
+                    state = stepper.advance(sampler, state, checked - steps, interrupted)
+                else:
+                    for state in sampler.sample(state, iterations=checked - steps,
+                                                skip_initial_state_check=True):
+                        if interrupted():
+                            raise KeyboardInterrupt
             bar.stepped(checked)
             steps = checked
         tau = test.update(sampler.get_chain()[:checked])

@@ -434,13 +434,19 @@ def chain_backend(path, *, flush_seconds=2.0):
             if time.monotonic() - self._last_flush >= flush_seconds:
                 self.flush()
 
+        def stored_block(self, accepted):
+            # massfit.sample.steps.save_block stored a block of steps at once
+            self._buffer.append(np.array(accepted, dtype=int))
+            if time.monotonic() - self._last_flush >= flush_seconds:
+                self.flush()
+
         def flush(self):
             self._last_flush = time.monotonic()
             if self._failed is not None:
                 raise self._failed  # stop at once: the run cannot be kept
             if not self._buffer:
                 return
-            first, last = self._saved, self._saved + len(self._buffer)
+            first, last = self._saved, self.iteration  # the steps since the last block
             key, pos, has_gauss, gauss = self.random_state[1:]
             block = {"first": first, "chain": self.chain[first:last],
                      "log_prob": self.log_prob[first:last],

@@ -362,6 +362,17 @@ class SamplerCoordinates:
             return compiled(sampled, self._tables[1], window_key=key)
         return self.log_prob_python(sampled)
 
+    def compiled_arguments(self):
+        """The compiled kernel's tables for these coordinates
+        (:class:`massfit.model.compiled_posterior.KernelTables`), or None where the
+        model's log-posterior is not compiled: for samplers that step in compiled code
+        (:mod:`massfit.sample.steps`)."""
+        compiled = self.model.compiled
+        if compiled is None or not compiled.available:
+            return None
+        key = compiled.window_key()
+        return compiled.kernel_tables(self.compiled_tables(), window_key=key)
+
     def log_prob_python(self, sampled):
         """:meth:`log_prob` through :meth:`to_model` and the model's Python path."""
         if not self:
