@@ -41,7 +41,8 @@ import numpy as np
 
 from massfit.sample.chain import Chain
 from massfit.sample.nested_boxes import (EDGE_LIMIT, MAX_WIDENINGS, WIDEN, boxes_of,
-                                         edge_weight,
+                                         edge_weight, in_node_half, mirror_halves,
+                                         period_boxes,
                                          laplace_log_evidence, peak_margin)
 
 __all__ = ["LIVE_PER_DIMENSION", "NestedSettings", "NestedChain", "PriorTransform", "flat_box",
@@ -187,6 +188,8 @@ class PriorTransform:
         self.model = model
         self.notes = []
         self.log_box_mass = 0.0
+        #: Columns cut to a box (a node half): not periodic in the run.
+        self.bounded = []
         self._maps = []
         boxes = dict(boxes or {})
         for k, param in enumerate(model.parameters):
@@ -202,6 +205,11 @@ class PriorTransform:
             body, which = name.rsplit(".", 1)
             low, high = ((-np.pi, np.pi) if which == "omega"
                          else self.model.window(body, which))
+            if name in boxes:  # a mirror image's half of the node circle
+                half = boxes[name]
+                self.log_box_mass += float(np.log((half[1] - half[0]) / (high - low)))
+                self.bounded.append(self.model.column_of[name])
+                return ("linear", *half)
             return ("linear", low, high)
         if kind == "flat":
             low, high = flat_box(self.model, param)
@@ -327,7 +335,8 @@ def _sample(model, transform, settings, common):
     """dynesty's sampler, run to its stopping rule."""
     dynesty = require_dynesty()
 
-    common = dict(common, periodic=periodic_columns(model) or None)
+    periodic = [k for k in periodic_columns(model) if k not in transform.bounded]
+    common = dict(common, periodic=periodic or None)
     live = settings.live_points_for(model.n_dim)
     if settings.dynamic:
         sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
@@ -362,6 +371,9 @@ def nested_box(model, settings, seed, boxes=None, centres=None) -> dict:
     try:
         for name, centre in (centres or {}).items():
             model.centres[name].update(centre)
+        for key, (low, high) in (boxes or {}).items():
+            if key.endswith(".node"):  # the node's window about its half
+                model.centres[key.split(".")[0]]["node"] = 0.5 * (low + high)
         transform = PriorTransform(model, boxes)
         rng = np.random.default_rng(seed)
         started = time.perf_counter()
@@ -473,7 +485,12 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
     samples, kish = _mixture(runs, probabilities, rng)
     modes = []
     for (mode, boxes), box in zip(plan, weighed["boxes"]):
-        entry = dict(box, period_boxes_days={n: list(b) for n, b in boxes.items()})
+        entry = dict(box, period_boxes_days={n: list(b)
+                                             for n, b in period_boxes(boxes).items()})
+        halves = {n.split(".")[0]: float(np.degrees(np.mean(b)) % 360.0)
+                  for n, b in boxes.items() if n.endswith(".node")}
+        if halves:  # a mirror image: its half of the node circle, by its middle
+            entry["node_half_centre_deg"] = halves
         if mode is not None:
             entry["start_periods"] = dict(mode["periods"])
             entry["laplace_weight"] = mode["weight"]
@@ -514,12 +531,12 @@ def _planned_runs(model, start, settings, seeds, checkpoint):
     for widening in range(MAX_WIDENINGS + 2):
         plan = boxes_of(start, model, factor)
         if widening > MAX_WIDENINGS:
-            plan = [(None, {})]
+            plan = mirror_halves([(None, {})], model)
         runs = _box_runs(model, settings, plan, seeds, checkpoint)
-        mode, boxes = plan[0]
-        if len(plan) > 1 or mode is not None or not boxes:
+        boxes = period_boxes(plan[0][1])
+        if any(mode is not None for mode, _ in plan) or not boxes:
             return plan, runs, notes
-        share = edge_weight(model, runs[0], boxes)
+        share = max(edge_weight(model, box_runs, boxes) for box_runs in runs)
         if share <= EDGE_LIMIT:
             return plan, runs, notes
         text = ", ".join(f"{n} {lo:.8g}-{hi:.8g} d" for n, (lo, hi) in boxes.items())
@@ -537,10 +554,10 @@ def _start_check(model, start, plan, runs) -> dict:
     :mod:`massfit.sample.nested_boxes`)."""
     if getattr(start, "theta", None) is None:
         return {"peak_reached": True, "notes": []}
-    j = next((b for b, (mode, _) in enumerate(plan)
-              if mode is None or mode.get("started")), 0)
+    own_boxes = [b for b, (mode, _) in enumerate(plan)
+                 if mode is None or mode.get("started")] or [0]
     # (runs saved by an older version carry no best ln L: not checked then)
-    best = max(r.get("max_log_like", np.inf) for r in runs[j])
+    best = max(r.get("max_log_like", np.inf) for b in own_boxes for r in runs[b])
     own = float(model.log_likelihood(np.asarray(start.theta, dtype=float)[None, :])[0])
     margin = peak_margin(model.n_dim)
     reached = bool(not np.isfinite(own) or best >= own - margin)
@@ -588,7 +605,10 @@ def _box_runs(model, settings, plan, seeds, checkpoint):
 def _member_mask(model, samples, boxes):
     """Which samples lie in the period boxes (all True without boxes)."""
     inside = np.ones(samples.shape[0], dtype=bool)
-    for name, (low, high) in boxes.items():
+    for key, half in boxes.items():
+        if key.endswith(".node"):
+            inside &= in_node_half(samples[:, model.column_of[key]], half)
+    for name, (low, high) in period_boxes(boxes).items():
         period = 10.0 ** samples[:, model.column_of[f"{name}.log10_period"]]
         inside &= (period >= low) & (period <= high)
     return inside

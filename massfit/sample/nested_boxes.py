@@ -15,7 +15,15 @@ period boxes about solutions the start found (:mod:`massfit.start.search`):
   and the runs repeated (at most :data:`MAX_WIDENINGS` times), else the whole prior
   is used.
 
-In both cases Z = Z(box) * P(box), P(box) the prior probability of the box, and
+Mirror images. Astrometry alone cannot tell (node, omega) from (node + pi, omega + pi);
+radial velocities can. Where a companion's node runs over a whole turn (its
+velocities fix the sign), the two images are two modes, pi apart in the node: each
+box is split into two halves of the node circle about the solution's node
+(:func:`mirror_halves`, the box key ``"<companion>.node"``, radians), each of prior
+probability 1/2. The two halves cover the whole circle, so nothing is assumed about
+what lies outside them; each half's weight is the probability of that image.
+
+In all cases Z = Z(box) * P(box), P(box) the prior probability of the box, and
 what lies outside the boxes is taken to hold no posterior mass. Two checks against
 the start's least-squares solution make that assumption testable:
 :func:`laplace_log_evidence` (the Laplace estimate of ln Z about it, in the same
@@ -31,6 +39,7 @@ import numpy as np
 from massfit.start.modes import MIN_WEIGHT, period_box
 
 __all__ = ["boxes_of", "own_box", "edge_weight", "laplace_log_evidence", "peak_margin",
+           "mirror_bodies", "mirror_halves", "node_key", "in_node_half", "period_boxes",
            "BOX_SIGMAS", "EDGE_SHARE", "EDGE_LIMIT", "WIDEN", "MAX_WIDENINGS"]
 
 #: A single solution's box: this many least-squares standard deviations of log10 P
@@ -102,6 +111,10 @@ def boxes_of(start, model, factor=1.0):
     windows). One solution: [(None, :func:`own_box`)] (``factor`` widens it);
     [(None, {})] is a run over the whole prior.
     """
+    return mirror_halves(_period_plan(start, model, factor), model)
+
+
+def _period_plan(start, model, factor):
     candidates = _searched_candidates(start, model)
     # One heavy mode among lighter ones is boxed too: a run over the whole prior can
     # settle in a light alias and never find a narrow heavy mode (measured on a sparse
@@ -120,11 +133,54 @@ def boxes_of(start, model, factor=1.0):
     return out
 
 
+def node_key(name) -> str:
+    """The box key of a companion's node half (companion names hold no dot)."""
+    return f"{name}.node"
+
+
+def period_boxes(boxes) -> dict:
+    """The period boxes alone (companion -> (low, high) days) of a box dict."""
+    return {n: v for n, v in boxes.items() if "." not in n}
+
+
+def mirror_bodies(model) -> list:
+    """Companions whose mirror images the data can tell apart: a node window of a
+    whole turn (radial velocities fix its sign) with sky positions."""
+    if getattr(model, "velocity_only", False):
+        return []
+    widths = getattr(model, "node_width", {})
+    return [name for name in model.companions
+            if widths.get(name, 0.0) >= 2 * np.pi - 1e-12 and f"{name}.node" in model.column_of]
+
+
+def mirror_halves(plan, model, centres=None) -> list:
+    """Each entry of ``plan`` split into the two halves of each mirror companion's
+    node circle about the mode's node (its ``window_centres``, else the model's
+    centre): [c - pi/2, c + pi/2] and [c + pi/2, c + 3 pi/2]."""
+    out = []
+    for mode, boxes in plan:
+        split = [(mode, dict(boxes))]
+        for name in mirror_bodies(model):
+            own = ((mode or {}).get("window_centres") or centres or model.centres).get(name, {})
+            c = float(own.get("node", model.centres[name]["node"]))
+            split = [(m, dict(b, **{node_key(name): (c + shift - np.pi / 2,
+                                                     c + shift + np.pi / 2)}))
+                     for m, b in split for shift in (0.0, np.pi)]
+        out.extend(split)
+    return out
+
+
+def in_node_half(node, half) -> np.ndarray:
+    """Whether nodes (radians) lie in the half ``(low, high)`` of the circle."""
+    low, high = half
+    return np.mod(np.asarray(node) - low, 2 * np.pi) < (high - low)
+
+
 def edge_weight(model, runs, boxes) -> float:
     """The largest posterior weight, over the runs and the boxed periods, in the outer
     :data:`EDGE_SHARE` of a box (in log10 P) at an end that is not the prior's own."""
     worst = 0.0
-    for name, (low, high) in boxes.items():
+    for name, (low, high) in period_boxes(boxes).items():
         k = _period_column(model, name)
         prior = model.companions[name].period
         lo, hi = np.log10(low), np.log10(high)

@@ -44,8 +44,12 @@ def in_mass_unit(block, unit) -> dict:
 
 
 def _mode_periods(mode) -> str:
-    return ", ".join(f"P({name}) = {format_interval(block).split(' ')[0]} d"
-                     for name, block in mode["period"].items())
+    """Where the mode is: each period's median, and a mirror image's node."""
+    parts = [f"P({name}) = {format_interval(block).split(' ')[0]} d"
+             for name, block in mode["period"].items()]
+    parts += [f"Omega({name}) = {block['median']:.0f} deg"
+              for name, block in (mode.get("ascending_node") or {}).items()]
+    return ", ".join(parts)
 
 
 def _aligned(rows, pad) -> list:
@@ -79,10 +83,14 @@ def period_mode_lines(summary, name, label_width=8) -> list | None:
     modes = weighed_modes(summary)
     if not modes or not all(name in m.get("period", {}) for m in modes):
         return None
-    rows = [("probability", "P (median, 68 %)", WIDE_LABEL)]
+    mirrors = all(name in (m.get("ascending_node") or {}) for m in modes)
+    rows = [("probability", "P (median, 68 %)", WIDE_LABEL) + (("Omega",) if mirrors else ())]
     for mode in modes:
         block = mode["period"][name]
-        rows.append((_probability(mode), f"{format_interval(block)} d", format_range(block)))
+        row = (_probability(mode), f"{format_interval(block)} d", format_range(block))
+        if mirrors:  # mirror images: the same period, the node half a turn apart
+            row += (f"{format_interval(mode['ascending_node'][name])} deg",)
+        rows.append(row)
     return ([f"  {'P':<{label_width}}= {len(modes)} separated modes, each weighed by its "
              "evidence (the elements after them: over all modes):"]
             + _aligned(rows, " " * (label_width + 4)))
