@@ -311,3 +311,49 @@ def test_fast_likelihood_and_folding_keep_the_same_orbits():
                + np.log(np.pi) + np.log(2 * np.pi))
     assert np.allclose(model.log_prior(folded), proper + np.log(2 * np.pi * 2 * np.pi),
                        rtol=0, atol=1e-9)
+
+
+def test_mirror_images_split_the_node_circle_in_halves(tmp_path):
+    """With radial velocities the node runs over a whole turn and the two mirror images
+    (node, omega) and (node + pi, omega + pi) are two modes: each box is split into the
+    two halves of the node circle about the solution's node, each of prior probability
+    1/2, that together cover the circle (nothing assumed outside them). Without
+    velocities (a half-turn node window) there is nothing to split (the control)."""
+    import astropy.units as u
+    from astropy.time import Time
+
+    from massfit.read.tables import read_observations
+    from massfit.sample.nested_boxes import boxes_of, in_node_half, mirror_bodies
+    from massfit.scenarios.examples import tamsin
+    from massfit.scenarios.simulate import Elements, read_back, simulate_velocities
+
+    table, _ = tamsin(4)
+    elements = {"Tamsin": Elements(period=305.0, ecc=0.18, inc=62.0, omega=120.0,
+                                   node=35.0, periapsis_time=2458610.0)}
+    rv = simulate_velocities({"Tamsin": Time(2458600.0 + 40.0 * np.arange(6), format="jd",
+                                             scale="tdb")}, elements, 1.15,
+                             error=5.0 * u.km / u.s, seed=1)
+    spec = SystemSpec(parallax=Fixed(25.0))
+    alone = OrbitModel(read_back(table), spec)
+    assert mirror_bodies(alone) == []
+    table.write(tmp_path / "sky.ecsv", format="ascii.ecsv")
+    rv.write(tmp_path / "rv.ecsv", format="ascii.ecsv")
+    model = OrbitModel(read_observations([tmp_path / "sky.ecsv", tmp_path / "rv.ecsv"]),
+                       spec)
+    assert mirror_bodies(model) == ["Tamsin"]
+    k = model.column_of["Tamsin.node"]
+    start = SimpleNamespace(candidate_modes=[], theta=np.zeros(model.n_dim),
+                            covariance=np.full((model.n_dim, model.n_dim), np.nan))
+    plan = boxes_of(start, model)
+    assert len(plan) == 2 and all(mode is None for mode, _ in plan)
+    halves = [boxes["Tamsin.node"] for _, boxes in plan]
+    nodes = np.linspace(-10.0, 10.0, 2001)
+    inside = [in_node_half(nodes, half) for half in halves]
+    assert np.all(inside[0] ^ inside[1])  # every node in exactly one half
+    rng = np.random.default_rng(4)
+    for (_, boxes), half in zip(plan, halves):
+        transform = PriorTransform(model, boxes)
+        assert transform.log_box_mass == pytest.approx(np.log(0.5))
+        assert k in transform.bounded
+        drawn = np.array([transform(u)[k] for u in rng.uniform(size=(200, model.n_dim))])
+        assert np.all(in_node_half(drawn, half))
