@@ -125,17 +125,21 @@ class Comparison:
     def report(self) -> str:
         """A plain-text table for the terminal."""
         s = self.summary
-        lines = [f"{'model':<20} {'ln Z':>12} {'ln B vs best':>16} {'probability':>16}  "
-                 f"central mass (M_sun, 68 %)"]
+        rows = [("model", "ln Z", "ln B vs best", "probability",
+                 "central mass (M_sun, 68 %)")]
         for label, m in s["models"].items():
             mass = m["central_mass_solar"]
             mass_text = ("-" if not mass or mass["median"] is None else
                          f"{mass['median']:.5g} ({mass['lower_68']:.5g} .. "
                          f"{mass['upper_68']:.5g})")
-            lines.append(f"{label:<20} {m['log_evidence']:>8.2f} +- {m['log_evidence_err']:<4.2f}"
-                         f"{m['log_bayes_factor']:>9.2f} +- {m['log_bayes_factor_err']:<4.2f}"
-                         f"{m['probability']:>9.3f} +- {m['probability_err']:<5.3f} "
-                         f"{mass_text}{'' if m['converged'] else '  (NOT converged)'}")
+            rows.append((label, f"{m['log_evidence']:.2f} +- {m['log_evidence_err']:.2f}",
+                         f"{m['log_bayes_factor']:.2f} +- {m['log_bayes_factor_err']:.2f}",
+                         f"{m['probability']:.3f} +- {m['probability_err']:.3f}",
+                         mass_text + ("" if m["converged"] else "  (NOT converged)")))
+        widths = [max(len(row[j]) for row in rows) for j in range(len(rows[0]))]
+        lines = ["  ".join(cell.ljust(w) if j in (0, 4) else cell.rjust(w)
+                           for j, (cell, w) in enumerate(zip(row, widths))).rstrip()
+                 for row in rows]
         for label, m in s["models"].items():
             if m["evidence_against_it"] is not None:
                 lines.append(f"  against {label}: {m['evidence_against_it']} evidence "
