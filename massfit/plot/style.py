@@ -67,13 +67,30 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
     """
     from pathlib import Path
 
-    fig.draw_without_rendering()
-    box = fig.get_tightbbox(fig.canvas.get_renderer()).padded(0.03)
-    paths = []
-    for ext in formats:
-        path = Path(f"{stem}.{ext}")
-        fig.savefig(path, bbox_inches=box, dpi=STYLE["savefig.dpi"] if ext == "png" else None)
-        paths.append(path)
+    # Laid out at the PNG's dpi: matplotlib parses each math label once per dpi, and a
+    # layout at the screen's dpi parsed every label a third time (a quarter second for
+    # a big corner plot).
+    screen_dpi = fig.dpi
+    if "png" in formats:
+        fig.set_dpi(STYLE["savefig.dpi"])
+    engine = fig.get_layout_engine()
+    try:
+        fig.draw_without_rendering()
+        box = fig.get_tightbbox(fig.canvas.get_renderer()).padded(0.03)
+        # The layout found once serves every format: a constrained layout is otherwise
+        # solved again for each file (half the tick work of a many-panel figure).
+        if engine is not None:
+            fig.set_layout_engine("none")
+        paths = []
+        for ext in formats:
+            path = Path(f"{stem}.{ext}")
+            fig.savefig(path, bbox_inches=box,
+                        dpi=STYLE["savefig.dpi"] if ext == "png" else None)
+            paths.append(path)
+    finally:
+        if engine is not None:
+            fig.set_layout_engine(engine)
+        fig.set_dpi(screen_dpi)
     return paths
 
 

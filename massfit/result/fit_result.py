@@ -549,7 +549,7 @@ class FitResult:
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
-                                              write_observations)
+                                              write_ecsv, write_observations)
 
         out = Path(out_dir)
         # Before anything is written: a missing arviz is a one-line error, not half a folder.
@@ -558,7 +558,7 @@ class FitResult:
         with atomic_folder(out, record=RUN_FILE, force=force,
                            inputs=self.model.observations.files) as tmp:
             write_json(tmp / SUMMARY_FILE, self.summary)
-            self.samples_table().write(tmp / SAMPLES_FILE, format="ascii.ecsv")
+            write_ecsv(self.samples_table(), tmp / SAMPLES_FILE)
             # What massfit.load_result needs to rebuild the model and redraw.
             write_observations(self.model.observations, tmp)
             self.write_tables(tmp)

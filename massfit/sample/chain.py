@@ -363,14 +363,14 @@ class ConvergenceTest:
 
     A check at n steps passes when every coordinate's autocorrelation time tau(n) is
     finite, n >= 50 max tau(n), and every tau(n) is within 3 % of its value at the
-    previous check. Most checks fail on the length alone, and that needs only one
-    coordinate: n >= 50 max tau(n) requires n >= 50 tau_k(n) for the coordinate k
-    that led at the last full check. So a check first computes tau_k(n) alone (each
-    coordinate's estimate is computed on its own, so it is the number the full
-    computation gives) and stops there if it fails; only checks that pass it compute
-    every coordinate, and the previous check's values where those were skipped. The
-    decisions, and the step a run stops at, are those of computing everything at every
-    check (tests/test_convergence_checks.py); a check costs about 1/n_dim of that.
+    previous check. Each condition holds for all coordinates only if it holds for each,
+    so a check computes the coordinates one at a time and stops at the first that
+    fails: first the one that led (largest tau) last time, which fails most checks on
+    the length alone, then the one that last moved by more than 3 %, then the rest.
+    Each coordinate's estimate is computed on its own, so it is the number computing
+    them all gives; only a check that passes computes every coordinate (at this check
+    and the previous one). The decisions, and the step a run stops at, are those of
+    computing everything at every check (tests/test_convergence_checks.py).
 
     Parameters
     ----------
@@ -381,40 +381,62 @@ class ConvergenceTest:
     def __init__(self, *, every_coordinate=False):
         self.every_coordinate = every_coordinate
         self.converged = False
-        self._lead = None  # the leading coordinate at the last full check
-        self._full = {}  # steps -> tau of every coordinate
+        self._lead = None  # the coordinate with the largest tau seen at the last check
+        self._moved = None  # the coordinate that last failed the 3 % test
+        self._tau = {}  # (steps, coordinate) -> tau, for this check and the previous one
         self._checks = []  # steps of the checks so far
 
     def update(self, chain):
-        """Check the chain so far (steps, walkers, dim); returns the tau computed
-        (every coordinate, or the leading one alone) and sets :attr:`converged`."""
-        n = chain.shape[0]
+        """Check the chain so far (steps, walkers, dim); returns the tau of the
+        coordinates computed (every coordinate where the check passed or where
+        ``every_coordinate``) and sets :attr:`converged`."""
+        n, n_dim = chain.shape[0], chain.shape[2]
         previous = self._checks[-1] if self._checks else None
         self._checks.append(n)
-        if self._lead is not None and not self.every_coordinate:
-            lead = _autocorr(chain[:, :, self._lead:self._lead + 1])
-            if not (np.isfinite(lead[0]) and n >= TAU_MULTIPLE * lead[0]):
-                return lead
-        tau = self._full_tau(chain, n)
-        if np.all(np.isfinite(tau)):
-            self._lead = int(np.argmax(tau))
-        if previous is None:
+        keep = set(self._checks[-2:])
+        self._tau = {key: v for key, v in self._tau.items() if key[0] in keep}
+        if previous is None or self.every_coordinate:
+            tau = self._every(chain, n)
+            if previous is not None:
+                tau_old = self._every(chain, previous)
+                self.converged = bool(np.all(np.isfinite(tau))
+                                      and n >= TAU_MULTIPLE * np.max(tau)
+                                      and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau))
+            if np.all(np.isfinite(tau)):
+                self._lead = int(np.argmax(tau))
             return tau
-        tau_old = self._full_tau(chain, previous)
-        self.converged = bool(np.all(np.isfinite(tau)) and n >= TAU_MULTIPLE * np.max(tau)
-                              and np.all(np.abs(tau - tau_old) <= TAU_STABILITY * tau))
-        return tau
+        first = [d for d in (self._lead, self._moved) if d is not None]
+        order = list(dict.fromkeys(first + list(range(n_dim))))
+        seen = []
+        for d in order:
+            tau_d = self._one(chain, n, d)
+            seen.append(tau_d)
+            if not (np.isfinite(tau_d) and n >= TAU_MULTIPLE * tau_d):
+                break
+            if not abs(tau_d - self._one(chain, previous, d)) <= TAU_STABILITY * tau_d:
+                self._moved = d
+                break
+        else:
+            self.converged = True
+        finite = [(t, d) for t, d in zip(seen, order) if np.isfinite(t)]
+        self._lead = max(finite)[1] if finite else self._lead
+        return self._every(chain, n) if self.converged else np.array(seen)
 
-    def _full_tau(self, chain, n):
-        if n not in self._full:
-            keep = set(self._checks[-2:])  # only this check's and the previous one's
-            self._full = {k: v for k, v in self._full.items() if k in keep}
-            self._full[n] = _autocorr(chain[:n])
-        return self._full[n]
+    def _one(self, chain, n, d):
+        if (n, d) not in self._tau:
+            self._tau[(n, d)] = float(_autocorr(chain[:n, :, d:d + 1])[0])
+        return self._tau[(n, d)]
+
+    def _every(self, chain, n):
+        missing = [d for d in range(chain.shape[2]) if (n, d) not in self._tau]
+        if len(missing) == chain.shape[2]:
+            for d, value in enumerate(_autocorr(chain[:n])):
+                self._tau[(n, d)] = float(value)
+        return np.array([self._one(chain, n, d) for d in range(chain.shape[2])])
 
     def tau_at(self, chain):
         """Every coordinate's tau of ``chain`` (computed once per length)."""
-        return self._full_tau(chain, chain.shape[0])
+        return self._every(chain, chain.shape[0])
 
 
 def _autocorr(chain, *, window_factor=5.0):
@@ -434,12 +456,14 @@ def _autocorr(chain, *, window_factor=5.0):
     size = scipy.fft.next_fast_len(max(2 * n_steps - 1, 1), real=True)
     group = max(1, _FFT_ELEMENTS // size)
     tau = np.empty(n_dim)
+    # One row per walker and coordinate, contiguous along the steps (the FFT axis):
+    # one transposing copy of the whole chain.
+    rows = np.ascontiguousarray(chain.transpose(2, 1, 0))
     for d in range(n_dim):
         mean_acf = np.zeros(n_steps)
         for start in range(0, n_walkers, group):
-            # One row per walker, contiguous along the steps (the FFT axis).
-            series = np.ascontiguousarray(chain[:, start:start + group, d].T)
-            series -= series.mean(axis=1, keepdims=True)
+            series = rows[d, start:start + group]
+            series = series - series.mean(axis=1, keepdims=True)
             spectrum = scipy.fft.rfft(series, n=size, axis=1)
             acf = scipy.fft.irfft(spectrum.real ** 2 + spectrum.imag ** 2, n=size,
                                   axis=1)[:, :n_steps]

@@ -64,11 +64,14 @@ def draw_block(random, n_steps, n_walkers, n_dim):
         random.shuffle(inds)
         splits[t] = inds
         for h, n_move in enumerate(sizes):
-            chosen = pairs[h][random.randint(0, pairs[h].shape[0], size=n_move)]
+            chosen = pairs[h][random.randint(0, pairs[h].shape[0], n_move)]
             first[t, h, :n_move] = chosen[:, 0]
             second[t, h, :n_move] = chosen[:, 1]
-            gamma[t, h, :n_move] = (g0 * (1 + DE_SIGMA * random.randn(n_move, 1)))[:, 0]
-            log_u[t, h, :n_move] = np.log(random.rand(n_move))
+            gamma[t, h, :n_move] = random.randn(n_move)  # scaled below, all at once
+            log_u[t, h, :n_move] = random.rand(n_move)
+    gamma = g0 * (1 + DE_SIGMA * gamma)
+    with np.errstate(divide="ignore"):
+        log_u = np.log(log_u)
     return splits, first, second, gamma, log_u
 
 
@@ -114,7 +117,11 @@ class CompiledSteps:
         use_threads(self._threads, (n_walkers // 2) * self._kernel.work_per_walker)
         if sampler.move_weights()[0] != 1:
             raise ValueError("compiled steps take a sampler with the DE move alone")
-        sampler.backend.grow(n_steps, None)  # as emcee's sample() does for its steps
+        # Room for the steps, as emcee's sample() makes it, but at least doubling the
+        # store: growing it by each call's steps copies the whole chain every call.
+        backend = sampler.backend
+        if len(backend.chain) - backend.iteration < n_steps:
+            backend.grow(max(n_steps, backend.iteration), None)
         block, done = 16, 0
         while done < n_steps:
             if interrupted():

@@ -17,7 +17,7 @@ from massfit import priors as _priors
 from massfit.read.observations import AstrometryData, VelocityData
 
 __all__ = ["model_state", "write_observations", "STATE_VERSION", "RUN_FILE", "SUMMARY_FILE",
-           "SAMPLES_FILE", "OBSERVATIONS_FILE", "DATA_KINDS", "OLD_VELOCITY_FILE"]
+           "SAMPLES_FILE", "OBSERVATIONS_FILE", "DATA_KINDS", "OLD_VELOCITY_FILE", "write_ecsv"]
 
 SUMMARY_FILE = "summary.json"
 SAMPLES_FILE = "samples.ecsv"
@@ -110,8 +110,17 @@ def write_observations(observations, folder) -> list:
                                  "(arcsec or au, radians, km/s, pc; times JD TDB); "
                                  "'kind' is astrometry or velocity")
     path = Path(folder) / OBSERVATIONS_FILE
-    _write_ecsv_in_blocks(table, path)
+    write_ecsv(table, path)
     return [path]
+
+
+def _plain_floats(table) -> bool:
+    """Every column a plain (unmasked, one value a row) float64 column."""
+    return len(table.colnames) > 0 and all(
+        table[name].dtype == np.float64 and table[name].ndim == 1
+        and getattr(table[name], "mask", None) is None
+        and type(table[name]).__name__ == "Column" and not table[name].info.format
+        for name in table.colnames)
 
 
 #: Rows per block when writing a big table (astropy formats every cell of what it is
@@ -119,10 +128,24 @@ def write_observations(observations, folder) -> list:
 _WRITE_BLOCK_ROWS = 10_000
 
 
-def _write_ecsv_in_blocks(table, path) -> None:
-    """``table.write(path, format="ascii.ecsv")``, the same file, in bounded memory."""
+def write_ecsv(table, path) -> None:
+    """``table.write(path, format="ascii.ecsv")``: the same file, in bounded memory,
+    and fast for tables of plain floats (a fit's samples)."""
     import io
 
+    if _plain_floats(table):
+        # astropy formats each cell in Python (~4 us a cell: 2.5 s for a fit's
+        # samples); a float64 cell is written as Python's repr, so the body can be
+        # written by repr directly: the same bytes (tests/test_saved.py), ~4x faster.
+        with open(path, "w", encoding="utf-8", newline="") as out:
+            header = io.StringIO()
+            table[:0].write(header, format="ascii.ecsv")
+            out.write(header.getvalue())
+            values = np.column_stack([np.asarray(table[name]) for name in table.colnames])
+            for start in range(0, len(table), _WRITE_BLOCK_ROWS):
+                out.write("".join(" ".join(map(repr, row)) + "\n" for row in
+                                  values[start:start + _WRITE_BLOCK_ROWS].tolist()))
+        return
     with open(path, "w", encoding="utf-8", newline="") as out:
         for start in range(0, max(len(table), 1), _WRITE_BLOCK_ROWS):
             buffer = io.StringIO()
