@@ -357,3 +357,27 @@ def test_mirror_images_split_the_node_circle_in_halves(tmp_path):
         assert k in transform.bounded
         drawn = np.array([transform(u)[k] for u in rng.uniform(size=(200, model.n_dim))])
         assert np.all(in_node_half(drawn, half))
+
+
+def test_a_box_too_narrow_is_widened(monkeypatch):
+    """A single solution whose least-squares deviation is 30 times too small: its box
+    (10 of those deviations, a third of the bump's) cuts the posterior, whose weight then reaches the box's
+    edges; the box is widened until it holds it, and ln Z is the closed form (the bump's
+    mass over the prior's 3 decades, times the nuisance's 1/2). Negative control: the
+    first, narrow box's own ln Z is far below it."""
+    import massfit.sample.nested as nested
+    from massfit.sample.nested_boxes import own_box
+
+    model = _two_mode_model((1.0, 1e-12), (0.8, 2.5))
+    start = SimpleNamespace(candidate_modes=[], theta=np.array([0.8, 0.1]),
+                            covariance=np.diag([0.0003 ** 2, 0.2 ** 2]))
+    monkeypatch.setattr(nested, "laplace_log_evidence", lambda *args: None)
+    chain = run_nested(model, start, NestedSettings(live_points=30, runs=1, seed=3))
+    assert any("widened by a factor 4" in note for note in chain.notes)
+    exact = np.log(1.0 / 3.0) + np.log(0.5)
+    err = chain.evidence["log_evidence_err"]
+    assert chain.converged and abs(chain.evidence["log_evidence"] - exact) < 3 * err
+    low, high = chain.modes[0]["period_boxes_days"]["b"]
+    assert np.log10(high) - 0.8 > 4 * 0.01  # widened twice: it holds the bump (sd 0.01)
+    narrow = nested_box(model, NestedSettings(live_points=30), 5, own_box(start, model))
+    assert narrow["log_z"] + narrow["log_box_mass"] < exact - 1.0

@@ -402,7 +402,7 @@ def _planned_runs(model, start, settings, seeds, checkpoint):
         text = ", ".join(f"{n} {lo:.8g}-{hi:.8g} d" for n, (lo, hi) in boxes.items())
         notes.append(f"the period box about the start's solution ({text}) held "
                      f"{share:.2g} of the posterior near its edges: "
-                     + (f"widened {WIDEN:g} times" if widening < MAX_WIDENINGS
+                     + (f"widened by a factor {WIDEN:g}" if widening < MAX_WIDENINGS
                         else "the whole prior used instead"))
         factor *= WIDEN
     raise AssertionError("unreachable")
