@@ -136,3 +136,20 @@ def test_adequacy_uses_the_evidence_and_says_so():
     assert "ln B = -4.4" in verdict and "for j2" in verdict and "not measured" in verdict
     # Without the evidence the block rests on delta BIC, and says so.
     assert "models compared by: delta BIC" in "\n".join(report_lines(_block()))
+
+
+def test_mirror_images_are_told_apart_by_their_node(result):
+    """Two mirror images have the same period: the report adds each one's node."""
+    from massfit.summarise.mode_text import central_mode_lines, period_mode_lines
+
+    weighed, name = result
+    summary = copy.deepcopy(weighed.summary)
+    for mode, node in zip(summary["weighed_modes"], (121.0, 301.0)):
+        mode["period"][name] = dict(summary["weighed_modes"][0]["period"][name])
+        mode["node_half_centre_deg"] = {name: node}
+        mode["ascending_node"] = {name: {"unit": "deg", "median": node, "lower_68": node - 3,
+                                         "upper_68": node + 3, "lower_95": node - 6,
+                                         "upper_95": node + 6}}
+    lines = period_mode_lines(summary, name)
+    assert "Omega" in lines[1] and "301.0 +/- 3.0 deg" in "\n".join(lines)
+    assert "Omega(" in "\n".join(central_mode_lines(summary, "Msun"))
