@@ -127,33 +127,3 @@ def test_fit_command_writes_figures_unless_told_not_to(binary_file, tmp_path, mo
     # The tables are written either way.
     assert (tmp_path / "b" / "parameters.tex").exists()
 
-
-def test_fast_ecsv_writer_gives_astropys_bytes(tmp_path):
-    # Reference: astropy's own ECSV writer (Table.write, format ascii.ecsv). A table of
-    # plain floats takes massfit's faster path; awkward values (nan, +-inf, -0.0,
-    # extremes, shortest-repr cases) and more rows than one block must come out the
-    # same, byte for byte. A column with a unit or an integer column changes the
-    # header or the cells: the unit case still takes the fast path (the header is
-    # astropy's), the integer table falls back to astropy.
-    import astropy.units as u
-    from astropy.table import Table
-
-    from massfit.write import saved_state
-
-    rng = np.random.default_rng(3)
-    special = np.array([np.nan, np.inf, -np.inf, -0.0, 1e-300, 1.5e300, 0.1, 2.0,
-                        1.2345678901234568e17, 5e-324])
-    n = saved_state._WRITE_BLOCK_ROWS + 7
-    column = np.concatenate([special, rng.standard_normal(n - len(special)) * 1e3])
-    tables = {
-        "floats": Table({"a": column, "b.c": rng.uniform(size=n)}),
-        "with a unit": Table({"a": column * u.km, "b": column[::-1]}),
-        "integers": Table({"a": np.arange(n), "b": column}),
-    }
-    assert saved_state._plain_floats(tables["floats"])
-    assert not saved_state._plain_floats(tables["integers"])
-    for name, table in tables.items():
-        ours, reference = tmp_path / f"{name}.ecsv", tmp_path / f"{name}-astropy.ecsv"
-        saved_state.write_ecsv(table, ours)
-        table.write(reference, format="ascii.ecsv")
-        assert ours.read_bytes() == reference.read_bytes(), name
