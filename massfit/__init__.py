@@ -11,27 +11,53 @@ Three lines from a notebook::
 ``result.orbit_plot()`` return matplotlib Figures, and ``print(result)`` reads well.
 """
 
-from massfit.config.fit import load_config
-from massfit.orbits.dynamics import Keplerian
-from massfit.errors import ConfigError, InputError, MassfitError, ModelError
-from massfit.model.specs import CompanionSpec, SystemSpec
-from massfit.model.frame import FrameSpec
-from massfit.orbits.relativity import RelativitySpec
-from massfit.orbits.perturbed import NBody
-from massfit.orbits.oblate import Oblate
-from massfit.plan.forecast import forecast_precision
-from massfit.plan.planner import plan_observations
-from massfit.plan.schedule import Schedule
-from massfit.plan.system import AssumedSystem
-from massfit.priors import Fixed, LogUniform, Normal, Uniform
-from massfit.read.tables import read_observations
-from massfit.result.fit_result import FitResult
-from massfit.run import fit
-from massfit.result.loading import load_result
-from massfit.sample.chain import SamplerSettings
-from massfit.version import __version__
-from massfit.orbits.viewing import ViewingSpec
-from massfit.orbits.perturbed import Perturbed
+# Each public name and the module it lives in, imported on first use: ``import massfit``
+# (and the ``massfit`` command, whose --help needs none of them) stays light, and
+# ``massfit.fit`` or ``from massfit import fit`` loads what that name needs.
+_WHERE = {
+    "read_observations": "massfit.read.tables",
+    "fit": "massfit.run",
+    "load_result": "massfit.result.loading",
+    "load_config": "massfit.config.fit",
+    "FitResult": "massfit.result.fit_result",
+    "SystemSpec": "massfit.model.specs",
+    "CompanionSpec": "massfit.model.specs",
+    "FrameSpec": "massfit.model.frame",
+    "RelativitySpec": "massfit.orbits.relativity",
+    "Keplerian": "massfit.orbits.dynamics",
+    "Oblate": "massfit.orbits.oblate",
+    "NBody": "massfit.orbits.perturbed",
+    "Perturbed": "massfit.orbits.perturbed",
+    "ViewingSpec": "massfit.orbits.viewing",
+    "SamplerSettings": "massfit.sample.chain",
+    "Uniform": "massfit.priors",
+    "LogUniform": "massfit.priors",
+    "Normal": "massfit.priors",
+    "Fixed": "massfit.priors",
+    "MassfitError": "massfit.errors",
+    "InputError": "massfit.errors",
+    "ConfigError": "massfit.errors",
+    "ModelError": "massfit.errors",
+    "__version__": "massfit.version",
+    "AssumedSystem": "massfit.plan.system",
+    "Schedule": "massfit.plan.schedule",
+    "forecast_precision": "massfit.plan.forecast",
+    "plan_observations": "massfit.plan.planner",
+}
+
+
+def __getattr__(name):
+    if name in _WHERE:
+        import importlib
+
+        value = getattr(importlib.import_module(_WHERE[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'massfit' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_WHERE))
 
 
 __all__ = [

@@ -181,10 +181,18 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
+    surrogate, notes = _surrogate(model, engine)
     if engine == "nested":
         nested = replace(nested or NestedSettings(), seed=settings.seed)
         nested.check()
         chain = run_nested(model, start, nested, checkpoint=checkpoint)
+    elif surrogate:
+        from massfit.linearised_fit import sample_linearised
+
+        # The integrated model sampled through its linearised surrogate, then checked
+        # against the integrator at draws of the chain (massfit/linearised_fit.py).
+        chain = sample_linearised(model, start, initial, settings, checkpoint=checkpoint,
+                                  resume=resume)
     else:
         # The sampler's own coordinates (short arcs as a position and velocity, other
         # orbits with sky-fixed angles); the choice depends only on the start, so a
@@ -195,6 +203,7 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
                             key=coordinates.mass_key(),
                             compiled=coordinates.compiled_arguments())
         coordinates.restore(chain)
+    chain.notes = list(getattr(chain, "notes", [])) + notes
     run_record = {"started_utc": started,
                   "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(),
                   "seed": settings.seed, "python": sys.version.split()[0],
@@ -205,6 +214,22 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
     run_record.update(record or {})
     return assemble_result(model, chain, start, settings, record=run_record,
                            weigh_with=observations if weigh_modes else None)
+
+
+def _surrogate(model, engine):
+    """(whether the fit samples the linearised surrogate, notes for the warnings)."""
+    if getattr(model.dynamics, "surrogate", "none") != "linearised":
+        return False, []
+    if engine != "emcee":
+        return False, [f"the linearised surrogate is for emcee; the {engine} engine "
+                       f"evaluated the integrated model itself"]
+    from massfit.model.surrogate import why_not_linearised
+
+    reason = why_not_linearised(model)
+    if reason is not None:
+        return False, [f"the linearised surrogate was not used ({reason}): the "
+                       f"integrated model was sampled itself"]
+    return True, []
 
 
 def assemble_result(model, chain, start, settings, *, record=None,

@@ -22,7 +22,7 @@ LAYERS = {
     "summarise": 6,
     "plot": 7, "write": 7,
     "result": 8,
-    "run": 9, "modechains": 9, "compare": 10,
+    "run": 9, "modechains": 9, "linearised_fit": 9, "compare": 10,
     "config": 10, "plan": 10, "scenarios": 10, "batch": 10,
     "cli": 11, "__main__": 12, "__init__": 12,
 }

@@ -252,6 +252,10 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
     fixed = make_dynamics("n-body", steps_per_orbit=24)
     assert make_dynamics(fixed.label, **fixed.settings).describe() == fixed.describe()
     assert fixed.describe()["steps_per_orbit"] == 24 and "rtol" not in fixed.describe()
+    linear = make_dynamics("perturbed", j2=0.0138, equatorial_radius="58300 km",
+                           surrogate="linearised")
+    assert make_dynamics(linear.label, **linear.settings).describe()["surrogate"] == \
+        "linearised"
     for options, key in (({"steps_per_orbit": 4}, "dynamics.steps_per_orbit"),
                          ({"steps_per_orbit": 24.5}, "dynamics.steps_per_orbit"),
                          ({"steps_per_orbit": True}, "dynamics.steps_per_orbit"),
@@ -260,7 +264,8 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
                          ({"j2": 0.01}, "dynamics.equatorial_radius"),
                          ({"mutual_pulls": False}, "dynamics.mutual_pulls"),
                          ({"start_evaluations": 3}, "dynamics.start_evaluations"),
-                         ({"rtol": 0.1}, "dynamics.rtol")):
+                         ({"rtol": 0.1}, "dynamics.rtol"),
+                         ({"surrogate": "quadratic"}, "dynamics.surrogate")):
         with pytest.raises(ConfigError) as err:
             make_dynamics("perturbed", **options)
         assert err.value.key == key
@@ -270,9 +275,9 @@ def test_perturbed_settings_round_trip_and_bad_values_name_their_key():
 
 
 
-def _moving_observer_moons(tmp_path):
-    """Two invented moons seen from an invented moving observer: (observations, the
-    moons, their true physical values as the model takes them)."""
+def _moving_observer_moons(tmp_path, epochs=8):
+    """Two invented moons seen from an invented moving observer, ``epochs`` each:
+    (observations, the moons, their true physical values as the model takes them)."""
     import astropy.units as u
 
     from massfit.model.orbit_model import OrbitModel
@@ -284,7 +289,8 @@ def _moving_observer_moons(tmp_path):
     observer = CircularPath(0.93, 330.0, 25.0, 5.0, 200.0, 2461000.5)
     moons = {"a": MoonOrbit(2.3, 0.01, 21.0, 40.0, 70.0, 2461001.0),
              "b": MoonOrbit(9.7, 0.03, 23.0, 150.0, 65.0, 2461003.0)}
-    times = {name: moon_times(2461000.5, 40.0, 8, seed=k) for k, name in enumerate(moons)}
+    times = {name: moon_times(2461000.5, 40.0, epochs, seed=k)
+             for k, name in enumerate(moons)}
     observe_moons(times, moons, 7.3e-4, planet, observer, error=2e-3 * u.arcsec,
                   seed=1).write(tmp_path / "m.ecsv")
     obs = read_observations(tmp_path / "m.ecsv")

@@ -16,7 +16,7 @@ from massfit.cli.options import (apply_central_mass_options, apply_dynamics_opti
 from massfit.cli.status import (EXIT_NOT_CONVERGED, EXIT_OK, EXIT_POOR_FIT, FIT_EXIT_STATUS,
                                 notice)
 from massfit.errors import ConfigError, WriteError
-from massfit.sample.nested import ENGINES
+from massfit.sample import ENGINES
 
 __all__ = ["add_parser", "run", "fit_into", "finish"]
 

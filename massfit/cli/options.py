@@ -63,13 +63,18 @@ def dynamics_options(parser):
     group.add_argument("--start-evaluations", type=int, metavar="N",
                        help="perturbed, n-body: cap on the evaluations of each "
                             "least-squares pass of the start (default 300)")
+    group.add_argument("--surrogate", choices=("none", "linearised"),
+                       help="perturbed, n-body: sample through a surrogate linearised "
+                            "about the start and checked against the integrator at "
+                            "draws of the chain (default none: the integrator at every "
+                            "step)")
     group.add_argument("--romer-delay", action="store_true",
                        help="delay each companion by the light time across the system")
 
 
 DYNAMICS_OPTIONS = ("j2", "j4", "equatorial_radius", "equator_inclination",
                      "equator_node", "mutual_pulls", "rtol", "steps_per_orbit",
-                     "start_evaluations")
+                     "start_evaluations", "surrogate")
 
 
 def apply_dynamics_options(args, system):

@@ -11,7 +11,7 @@ __all__ = ["add_parser", "run"]
 
 
 def add_parser(sub):
-    from massfit.plot.figures import FIGURES
+    from massfit.plot.catalogue import FIGURE_FUNCTIONS
 
     redraw = sub.add_parser(
         "redraw", help="draw the figures and tables of a saved result again",
@@ -21,7 +21,7 @@ def add_parser(sub):
     redraw.add_argument("folder", metavar="DIR", help="a massfit output folder")
     redraw.add_argument("--figures", metavar="NAME,...", default=None,
                         help="figures to draw (default: those the fit writes), from: "
-                             + ", ".join(FIGURES))
+                             + ", ".join(FIGURE_FUNCTIONS))
     redraw.add_argument("--formats", metavar="EXT,...", default="png,pdf",
                         help="file formats (any matplotlib writes: png, pdf, svg, "
                              "eps...; default %(default)s)")

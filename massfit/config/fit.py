@@ -50,6 +50,8 @@ instead)::
     # steps_per_orbit = 24            # perturbed, n-body: fixed steps instead (faster
                                       #   where the data's errors allow; see the docs)
     start_evaluations = 300           # perturbed, n-body: cap per least-squares pass
+    surrogate = "linearised"          # perturbed, n-body: sample a linearised surrogate
+                                      #   checked against the integrator (or "none")
     compare_keplerian = true          # adequacy: also fit the two-body model
 
     [frame]                           # the primary's own place and motion in the data's
@@ -129,7 +131,7 @@ _SCHEMA = {
                    "jitter_prior": dict, "instruments": dict},
     "dynamics": {"model": str, "j2": float, "j4": float, "equatorial_radius": str,
                  "equator_inclination": str, "equator_node": str, "rtol": float,
-                 "steps_per_orbit": int,
+                 "steps_per_orbit": int, "surrogate": str,
                  "mutual_pulls": bool, "start_evaluations": int,
                  "compare_keplerian": bool},
     "frame": {f"{term}_prior": dict for term in ("east", "north", "motion_east",

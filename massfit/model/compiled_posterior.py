@@ -51,15 +51,16 @@ _TRANSFORMS = {"identity": 0, "log10": 1, "cos": 2, "disc": 3}
 _PRIORS = {Uniform: 0, LogUniform: 1, Normal: 2}
 
 
-def why_not_compiled(model) -> str | None:
-    """Why ``model`` takes the Python path (a short phrase), or None if it qualifies."""
+def why_not_compiled(model, *, any_dynamics=False) -> str | None:
+    """Why ``model`` takes the Python path (a short phrase), or None if it qualifies
+    (``any_dynamics``: whatever its dynamics, for the two-body part of a surrogate)."""
     if kepler.numba_kernel is None:
         return "numba is not installed"
     spec = model.spec
     for item in dataclasses.fields(spec):
         if item.name not in KNOWN_SETTINGS and getattr(spec, item.name) != _default(item):
             return f"the model setting '{item.name}' is not compiled"
-    if type(model.dynamics) is not Keplerian:
+    if type(model.dynamics) is not Keplerian and not any_dynamics:
         return f"the {model.dynamics.label} dynamics"
     if spec.romer_delay:
         return "the light time across the system"
@@ -173,6 +174,9 @@ class CompiledPosterior:
         self._velocities(model)
         self._priors(model)
         self._window_key = None
+        #: A linear correction (theta0, power, mix, base, slope): see
+        #: :mod:`massfit.model.surrogate`; empty here.
+        self.linear = _NO_LINEAR
 
     def _velocities(self, model):
         vel = model.velocity_rows
@@ -274,7 +278,7 @@ class CompiledPosterior:
         return (self.comp_i, self.comp_f, self.glob_i, self.glob_f, self.rows,
                 self.uses_parallax, self.sight, self.vel, self.vel_i, self.inst_i,
                 self.inst_f, self.low, self.high, self.discs_i, self.discs_f, win_i, win_f,
-                self.var_i, self.var_f, *change)
+                self.var_i, self.var_f, *change, *self.linear)
 
     def __call__(self, sampled, change=None, *, window_key=None):
         """Log-posterior of each row of ``sampled`` (n, n_dim), -inf outside the support.
@@ -300,6 +304,10 @@ class CompiledPosterior:
 _NO_CHANGE = (np.zeros((0, 6), dtype=np.int64), np.zeros((0, 3)),
               np.zeros((0, 6), dtype=np.int64), np.zeros((0, 6)),
               np.zeros(0, dtype=np.int64), np.full(2, -1, dtype=np.int64))
+
+
+_NO_LINEAR = (np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros((0, 0)),
+              np.zeros((2, 0)), np.zeros((2, 0, 0)))
 
 
 def _scale_slot(column, name, prior):

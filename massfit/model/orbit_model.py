@@ -466,6 +466,15 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
         east, north = observed_offsets(self, phys)[name]
         return self._in_frame(self.rows[name], east, north, phys)
 
+    def all_predicted_offsets(self, theta) -> dict:
+        """:meth:`predicted_offsets` of every companion with astrometry from one
+        evaluation of the dynamics (one integration where they are integrated):
+        name -> (east, north), each (n, n_rows)."""
+        phys = self.physical(np.atleast_2d(theta))
+        offsets = observed_offsets(self, phys)
+        return {name: self._in_frame(self.rows[name], *offsets[name], phys)
+                for name in self.rows}
+
     def _in_frame(self, rows, east, north, phys):
         """Offsets from the primary (au) as the data give them: scaled to arcsec, and
         moved by the primary's own place in the frame where frame terms are on."""

@@ -21,6 +21,14 @@ time along it (0/1). ``sight`` (10, rows): each row's unit vectors towards the p
 east and north (ICRS), and its distance (au); empty without a line of sight. ``glob_f``: fixed central mass, fixed parallax (mas), the
 likelihood's normalisation, the trend's epoch, fixed slope, fixed curvature, the
 prior's constant.
+
+``lin_theta0`` (n_dim,), ``lin_power`` (n_dim,), ``lin_mix`` (n_dim, n_dim),
+``lin_base`` (2, rows) and ``lin_slope`` (2, rows, n_dim): where a model is sampled
+through the linearised surrogate (:mod:`massfit.model.surrogate`), with the step
+u(theta) - u(theta0) (u = 10^theta in the columns where ``lin_power`` is 1, theta
+elsewhere), the two-body orbits are computed at theta0 + mix step and each row's two
+predicted values (data units: east and north, or separation and position angle) get
+base + slope step; the prior stays at theta. All empty otherwise.
 """
 
 from __future__ import annotations
@@ -295,29 +303,62 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel
     return chi2
 
 
+@numba.njit(**_jit)
+def _corrected(rows, theta, theta0, power, mix, base,
+               slope):  # pragma: no cover - compiled
+    # The rows with each observed pair moved by -(base + slope step), and the two-body
+    # coordinates theta0 + mix step (step: u(theta) - u(theta0), u = 10^theta where
+    # ``power`` is 1).
+    out = rows.copy()
+    n_dim = theta0.size
+    step = np.empty(n_dim)
+    for k in range(n_dim):
+        if power[k] == 1:
+            step[k] = 10.0 ** theta[k] - 10.0 ** theta0[k]
+        else:
+            step[k] = theta[k] - theta0[k]
+    orbit = theta0.copy()
+    for i in range(n_dim):
+        for k in range(n_dim):
+            orbit[i] += mix[i, k] * step[k]
+    for j in range(rows.shape[1]):
+        first, second = base[0, j], base[1, j]
+        for k in range(n_dim):
+            first += slope[0, j, k] * step[k]
+            second += slope[1, j, k] * step[k]
+        out[2, j] -= first
+        out[3, j] -= second
+    return out, orbit
+
+
 @numba.njit(parallel=True, **_jit)
 def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
                   sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
-                  var_f, lon_i, lon_f, st_i, st_f, st_comp,
-                  angular_i):  # pragma: no cover - compiled
+                  var_f, lon_i, lon_f, st_i, st_f, st_comp, angular_i, lin_theta0,
+                  lin_power, lin_mix, lin_base,
+                  lin_slope):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
 
     The walkers are shared among numba's threads (``numba.set_num_threads``).
     ``angular_i`` = (mass column, parallax column) where the mass is sampled as
-    log10(M plx^3) and the state vectors in angular units, else (-1, -1).
+    log10(M plx^3) and the state vectors in angular units, else (-1, -1). With a
+    linear correction (``lin_theta0`` not empty) each walker's observed values are
+    moved by minus the correction, which is the correction added to the prediction.
     """
     for w in numba.prange(sampled.shape[0]):
         out[w] = walker_log_posterior(
             sampled[w], comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel,
             vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i, var_f,
-            lon_i, lon_f, st_i, st_f, st_comp, angular_i)
+            lon_i, lon_f, st_i, st_f, st_comp, angular_i, lin_theta0, lin_power, lin_mix,
+            lin_base, lin_slope)
 
 
 @numba.njit(**_jit)
 def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
                          sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f,
                          win_i, win_f, var_i, var_f, lon_i, lon_f, st_i, st_f, st_comp,
-                         angular_i):  # pragma: no cover - compiled
+                         angular_i, lin_theta0, lin_power, lin_mix, lin_base,
+                         lin_slope):  # pragma: no cover - compiled
     """The log-posterior of one walker's coordinates ``sampled`` (n_dim,), -inf outside
     the support: :func:`log_posterior`'s work for one row, callable from other
     compiled code (the sampler's compiled steps)."""
@@ -354,7 +395,11 @@ def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_par
     if math.isfinite(lp):
         east = np.empty(n_rows)
         north = np.empty(n_rows)
-        chi2 = _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight,
+        seen, orbit = rows, theta
+        if lin_theta0.size > 0:
+            seen, orbit = _corrected(rows, theta, lin_theta0, lin_power, lin_mix, lin_base,
+                                     lin_slope)
+        chi2 = _chi2(orbit, comp_i, comp_f, glob_i, glob_f, seen, uses_parallax, sight,
                      vel, vel_i, inst_i, inst_f, east, north)
         lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
     lp = lp + log_jac

@@ -55,11 +55,14 @@ from massfit.errors import ConfigError
 from massfit.orbits.oblate import primary_figure
 from massfit.priors import Fixed, LogUniform
 
-__all__ = ["Perturbed", "FORCES", "DEFAULT_MASS_PRIOR"]
+__all__ = ["Perturbed", "FORCES", "DEFAULT_MASS_PRIOR", "SURROGATES"]
 
 TWO_PI = 2.0 * np.pi
 #: The forces the model can switch on, as named in ``describe()``.
 FORCES = ("zonal harmonics", "mutual pulls")
+#: What ``surrogate`` accepts: sample the integrated model itself, or the linearised
+#: surrogate checked against it (:mod:`massfit.model.surrogate`).
+SURROGATES = ("none", "linearised")
 #: Prior for companion masses the user left unstated (nominal solar masses).
 DEFAULT_MASS_PRIOR = LogUniform(1e-12, 10.0)
 
@@ -91,6 +94,11 @@ class Perturbed(Keplerian):
     mass_prior : Prior, optional
         Prior for the masses of companions whose mass is left unstated (with mutual
         pulls); :data:`DEFAULT_MASS_PRIOR` by default.
+    surrogate : {"none", "linearised"}
+        How a fit samples the posterior: with the integrator at every step, or through
+        the linearised surrogate (the compiled two-body kernel plus this model's
+        departure from it, linear in the parameters about the start), checked against
+        the integrator at draws of the chain (:mod:`massfit.linearised_fit`).
     compiled : bool, optional
         Which integrator (None: the compiled one where numba is installed); for checks
         and benchmarks, not a config setting.
@@ -103,7 +111,10 @@ class Perturbed(Keplerian):
 
     def __init__(self, *, j2=0.0, j4=0.0, equatorial_radius=None, equator_inclination=None,
                  equator_node=None, mutual_pulls=True, rtol=1e-12, steps_per_orbit=None,
-                 start_evaluations=300, mass_prior=None, compiled=None):
+                 start_evaluations=300, mass_prior=None, compiled=None, surrogate="none"):
+        if surrogate not in SURROGATES:
+            raise ConfigError(f"surrogate must be one of {', '.join(SURROGATES)}, got "
+                              f"{surrogate!r}", key="dynamics.surrogate")
         if isinstance(rtol, bool) or not isinstance(rtol, (int, float)) \
                 or not 1e-14 <= rtol <= 1e-6:
             raise ConfigError(f"the integrator's relative tolerance must be a number "
@@ -132,6 +143,7 @@ class Perturbed(Keplerian):
         self.start_evaluations = start_evaluations
         self.mass_prior = mass_prior if mass_prior is not None else DEFAULT_MASS_PRIOR
         self.compiled = compiled
+        self.surrogate = surrogate
         #: Absolute JD of the osculating elements (None: the model's epoch); the staged
         #: start sets it so that models of part of the data share the full one's epoch.
         self.epoch_jd = None
@@ -139,14 +151,17 @@ class Perturbed(Keplerian):
             j2=j2, j4=j4, equatorial_radius=equatorial_radius,
             equator_inclination=equator_inclination, equator_node=equator_node,
             mutual_pulls=mutual_pulls, rtol=rtol, steps_per_orbit=steps_per_orbit,
-            start_evaluations=start_evaluations).items() if v is not None}
+            start_evaluations=start_evaluations, surrogate=surrogate).items()
+            if v is not None}
 
     def _steps(self) -> dict:
-        """The integrator's setting, for ``describe()``."""
+        """The integrator's setting and the sampling's, for ``describe()``."""
         if self.steps_per_orbit is None:
-            return {"integrator": "DOP853, adaptive steps", "rtol": self.rtol}
-        return {"integrator": "DOP853's 8th-order solution, fixed steps",
-                "steps_per_orbit": self.steps_per_orbit}
+            out = {"integrator": "DOP853, adaptive steps", "rtol": self.rtol}
+        else:
+            out = {"integrator": "DOP853's 8th-order solution, fixed steps",
+                   "steps_per_orbit": self.steps_per_orbit}
+        return dict(out, surrogate=self.surrogate)
 
     @property
     def has_harmonics(self) -> bool:
@@ -524,13 +539,14 @@ class NBody(Perturbed):
     label = "n-body"
 
     def __init__(self, rtol=1e-12, mass_prior=None, compiled=None, start_evaluations=300,
-                 steps_per_orbit=None):
+                 steps_per_orbit=None, surrogate="none"):
         super().__init__(mutual_pulls=True, rtol=rtol, mass_prior=mass_prior,
                          compiled=compiled, start_evaluations=start_evaluations,
-                         steps_per_orbit=steps_per_orbit)
+                         steps_per_orbit=steps_per_orbit, surrogate=surrogate)
         self.settings = {k: v for k, v in dict(
             rtol=rtol, steps_per_orbit=steps_per_orbit,
-            start_evaluations=start_evaluations).items() if v is not None}
+            start_evaluations=start_evaluations, surrogate=surrogate).items()
+            if v is not None}
 
     def describe(self) -> dict:
         return {"model": self.label, **self._steps(),

@@ -13,9 +13,10 @@ __all__ = ["make_dynamics", "MODEL_OPTIONS"]
 MODEL_OPTIONS = {
     "keplerian": (),
     "oblate": ("j2", "equatorial_radius", "equator_inclination", "equator_node"),
-    "n-body": ("rtol", "steps_per_orbit", "start_evaluations"),
+    "n-body": ("rtol", "steps_per_orbit", "start_evaluations", "surrogate"),
     "perturbed": ("j2", "j4", "equatorial_radius", "equator_inclination", "equator_node",
-                  "mutual_pulls", "rtol", "steps_per_orbit", "start_evaluations"),
+                  "mutual_pulls", "rtol", "steps_per_orbit", "start_evaluations",
+                  "surrogate"),
 }
 
 

@@ -10,13 +10,37 @@ periodograms, the O-C in a planet's frame), ``velocities`` (folded and against t
 and ``figures`` (the registry :data:`FIGURES`: file stem -> function).
 """
 
-from massfit.plot.corner import (DEFAULT_COMPANION_QUANTITIES, corner_plot, default_corner_parameters,
-                                 full_corner_plot)
-from massfit.plot.figures import FIGURES, applicable_figures
-from massfit.plot.residuals import equator_residual_plot, periodogram_plot, residual_plot
-from massfit.plot.sky import error_ellipses, orbit_plot
-from massfit.plot.style import COLUMN_WIDTH, PAGE_WIDTH, STYLE, math_name, save_figure, style
-from massfit.plot.velocities import velocity_plot, velocity_time_plot
+# Each public name and its module, imported on first use (``massfit.plot.catalogue``
+# is read by the command line without loading matplotlib).
+_WHERE = {
+    "corner_plot": "massfit.plot.corner", "full_corner_plot": "massfit.plot.corner",
+    "default_corner_parameters": "massfit.plot.corner",
+    "DEFAULT_COMPANION_QUANTITIES": "massfit.plot.corner",
+    "FIGURES": "massfit.plot.figures", "applicable_figures": "massfit.plot.figures",
+    "equator_residual_plot": "massfit.plot.residuals",
+    "periodogram_plot": "massfit.plot.residuals", "residual_plot": "massfit.plot.residuals",
+    "error_ellipses": "massfit.plot.sky", "orbit_plot": "massfit.plot.sky",
+    "COLUMN_WIDTH": "massfit.plot.style", "PAGE_WIDTH": "massfit.plot.style",
+    "STYLE": "massfit.plot.style", "math_name": "massfit.plot.style",
+    "save_figure": "massfit.plot.style", "style": "massfit.plot.style",
+    "velocity_plot": "massfit.plot.velocities",
+    "velocity_time_plot": "massfit.plot.velocities",
+}
+
+
+def __getattr__(name):
+    if name in _WHERE:
+        import importlib
+
+        value = getattr(importlib.import_module(_WHERE[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'massfit.plot' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_WHERE))
+
 
 __all__ = ["corner_plot", "full_corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
            "velocity_time_plot", "equator_residual_plot", "error_ellipses",

@@ -2,29 +2,24 @@
 which of them a fit's data can fill.
 
 A new figure is a function ``(result, **options) -> Figure`` in the module of its family
-(or a new module beside them) and one entry in :data:`FIGURES`.
+(or a new module beside them) and one entry in
+:data:`massfit.plot.catalogue.FIGURE_FUNCTIONS`.
 """
 
 from __future__ import annotations
 
+import importlib
+
 import numpy as np
 
-from massfit.plot.corner import corner_plot, full_corner_plot
-from massfit.plot.dark_mass import frame_orbit_plot, redshift_plot
-from massfit.plot.residuals import equator_residual_plot, periodogram_plot, residual_plot
-from massfit.plot.sky import orbit_plot
-from massfit.plot.velocities import velocity_plot, velocity_time_plot
+from massfit.plot.catalogue import FIGURE_FUNCTIONS, ON_REQUEST
 
 __all__ = ["FIGURES", "ON_REQUEST", "applicable_figures"]
 
-#: File stem in an output folder -> figure function.
-FIGURES = {"corner": corner_plot, "orbits": orbit_plot, "residuals": residual_plot,
-           "periodogram": periodogram_plot, "rv": velocity_plot, "rv_time": velocity_time_plot,
-           "equator_residuals": equator_residual_plot, "corner_full": full_corner_plot,
-           "frame_orbits": frame_orbit_plot, "rv_redshift": redshift_plot}
-
-#: Figures drawn only when asked for by name (not part of every output folder).
-ON_REQUEST = ("corner_full",)
+#: File stem in an output folder -> figure function (named in
+#: :data:`massfit.plot.catalogue.FIGURE_FUNCTIONS`).
+FIGURES = {stem: getattr(importlib.import_module(module), function)
+           for stem, (module, function) in FIGURE_FUNCTIONS.items()}
 
 #: Figures that need relative astrometry.
 _SKY_FIGURES = ("orbits",)

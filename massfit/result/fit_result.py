@@ -222,6 +222,8 @@ class FitResult:
                                        "likelihood's Gaussian normalisation included")
             summary["weighed_modes"] = weighed_mode_blocks(chain.modes, chain.mode_members,
                                                            s)
+        if getattr(chain, "surrogate", None):
+            summary["surrogate"] = chain.surrogate  # massfit/linearised_fit.py
         if self.checks.get("central_mass_over_modes") is not None:
             summary["central_mass_over_modes"] = self.checks["central_mass_over_modes"]
         summary["prior_sensitivity"] = self.checks.get("prior_sensitivity")
@@ -339,6 +341,10 @@ class FitResult:
             lines.extend(nested_lines(s, self.converged))
         else:
             lines.extend(self._chain_lines(d, s))
+        if s.get("surrogate"):
+            from massfit.model.surrogate import check_line
+
+            lines.append(check_line(s["surrogate"]))
         for text in s["warnings"]:
             lines.append(f"  warning: {text}")
         inputs = s["inputs"]

@@ -39,6 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from massfit.sample import ENGINES  # noqa: F401 (named here too, for older callers)
 from massfit.sample.chain import Chain
 from massfit.sample.prior_transform import PriorTransform, flat_box
 from massfit.sample.nested_boxes import (EDGE_LIMIT, MAX_WIDENINGS, WIDEN, boxes_of,
@@ -57,8 +58,6 @@ AGREEMENT_SIGMAS = 3.0
 #: within their stated ln Z errors (0.23) and the weights match importance sampling
 #: to 0.01 (docs/validation.md, "The nested sampler").
 LIVE_PER_DIMENSION = 75
-#: The engines ``--sampler`` accepts.
-ENGINES = ("emcee", "nested")
 #: Draws from the (weighted) posterior handed on as the result's samples.
 POSTERIOR_DRAWS = 20_000
 #: Draws of the ln Z errors used to propagate them into the modes' weights.

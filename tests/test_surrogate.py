@@ -1,0 +1,107 @@
+"""The linearised surrogate of the integrated model against the integrator itself.
+
+The reference is massfit's integrator of the perturbed model (J2 and mutual pulls),
+which agrees with REBOUND's IAS15 and REBOUNDx's harmonics to the accuracy stated in
+``tests/test_perturbed.py`` (open reference libraries: Rein & Liu 2012, Tamayo et al.
+2020). The tolerance stated here: every predicted value within 0.05 of its error at
+draws of the Laplace approximation, and the importance weights' effective sample size
+above 90 % (``MIN_ESS_FRACTION``); the negative control (draws 30 times wider) shows
+that the check fails where the linearisation does.
+"""
+
+import numpy as np
+import pytest
+
+from massfit.orbits import kepler
+
+pytestmark = pytest.mark.skipif(kepler.numba_kernel is None,
+                                reason="the surrogate needs the compiled kernel")
+
+
+def _model_at_truth(tmp_path, epochs=40, **options):
+    from test_perturbed import _moving_observer_moons
+
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.model.specs import SystemSpec
+    from massfit.orbits.perturbed import Perturbed
+    from massfit.start.least_squares import covariance_at
+
+    obs, moons, values = _moving_observer_moons(tmp_path, epochs)
+    dynamics = Perturbed(j2=0.01, equatorial_radius="60000 km", steps_per_orbit=24,
+                         **options)
+    model = OrbitModel(obs, SystemSpec(dynamics=dynamics))
+    for name, mass in zip(moons, (3e-8, 9e-8)):  # invented masses: pulls switched on
+        values[name] = dict(values[name], mass=mass)
+    model.centres = {name: {"node": values[name]["node"], "phase": np.pi} for name in moons}
+    theta = model.recentre(model.from_physical(values))
+    # The rows replaced by the integrated model's own offsets at theta plus noise of
+    # their errors, so that theta fits (chi^2 about the number of values).
+    rng = np.random.default_rng(7)
+    for name, (east, north) in model.all_predicted_offsets(theta).items():
+        rows = model.rows[name]
+        assert rows.polar.size == 0
+        rows.east = east[0] + rows.east_err * rng.standard_normal(rows.east.size)
+        rows.north = north[0] + rows.north_err * rng.standard_normal(rows.north.size)
+    return model, theta, covariance_at(model, theta)
+
+
+def test_linearised_surrogate_agrees_with_the_integrator(tmp_path):
+    from massfit.model.surrogate import (LinearisedPosterior, packed_values,
+                                         surrogate_check)
+
+    model, theta, cov = _model_at_truth(tmp_path)
+    surrogate = LinearisedPosterior(model, theta, np.sqrt(np.diag(cov)))
+    # The integrated orbits are far from the two-body ones from the same elements
+    # (hundreds of errors): the correction is not small, only smooth.
+    assert surrogate.largest_departure > 100
+    # At the linearisation point the compiled surrogate is the exact log-posterior.
+    exact = model.log_prob_python(theta[None])
+    np.testing.assert_allclose(surrogate(theta[None]), exact, rtol=1e-12)
+    np.testing.assert_allclose(surrogate.values(theta[None]), packed_values(model, theta),
+                               rtol=0, atol=1e-9 * np.max(np.abs(packed_values(model, theta))))
+    draws = np.random.default_rng(3).multivariate_normal(theta, cov, size=40)
+    check = surrogate_check(model, surrogate, draws)
+    assert check["finite"] == 40
+    assert check["largest_value_error_sigma"] < 0.05
+    assert check["ess_fraction"] > 0.9 and check["passed"]
+    # Negative control: 30 times the posterior's width is far outside what a linear
+    # correction follows, and the check says so.
+    wide = np.random.default_rng(4).multivariate_normal(theta, 900 * cov, size=40)
+    control = surrogate_check(model, surrogate, wide)
+    assert control["largest_value_error_sigma"] > 0.05
+    assert not control["passed"]
+
+
+@pytest.mark.slow  # a whole fit (the staged start, three short chains): about 20 s
+def test_a_fit_whose_surrogate_check_fails_is_not_converged(tmp_path, monkeypatch):
+    # Three linearisations, every check failing (the threshold raised past 100 %):
+    # the chain is not converged whatever its autocorrelation time (here every
+    # autocorrelation test passes), and the summary and the report say why.
+    import massfit.model.surrogate as surrogate
+    from massfit import fit
+    from massfit.linearised_fit import ROUNDS
+    from massfit.model.specs import SystemSpec
+
+    import massfit.sample.chain as chain
+
+    model, theta, _ = _model_at_truth(tmp_path, surrogate="linearised")
+    monkeypatch.setattr(surrogate, "MIN_ESS_FRACTION", 1.01)
+    # Every chain passes its autocorrelation test, so that only the check can fail.
+    update = chain.ConvergenceTest.update
+
+    def passing(self, steps):
+        out = update(self, steps)
+        self.converged = True
+        return out
+
+    monkeypatch.setattr(chain.ConvergenceTest, "update", passing)
+    result = fit(model.observations, SystemSpec(dynamics=model.dynamics), seed=2,
+                 max_steps=100, check_every=100, progress=False)
+    block = result.summary["surrogate"]
+    assert len(block["rounds"]) == ROUNDS and not block["passed"]
+    assert all(r["chain_converged"] for r in block["rounds"])
+    assert not result.converged
+    assert any("linearised surrogate did not match" in w
+               for w in result.summary["warnings"])
+    assert "FAILED" in result.report()
+    assert result.summary["adequacy"]["dynamics"]["surrogate"] == "linearised"
