@@ -25,6 +25,9 @@ NESTED_PROPOSAL = ("the posterior has separated modes that emcee's walkers canno
                    "fit again with --sampler nested (config: [sampler] engine = "
                    "\"nested\"), which integrates each mode in its own period box and "
                    "gives each mode's probability and the mass over all of them")
+#: Walkers per sampled coordinate where a fit samples the linearised surrogate and no
+#: walker count is given (the emcee default is 2 n_dim + 2, at least 32).
+SURROGATE_WALKERS_PER_DIMENSION = 8
 
 
 def distance_prior(parallax=None, parallax_err=None, distance=None, *, key_prefix="--"):
@@ -161,6 +164,13 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
         observations = with_ephemeris(observations, spec.viewing)
         record = dict(record or {}, viewing=spec.viewing.describe())
     model = OrbitModel(observations, spec)
+    surrogate, notes = _surrogate(model, engine)
+    if surrogate and settings.walkers is None:
+        # The surrogate makes a walker cheap; an ensemble of a few times the dimension
+        # mixes far better in the tens of correlated coordinates of a moon system
+        # (validation: on the real moons 4x the walkers gave ~4x the effective samples
+        # per CPU-second).
+        settings = replace(settings, walkers=SURROGATE_WALKERS_PER_DIMENSION * model.n_dim)
     resumed = None
     if resume:
         if checkpoint is None:
@@ -181,7 +191,6 @@ def fit(observations, system: SystemSpec | None = None, *, sampler: SamplerSetti
 
             write_meta(checkpoint, model=model, start=start, initial=initial,
                        settings=settings, started_utc=started)
-    surrogate, notes = _surrogate(model, engine)
     if engine == "nested":
         nested = replace(nested or NestedSettings(), seed=settings.seed)
         nested.check()

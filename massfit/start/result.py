@@ -100,8 +100,17 @@ class Start:
 
 def _take_inside(model, trial, points, filled) -> int:
     """Copy the ``trial`` points inside the prior's support into ``points`` after the
-    first ``filled``, as many as fit; return the new count."""
-    good = trial[np.isfinite(model.log_prob(trial))]
-    take = min(len(good), len(points) - filled)
-    points[filled:filled + take] = good[:take]
-    return filled + take
+    first ``filled``, as many as fit, in order; return the new count.
+
+    The prior screens every point; the whole log-posterior is evaluated only on as
+    many as are still needed (an integrated model costs a whole integration a point:
+    a fit of four moons with 240 walkers spent minutes on the 960 trial points)."""
+    inside = trial[np.isfinite(model.log_prior(np.atleast_2d(trial)))]
+    used = 0
+    while filled < len(points) and used < len(inside):
+        chunk = inside[used:used + len(points) - filled]
+        used += len(chunk)
+        good = chunk[np.isfinite(model.log_prob(chunk))]
+        points[filled:filled + len(good)] = good
+        filled += len(good)
+    return filled
