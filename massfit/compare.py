@@ -21,14 +21,12 @@ from pathlib import Path
 import numpy as np
 
 from massfit.errors import ConfigError
+from massfit.summarise.adequacy import KASS_RAFTERY, evidence_words, with_evidence
 from massfit.summarise.derived import interval
 from massfit.run import fit
 
 __all__ = ["compare_models", "Comparison", "KASS_RAFTERY"]
 
-#: ln B thresholds and their words (Kass & Raftery 1995, from memory; on ln B = 2 ln B / 2).
-KASS_RAFTERY = ((5.0, "very strong"), (3.0, "strong"), (1.0, "positive"),
-                (0.0, "not worth more than a bare mention"))
 #: Draws of the mixture of the models' central masses.
 AVERAGE_DRAWS = 40_000
 
@@ -101,10 +99,16 @@ class Comparison:
                 "log_bayes_factor_err": float(np.hypot(err[j], err[best])) if j != best
                 else 0.0,
                 "probability": float(prob[j]), "probability_err": float(shares[:, j].std()),
-                "evidence_against_it": None if j == best else _words(-log_b),
+                "evidence_against_it": None if j == best else evidence_words(-log_b),
                 "central_mass_solar": summary.get("central_mass_solar"),
                 "converged": bool(summary["converged"]),
                 "fit_quality": summary["fit_quality"]["verdict"]}
+        # Each model's adequacy block now judged by the evidence (it says so).
+        for label in labels:
+            summary = self.results[label].summary
+            if summary.get("adequacy"):
+                summary["adequacy"] = with_evidence(summary["adequacy"], label, models)
+                models[label]["adequacy_verdicts"] = list(summary["adequacy"]["verdicts"])
         counts = rng.multinomial(AVERAGE_DRAWS, prob)
         mixture = [rng.choice(self.results[k].samples["central_mass_solar"], size=n)
                    for k, n in zip(labels, counts)
@@ -121,21 +125,27 @@ class Comparison:
     def report(self) -> str:
         """A plain-text table for the terminal."""
         s = self.summary
-        lines = [f"{'model':<20} {'ln Z':>12} {'ln B vs best':>16} {'probability':>16}  "
-                 f"central mass (M_sun, 68 %)"]
+        rows = [("model", "ln Z", "ln B vs best", "probability",
+                 "central mass (M_sun, 68 %)")]
         for label, m in s["models"].items():
             mass = m["central_mass_solar"]
             mass_text = ("-" if not mass or mass["median"] is None else
                          f"{mass['median']:.5g} ({mass['lower_68']:.5g} .. "
                          f"{mass['upper_68']:.5g})")
-            lines.append(f"{label:<20} {m['log_evidence']:>8.2f} +- {m['log_evidence_err']:<4.2f}"
-                         f"{m['log_bayes_factor']:>9.2f} +- {m['log_bayes_factor_err']:<4.2f}"
-                         f"{m['probability']:>9.3f} +- {m['probability_err']:<5.3f} "
-                         f"{mass_text}{'' if m['converged'] else '  (NOT converged)'}")
+            rows.append((label, f"{m['log_evidence']:.2f} +- {m['log_evidence_err']:.2f}",
+                         f"{m['log_bayes_factor']:.2f} +- {m['log_bayes_factor_err']:.2f}",
+                         f"{m['probability']:.3f} +- {m['probability_err']:.3f}",
+                         mass_text + ("" if m["converged"] else "  (NOT converged)")))
+        widths = [max(len(row[j]) for row in rows) for j in range(len(rows[0]))]
+        lines = ["  ".join(cell.ljust(w) if j in (0, 4) else cell.rjust(w)
+                           for j, (cell, w) in enumerate(zip(row, widths))).rstrip()
+                 for row in rows]
         for label, m in s["models"].items():
             if m["evidence_against_it"] is not None:
                 lines.append(f"  against {label}: {m['evidence_against_it']} evidence "
                              f"for {s['best']}")
+        for label, m in s["models"].items():
+            lines += [f"  adequacy of {label}: {text}" for text in m.get("adequacy_verdicts", [])]
         avg = s["central_mass_solar_averaged"]
         if avg is not None:
             lines.append(f"central mass averaged over the models: {avg['median']:.5g} M_sun "
@@ -153,8 +163,3 @@ class Comparison:
             write_json(tmp / "comparison.json", self.summary)
             (tmp / "comparison.txt").write_text(self.report() + "\n")
         return out
-
-
-def _words(log_b):
-    """Kass & Raftery's words for ln B (of the better model over the other)."""
-    return next(words for limit, words in KASS_RAFTERY if log_b >= limit)

@@ -81,6 +81,22 @@ def test_prior_transform_draws_the_model_prior(tmp_path):
     assert blocks[1]["period"]["Tamsin"]["lower_95"] >= 600.0
     # Negative control: the period against a uniform (not log-uniform) prior fails.
     assert stats.ks_2samp(orbit["period"], Uniform(100.0, 3000.0).sample(rng, n)).pvalue < 1e-6
+    # The inverse map and the prior's density in the model's coordinates (used for the
+    # Laplace check of ln Z), against the change of variables written out by hand:
+    # log10 M and log10 P flat over their decades; the parallax normal; (sqrt e cos w,
+    # sqrt e sin w) = r (cos w, sin w) with e = r^2 uniform on [0, 0.8] and w uniform,
+    # dx dy = de dw / 2, so the density is 2 / (0.8 * 2 pi); cos i with i normal:
+    # p(i) / sin i; the node and phase flat over their windows (pi, 2 pi).
+    for u in rng.uniform(0.05, 0.95, size=(3, model.n_dim)):
+        point = transform(u)
+        assert np.allclose(transform.inverse(point), u, atol=1e-9)
+        inc = np.arccos(point[5])
+        by_hand = (-np.log(2.0) - np.log(np.log10(30.0))
+                   + spec.parallax.log_pdf(np.array([point[1]]))[0]
+                   + np.log(2.0 / (0.8 * 2 * np.pi))
+                   + spec.companions["Tamsin"].inclination.log_pdf(np.array([inc]))[0]
+                   - np.log(np.sin(inc)) - np.log(np.pi) - np.log(2 * np.pi))
+        assert transform.log_density(point) == pytest.approx(by_hand, abs=1e-5)
 
 
 def test_evidence_of_a_linear_gaussian_model():
@@ -295,3 +311,73 @@ def test_fast_likelihood_and_folding_keep_the_same_orbits():
                + np.log(np.pi) + np.log(2 * np.pi))
     assert np.allclose(model.log_prior(folded), proper + np.log(2 * np.pi * 2 * np.pi),
                        rtol=0, atol=1e-9)
+
+
+def test_mirror_images_split_the_node_circle_in_halves(tmp_path):
+    """With radial velocities the node runs over a whole turn and the two mirror images
+    (node, omega) and (node + pi, omega + pi) are two modes: each box is split into the
+    two halves of the node circle about the solution's node, each of prior probability
+    1/2, that together cover the circle (nothing assumed outside them). Without
+    velocities (a half-turn node window) there is nothing to split (the control)."""
+    import astropy.units as u
+    from astropy.time import Time
+
+    from massfit.read.tables import read_observations
+    from massfit.sample.nested_boxes import boxes_of, in_node_half, mirror_bodies
+    from massfit.scenarios.examples import tamsin
+    from massfit.scenarios.simulate import Elements, read_back, simulate_velocities
+
+    table, _ = tamsin(4)
+    elements = {"Tamsin": Elements(period=305.0, ecc=0.18, inc=62.0, omega=120.0,
+                                   node=35.0, periapsis_time=2458610.0)}
+    rv = simulate_velocities({"Tamsin": Time(2458600.0 + 40.0 * np.arange(6), format="jd",
+                                             scale="tdb")}, elements, 1.15,
+                             error=5.0 * u.km / u.s, seed=1)
+    spec = SystemSpec(parallax=Fixed(25.0))
+    alone = OrbitModel(read_back(table), spec)
+    assert mirror_bodies(alone) == []
+    table.write(tmp_path / "sky.ecsv", format="ascii.ecsv")
+    rv.write(tmp_path / "rv.ecsv", format="ascii.ecsv")
+    model = OrbitModel(read_observations([tmp_path / "sky.ecsv", tmp_path / "rv.ecsv"]),
+                       spec)
+    assert mirror_bodies(model) == ["Tamsin"]
+    k = model.column_of["Tamsin.node"]
+    start = SimpleNamespace(candidate_modes=[], theta=np.zeros(model.n_dim),
+                            covariance=np.full((model.n_dim, model.n_dim), np.nan))
+    plan = boxes_of(start, model)
+    assert len(plan) == 2 and all(mode is None for mode, _ in plan)
+    halves = [boxes["Tamsin.node"] for _, boxes in plan]
+    nodes = np.linspace(-10.0, 10.0, 2001)
+    inside = [in_node_half(nodes, half) for half in halves]
+    assert np.all(inside[0] ^ inside[1])  # every node in exactly one half
+    rng = np.random.default_rng(4)
+    for (_, boxes), half in zip(plan, halves):
+        transform = PriorTransform(model, boxes)
+        assert transform.log_box_mass == pytest.approx(np.log(0.5))
+        assert k in transform.bounded
+        drawn = np.array([transform(u)[k] for u in rng.uniform(size=(200, model.n_dim))])
+        assert np.all(in_node_half(drawn, half))
+
+
+def test_a_box_too_narrow_is_widened(monkeypatch):
+    """A single solution whose least-squares deviation is 30 times too small: its box
+    (10 of those deviations, a third of the bump's) cuts the posterior, whose weight then reaches the box's
+    edges; the box is widened until it holds it, and ln Z is the closed form (the bump's
+    mass over the prior's 3 decades, times the nuisance's 1/2). Negative control: the
+    first, narrow box's own ln Z is far below it."""
+    import massfit.sample.nested as nested
+    from massfit.sample.nested_boxes import own_box
+
+    model = _two_mode_model((1.0, 1e-12), (0.8, 2.5))
+    start = SimpleNamespace(candidate_modes=[], theta=np.array([0.8, 0.1]),
+                            covariance=np.diag([0.0003 ** 2, 0.2 ** 2]))
+    monkeypatch.setattr(nested, "laplace_log_evidence", lambda *args: None)
+    chain = run_nested(model, start, NestedSettings(live_points=30, runs=1, seed=3))
+    assert any("widened by a factor 4" in note for note in chain.notes)
+    exact = np.log(1.0 / 3.0) + np.log(0.5)
+    err = chain.evidence["log_evidence_err"]
+    assert chain.converged and abs(chain.evidence["log_evidence"] - exact) < 3 * err
+    low, high = chain.modes[0]["period_boxes_days"]["b"]
+    assert np.log10(high) - 0.8 > 4 * 0.01  # widened twice: it holds the bump (sd 0.01)
+    narrow = nested_box(model, NestedSettings(live_points=30), 5, own_box(start, model))
+    assert narrow["log_z"] + narrow["log_box_mass"] < exact - 1.0

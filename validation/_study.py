@@ -34,3 +34,23 @@ def run_or_redraw(args, compute, summarise, figure):
     figure(report, args.figure)
     print(f"figure: {args.figure}")
     return report
+
+
+def read_records(path) -> dict:
+    """A study's results file of one JSON record a line, as index -> record ({} where
+    there is no file yet): what a resumed study has done. A line cut short by an
+    interrupted write (the last one) is left out, to be redone."""
+    path = Path(path)
+    done = {}
+    if not path.exists():
+        return done
+    lines = path.read_text().splitlines()
+    for k, line in enumerate(lines):
+        try:
+            record = json.loads(line)
+        except json.JSONDecodeError:
+            if k == len(lines) - 1:
+                continue  # the interrupted last write
+            raise
+        done[record["index"]] = record
+    return done

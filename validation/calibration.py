@@ -31,6 +31,9 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 
 import numpy as np  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _study import read_records  # noqa: E402
+
 ROOT = Path(__file__).resolve().parents[1]
 SPAN_DAYS = 1000.0  # time covered by the data of every system
 ERROR_AU = 0.02  # 1-sigma error of each offset, the same for every system
@@ -254,11 +257,7 @@ def main(argv=None):
                             fit=not args.report_only)
     results = Path(args.results)
     results.parent.mkdir(parents=True, exist_ok=True)
-    done = {}
-    if results.exists():
-        for line in results.read_text().splitlines():
-            record = json.loads(line)
-            done[record["index"]] = record
+    done = read_records(results)
     todo = [k for k in range(args.systems) if k not in done]
     if todo and not args.report_only:
         from multiprocessing import Pool
@@ -299,11 +298,10 @@ def refit_capped(results, max_steps, workers, *, fit=True):
     """
     from multiprocessing import Pool
 
-    first = {r["index"]: r for r in map(json.loads, results.read_text().splitlines())}
+    first = read_records(results)
     capped = sorted(k for k, r in first.items() if "failed" not in r and not r["converged"])
     store = results.parent / "calibration_refit.jsonl"
-    refits = ({r["index"]: r for r in map(json.loads, store.read_text().splitlines())}
-              if store.exists() else {})
+    refits = read_records(store)
     todo = [k for k in capped if k not in refits] if fit else []
     options = {"max_steps": max_steps}
     with Pool(workers) as pool, open(store, "a") as handle:

@@ -9,6 +9,10 @@ with J2 = 0 (a two-body orbit) as the negative control. Each table is fitted wit
 :func:`massfit.compare.compare_models` under the J2 model (the true J2 and radius)
 and the two-body model.
 
+Each model's nested runs are made in a period box about its own least-squares
+solution (the engine's box for a single solution, :mod:`massfit.sample.nested_boxes`)
+and each ln Z is recorded with the Laplace estimate about that solution.
+
 Expected: ln B(J2 : two-body) strongly positive on the J2 data; on the two-body data
 not positive beyond its error (a J2 model with J2 fixed has no extra parameter, so
 there is no Occam factor: the data must speak against it).
@@ -93,6 +97,9 @@ def main(argv=None):
                                        "two-body": SystemSpec(**priors)},
                                  nested=NestedSettings(live_points=args.live), seed=seed)
             m = cmp.summary["models"]
+            for label, result in cmp.results.items():  # the Laplace check of each ln Z
+                m[label]["laplace_log_evidence"] = result.summary["evidence"].get(
+                    "laplace_log_evidence")
             log_b = m["j2"]["log_evidence"] - m["two-body"]["log_evidence"]
             err = float(np.hypot(m["j2"]["log_evidence_err"],
                                  m["two-body"]["log_evidence_err"]))

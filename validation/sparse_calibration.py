@@ -37,6 +37,7 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 import numpy as np  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _study import read_records  # noqa: E402
 from calibration import assess  # noqa: E402
 
 RESULTS = Path(__file__).parent / "results" / "sparse_calibration.jsonl"
@@ -108,11 +109,7 @@ def main(argv=None):
     args = parser.parse_args(argv)
     path = Path(args.results)
     path.parent.mkdir(parents=True, exist_ok=True)
-    done = {}
-    if path.exists():
-        for line in path.read_text().splitlines():
-            record = json.loads(line)
-            done[record["index"]] = record
+    done = read_records(path)
     for k in range(args.systems):
         if k in done or args.report_only:
             continue

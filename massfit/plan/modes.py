@@ -38,7 +38,18 @@ def read_modes(folder) -> list:
     modes = summary.get("weighed_modes") if isinstance(summary, dict) else None
     if not isinstance(modes, list) or len(modes) < 2:
         return []
-    return [m for m in modes if isinstance(m, dict) and m.get("period_boxes_days")]
+    # Mirror images (the same period box, the node half a turn apart) are told apart by
+    # velocities, not by the epochs' sky positions this planner weighs: the planner
+    # takes each period box once, the images' probabilities summed.
+    out = []
+    for mode in (m for m in modes if isinstance(m, dict) and m.get("period_boxes_days")):
+        same = next((o for o in out if o["period_boxes_days"] == mode["period_boxes_days"]),
+                    None)
+        if same is None:
+            out.append(dict(mode))
+        else:
+            same["probability"] = same.get("probability", 0.0) + mode.get("probability", 0.0)
+    return out if len(out) > 1 else []
 
 
 def mode_labels(companions, modes) -> np.ndarray:

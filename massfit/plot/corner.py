@@ -311,7 +311,8 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         options.update(corner_kwargs or {})
         corner.corner(data, **options)
         _overlay_groups(fig, data, groups, result)
-        _tidy_corner(fig, columns, width, show_titles)
+        _tidy_corner(fig, columns, width, show_titles,
+                     modes=len(mode_groups(result)) if groups is None else 0)
     fig.massfit_parameters = list(parameters)
     return fig
 
@@ -398,7 +399,10 @@ def _overlay_groups(fig, data, groups, result):
                 borderaxespad=0.0)
 
 
-def _tidy_corner(fig, columns, width, show_titles):
+def _tidy_corner(fig, columns, width, show_titles, modes=0):
+    """Margins, ticks and the list of values; with ``modes`` (weighed modes) > 1 the
+    list says its values are over all modes and gives no single interval of a period
+    (one interval of the mixture would sit in the heaviest mode; the key gives each)."""
     k = len(columns)
     axes = np.array(fig.axes).reshape(k, k)
     margin_left, margin_bottom = 0.9, 0.7  # inches for tick labels and axis labels
@@ -431,7 +435,12 @@ def _tidy_corner(fig, columns, width, show_titles):
             axes[c, c].set_title(column.value_text(), fontsize=7, pad=3)
     elif k >= 3:
         # The upper triangle is empty: list the values there.
-        text = "\n".join(column.value_text() for column in columns)
+        text = "\n".join(
+            rf"${column.symbol}$: {modes} modes (see the key)"
+            if modes > 1 and column.key.endswith(".period") else column.value_text()
+            for column in columns)
+        if modes > 1:
+            text = f"over all {modes} modes:\n" + text
         if any(column.reference != 0 for column in columns):
             text += "\n" + r"$\Delta$: offset from the median above"
         fig.text(1 - 0.15 / width, 1 - 0.15 / width, text, ha="right", va="top",

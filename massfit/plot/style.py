@@ -222,6 +222,9 @@ def mode_groups(result) -> dict:
         where = ", ".join(f"P {p:.4g} d" for p in periods.values()) or f"mode {k + 1}"
         where = where if len(periods) < 2 else ", ".join(
             f"P({n}) {p:.4g} d" for n, p in periods.items())
+        # A mirror image: the middle of its half of the node circle tells it apart.
+        where += "".join(f", \u03a9 {c:.0f}\u00b0 \u00b1 90\u00b0"
+                         for c in (mode.get("node_half_centre_deg") or {}).values())
         chance = mode.get("probability")
         label = where if chance is None else (
             f"{where}: p = {chance:.2f} \u00b1 {mode.get('probability_err', 0.0):.2f}")

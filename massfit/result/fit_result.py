@@ -9,6 +9,7 @@ import numpy as np
 from astropy.table import Table
 
 from massfit.summarise.dark_mass import summary_blocks, summary_lines
+from massfit.summarise.mode_text import central_mode_lines, nested_lines, period_mode_lines
 from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
                                        in_best_mass_unit, interval)
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
@@ -37,23 +38,17 @@ _COMPANION_LINES = (
 )
 
 
-def _companion_lines(comp) -> list:
+def _companion_lines(comp, period_lines=None) -> list:
+    """A companion's terminal lines; ``period_lines`` (separated modes) replace the
+    period's."""
     lines = []
     for key, unit_note in _COMPANION_LINES:
         if key not in comp:
             continue
-        label, unit = COMPANION[key].plain, COMPANION[key].unit_text.replace(" / ", "/")
-        unit += unit_note
-        note = ""
-        if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
-            note = "; or +180 with node +180"
-        block = comp[key]
-        if key in SCALED_MASSES:
-            block, _ = in_best_mass_unit(block)
-            unit = unit.replace("M_sun", block["unit"], 1)
-        if note:
-            unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
-        lines.append(f"  {label:<8}= {format_value(block)} {unit}".rstrip())
+        if key == "period" and period_lines:
+            lines.extend(period_lines)
+        else:
+            lines.append(_companion_line(comp, key, unit_note))
         if key == "period" and "semi_major_axis" in comp:
             a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
                       f" = {format_value(comp['semi_major_axis_km'])} km")
@@ -63,6 +58,21 @@ def _companion_lines(comp) -> list:
     return lines
 
 
+def _companion_line(comp, key, unit_note) -> str:
+    label, unit = COMPANION[key].plain, COMPANION[key].unit_text.replace(" / ", "/")
+    unit += unit_note
+    note = ""
+    if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
+        note = "; or +180 with node +180"
+    block = comp[key]
+    if key in SCALED_MASSES:
+        block, _ = in_best_mass_unit(block)
+        unit = unit.replace("M_sun", block["unit"], 1)
+    if note:
+        unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
+    return f"  {label:<8}= {format_value(block)} {unit}".rstrip()
+
+
 def _velocity_summary(rv) -> dict:
     out = {"offset": {lab: interval(v, "km / s") for lab, v in rv["offset"].items()},
            "jitter": {lab: interval(v, "km / s") for lab, v in rv["jitter"].items()}}
@@ -70,26 +80,6 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
-
-
-def _nested_lines(s, converged) -> list:
-    """The nested sampler's lines: the engine, the evidence, each mode's weight."""
-    eng, ev = s["sampler"], s["evidence"]
-    lines = ["Sampler (nested, " + eng["library"] + ")",
-             f"  {eng['sampler']} {eng['sample']}, {eng['live_points']} live points, "
-             f"{eng['runs_per_box']} run(s) in each of {eng['boxes']} box(es), "
-             f"{eng['likelihood_calls']} likelihood calls; converged: "
-             f"{'yes' if converged else 'NO'}",
-             f"  ln evidence = {ev['log_evidence']:.3f} +/- {ev['log_evidence_err']:.3f}"]
-    modes = s.get("weighed_modes", [])
-    for mode in modes if len(modes) > 1 else []:
-        periods = ", ".join(f"{n} P = {b['median']:.6g} d" for n, b in mode["period"].items())
-        runs = " / ".join(f"{p:.3f}" for p in mode["probability_runs"])
-        mass = mode.get("central_mass_solar")
-        lines.append(f"  mode {periods}: probability {mode['probability']:.3f} +/- "
-                     f"{mode['probability_err']:.3f} (runs {runs})"
-                     + (f", central mass {format_value(mass)} M_sun" if mass else ""))
-    return lines
 
 
 def _velocity_lines(rv) -> list:
@@ -319,9 +309,11 @@ class FitResult:
                          f"({WIDE_LABEL}: {format_range(s['central_gm'])})")
             lines.append(f"  mass    = {format_value(s['central_mass'])} kg   "
                          f"(includes the uncertainty of G)")
-            key = MASS_UNIT_KEYS[best_mass_unit(s["central_mass_solar"]["median"] or 1.0)]
+            key_unit = best_mass_unit(s["central_mass_solar"]["median"] or 1.0)
+            key = MASS_UNIT_KEYS[key_unit]
             lines.append(f"          = {format_value(s[key])} {s[key]['unit']}   "
                          f"({WIDE_LABEL}: {format_range(s[key])})")
+            lines.extend(central_mode_lines(s, key_unit))
             if "central_mass_note" in s:
                 lines.append(f"  note: {s['central_mass_note']}")
         if "parallax" in s:
@@ -336,7 +328,7 @@ class FitResult:
                            key=lambda item: item[1]["period"]["median"] or 0.0)
         for name, comp in by_period:
             lines.append(f"Companion {name}")
-            lines.extend(_companion_lines(comp))
+            lines.extend(_companion_lines(comp, period_mode_lines(s, name)))
         if s.get("velocities"):
             lines.extend(_velocity_lines(s["velocities"]))
         if s.get("adequacy"):
@@ -346,7 +338,7 @@ class FitResult:
         lines.append(_quality_line(s["fit_quality"]))
         d = s["diagnostics"]
         if "evidence" in s:
-            lines.extend(_nested_lines(s, self.converged))
+            lines.extend(nested_lines(s, self.converged))
         else:
             lines.extend(self._chain_lines(d, s))
         if s.get("surrogate"):

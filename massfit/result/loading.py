@@ -140,8 +140,6 @@ def load_result(folder):
     -------
     FitResult
     """
-    from massfit.sample.chain import Chain
-
     folder = Path(folder)
     summary = _read_json(folder / SUMMARY_FILE)
     record = _read_json(folder / RUN_FILE)
@@ -153,14 +151,7 @@ def load_result(folder):
     if state.get("version", 0) > STATE_VERSION:
         raise InputError(f"the saved model is version {state['version']}; this massfit "
                          f"reads up to {STATE_VERSION}", file=str(folder / RUN_FILE))
-    info = state["observations"]
-    observations = Observations(
-        astrometry=_read_data(folder, "astrometry"),
-        velocities=_read_data(folder, "velocities"), files=list(info["files"]),
-        rows_read=int(info["rows_read"]),
-        rejected=[Rejection(**r) for r in info["rejected"]],
-        unused_columns=dict(info["unused_columns"]), primary=info["primary"],
-        stated=dict(info.get("stated", {})))
+    observations = _saved_observations(folder, state["observations"])
     spec = _build(SystemSpec, state["system"])
     model = OrbitModel(observations, spec)
     model.node_width.update(state["node_width"])
@@ -180,6 +171,37 @@ def load_result(folder):
         raise InputError(f"columns {', '.join(missing)} are missing",
                          file=str(samples_path))
     theta = np.column_stack([np.asarray(table[n], dtype=float) for n in model.names])
+    chain = _saved_chain(summary, model, table, theta)
+    result = FitResult.__new__(FitResult)
+    result.model = model
+    result.chain = chain
+    result.start = SimpleNamespace(modes=list(summary.get("modes", [])))
+    result.settings = None
+    result.samples = _derived_from_table(table, model)
+    # The frame terms, the precession scale and the periapsis advances come from the
+    # sampled coordinates (frame.*, relativity.*), which the table keeps as such.
+    result.samples.update(extra_samples(model, model.physical(theta)))
+    result.warnings = list(summary.get("warnings", []))
+    result.record = record
+    result.summary = summary
+    return result
+
+
+def _saved_observations(folder, info):
+    """The observations saved in ``folder`` (``info``: run.json's observations block)."""
+    return Observations(
+        astrometry=_read_data(folder, "astrometry"),
+        velocities=_read_data(folder, "velocities"), files=list(info["files"]),
+        rows_read=int(info["rows_read"]),
+        rejected=[Rejection(**r) for r in info["rejected"]],
+        unused_columns=dict(info["unused_columns"]), primary=info["primary"],
+        stated=dict(info.get("stated", {})))
+
+
+def _saved_chain(summary, model, table, theta):
+    """The saved samples and the summary's diagnostics as a Chain (with its modes)."""
+    from massfit.sample.chain import Chain
+
     diag = summary["diagnostics"]
     tau = diag.get("autocorr_steps", {})
     # Keyed by the coordinates the sampler moved in, which may not be the model's.
@@ -197,31 +219,22 @@ def load_result(folder):
                   key_column=(model.names.index("central.log10_mass")
                               if diag.get("mass_autocorr_steps") is not None else None))
     chain.modes, chain.mode_members = _saved_modes(summary, model, theta)
-    result = FitResult.__new__(FitResult)
-    result.model = model
-    result.chain = chain
-    result.start = SimpleNamespace(modes=list(summary.get("modes", [])))
-    result.settings = None
-    result.samples = _derived_from_table(table, model)
-    # The frame terms, the precession scale and the periapsis advances come from the
-    # sampled coordinates (frame.*, relativity.*), which the table keeps as such.
-    result.samples.update(extra_samples(model, model.physical(theta)))
-    result.warnings = list(summary.get("warnings", []))
-    result.record = record
-    result.summary = summary
-    return result
+    return chain
 
 
 def _saved_modes(summary, model, theta):
     """A nested fit's weighed modes (summary.json ``weighed_modes``) and, per mode, which
     of the saved samples lie in its period boxes: what the figures colour by mode."""
     modes = [m for m in summary.get("weighed_modes", []) or []
-             if m.get("period_boxes_days")]
+             if m.get("period_boxes_days") or m.get("node_half_centre_deg")]
     if len(modes) < 2:
         return [], []
     members = []
     for mode in modes:
         inside = np.ones(theta.shape[0], dtype=bool)
+        for name, centre in (mode.get("node_half_centre_deg") or {}).items():
+            node = theta[:, model.column_of[f"{name}.node"]]
+            inside &= np.abs(np.angle(np.exp(1j * (node - np.radians(centre))))) < np.pi / 2
         for name, (low, high) in mode["period_boxes_days"].items():
             period = 10.0 ** theta[:, model.column_of[f"{name}.log10_period"]]
             inside &= (period >= low) & (period <= high)

@@ -41,7 +41,11 @@ import numpy as np
 
 from massfit.sample import ENGINES  # noqa: F401 (named here too, for older callers)
 from massfit.sample.chain import Chain
-from massfit.start.modes import MIN_WEIGHT, period_box
+from massfit.sample.prior_transform import PriorTransform, flat_box
+from massfit.sample.nested_boxes import (EDGE_LIMIT, MAX_WIDENINGS, WIDEN, boxes_of,
+                                         edge_weight, in_node_half, mirror_halves,
+                                         period_boxes,
+                                         laplace_log_evidence, peak_margin)
 
 __all__ = ["LIVE_PER_DIMENSION", "NestedSettings", "NestedChain", "PriorTransform", "flat_box",
            "run_nested", "boxes_of", "require_dynesty", "nested_box", "weigh_boxes",
@@ -139,107 +143,6 @@ class NestedChain(Chain):
         return float(self.kish_samples)
 
 
-def flat_box(model, param):
-    """(low, high) of a uniform box standing in for an improper flat prior.
-
-    Offsets: the instrument's velocities' range widened by that range (at least 10
-    errors) each way. Trend slope: the velocities' full range per the data's span,
-    each way; curvature: that per span squared, times 8. Any orbit the data allow
-    lies well inside.
-    """
-    vel = model.velocity_rows
-    spread = float(np.ptp(vel.rv)) + 10.0 * float(np.sqrt(np.max(vel.err2)))
-    span = max(float(np.ptp(vel.t)), 1.0)
-    kind, label = param.target
-    if kind == "offset":
-        rv = vel.rv[vel.instrument == vel.labels.index(label)]
-        return float(np.min(rv) - spread), float(np.max(rv) + spread)
-    half = spread / span if kind == "slope" else 8.0 * spread / span ** 2
-    return -half, half
-
-
-class PriorTransform:
-    """dynesty's unit cube -> the model's coordinates, distributed as the model's prior.
-
-    Parameters
-    ----------
-    model : OrbitModel
-        Its node and phase windows must already be centred (the start does that).
-    boxes : dict, optional
-        Companion name -> (low, high) days: that period prior cut to the box (the
-        prior renormalised within it); :attr:`log_box_mass` is then the log of the
-        box's prior probability.
-
-    Notes
-    -----
-    Per coordinate: a period, mass, parallax, jitter or semi-amplitude is its prior's
-    quantile of u (then log10 where sampled as log10); cos i is uniform on [-1, 1] for
-    the default isotropic orientation, else the cosine of the inclination prior's
-    quantile; (sqrt e cos w, sqrt e sin w) take e from its prior's quantile and w
-    uniform (uniform on the sqrt(e) disc in w, as the model's prior); node and phase
-    are uniform over their windows, a fixed-eccentricity omega over 2 pi.
-    """
-
-    def __init__(self, model, boxes=None):
-        self.model = model
-        self.notes = []
-        self.log_box_mass = 0.0
-        self._maps = []
-        boxes = dict(boxes or {})
-        for k, param in enumerate(model.parameters):
-            self._maps.append(self._map_of(param, boxes))
-
-    def _map_of(self, param, boxes):
-        name, kind, prior = param.name, param.transform, param.prior
-        if kind == "disc":
-            if name.endswith("sqrt_e_sin_w"):
-                return None  # drawn with its partner
-            return ("disc", prior, self.model.column_of[name.replace("cos_w", "sin_w")])
-        if kind == "window":
-            body, which = name.rsplit(".", 1)
-            low, high = ((-np.pi, np.pi) if which == "omega"
-                         else self.model.window(body, which))
-            return ("linear", low, high)
-        if kind == "flat":
-            low, high = flat_box(self.model, param)
-            self.notes.append(f"{name}: an improper flat prior, drawn uniform on "
-                              f"[{low:.6g}, {high:.6g}] (the evidence depends on this width)")
-            return ("linear", low, high)
-        if kind == "cos":
-            if type(prior).__name__ == "Uniform" and prior.low == 0.0 \
-                    and prior.high == np.pi:
-                return ("linear", -1.0, 1.0)  # isotropic: uniform in cos i
-            return ("quantile", prior, 0.0, 1.0, np.cos)
-        body = name.split(".")[0]
-        lo, hi = 0.0, 1.0
-        if name.endswith(".log10_period") and body in boxes:
-            lo, hi = (float(c) for c in prior.cdf(np.asarray(boxes[body], dtype=float)))
-            if not hi > lo:
-                raise ValueError(f"the period box {boxes[body]} of {body} holds no prior mass")
-            self.log_box_mass += float(np.log(hi - lo))
-        outer = np.log10 if kind == "log10" else None
-        return ("quantile", prior, lo, hi, outer)
-
-    def __call__(self, u):
-        u = np.asarray(u, dtype=float)
-        theta = np.empty(u.size)
-        for k, how in enumerate(self._maps):
-            if how is None:
-                continue
-            if how[0] == "linear":
-                theta[k] = how[1] + u[k] * (how[2] - how[1])
-            elif how[0] == "disc":
-                ecc = float(how[1].quantile(u[k]))
-                omega = TWO_PI * u[how[2]] - np.pi
-                theta[k] = np.sqrt(ecc) * np.cos(omega)
-                theta[how[2]] = np.sqrt(ecc) * np.sin(omega)
-            else:
-                _, prior, lo, hi, outer = how
-                value = float(prior.quantile(lo + u[k] * (hi - lo)))
-                theta[k] = value if outer is None else outer(value)
-        return theta
-
-
 def _log_likelihood(model):
     """log p(data | theta) of one point, finite (dynesty's need): the compiled kernel
     without the prior's densities where the model qualifies (about 10 us a call), else
@@ -291,7 +194,8 @@ def _sample(model, transform, settings, common):
     """dynesty's sampler, run to its stopping rule."""
     dynesty = require_dynesty()
 
-    common = dict(common, periodic=periodic_columns(model) or None)
+    periodic = [k for k in periodic_columns(model) if k not in transform.bounded]
+    common = dict(common, periodic=periodic or None)
     live = settings.live_points_for(model.n_dim)
     if settings.dynamic:
         sampler = dynesty.DynamicNestedSampler(_log_likelihood(model), transform,
@@ -326,6 +230,9 @@ def nested_box(model, settings, seed, boxes=None, centres=None) -> dict:
     try:
         for name, centre in (centres or {}).items():
             model.centres[name].update(centre)
+        for key, (low, high) in (boxes or {}).items():
+            if key.endswith(".node"):  # the node's window about its half
+                model.centres[key.split(".")[0]]["node"] = 0.5 * (low + high)
         transform = PriorTransform(model, boxes)
         rng = np.random.default_rng(seed)
         started = time.perf_counter()
@@ -344,6 +251,7 @@ def nested_box(model, settings, seed, boxes=None, centres=None) -> dict:
             "samples": (model.fold_into_windows(np.asarray(res.samples)) if kept
                         else np.asarray(res.samples)),
             "weights": weights / weights.sum(), "iterations": int(res.niter),
+            "max_log_like": float(np.max(res.logl)),
             "calls": calls, "seconds": time.perf_counter() - started,
             "efficiency": float(res.eff),
             "reached_dlogz": settings.max_calls is None or calls < settings.max_calls,
@@ -417,30 +325,6 @@ def _mixture(runs, probabilities, rng, draws=POSTERIOR_DRAWS):
     return np.concatenate(parts), 1.0 / squares
 
 
-def boxes_of(start, model):
-    """Period boxes of the start's weighty modes: list of (mode, {body: (lo, hi)}),
-    or [(None, {})] (one run over the whole prior) where the start found one
-    solution alone. A mode's
-    ``window_centres`` (the start records them) centre its run's angle windows."""
-    candidates = list(getattr(start, "candidate_modes", []) or [])
-    heavy = [m for m in candidates if m["weight"] >= MIN_WEIGHT]
-    # One heavy mode among lighter ones is boxed too: a run over the whole prior can
-    # settle in a light alias and never find a narrow heavy mode (measured on a sparse
-    # yearly set: the start's 863-d mode of weight 1.0 lost to its 629-d alias of
-    # weight 1e-5, chi^2 32.6 against 9.7; docs/validation.md).
-    if len(candidates) < 2 or any(c.get("searched_with") for c in candidates):
-        return [(None, {})]
-    out = []
-    for mode in heavy:
-        others = [c for c in candidates if c is not mode]
-        boxes = {}
-        for name in mode["periods"]:
-            if not model.companions[name].period.is_fixed:
-                boxes[name] = period_box(mode, others, name)
-        out.append((mode, boxes))
-    return out
-
-
 def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> NestedChain:
     """Nested sampling of the model's posterior, mode by mode where the start found
     several (see the module notes); the result as a :class:`NestedChain`.
@@ -453,22 +337,27 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
 
     started = time.perf_counter()
     seeds = np.random.SeedSequence(settings.seed).spawn(64)
-    plan = boxes_of(start, model)
-    runs = _box_runs(model, settings, plan, seeds, checkpoint)
+    plan, runs, box_notes = _planned_runs(model, start, settings, seeds, checkpoint)
     weighed = weigh_boxes(runs, seed=settings.seed)
     probabilities = np.array([b["probability"] for b in weighed["boxes"]])
     rng = np.random.default_rng(seeds[-1])
     samples, kish = _mixture(runs, probabilities, rng)
     modes = []
     for (mode, boxes), box in zip(plan, weighed["boxes"]):
-        entry = dict(box, period_boxes_days={n: list(b) for n, b in boxes.items()})
+        entry = dict(box, period_boxes_days={n: list(b)
+                                             for n, b in period_boxes(boxes).items()})
+        halves = {n.split(".")[0]: float(np.degrees(np.mean(b)) % 360.0)
+                  for n, b in boxes.items() if n.endswith(".node")}
+        if halves:  # a mirror image: its half of the node circle, by its middle
+            entry["node_half_centre_deg"] = halves
         if mode is not None:
             entry["start_periods"] = dict(mode["periods"])
             entry["laplace_weight"] = mode["weight"]
         modes.append(entry)
     flat = [r for box_runs in runs for r in box_runs]
+    check = _start_check(model, start, plan, runs)
     converged = (all(b["runs_agree"] for b in weighed["boxes"])
-                 and all(r["reached_dlogz"] for r in flat))
+                 and all(r["reached_dlogz"] for r in flat) and check["peak_reached"])
     live = settings.live_points_for(model.n_dim)
     engine = {"engine": "nested", "library": f"dynesty {dynesty.__version__}",
               "sampler": "dynamic" if settings.dynamic else "static",
@@ -485,11 +374,62 @@ def run_nested(model, start, settings: NestedSettings, checkpoint=None) -> Neste
         acceptance_fraction=float(np.mean([r["efficiency"] for r in flat]) / 100.0),
         seconds=time.perf_counter() - started, tau_history=[],
         evidence={"log_evidence": weighed["log_evidence"],
-                  "log_evidence_err": weighed["log_evidence_err"]},
+                  "log_evidence_err": weighed["log_evidence_err"], **check},
         modes=modes, mode_members=[_member_mask(model, samples, b) for _, b in plan],
-        engine=engine, notes=list(dict.fromkeys(n for r in flat for n in r["notes"])),
+        engine=engine, notes=list(dict.fromkeys(
+            box_notes + [n for r in flat for n in r["notes"]] + check.pop("notes"))),
         kish_samples=kish)
     return chain
+
+
+def _planned_runs(model, start, settings, seeds, checkpoint):
+    """The boxes and their runs. A single solution's box whose posterior reaches its
+    edges is widened and run again (:mod:`massfit.sample.nested_boxes`), at last
+    replaced by the whole prior; the notes say so."""
+    notes, factor = [], 1.0
+    for widening in range(MAX_WIDENINGS + 2):
+        plan = boxes_of(start, model, factor)
+        if widening > MAX_WIDENINGS:
+            plan = mirror_halves([(None, {})], model)
+        runs = _box_runs(model, settings, plan, seeds, checkpoint)
+        boxes = period_boxes(plan[0][1])
+        if any(mode is not None for mode, _ in plan) or not boxes:
+            return plan, runs, notes
+        share = max(edge_weight(model, box_runs, boxes) for box_runs in runs)
+        if share <= EDGE_LIMIT:
+            return plan, runs, notes
+        text = ", ".join(f"{n} {lo:.8g}-{hi:.8g} d" for n, (lo, hi) in boxes.items())
+        notes.append(f"the period box about the start's solution ({text}) held "
+                     f"{share:.2g} of the posterior near its edges: "
+                     + (f"widened by a factor {WIDEN:g}" if widening < MAX_WIDENINGS
+                        else "the whole prior used instead"))
+        factor *= WIDEN
+    raise AssertionError("unreachable")
+
+
+def _start_check(model, start, plan, runs) -> dict:
+    """The runs against the start's least-squares solution: the Laplace ln Z about it
+    and whether the box holding it reached its likelihood (see
+    :mod:`massfit.sample.nested_boxes`)."""
+    if getattr(start, "theta", None) is None:
+        return {"peak_reached": True, "notes": []}
+    own_boxes = [b for b, (mode, _) in enumerate(plan)
+                 if mode is None or mode.get("started")] or [0]
+    # (runs saved by an older version carry no best ln L: not checked then)
+    best = max(r.get("max_log_like", np.inf) for b in own_boxes for r in runs[b])
+    own = float(model.log_likelihood(np.asarray(start.theta, dtype=float)[None, :])[0])
+    margin = peak_margin(model.n_dim)
+    reached = bool(not np.isfinite(own) or best >= own - margin)
+    best = best if np.isfinite(best) else None
+    notes = [] if reached else [
+        f"the nested runs' best ln L ({best:.6g}) stayed {own - best:.3g} below the "
+        f"start's least-squares solution ({own:.6g}; allowed {margin:g}): they did not "
+        "find the posterior's peak, so ln Z and the weights are not measured"]
+    return {"laplace_log_evidence": laplace_log_evidence(model, start, PriorTransform(model)),
+            "laplace_basis": ("Laplace approximation about the start's least-squares "
+                              "solution, the proper prior's density included"),
+            "start_log_likelihood": own if np.isfinite(own) else None,
+            "best_log_likelihood": best, "peak_reached": reached, "notes": notes}
 
 
 def _box_runs(model, settings, plan, seeds, checkpoint):
@@ -524,7 +464,10 @@ def _box_runs(model, settings, plan, seeds, checkpoint):
 def _member_mask(model, samples, boxes):
     """Which samples lie in the period boxes (all True without boxes)."""
     inside = np.ones(samples.shape[0], dtype=bool)
-    for name, (low, high) in boxes.items():
+    for key, half in boxes.items():
+        if key.endswith(".node"):
+            inside &= in_node_half(samples[:, model.column_of[key]], half)
+    for name, (low, high) in period_boxes(boxes).items():
         period = 10.0 ** samples[:, model.column_of[f"{name}.log10_period"]]
         inside &= (period >= low) & (period <= high)
     return inside

@@ -30,11 +30,28 @@ from massfit.summarise.dark_mass import relativity_adequacy, relativity_lines
 from massfit.summarise.residuals import peak_text
 
 __all__ = ["assess", "report_lines", "panels", "chi2_text", "fit_quality", "fitted_jitter",
-           "quality_warnings", "FAP_THRESHOLD",
-           "POOR_FIT_P_VALUE"]
+           "quality_warnings", "with_evidence", "evidence_words", "FAP_THRESHOLD",
+           "POOR_FIT_P_VALUE", "KASS_RAFTERY", "MEASURE_BIC", "MEASURE_EVIDENCE"]
 
 #: False-alarm probability below which a residual peak is called significant.
 FAP_THRESHOLD = 1e-3
+#: ln B thresholds and their words (Kass & Raftery 1995, *J. Am. Stat. Assoc.* 90, 773,
+#: their scale from memory: ln B above 1 positive, above 3 strong, above 5 very strong).
+KASS_RAFTERY = ((5.0, "very strong"), (3.0, "strong"), (1.0, "positive"),
+                (0.0, "not worth more than a bare mention"))
+#: What the adequacy block's model comparison rests on: the least-squares fits'
+#: information criterion...
+MEASURE_BIC = ("delta BIC of the least-squares fits (chi^2 + k ln n; |delta BIC| > 10 "
+               "decisive, common practice)")
+#: ...or, where the models were compared by their evidence (massfit compare), the
+#: Bayes factors.
+MEASURE_EVIDENCE = ("Bayes factors from each model's evidence (nested sampling, massfit "
+                    "compare; Kass & Raftery's scale)")
+
+
+def evidence_words(log_b) -> str:
+    """Kass & Raftery's words for ln B (of the better model over the other, >= 0)."""
+    return next(words for limit, words in KASS_RAFTERY if log_b >= limit)
 
 
 def assess(model, theta, *, periods=None, compare=None) -> dict:
@@ -100,7 +117,59 @@ def assess(model, theta, *, periods=None, compare=None) -> dict:
         compare = bool(getattr(model.spec, "compare_keplerian", True))
     perturbed = model.dynamics.label != "keplerian"
     out["comparison"] = _compare(model, theta) if perturbed and compare else None
+    out["comparison_measure"] = MEASURE_BIC if out["comparison"] else None
     out["verdicts"] = _verdicts(out)
+    return out
+
+
+def with_evidence(block, label, models) -> dict:
+    """The adequacy block of model ``label`` judged by the evidence of the models
+    compared with it.
+
+    Parameters
+    ----------
+    block : dict
+        The model's adequacy block (:func:`assess`).
+    label : str
+    models : dict
+        Label -> ``log_evidence``, ``log_evidence_err``, ``converged`` (the models of
+        :class:`massfit.compare.Comparison`).
+
+    Returns
+    -------
+    dict
+        The block with ``evidence`` (per other model: ln B of this model over it with
+        its error, and the words of Kass & Raftery's scale for the better one),
+        ``comparison_measure`` :data:`MEASURE_EVIDENCE`, and its verdicts remade on
+        the Bayes factors (the delta BIC, if any, kept but no longer the verdict).
+    """
+    own = models[label]
+    others = {}
+    for other, m in models.items():
+        if other == label:
+            continue
+        log_b = own["log_evidence"] - m["log_evidence"]
+        others[other] = {"log_bayes_factor": float(log_b),
+                         "log_bayes_factor_err": float(np.hypot(own["log_evidence_err"],
+                                                                m["log_evidence_err"])),
+                         "favours": label if log_b >= 0 else other,
+                         "strength": evidence_words(abs(log_b)),
+                         "measured": bool(own["converged"] and m["converged"])}
+    out = dict(block, evidence={"model": label, "against": others},
+               comparison_measure=MEASURE_EVIDENCE)
+    out["verdicts"] = _verdicts(out)
+    return out
+
+
+def _evidence_verdicts(evidence) -> list:
+    out = []
+    for other, b in evidence["against"].items():
+        text = (f"{evidence['model']} vs {other}: ln B = {b['log_bayes_factor']:.1f} +/- "
+                f"{b['log_bayes_factor_err']:.1f} (the evidence, nested sampling): "
+                f"{b['strength']} for {b['favours']}")
+        if not b["measured"]:
+            text += " - but a nested fit did not converge, so this is not measured"
+        out.append(text)
     return out
 
 
@@ -240,7 +309,7 @@ def _verdicts(block):
             out.append(f"{name}: residual {peak_text(peak)}{where}: a signal the model "
                        f"left unexplained")
     comparison = block["comparison"]
-    if comparison and "delta_bic" in comparison:
+    if comparison and "delta_bic" in comparison and not block.get("evidence"):
         out.append(f"{block['dynamics']['model']} vs two-body: delta BIC = "
                    f"{comparison['delta_bic']:.1f} (positive favours "
                    f"{block['dynamics']['model']}); preferred: {comparison['preferred']}")
@@ -251,6 +320,8 @@ def _verdicts(block):
     elif not out:
         out.append("no sign that the model misses anything (chi2 and residual "
                    "periodograms consistent with noise)")
+    if block.get("evidence"):
+        out.extend(_evidence_verdicts(block["evidence"]))
     return out
 
 
@@ -346,6 +417,8 @@ def report_lines(block) -> list:
                      f"{comparison['delta_aic']:.1f}, delta BIC {comparison['delta_bic']:.1f}")
     elif comparison:
         lines.append(f"  comparison: {comparison['error']}")
+    if block.get("comparison_measure"):
+        lines.append(f"  models compared by: {block['comparison_measure']}")
     lines += relativity_lines(block.get("relativity"))
     lines += [f"  -> {text}" for text in block["verdicts"]]
     return lines

@@ -311,12 +311,16 @@ def weighed_mode_blocks(modes, members, samples) -> list:
         block = {key: mode[key] for key in (
             "probability", "probability_err", "probability_runs", "log_z", "log_z_err",
             "log_z_runs", "log_z_err_runs", "runs_agree", "period_boxes_days",
-            "start_periods", "laplace_weight") if key in mode}
+            "start_periods", "laplace_weight", "node_half_centre_deg") if key in mode}
         block["draws"] = int(np.sum(member))
         if "central_mass_solar" in samples:
             block["central_mass_solar"] = interval(samples["central_mass_solar"][member],
                                                    "M_sun")
         block["period"] = {name: interval(comp["period"][member], "d")
                            for name, comp in samples["companions"].items()}
+        if "node_half_centre_deg" in mode:  # a mirror image: its node tells it apart
+            block["ascending_node"] = {
+                name: interval(samples["companions"][name]["ascending_node"][member], "deg")
+                for name in mode["node_half_centre_deg"]}
         out.append(block)
     return out

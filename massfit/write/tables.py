@@ -14,6 +14,7 @@ from astropy.table import Table
 from massfit.summarise.derived import (MASS_UNIT_LABELS, SCALED_MASSES, best_mass_unit,
                                        in_best_mass_unit)
 from massfit.summarise.dark_mass import table_entries
+from massfit.summarise.mode_text import mode_table_entries, weighed_modes
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
 from massfit.summarise.rounding import (NARROW_LABEL, WIDE_LABEL, Rounded, format_interval,
                                         format_range, print_exponent, round_interval)
@@ -82,14 +83,32 @@ def parameter_rows(summary: dict, *, mass_unit: str | None = None,
         central.append(MASS_UNIT_KEYS[unit])
     if "parallax" in summary:
         central.append("parallax")
-    rows = [_row("", key, summary[key]) for key in central]
+    # Separated modes weighed by the nested engine: the mass and the periods over all
+    # modes, then each mode's (massfit.summarise.mode_text).
+    modes = bool(weighed_modes(summary))
+    rows = [_over_modes(_row("", key, summary[key]), modes and key != "parallax")
+            for key in central]
+    at = len([key for key in central if key != "parallax"])
+    rows[at:at] = [_Row("", *entry) for entry in mode_table_entries(summary, "", unit)
+                   if summary["central_gm"] is not None]
     rows += [_Row("", *entry) for entry in table_entries(summary)]
     for name, comp in summary["companions"].items():
-        rows += [_row(name, key, comp[key]) for key in COMPANION if key in comp]
+        for key in COMPANION:
+            if key in comp:
+                rows.append(_over_modes(_row(name, key, comp[key]), modes and key == "period"))
+            if key == "period":
+                rows += [_Row(name, *entry) for entry in mode_table_entries(summary, name)]
     if time_form is not None:
         rows = [_in_time_form(row, time_form) if row.key.endswith(".periapsis_time") else row
                 for row in rows]
     return rows
+
+
+def _over_modes(row, mark):
+    """The row named as the value over all modes where ``mark``."""
+    from dataclasses import replace
+
+    return replace(row, name=f"{row.name}, over all modes") if mark else row
 
 
 def _in_time_form(row, time_form):
@@ -248,12 +267,17 @@ def ecsv_table(summary: dict, *, mass_unit: str | None = None,
     rows = parameter_rows(summary, mass_unit=mass_unit, time_form=time_form)
     table = Table()
     table["body"] = [row.group or "central" for row in rows]
-    table["parameter"] = [row.key.split(".", 1)[-1] for row in rows]
+    table["parameter"] = [row.key.split(".", 1)[-1] if row.group else row.key
+                          for row in rows]
     table["unit"] = [row.unit_text for row in rows]
     for key in ("median", "lower_68", "upper_68", "lower_95", "upper_95"):
         table[key] = np.array([np.nan if row.block.get(key) is None else row.block[key]
                                for row in rows], dtype=float)
     table["rounded"] = [format_interval(row.block) for row in rows]
+    if any("probability" in row.block for row in rows):  # the rows of weighed modes
+        for key in ("probability", "probability_err"):
+            table[f"mode_{key}"] = np.array([row.block.get(key, np.nan) for row in rows],
+                                            dtype=float)
     table.meta["description"] = (f"massfit parameter summary: medians with {NARROW_LABEL} and "
                                  f"{WIDE_LABEL} central credible intervals")
     table.meta["converged"] = bool(summary.get("converged", False))
