@@ -55,7 +55,7 @@ def test_parameter_table_takes_words_symbols_and_units_from_the_table():
 
 def test_fit_samples_summary_and_corner_use_the_same_keys(tmp_path):
     from massfit import fit
-    from massfit.plot.figures import corner_plot
+    from massfit.plot import corner_plot
 
     from conftest import write_one_companion
 

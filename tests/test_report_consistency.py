@@ -61,7 +61,7 @@ def test_report_labels_the_wide_interval_as_what_it_is():
 def test_chi2_and_periodogram_agree_in_terminal_summary_and_figures(tmp_path):
     from figure_helpers import small_result
 
-    from massfit.plot.figures import periodogram_plot
+    from massfit.plot import periodogram_plot
     from massfit.result.loading import load_result
 
     result = small_result()
@@ -89,7 +89,7 @@ def test_chi2_and_periodogram_agree_in_terminal_summary_and_figures(tmp_path):
 def test_residual_figure_shows_the_summarys_reduced_chi2():
     from figure_helpers import small_result
 
-    from massfit.plot.figures import residual_plot
+    from massfit.plot import residual_plot
 
     result = small_result()
     texts = " ".join(_panel_texts(residual_plot(result)))
@@ -100,7 +100,7 @@ def test_residual_figure_shows_the_summarys_reduced_chi2():
 def test_velocity_fit_reports_gamma_jitter_and_the_figures_periodogram():
     from figure_helpers import sorrel_result
 
-    from massfit.plot.figures import periodogram_plot
+    from massfit.plot import periodogram_plot
     from massfit.summarise.residuals import VELOCITY_PANEL
 
     result = sorrel_result()

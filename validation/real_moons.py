@@ -120,7 +120,7 @@ def fitted(observations, dynamics=None):
 def draw_figure(observations, path):
     from massfit import fit
     from massfit.orbits.viewing import ViewingSpec
-    from massfit.plot.figures import equator_residual_plot
+    from massfit.plot import equator_residual_plot
 
     spec = SystemSpec(viewing=ViewingSpec(pole_ra=np.radians(POLE_RA),
                                           pole_dec=np.radians(POLE_DEC)))

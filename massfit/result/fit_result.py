@@ -10,13 +10,13 @@ from astropy.table import Table
 
 from massfit.summarise.dark_mass import summary_blocks, summary_lines
 from massfit.summarise.mode_text import central_mode_lines, nested_lines, period_mode_lines
-from massfit.summarise.derived import (SCALED_MASSES, best_mass_unit, derived_samples,
-                                       in_best_mass_unit, interval)
+from massfit.summarise.derived import best_mass_unit, derived_samples, interval
 from massfit.summarise.quantities import CENTRAL, COMPANION, MASS_UNIT_KEYS
-from massfit.summarise.rounding import WIDE_LABEL, format_interval, format_range
+from massfit.summarise.result_text import (companion_lines, format_value, quality_line,
+                                           velocity_lines)
+from massfit.summarise.rounding import WIDE_LABEL, format_range
 
 __all__ = ["FitResult", "FigureWarning", "format_value", "best_mass_unit"]
-
 
 
 #: Central-mass blocks of the summary, in order (names and units: summarise/quantities.py).
@@ -26,53 +26,6 @@ _CENTRAL_BLOCKS = ("central_mass", "central_gm", "central_mass_solar", "central_
 _COMPANION_BLOCKS = tuple(key for key in COMPANION if key != "semi_major_axis_angle")
 
 
-#: Terminal lines of a companion: (summary key, a note after the unit).
-_COMPANION_LINES = (
-    ("period", ""), ("eccentricity", ""), ("inclination", ""),
-    ("periapsis_argument", " (the companion's; the primary's is omega + 180)"),
-    ("ascending_node", ""), ("mass", ""), ("rv_semi_amplitude", " (primary)"),
-    ("rv_semi_amplitude_companion", " (companion)"), ("mass_function", ""),
-    ("minimum_mass", " (m sin i: i = 90 deg)"), ("mass_sin3i", ""), ("primary_mass_sin3i", ""),
-    ("inclination_to_equator", " (to the primary's equator)"),
-    ("node_on_equator", " (on the primary's equator)"),
-)
-
-
-def _companion_lines(comp, period_lines=None) -> list:
-    """A companion's terminal lines; ``period_lines`` (separated modes) replace the
-    period's."""
-    lines = []
-    for key, unit_note in _COMPANION_LINES:
-        if key not in comp:
-            continue
-        if key == "period" and period_lines:
-            lines.extend(period_lines)
-        else:
-            lines.append(_companion_line(comp, key, unit_note))
-        if key == "period" and "semi_major_axis" in comp:
-            a_line = (f"  {'a':<8}= {format_value(comp['semi_major_axis'])} au"
-                      f" = {format_value(comp['semi_major_axis_km'])} km")
-            if "semi_major_axis_angle" in comp:
-                a_line += " = " + _angle_text(comp["semi_major_axis_angle"])
-            lines.append(a_line)
-    return lines
-
-
-def _companion_line(comp, key, unit_note) -> str:
-    label, unit = COMPANION[key].plain, COMPANION[key].unit_text.replace(" / ", "/")
-    unit += unit_note
-    note = ""
-    if key == "periapsis_argument" and comp.get("node_ambiguity_deg"):
-        note = "; or +180 with node +180"
-    block = comp[key]
-    if key in SCALED_MASSES:
-        block, _ = in_best_mass_unit(block)
-        unit = unit.replace("M_sun", block["unit"], 1)
-    if note:
-        unit = unit[:-1] + note + ")" if unit.endswith(")") else f"{unit} ({note[2:]})"
-    return f"  {label:<8}= {format_value(block)} {unit}".rstrip()
-
-
 def _velocity_summary(rv) -> dict:
     out = {"offset": {lab: interval(v, "km / s") for lab, v in rv["offset"].items()},
            "jitter": {lab: interval(v, "km / s") for lab, v in rv["jitter"].items()}}
@@ -80,35 +33,6 @@ def _velocity_summary(rv) -> dict:
         if term in rv:
             out[f"trend_{term}"] = interval(rv[term], unit)
     return out
-
-
-def _velocity_lines(rv) -> list:
-    """The systemic velocity, jitter and trend of each instrument, for the terminal."""
-    lines = ["Radial velocities (per instrument)"]
-    for label in rv["offset"]:
-        name = label or "(no instrument)"
-        for term, key in (("gamma", "offset"), ("jitter", "jitter")):
-            lines.append(f"  {term:<8}= {_value_or_fixed(rv[key][label])} km/s   {name}")
-    for term, unit in (("trend_slope", "km/s/d"), ("trend_curvature", "km/s/d^2")):
-        if term in rv:
-            lines.append(f"  {term.split('_')[1]:<8}= {format_value(rv[term])} {unit}")
-    return lines
-
-
-def _value_or_fixed(block) -> str:
-    """``fixed at v`` for a value that was not sampled (an interval of no width), else
-    the interval as :func:`format_value` writes it."""
-    if block["lower_95"] == block["upper_95"] == block["median"]:
-        return f"fixed at {block['median']:g}"
-    return format_value(block)
-
-
-def format_value(block) -> str:
-    """``median +upper -lower`` (or ``median +/- error``) rounded by the interval.
-
-    See :func:`massfit.summarise.rounding.round_interval` for the rounding rule.
-    """
-    return format_interval(block)
 
 
 class FitResult:
@@ -328,14 +252,14 @@ class FitResult:
                            key=lambda item: item[1]["period"]["median"] or 0.0)
         for name, comp in by_period:
             lines.append(f"Companion {name}")
-            lines.extend(_companion_lines(comp, period_mode_lines(s, name)))
+            lines.extend(companion_lines(comp, period_mode_lines(s, name)))
         if s.get("velocities"):
-            lines.extend(_velocity_lines(s["velocities"]))
+            lines.extend(velocity_lines(s["velocities"]))
         if s.get("adequacy"):
             from massfit.summarise.adequacy import report_lines
 
             lines.extend(report_lines(s["adequacy"]))
-        lines.append(_quality_line(s["fit_quality"]))
+        lines.append(quality_line(s["fit_quality"]))
         d = s["diagnostics"]
         if "evidence" in s:
             lines.extend(nested_lines(s, self.converged))
@@ -626,21 +550,3 @@ class FitResult:
 
 class FigureWarning(UserWarning):
     """A figure of a saved result could not be drawn; the numbers were saved."""
-
-
-def _quality_line(quality) -> str:
-    """The terminal's line for the summary's fit_quality verdict."""
-    if quality["verdict"] == "not tested":
-        return f"Fit quality: not tested ({quality.get('note', '')})"
-    return (f"Fit quality: {quality['verdict']} (chi2 = {quality['chi2']:.4g} for "
-            f"{quality['n_values']} values and {quality['n_parameters']} parameters, "
-            f"p = {quality['p_value']:.2g}; poor below p = "
-            f"{quality['poor_below_p_value']:g})")
-
-
-def _angle_text(block_mas):
-    """An angular interval block (mas) in mas or arcsec, whichever reads better."""
-    if block_mas["median"] is not None and block_mas["median"] >= 1e4:
-        scaled = {k: (v / 1e3 if isinstance(v, float) else v) for k, v in block_mas.items()}
-        return f"{format_value(scaled)} arcsec"
-    return f"{format_value(block_mas)} mas"
