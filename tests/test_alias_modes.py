@@ -155,6 +155,7 @@ def test_walkers_in_one_alias_make_the_fit_unconverged(yearly_start):
     assert unexplored(chain_census(model, start.candidate_modes, np.array(everywhere))) == []
 
 
+@pytest.mark.slow  # 22 s: a whole CLI fit; the API-level tests above stay in the default run
 def test_cli_yearly_set_is_not_converged_and_names_the_modes(yearly_file, tmp_path):
     """Before: converged: true, exit 0, one mode. After: three modes weighed, exit 3."""
     out = tmp_path / "out"

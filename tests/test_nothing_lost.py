@@ -266,6 +266,7 @@ _DISC_FULL_AT_SAVE = """
 """
 
 
+@pytest.mark.slow  # 15 s: two whole CLI fits
 def test_a_full_disc_ends_with_one_line_and_resume_continues(work):
     options = ["--out", "res", "--no-plots", *TINY, "--max-steps", "300"]
     whole = _massfit("fit", "quill.ecsv", *options[:1], "whole", *options[2:], cwd=work)
