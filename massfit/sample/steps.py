@@ -96,8 +96,8 @@ class CompiledSteps:
     def advance(self, sampler, state, n_steps, interrupted=lambda: False):
         """``n_steps`` steps of ``sampler`` (an ``emcee.EnsembleSampler`` whose only
         move is the DE move) from ``state`` (an ``emcee.State``), stored in its backend;
-        returns the new state. Raises KeyboardInterrupt between blocks when
-        ``interrupted()`` says so."""
+        returns the new state. Raises KeyboardInterrupt after a stored block when
+        ``interrupted()`` says so (a Ctrl-C during the last block is not lost)."""
         import emcee
 
         from massfit.model.compiled_posterior import use_threads
@@ -124,8 +124,6 @@ class CompiledSteps:
             backend.grow(max(n_steps, backend.iteration), None)
         block, done = 16, 0
         while done < n_steps:
-            if interrupted():
-                raise KeyboardInterrupt
             n = min(block, n_steps - done)
             draws = draw_block(random, n, n_walkers, n_dim)
             chain = np.empty((n, n_walkers, n_dim))
@@ -138,6 +136,8 @@ class CompiledSteps:
             save_block(sampler.backend, chain, chain_lp, accepted, random.get_state())
             done += n
             block = max(1, int(BLOCK_SECONDS / max(per_step, 1e-7)))
+            if interrupted():  # after each stored block, the last one too
+                raise KeyboardInterrupt
         return emcee.State(coords, log_prob=log_prob, random_state=random.get_state())
 
 
