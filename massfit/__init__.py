@@ -13,6 +13,8 @@ Three lines from a notebook::
 
 # Each public name and the module it lives in, imported on first use: ``import massfit``
 # (and the ``massfit`` command, whose --help needs none of them) stays light, and
+from massfit.lazy import lazy_names
+
 # ``massfit.fit`` or ``from massfit import fit`` loads what that name needs.
 _WHERE = {
     "read_observations": "massfit.read.tables",
@@ -46,18 +48,7 @@ _WHERE = {
 }
 
 
-def __getattr__(name):
-    if name in _WHERE:
-        import importlib
-
-        value = getattr(importlib.import_module(_WHERE[name]), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'massfit' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_WHERE))
+__getattr__, __dir__ = lazy_names(globals(), _WHERE)
 
 
 __all__ = [

@@ -13,7 +13,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "massfit"
 #: Each folder (or top-level module) and its step on the data's path. A module may import
 #: from its own step or a lower one, never from a higher one.
 LAYERS = {
-    "errors": 0, "constants": 0, "quantities": 0, "version": 0, "priors": 0,
+    "errors": 0, "lazy": 0, "constants": 0, "quantities": 0, "version": 0, "priors": 0,
     "read": 1,
     "orbits": 2,
     "model": 3,

@@ -11,6 +11,8 @@ and ``figures`` (the registry :data:`FIGURES`: file stem -> function).
 """
 
 # Each public name and its module, imported on first use (``massfit.plot.catalogue``
+from massfit.lazy import lazy_names
+
 # is read by the command line without loading matplotlib).
 _WHERE = {
     "corner_plot": "massfit.plot.corner", "full_corner_plot": "massfit.plot.corner",
@@ -28,18 +30,7 @@ _WHERE = {
 }
 
 
-def __getattr__(name):
-    if name in _WHERE:
-        import importlib
-
-        value = getattr(importlib.import_module(_WHERE[name]), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'massfit.plot' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_WHERE))
+__getattr__, __dir__ = lazy_names(globals(), _WHERE)
 
 
 __all__ = ["corner_plot", "full_corner_plot", "orbit_plot", "residual_plot", "periodogram_plot", "velocity_plot",
