@@ -84,6 +84,7 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
         draws = chain.samples[rng.choice(len(chain.samples), size=size, replace=False)]
         check = surrogate_check(model, surrogate, draws)
         weights = check.pop("weights")
+        check.pop("exact_log_prob")
         rounds.append({"linearised_at": "the start" if first else
                        f"the median of round {k}'s chain",
                        "integrations": surrogate.integrations,
