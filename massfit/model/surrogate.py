@@ -66,13 +66,21 @@ def why_not_linearised(model) -> str | None:
 def check_line(record) -> str:
     """The report's line on the surrogate's last check (summary key ``surrogate``)."""
     last = record["rounds"][-1]
-    return (f"  sampled through the linearised surrogate ({len(record['rounds'])} "
+    weighed = record.get("weighed")
+    line = (f"  sampled through the linearised surrogate ({len(record['rounds'])} "
             f"linearisation(s)); exact check of {last['draws']} draws: effective "
             f"samples {100 * last['ess_fraction']:.1f} % (>= "
             f"{100 * record['min_ess_fraction']:.0f} % needed), largest |delta chi2| "
             f"{last['largest_abs_delta_chi2']:.3g}, largest error of a predicted value "
             f"{last['largest_value_error_sigma']:.3g} sigma: "
-            + ("passed" if record["passed"] else "FAILED"))
+            + ("passed" if last["passed"] else "short" if weighed else "FAILED"))
+    if weighed:
+        line += (f"\n  the draws weighed by the integrator instead: {weighed['draws']} "
+                 f"draws, {weighed['ess']:.0f} effective (>= {weighed['min_effective']} "
+                 f"needed), the largest weight {100 * weighed['largest_weight_share']:.1f} "
+                 f"% of the total (<= {100 * weighed['max_weight_share']:.0f} %): "
+                 + ("passed" if weighed["passed"] else "FAILED"))
+    return line
 
 
 def packed_values(model, theta) -> np.ndarray:

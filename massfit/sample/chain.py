@@ -143,6 +143,9 @@ class Chain:
         Where the sampler moved in other coordinates than the model's: the model column
         of the central mass and its own autocorrelation time (steps), measured on the
         whole chain (``run_sampler``'s ``key``); the effective samples of the mass use it.
+    weighed_effective : float, optional
+        Where ``samples`` are draws resampled by importance weights
+        (:mod:`massfit.linearised_fit`): their effective number.
     """
 
     samples: np.ndarray
@@ -162,12 +165,15 @@ class Chain:
     state_bodies: list = field(default_factory=list)
     key_column: int | None = None
     key_tau: float | None = None
+    weighed_effective: float | None = None
 
     def effective_samples(self, k: int = 0) -> float:
         """Effective number of independent samples of coordinate ``k`` (of the model's
-        quantity ``key_tau`` was measured for, where ``k`` is its column)."""
+        quantity ``key_tau`` was measured for, where ``k`` is its column); at most
+        ``weighed_effective`` where the samples are importance-weighted draws."""
         tau = self.key_tau if self.key_tau is not None and k == self.key_column else self.tau[k]
-        return float(self.walkers * (self.steps - self.burn_in) / max(tau, 1.0))
+        count = float(self.walkers * (self.steps - self.burn_in) / max(tau, 1.0))
+        return count if self.weighed_effective is None else min(count, self.weighed_effective)
 
 
 def _moves():
