@@ -179,3 +179,19 @@ def test_linearised_least_squares_reaches_the_exact_minimum(tmp_path):
     assert chi2 <= chi2_at(model, exact) + 0.1
     # Within a tenth of a sigma of the exact solution in every coordinate.
     assert np.all(np.abs(polished - exact) < 0.1 * sigma)
+
+
+@pytest.mark.slow  # the two-body model's own start inside: about 15 s
+def test_model_comparison_of_an_integrated_model_uses_the_linearised_least_squares(tmp_path):
+    # The adequacy block's perturbed-vs-two-body comparison polishes the integrated
+    # model through its linearised departure: its chi^2 is at most the one at the
+    # truth (where the data were drawn: about one per value).
+    from massfit.start.least_squares import chi2_at
+    from massfit.summarise.adequacy import assess
+
+    model, theta, _ = _model_at_truth(tmp_path)
+    comparison = assess(model, theta)["comparison"]
+    at_truth = chi2_at(model, theta)
+    assert comparison["perturbed"]["chi2"] <= at_truth + 1e-9
+    assert at_truth - comparison["perturbed"]["chi2"] < 3 * model.n_dim
+    assert 0.7 < comparison["perturbed"]["chi2"] / comparison["n_values"] < 1.3
