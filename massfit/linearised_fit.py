@@ -131,13 +131,13 @@ def importance_resampled(model, surrogate, chain, fraction, rng) -> dict:
     short of :data:`MIN_ESS_FRACTION`: enough draws of the chain for
     :data:`MIN_WEIGHED_EFFECTIVE` effective ones at the checked ``fraction`` (at most
     :data:`MAX_WEIGHED_DRAWS`) are evaluated with the integrator, weighed by exp(ln
-    p_exact - ln p_surrogate) and resampled systematically; ``chain.samples`` and
-    ``chain.log_prob`` become the resampled draws (in place), and
+    p_exact - ln p_surrogate) and resampled systematically; where that passes,
+    ``chain.samples`` and ``chain.log_prob`` become the resampled draws (in place), and
     ``chain.weighed_effective`` their effective number. Self-normalised importance
     sampling with the surrogate's posterior as the proposal: sound where the proposal
-    covers the exact posterior (the surrogate's is the wider where they differ, as the
-    weights show), judged by the effective draws and the largest weight's share
-    (:data:`MAX_WEIGHT_SHARE`). Returns the summary's ``weighed`` record."""
+    covers the exact posterior, judged by the effective draws and the largest weight's
+    share (:data:`MAX_WEIGHT_SHARE`); where either falls short the chain is left as it
+    was. Returns the summary's ``weighed`` record."""
     cpu = time.process_time()
     size = int(min(MAX_WEIGHED_DRAWS, len(chain.samples),
                    np.ceil(1.5 * MIN_WEIGHED_EFFECTIVE / max(fraction, 1e-3))))
@@ -148,10 +148,11 @@ def importance_resampled(model, surrogate, chain, fraction, rng) -> dict:
     picks = np.minimum(np.searchsorted(cumulative, (rng.random() + np.arange(size)) / size),
                        size - 1)
     medians = _mass_medians(model, chain.samples, draws, weights)
-    chain.samples, chain.log_prob = draws[picks], exact[picks]
-    chain.weighed_effective = check["ess"]
     passed = (check["ess"] >= MIN_WEIGHED_EFFECTIVE
               and check["largest_weight_share"] <= MAX_WEIGHT_SHARE)
+    if passed:  # else the chain's own draws stay, the fit not converged
+        chain.samples, chain.log_prob = draws[picks], exact[picks]
+        chain.weighed_effective = check["ess"]
     return {"draws": size, "finite": check["finite"], "ess": check["ess"],
             "ess_fraction": check["ess_fraction"],
             "largest_weight_share": check["largest_weight_share"],
