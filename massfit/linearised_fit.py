@@ -30,7 +30,12 @@ import time
 
 import numpy as np
 
-from massfit.model.surrogate import MIN_ESS_FRACTION, LinearisedPosterior, surrogate_check
+from massfit.model.surrogate import (
+    MIN_ESS_FRACTION,
+    LinearisedPosterior,
+    importance_weights,
+    surrogate_check,
+)
 from massfit.sample.chain import run_sampler
 from massfit.sample.reparameterisation import SamplerCoordinates
 
@@ -129,8 +134,9 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
 def importance_resampled(model, surrogate, chain, fraction, rng) -> dict:
     """The chain's posterior weighed by the exact model, where the surrogate alone fell
     short of :data:`MIN_ESS_FRACTION`: enough draws of the chain for
-    :data:`MIN_WEIGHED_EFFECTIVE` effective ones at the checked ``fraction`` (at most
-    :data:`MAX_WEIGHED_DRAWS`) are evaluated with the integrator, weighed by exp(ln
+    :data:`MIN_WEIGHED_EFFECTIVE` effective ones at the checked ``fraction``, then at
+    the fraction the draws so far show (at most :data:`MAX_WEIGHED_DRAWS`), are
+    evaluated with the integrator, weighed by exp(ln
     p_exact - ln p_surrogate) and resampled systematically; where that passes,
     ``chain.samples`` and ``chain.log_prob`` become the resampled draws (in place), and
     ``chain.weighed_effective`` their effective number. Self-normalised importance
@@ -139,18 +145,32 @@ def importance_resampled(model, surrogate, chain, fraction, rng) -> dict:
     share (:data:`MAX_WEIGHT_SHARE`); where either falls short the chain is left as it
     was. Returns the summary's ``weighed`` record."""
     cpu = time.process_time()
-    size = int(min(MAX_WEIGHED_DRAWS, len(chain.samples),
-                   np.ceil(1.5 * MIN_WEIGHED_EFFECTIVE / max(fraction, 1e-3))))
-    draws = chain.samples[rng.choice(len(chain.samples), size=size, replace=False)]
-    check = surrogate_check(model, surrogate, draws, detail=0)
-    weights, exact = check.pop("weights"), check.pop("exact_log_prob")
-    cumulative = np.cumsum(weights) / np.sum(weights)
-    picks = np.minimum(np.searchsorted(cumulative, (rng.random() + np.arange(size)) / size),
-                       size - 1)
+    order = rng.permutation(len(chain.samples))[:MAX_WEIGHED_DRAWS]
+    exact, approx, size, share = np.zeros(0), np.zeros(0), 0, 0.0
+    while True:
+        # Enough draws for the effective number needed at the fraction seen so far
+        # (the check's at first), and for the largest weight's share to fall to the
+        # limit if no larger weight turns up (a heavy tail shows only in more draws).
+        wanted = int(min(len(order), max(
+            np.ceil(1.5 * MIN_WEIGHED_EFFECTIVE / max(fraction, 1e-3)),
+            np.ceil(size * share / MAX_WEIGHT_SHARE))))
+        if wanted <= size:
+            break
+        batch = chain.samples[order[size:wanted]]
+        exact = np.concatenate([exact, model.log_prob_python(batch)])
+        approx = np.concatenate([approx, surrogate(batch)])
+        size = wanted
+        check = importance_weights(exact, approx)
+        fraction, share = check["ess_fraction"], check["largest_weight_share"] or 1.0
+        passed = check["ess"] >= MIN_WEIGHED_EFFECTIVE and share <= MAX_WEIGHT_SHARE
+        if passed:
+            break
+    draws, weights = chain.samples[order[:size]], check["weights"]
     medians = _mass_medians(model, chain.samples, draws, weights)
-    passed = (check["ess"] >= MIN_WEIGHED_EFFECTIVE
-              and check["largest_weight_share"] <= MAX_WEIGHT_SHARE)
     if passed:  # else the chain's own draws stay, the fit not converged
+        cumulative = np.cumsum(weights) / np.sum(weights)
+        picks = np.minimum(np.searchsorted(cumulative, (rng.random() + np.arange(size))
+                                           / size), size - 1)
         chain.samples, chain.log_prob = draws[picks], exact[picks]
         chain.weighed_effective = check["ess"]
     return {"draws": size, "finite": check["finite"], "ess": check["ess"],

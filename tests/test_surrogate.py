@@ -103,6 +103,7 @@ def test_a_fit_whose_surrogate_check_fails_is_not_converged(tmp_path, monkeypatc
         return out
 
     monkeypatch.setattr(chain.ConvergenceTest, "update", passing)
+    monkeypatch.setattr(chain, "arrival_step", lambda log_prob, n_dim: 0)  # nor this
     result = fit(model.observations, SystemSpec(dynamics=model.dynamics), seed=2,
                  max_steps=100, check_every=100, progress=False)
     block = result.summary["surrogate"]

@@ -43,7 +43,8 @@ from massfit.orbits.perturbed import SURROGATES
 
 __all__ = ["SURROGATES", "MIN_ESS_FRACTION", "LinearisedPosterior", "packed_values",
            "surrogate_check", "mean_shift_bound", "why_not_linearised", "check_line",
-           "two_body_twin", "log10_mass_columns", "linear_coordinates", "model_coordinates"]
+           "two_body_twin", "log10_mass_columns", "linear_coordinates", "model_coordinates",
+           "importance_weights"]
 
 #: The least effective sample size, as a fraction of the draws checked, for which the
 #: surrogate's posterior is taken as the exact one: every posterior mean then within
@@ -269,28 +270,35 @@ def surrogate_check(model, surrogate, draws, *, detail=None) -> dict:
     """
     draws = np.atleast_2d(np.asarray(draws, dtype=float))
     exact = model.log_prob_python(draws)
-    approx = surrogate(draws)
+    out = importance_weights(exact, surrogate(draws))
+    picked = draws if detail is None else draws[:detail]
+    error = np.abs(_wrapped(surrogate.values(picked) - packed_values(model, picked),
+                            surrogate.polar)) if len(picked) else None
+    out["largest_value_error_sigma"] = (None if error is None
+                                        else float(np.nanmax(error / surrogate.errors())))
+    return out
+
+
+def importance_weights(exact, approx) -> dict:
+    """The importance weights exp(ln p_exact - ln p_surrogate) of draws of the
+    surrogate's posterior and what :func:`surrogate_check` says of them (all its keys
+    but ``largest_value_error_sigma``); draws where either is not finite get weight 0."""
+    exact, approx = np.asarray(exact, dtype=float), np.asarray(approx, dtype=float)
     good = np.isfinite(exact) & np.isfinite(approx)
     delta = np.where(good, exact - approx, -np.inf)
     top = np.max(delta[good]) if np.any(good) else 0.0
     weights = np.where(good, np.exp(delta - top), 0.0)
     total = float(np.sum(weights))
     ess = total ** 2 / float(np.sum(weights ** 2)) if total > 0 else 0.0
+    share = float(np.max(weights) / total) if total > 0 else None
     weights = weights * (weights.size / total) if total > 0 else weights
     chi2_delta = -2.0 * delta[good]
-    picked = draws if detail is None else draws[:detail]
-    error = np.abs(_wrapped(surrogate.values(picked) - packed_values(model, picked),
-                            surrogate.polar)) if len(picked) else None
-    fraction = ess / draws.shape[0]
-    return {"draws": int(draws.shape[0]), "finite": int(np.sum(good)),
+    fraction = ess / exact.size
+    return {"draws": int(exact.size), "finite": int(np.sum(good)),
             "ess": float(ess), "ess_fraction": float(fraction),
             "mean_shift_bound_sd": mean_shift_bound(fraction) if fraction > 0 else None,
             "largest_abs_delta_chi2": float(np.max(np.abs(chi2_delta - np.mean(chi2_delta))))
             if chi2_delta.size else None,
             "delta_chi2_sd": float(np.std(chi2_delta)) if chi2_delta.size else None,
-            "largest_value_error_sigma": None if error is None
-            else float(np.nanmax(error / surrogate.errors())),
-            "largest_weight_share": float(np.max(weights) / np.sum(weights))
-            if total > 0 else None,
-            "weights": weights, "exact_log_prob": exact,
+            "largest_weight_share": share, "weights": weights, "exact_log_prob": exact,
             "passed": bool(fraction >= MIN_ESS_FRACTION)}

@@ -150,6 +150,9 @@ class Chain:
     arrival_steps : int
         Steps until the last walker reached the posterior's bulk
         (:func:`arrival_step`); the burn-in is at least this.
+    autocorr_converged : bool or None
+        Whether the autocorrelation test alone passed (``converged`` may be false for
+        another reason, named in the chain's notes); None where unknown.
     """
 
     samples: np.ndarray
@@ -171,6 +174,7 @@ class Chain:
     key_tau: float | None = None
     weighed_effective: float | None = None
     arrival_steps: int = 0
+    autocorr_converged: bool | None = None
 
     def effective_samples(self, k: int = 0) -> float:
         """Effective number of independent samples of coordinate ``k`` (of the model's
@@ -374,7 +378,7 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         walker_steps=chain[keep],
         key_column=None if key is None else key[0],
         key_tau=None if key is None else float(_autocorr(key[1](chain)[:, :, None])[0]),
-        arrival_steps=arrival)
+        arrival_steps=arrival, autocorr_converged=converged)
     if arrival > steps // 2:
         out.converged = False
         out.notes = [f"not every walker had reached the posterior's bulk by half the chain "
