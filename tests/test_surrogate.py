@@ -163,6 +163,7 @@ def test_importance_resampling_recovers_a_known_target():
             np.testing.assert_allclose(chain.log_prob, target.logpdf(chain.samples[:, 0]))
 
 
+@pytest.mark.slow  # scipy's exact least squares on the integrator as the reference: ~20 s
 def test_linearised_least_squares_reaches_the_exact_minimum(tmp_path):
     # The start's polish through the linearised departure ends where the integrated
     # model's own least squares (scipy's trust region on the integrator) ends, from a
