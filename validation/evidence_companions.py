@@ -93,6 +93,8 @@ def main(argv=None):
     parser.add_argument("--epochs", type=int, default=40)
     parser.add_argument("--span", type=float, default=900.0)
     parser.add_argument("--folder", default=None, help="where the tables are written")
+    parser.add_argument("--truth", choices=("both", "two", "one"), default="both",
+                        help="which data sets to fit (default: both)")
     args = parser.parse_args(argv)
     folder = Path(args.folder or OUT.parent / "evidence_companions_data")
     folder.mkdir(parents=True, exist_ok=True)
@@ -100,7 +102,7 @@ def main(argv=None):
     done = {(r["seed"], r["data"], r["live_points"]) for r in rows}
     for seed in args.seeds:
         for truth, n in (("two companions", 2), ("one companion", 1)):
-            if (seed, truth, args.live) in done:
+            if (seed, truth, args.live) in done or args.truth not in ("both", truth[:3]):
                 continue
             obs = star_table(folder / f"star_{n}_{seed}.ecsv", n, seed, args.epochs,
                              args.span)
