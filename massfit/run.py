@@ -348,7 +348,8 @@ def _warnings(chain, start):
             out.append("not converged: " + chain.engine["convergence_basis"] + " does not "
                        "hold (see weighed_modes: log_z_runs); raise live_points")
         return out  # the nested engine weighs the start's modes itself
-    if not chain.converged:
+    if not chain.converged and getattr(chain, "autocorr_converged", None) is not True:
+        # (where the autocorrelation test passed, the chain's notes say what failed)
         out.append(not_converged_text(chain))
     for mode in start.modes:
         if "weight" in mode:

@@ -21,7 +21,7 @@ from massfit.model.compiled_posterior import compiled_posterior, why_not_compile
 from massfit.model.orbit_model import OrbitModel
 from massfit.model.specs import SystemSpec
 from massfit.orbits import kepler
-from massfit.priors import Fixed, Normal, Uniform
+from massfit.priors import Fixed, LogUniform, Normal, Uniform
 from massfit.sample.reparameterisation import SamplerCoordinates
 from massfit.start.search import parameter_bounds
 
@@ -216,3 +216,24 @@ def test_the_numbers_do_not_depend_on_the_threads():
     assert thread_count(None, work=10 * THREADS_FROM_WORK) == min(
         numba.config.NUMBA_NUM_THREADS, __import__("os").cpu_count())
     assert thread_count(5) == min(5, numba.config.NUMBA_NUM_THREADS)
+
+
+def test_compiled_companion_masses_sampled_as_masses_equal_the_python_path():
+    # A companion's log10 mass sampled as the mass itself (M_sun), as where companions
+    # pull on each other, together with a state-vector companion (whose GM takes that
+    # mass) and the angular mass: both paths, masses <= 0 (no density) too.
+    model = _model("mirren", mass=LogUniform(1e-4, 0.5))
+    body = next(iter(model.companions))
+    assert f"{body}.log10_mass" in model.names
+    theta = _points(model, n=400, seed=6)
+    inside = theta[np.isfinite(model.log_prob_python(theta))]
+    for options in ({}, {"state": {body: (40.0, 0.7)}, "angular_mass": True}):
+        coordinates = SamplerCoordinates(model, linear_mass=[body], **options)
+        k = coordinates.names.index(f"{body}.mass")
+        sampled = coordinates.to_sampled(np.repeat(inside, 4, axis=0))
+        rng = np.random.default_rng(9)
+        sampled = sampled * (1.0 + 0.05 * rng.standard_normal(sampled.shape))
+        sampled[:5, k] *= -1.0
+        fast = coordinates.log_prob(sampled)
+        _assert_same(fast, coordinates.log_prob_python(sampled))
+        assert np.all(fast[:5] == -np.inf)

@@ -249,3 +249,50 @@ def test_fit_of_a_short_arc_reports_its_state_coordinates():
     assert np.all(np.isfinite(result.model.log_prob(result.chain.samples)))
     masses = result.samples["central_mass_solar"]
     assert np.quantile(masses, 0.0013) < truth < np.quantile(masses, 0.9987)
+
+
+def test_companion_masses_round_trip_with_the_right_jacobian():
+    # log10 m sampled as m: log |d log10 m / dm| = -ln(m ln 10), checked by finite
+    # differences of the whole map, alone and with a state vector in angular units.
+    from test_speed_paths import _model as speed_paths_model
+
+    model = speed_paths_model("mirren", mass=LogUniform(1e-4, 0.5))
+    start = find_start(model)
+    walkers = start.walkers(model, 12, np.random.default_rng(4))
+    body = next(iter(model.companions))
+    for options in ({}, {"state": {body: (40.0, 0.7)}, "angular_mass": True}):
+        coordinates = SamplerCoordinates(model, linear_mass=[body], **options)
+        s = coordinates.to_sampled(walkers)
+        k = coordinates.names.index(f"{body}.mass")
+        np.testing.assert_allclose(s[:, k], 10.0 ** walkers[:, model.names.index(
+            f"{body}.log10_mass")], rtol=1e-14)
+        theta, _ = coordinates.to_model(s)
+        np.testing.assert_allclose(theta, walkers, rtol=0, atol=1e-9)
+        for row in s[:3]:
+            assert _difference_log_jacobian(coordinates, row) == pytest.approx(
+                coordinates.to_model(row[None])[1][0], abs=1e-5)
+        s[0, k] = 0.0
+        assert coordinates.to_model(s[:1])[1][0] == -np.inf
+
+
+def test_masses_are_sampled_as_masses_where_the_companions_pull():
+    # Mutual pulls make the masses measured (linearly) through the pulls: the sampler
+    # moves in the masses; with two-body orbits it keeps their logarithms.
+    from dataclasses import replace
+
+    from test_speed_paths import _model as speed_paths_model
+
+    from massfit.orbits.perturbed import Perturbed
+
+    two_body = speed_paths_model("orvane")
+    pulls = OrbitModel(two_body.observations,
+                       replace(two_body.spec, dynamics=Perturbed(mutual_pulls=True)))
+    for model, expected in ((pulls, True), (two_body, False)):
+        low, high = (np.nan_to_num(b, posinf=1.0, neginf=-1.0)
+                     for b in (model.prior_plan.low, model.prior_plan.high))
+        coordinates = SamplerCoordinates.for_start(model, 0.5 * (low + high),
+                                                   arc_fraction=0.0)
+        masses = [f"{name}.mass" in coordinates.names for name in model.companions]
+        assert masses == [expected] * len(masses)
+        assert all(f"{name}.log10_mass" in model.names for name in model.companions
+                   ) or not expected

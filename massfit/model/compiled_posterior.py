@@ -284,7 +284,7 @@ class CompiledPosterior:
         """Log-posterior of each row of ``sampled`` (n, n_dim), -inf outside the support.
 
         ``change`` holds the sampler's change of coordinates as the kernel's tables
-        ``(lon_i, lon_f, st_i, st_f, st_comp, angular_i)``
+        ``(lon_i, lon_f, st_i, st_f, st_comp, angular_i, mass_i)``
         (:meth:`massfit.sample.reparameterisation.SamplerCoordinates.compiled_tables`);
         None for the model's own coordinates.
         """
@@ -303,7 +303,8 @@ class CompiledPosterior:
 
 _NO_CHANGE = (np.zeros((0, 6), dtype=np.int64), np.zeros((0, 3)),
               np.zeros((0, 6), dtype=np.int64), np.zeros((0, 6)),
-              np.zeros(0, dtype=np.int64), np.full(2, -1, dtype=np.int64))
+              np.zeros(0, dtype=np.int64), np.full(2, -1, dtype=np.int64),
+              np.zeros(0, dtype=np.int64))
 
 
 _NO_LINEAR = (np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros((0, 0)),

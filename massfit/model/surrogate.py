@@ -42,7 +42,9 @@ from massfit.orbits.dynamics import Keplerian
 from massfit.orbits.perturbed import SURROGATES
 
 __all__ = ["SURROGATES", "MIN_ESS_FRACTION", "LinearisedPosterior", "packed_values",
-           "surrogate_check", "mean_shift_bound", "why_not_linearised", "check_line"]
+           "surrogate_check", "mean_shift_bound", "why_not_linearised", "check_line",
+           "two_body_twin", "log10_mass_columns", "linear_coordinates", "model_coordinates",
+           "importance_weights"]
 
 #: The least effective sample size, as a fraction of the draws checked, for which the
 #: surrogate's posterior is taken as the exact one: every posterior mean then within
@@ -65,13 +67,21 @@ def why_not_linearised(model) -> str | None:
 def check_line(record) -> str:
     """The report's line on the surrogate's last check (summary key ``surrogate``)."""
     last = record["rounds"][-1]
-    return (f"  sampled through the linearised surrogate ({len(record['rounds'])} "
+    weighed = record.get("weighed")
+    line = (f"  sampled through the linearised surrogate ({len(record['rounds'])} "
             f"linearisation(s)); exact check of {last['draws']} draws: effective "
             f"samples {100 * last['ess_fraction']:.1f} % (>= "
             f"{100 * record['min_ess_fraction']:.0f} % needed), largest |delta chi2| "
             f"{last['largest_abs_delta_chi2']:.3g}, largest error of a predicted value "
             f"{last['largest_value_error_sigma']:.3g} sigma: "
-            + ("passed" if record["passed"] else "FAILED"))
+            + ("passed" if last["passed"] else "short" if weighed else "FAILED"))
+    if weighed:
+        line += (f"\n  the draws weighed by the integrator instead: {weighed['draws']} "
+                 f"draws, {weighed['ess']:.0f} effective (>= {weighed['min_effective']} "
+                 f"needed), the largest weight {100 * weighed['largest_weight_share']:.1f} "
+                 f"% of the total (<= {100 * weighed['max_weight_share']:.0f} %): "
+                 + ("passed" if weighed["passed"] else "FAILED"))
+    return line
 
 
 def packed_values(model, theta) -> np.ndarray:
@@ -95,11 +105,20 @@ def packed_values(model, theta) -> np.ndarray:
     return np.stack([np.concatenate(first, axis=1), np.concatenate(second, axis=1)], axis=1)
 
 
-def _two_body(model):
+def two_body_twin(model):
     """The same model (rows, layout, priors) with two-body dynamics."""
     cheap = copy.copy(model)
     cheap.dynamics = Keplerian()
     return cheap
+
+
+def log10_mass_columns(model) -> np.ndarray:
+    """1 where a coordinate is a companion's log10 mass, else 0 (int64, n_dim): the
+    coordinates a linearisation takes as 10^theta, since pulls are first order in the
+    mass, not in its logarithm."""
+    return np.array([name.rsplit(".", 1)[-1] == "log10_mass"
+                     and name.split(".", 1)[0] in model.companions for name in model.names],
+                    dtype=np.int64)
 
 
 class LinearisedPosterior(CompiledPosterior):
@@ -126,18 +145,16 @@ class LinearisedPosterior(CompiledPosterior):
         super().__init__(model)
         theta0 = np.asarray(theta0, dtype=float)
         n_dim = theta0.size
-        cheap = _two_body(model)
+        cheap = two_body_twin(model)
         polar = self._polar_rows(model)
         # Companion masses sampled as log10 enter linearly: their pulls are first order
         # in the mass, not in its logarithm (measured: in log10 the second-order error
         # along the outer moon's mass reached 0.7 of an error at 1.5 sigma).
-        power = np.array([name.rsplit(".", 1)[-1] == "log10_mass"
-                          and self._companion_mass(model, name) for name in model.names],
-                         dtype=np.int64)
-        u0 = _linear_coordinates(theta0, power)
+        power = log10_mass_columns(model)
+        u0 = linear_coordinates(theta0, power)
         steps = np.asarray(steps, dtype=float)
         steps = np.where(power == 1, np.minimum(u0 * np.log(10.0) * steps, 0.5 * u0), steps)
-        points = _model_coordinates(
+        points = model_coordinates(
             np.vstack([u0, u0 + np.diag(steps), u0 - np.diag(steps)]), power)
         exact = packed_values(model, points)
         plain = packed_values(cheap, points)
@@ -191,18 +208,18 @@ class LinearisedPosterior(CompiledPosterior):
         """The surrogate's predicted values at ``theta`` (n, 2, rows), data units."""
         theta = np.atleast_2d(theta)
         theta0, power, mix, base, slope = self.linear
-        step = _linear_coordinates(theta, power) - _linear_coordinates(theta0, power)
+        step = linear_coordinates(theta, power) - linear_coordinates(theta0, power)
         return packed_values(self._cheap, theta0 + step @ mix.T) + base + np.einsum(
             "jrk,nk->njr", slope, step)
 
 
-def _linear_coordinates(theta, power):
+def linear_coordinates(theta, power):
     """u of the kernel's linear correction: 10^theta where ``power`` is 1."""
     return np.where(power == 1, 10.0 ** theta, theta)
 
 
-def _model_coordinates(u, power):
-    """The inverse of :func:`_linear_coordinates`."""
+def model_coordinates(u, power):
+    """The inverse of :func:`linear_coordinates`."""
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(power == 1, np.log10(u), u)
 
@@ -245,30 +262,43 @@ def surrogate_check(model, surrogate, draws, *, detail=None) -> dict:
         (:func:`mean_shift_bound`), ``largest_abs_delta_chi2`` and
         ``delta_chi2_sd`` (about the draws' mean: a constant offset does not change
         the posterior), ``largest_value_error_sigma`` (the largest |surrogate -
-        exact| of a predicted value over its error), ``weights`` (normalised to mean
-        1, an array, for reweighting) and ``passed`` (ess_fraction >=
+        exact| of a predicted value over its error; None where ``detail`` is 0),
+        ``largest_weight_share`` (the largest weight's share of the total),
+        ``weights`` (normalised to mean 1, an array, for reweighting),
+        ``exact_log_prob`` (an array) and ``passed`` (ess_fraction >=
         :data:`MIN_ESS_FRACTION`).
     """
     draws = np.atleast_2d(np.asarray(draws, dtype=float))
     exact = model.log_prob_python(draws)
-    approx = surrogate(draws)
+    out = importance_weights(exact, surrogate(draws))
+    picked = draws if detail is None else draws[:detail]
+    error = np.abs(_wrapped(surrogate.values(picked) - packed_values(model, picked),
+                            surrogate.polar)) if len(picked) else None
+    out["largest_value_error_sigma"] = (None if error is None
+                                        else float(np.nanmax(error / surrogate.errors())))
+    return out
+
+
+def importance_weights(exact, approx) -> dict:
+    """The importance weights exp(ln p_exact - ln p_surrogate) of draws of the
+    surrogate's posterior and what :func:`surrogate_check` says of them (all its keys
+    but ``largest_value_error_sigma``); draws where either is not finite get weight 0."""
+    exact, approx = np.asarray(exact, dtype=float), np.asarray(approx, dtype=float)
     good = np.isfinite(exact) & np.isfinite(approx)
     delta = np.where(good, exact - approx, -np.inf)
     top = np.max(delta[good]) if np.any(good) else 0.0
     weights = np.where(good, np.exp(delta - top), 0.0)
     total = float(np.sum(weights))
     ess = total ** 2 / float(np.sum(weights ** 2)) if total > 0 else 0.0
+    share = float(np.max(weights) / total) if total > 0 else None
     weights = weights * (weights.size / total) if total > 0 else weights
     chi2_delta = -2.0 * delta[good]
-    picked = draws if detail is None else draws[:detail]
-    error = np.abs(_wrapped(surrogate.values(picked) - packed_values(model, picked),
-                            surrogate.polar))
-    fraction = ess / draws.shape[0]
-    return {"draws": int(draws.shape[0]), "finite": int(np.sum(good)),
+    fraction = ess / exact.size
+    return {"draws": int(exact.size), "finite": int(np.sum(good)),
             "ess": float(ess), "ess_fraction": float(fraction),
             "mean_shift_bound_sd": mean_shift_bound(fraction) if fraction > 0 else None,
             "largest_abs_delta_chi2": float(np.max(np.abs(chi2_delta - np.mean(chi2_delta))))
             if chi2_delta.size else None,
             "delta_chi2_sd": float(np.std(chi2_delta)) if chi2_delta.size else None,
-            "largest_value_error_sigma": float(np.nanmax(error / surrogate.errors())),
-            "weights": weights, "passed": bool(fraction >= MIN_ESS_FRACTION)}
+            "largest_weight_share": share, "weights": weights, "exact_log_prob": exact,
+            "passed": bool(fraction >= MIN_ESS_FRACTION)}

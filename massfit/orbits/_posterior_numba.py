@@ -334,14 +334,15 @@ def _corrected(rows, theta, theta0, power, mix, base,
 @numba.njit(parallel=True, **_jit)
 def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
                   sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
-                  var_f, lon_i, lon_f, st_i, st_f, st_comp, angular_i, lin_theta0,
+                  var_f, lon_i, lon_f, st_i, st_f, st_comp, angular_i, mass_i, lin_theta0,
                   lin_power, lin_mix, lin_base,
                   lin_slope):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
 
     The walkers are shared among numba's threads (``numba.set_num_threads``).
     ``angular_i`` = (mass column, parallax column) where the mass is sampled as
-    log10(M plx^3) and the state vectors in angular units, else (-1, -1). With a
+    log10(M plx^3) and the state vectors in angular units, else (-1, -1);
+    ``mass_i`` the columns of companions' log10 masses sampled as the mass itself. With a
     linear correction (``lin_theta0`` not empty) each walker's observed values are
     moved by minus the correction, which is the correction added to the prediction.
     """
@@ -349,15 +350,15 @@ def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_paral
         out[w] = walker_log_posterior(
             sampled[w], comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel,
             vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i, var_f,
-            lon_i, lon_f, st_i, st_f, st_comp, angular_i, lin_theta0, lin_power, lin_mix,
-            lin_base, lin_slope)
+            lon_i, lon_f, st_i, st_f, st_comp, angular_i, mass_i, lin_theta0, lin_power,
+            lin_mix, lin_base, lin_slope)
 
 
 @numba.njit(**_jit)
 def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
                          sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f,
                          win_i, win_f, var_i, var_f, lon_i, lon_f, st_i, st_f, st_comp,
-                         angular_i, lin_theta0, lin_power, lin_mix, lin_base,
+                         angular_i, mass_i, lin_theta0, lin_power, lin_mix, lin_base,
                          lin_slope):  # pragma: no cover - compiled
     """The log-posterior of one walker's coordinates ``sampled`` (n_dim,), -inf outside
     the support: :func:`log_posterior`'s work for one row, callable from other
@@ -366,6 +367,13 @@ def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_par
     n_rows = rows.shape[1]
     s = sampled.copy()
     log_angular = 0.0
+    for c in mass_i:
+        # A companion's mass sampled as itself: back to log10 (|d log10 m / dm| =
+        # 1 / (m ln 10)).
+        if not s[c] > 0.0:
+            return -np.inf
+        log_angular -= math.log(s[c] * LN10)
+        s[c] = math.log10(s[c])
     if angular_i[0] >= 0:
         # Angular units back to physical ones: log10(M plx^3) to log10 M (Jacobian
         # 1), state vectors in mas and mas/day to au and au/day (plx^-6 each).

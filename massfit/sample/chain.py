@@ -23,7 +23,8 @@ from massfit.model.compiled_posterior import on_threads
 from massfit.sample.progress import ConvergenceBar
 from massfit.sample.steps import CompiledSteps, difference_pairs
 
-__all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed", "ConvergenceTest"]
+__all__ = ["SamplerSettings", "Chain", "run_sampler", "check_seed", "ConvergenceTest",
+           "arrival_step", "ARRIVAL_PROBABILITY"]
 
 #: Required chain length in autocorrelation times.
 TAU_MULTIPLE = 50.0
@@ -143,6 +144,15 @@ class Chain:
         Where the sampler moved in other coordinates than the model's: the model column
         of the central mass and its own autocorrelation time (steps), measured on the
         whole chain (``run_sampler``'s ``key``); the effective samples of the mass use it.
+    weighed_effective : float, optional
+        Where ``samples`` are draws resampled by importance weights
+        (:mod:`massfit.linearised_fit`): their effective number.
+    arrival_steps : int
+        Steps until the last walker reached the posterior's bulk
+        (:func:`arrival_step`); the burn-in is at least this.
+    autocorr_converged : bool or None
+        Whether the autocorrelation test alone passed (``converged`` may be false for
+        another reason, named in the chain's notes); None where unknown.
     """
 
     samples: np.ndarray
@@ -162,12 +172,17 @@ class Chain:
     state_bodies: list = field(default_factory=list)
     key_column: int | None = None
     key_tau: float | None = None
+    weighed_effective: float | None = None
+    arrival_steps: int = 0
+    autocorr_converged: bool | None = None
 
     def effective_samples(self, k: int = 0) -> float:
         """Effective number of independent samples of coordinate ``k`` (of the model's
-        quantity ``key_tau`` was measured for, where ``k`` is its column)."""
+        quantity ``key_tau`` was measured for, where ``k`` is its column); at most
+        ``weighed_effective`` where the samples are importance-weighted draws."""
         tau = self.key_tau if self.key_tau is not None and k == self.key_column else self.tau[k]
-        return float(self.walkers * (self.steps - self.burn_in) / max(tau, 1.0))
+        count = float(self.walkers * (self.steps - self.burn_in) / max(tau, 1.0))
+        return count if self.weighed_effective is None else min(count, self.weighed_effective)
 
 
 def _moves():
@@ -344,12 +359,16 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
     lnp = sampler.get_log_prob()[:steps]
     tau = test.tau_at(chain)
     tau_max = float(np.max(tau)) if np.all(np.isfinite(tau)) else float(steps)
-    burn_in = min(int(np.ceil(2 * tau_max)), steps // 2)
+    # Burn-in: two autocorrelation times, and at least until the last walker has
+    # reached the posterior's bulk (a walker started far out in a stiff direction can
+    # take many times tau to come in, and its way in is no posterior draw).
+    arrival = arrival_step(lnp, n_dim)
+    burn_in = min(max(int(np.ceil(2 * tau_max)), arrival), steps // 2)
     thin = max(1, int(tau_max // 2))
     # The same slice as emcee's get_chain(discard=burn_in, thin=thin).
     keep = slice(burn_in + thin - 1, steps, thin)
     accepted = sampler.backend.accepted
-    return Chain(
+    out = Chain(
         samples=chain[keep].reshape(-1, n_dim),
         log_prob=lnp[keep].reshape(-1),
         steps=steps, walkers=n_walkers, tau=np.asarray(tau), converged=converged,
@@ -358,7 +377,38 @@ def run_sampler(log_prob, initial, settings: SamplerSettings, *, checkpoint=None
         seconds=seconds, tau_history=history, resumed_from=resumed_from,
         walker_steps=chain[keep],
         key_column=None if key is None else key[0],
-        key_tau=None if key is None else float(_autocorr(key[1](chain)[:, :, None])[0]))
+        key_tau=None if key is None else float(_autocorr(key[1](chain)[:, :, None])[0]),
+        arrival_steps=arrival, autocorr_converged=converged)
+    if arrival > steps // 2:
+        out.converged = False
+        out.notes = [f"not every walker had reached the posterior's bulk by half the chain "
+                     f"(the last came in after {arrival} of {steps} steps): raise max_steps"]
+    return out
+
+
+#: A walker has reached the posterior's bulk once its log-posterior is within half the
+#: chi^2 quantile of this probability (for as many degrees of freedom as coordinates)
+#: of the walkers' median at the last step: below that lies one draw in a thousand of
+#: a Gaussian posterior.
+ARRIVAL_PROBABILITY = 0.999
+
+
+def arrival_step(log_prob, n_dim) -> int:
+    """The first step by which every walker has reached the posterior's bulk.
+
+    ``log_prob`` (steps, walkers). The bulk's floor is the walkers' median at the last
+    step minus chi2.ppf(:data:`ARRIVAL_PROBABILITY`, n_dim) / 2; a walker arrives at its
+    first step at or above it (``steps`` where it never does). Walkers that arrive at
+    once give 0."""
+    from scipy.stats import chi2
+
+    log_prob = np.asarray(log_prob, dtype=float)
+    if log_prob.size == 0:
+        return 0
+    floor = np.median(log_prob[-1]) - 0.5 * chi2.ppf(ARRIVAL_PROBABILITY, n_dim)
+    reached = log_prob >= floor
+    first = np.where(np.any(reached, axis=0), np.argmax(reached, axis=0), log_prob.shape[0])
+    return int(np.max(first))
 
 
 class ConvergenceTest:

@@ -71,6 +71,21 @@ the node is measured the rotation is nearly a fixed shift. Its Jacobian is 1. Th
 sampled coordinates are then ``sqrt_e_cos_lon_peri`` and ``sqrt_e_sin_lon_peri``
 (sqrt(e) times the cosine and sine of the longitude of periapsis omega + s node) and
 ``mean_longitude`` (the phase plus s node), in a window of width 2 pi.
+
+Companions' masses where they pull on each other
+------------------------------------------------
+Where the companions pull on each other (integrated dynamics with mutual pulls), the
+data measure each companion's mass through its pulls, which are linear in the mass: the
+posterior is close to a Gaussian in the mass and, where the mass is known to tens of
+per cent, bent in its logarithm, because the other coordinates that make up for a change
+of the mass (a neighbour's period and eccentricity) follow the mass, not its log. The
+sampler then moves in ``{body}.mass`` (M_sun) instead of ``{body}.log10_mass``; the
+log-Jacobian is -ln(m ln 10) and the prior stays the model's. Measured on four moons
+with J2 and mutual pulls (their inner one's mass known to 13 %): in log10 mass the
+posterior's mean lay 380 in ln p below the typical draw and its profile along the
+sample covariance's axes left the Gaussian's by up to 5000 in ln p (the sampler's
+acceptance was 0.04); in the mass itself the mean is the mode (0.25 from the Gaussian's
+value) and the profiles are within 0.8 of the Gaussian's at 1 and 2 sd.
 """
 
 from __future__ import annotations
@@ -120,10 +135,17 @@ class SamplerCoordinates:
         (see :meth:`for_start`): body -> (sign, phase centre), where sign is +1 for a
         prograde orbit (cos i > 0) and -1 for a retrograde one, and the phase centre
         (rad) is the middle of the sampled phase's window of width 2 pi.
+    angular_mass : bool
+        Sample the central mass as log10(M plx^3) and state vectors in angular units.
+    linear_mass : sequence of str, optional
+        Companions whose ``log10_mass`` is sampled as the mass itself (M_sun).
     """
 
-    def __init__(self, model, state=None, longitude=None, angular_mass=False):
+    def __init__(self, model, state=None, longitude=None, angular_mass=False,
+                 linear_mass=()):
         self.model = model
+        #: Columns of the companions' log10 masses sampled as the mass itself.
+        self.linear_mass = [model.names.index(f"{body}.log10_mass") for body in linear_mass]
         # (mass column, parallax column) where the mass is sampled as the angular mass
         self.angular_mass = (model.names.index("central.log10_mass"),
                              model.names.index("parallax")) if angular_mass else None
@@ -148,6 +170,8 @@ class SamplerCoordinates:
                 self.names[k] = f"{body}.{label}"
         if self.angular_mass is not None:
             self.names[self.angular_mass[0]] = ANGULAR_MASS
+        for body, k in zip(linear_mass, self.linear_mass):
+            self.names[k] = f"{body}.mass"
 
     @classmethod
     def for_start(cls, model, theta, *, arc_fraction=ARC_FRACTION):
@@ -161,9 +185,14 @@ class SamplerCoordinates:
         node and omega are then no longer tied along a ridge that winds round the
         sqrt(e) disc (only their sum, or difference, is measured); elsewhere the node
         is measured and the change is a shift. The Jacobian of both changes is 1.
+        Where the companions pull on each other, their log10 masses are sampled as
+        the masses (see the module notes).
         """
         if model.velocity_only:
             return cls(model)
+        pulls = bool(getattr(model.dynamics, "mutual_pulls", False))
+        linear_mass = [name for name in model.companions
+                       if pulls and f"{name}.log10_mass" in model.names]
         # Angular units where the parallax is sampled and every offset is an angle (the
         # data then measure M plx^3, not M): see the module notes.
         angular = ("central.log10_mass" in model.names and "parallax" in model.names
@@ -190,10 +219,10 @@ class SamplerCoordinates:
                 k = model.names.index(f"{name}.phase")
                 node = theta[model.names.index(f"{name}.node")]
                 longitude[name] = (sign, float(theta[k] + sign * node))
-        return cls(model, state, longitude, angular_mass=angular)
+        return cls(model, state, longitude, angular_mass=angular, linear_mass=linear_mass)
 
     def __bool__(self):
-        return bool(self.bodies or self.longitude or self.angular_mass)
+        return bool(self.bodies or self.longitude or self.angular_mass or self.linear_mass)
 
     def mass_key(self):
         """(model column, map) of the central mass for ``run_sampler``'s ``key``, where
@@ -208,10 +237,20 @@ class SamplerCoordinates:
         return mass, log10_mass
 
     def _physical_units(self, s):
-        """``s`` in physical units (a copy where it changes): the angular mass as the
-        model's log10 M, state vectors in au and au/day; and the log-Jacobian of that,
-        -inf where the parallax is not positive."""
+        """``s`` in physical units (a copy where it changes): companions' masses as the
+        model's log10 masses, the angular mass as the model's log10 M, state vectors in
+        au and au/day; and the log-Jacobian of that, -inf where a mass or the parallax
+        is not positive."""
         log_jac = np.zeros(s.shape[0])
+        if self.linear_mass:
+            s = s.copy()
+            mass = s[:, self.linear_mass]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                good = np.all(mass > 0, axis=1)
+                mass = np.where(mass > 0, mass, np.nan)
+                log_jac -= np.sum(np.log(mass * LN10), axis=1)
+                s[:, self.linear_mass] = np.log10(mass)
+            log_jac[~good] = -np.inf
         if self.angular_mass is None:
             return s, log_jac
         mass, col = self.angular_mass
@@ -260,6 +299,7 @@ class SamplerCoordinates:
             out[:, mass] = theta[:, mass] + 3.0 * np.log10(theta[:, col])
             for body in self.bodies:
                 out[:, self._columns[body]] *= theta[:, col][:, None]
+        out[:, self.linear_mass] = 10.0 ** theta[:, self.linear_mass]
         return out
 
     def _mirrored(self, body):
@@ -327,8 +367,9 @@ class SamplerCoordinates:
         (:mod:`massfit.model.compiled_posterior`): per sky-fixed-angle body its six
         element columns and (sign, phase centre, the model's phase window low), per
         state-vector body its six columns, (T, phi, mirrored, node window low, node
-        window width, phase window low) and its companion index; and the (mass,
-        parallax) columns of the angular mass, or (-1, -1)."""
+        window width, phase window low) and its companion index; the (mass,
+        parallax) columns of the angular mass, or (-1, -1); and the columns of the
+        companions' masses sampled as themselves."""
         model = self.model
         companions = list(model.companions)
         lon_f = [(sign, centre, model.window(body, "phase")[0])
@@ -345,7 +386,8 @@ class SamplerCoordinates:
                          dtype=np.int64).reshape(-1, 6),
                 np.array(st_f, dtype=float).reshape(-1, 6),
                 np.array([companions.index(b) for b in self.bodies], dtype=np.int64),
-                np.array(self.angular_mass or (-1, -1), dtype=np.int64))
+                np.array(self.angular_mass or (-1, -1), dtype=np.int64),
+                np.array(self.linear_mass, dtype=np.int64))
 
     def log_prob(self, sampled):
         """Log-posterior density in the sampler's coordinates, shape (n,).

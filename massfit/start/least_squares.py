@@ -12,6 +12,7 @@ from massfit.priors import Normal
 
 __all__ = [
     "CHUNK_ELEMENTS",
+    "batch_residuals",
     "centre_guess",
     "chi2_at",
     "covariance_at",
@@ -59,14 +60,16 @@ def prior_residuals(model, theta):
 
 def residual_function(model):
     def fun(theta):
-        return _batch_residuals(model, theta[None, :])[0]
+        return batch_residuals(model, theta[None, :])[0]
     return fun
 
 #: Parameter vectors times data rows evaluated in one piece (bounds memory on big sets).
 CHUNK_ELEMENTS = 2_000_000
 
 
-def _batch_residuals(model, thetas):
+def batch_residuals(model, thetas):
+    """Whitened residuals and prior residuals of every row of ``thetas`` (n, n_dim),
+    non-finite values as 1e6; at most :data:`CHUNK_ELEMENTS` in one piece."""
     step = max(1, CHUNK_ELEMENTS // max(_rows(model), 1))
     res = np.concatenate([model.residuals(thetas[k:k + step], lenient=True)
                           for k in range(0, len(thetas), step)])
@@ -89,7 +92,7 @@ def _jacobian_function(model, low=None, high=None, rel_step=None):
             step = np.where(theta + step > high, -step, step)
         # A big data set: one shifted point at a time into one array (the same numbers)
         big = (theta.size + 1) * _rows(model) > CHUNK_ELEMENTS
-        return difference_jacobian(lambda points: _batch_residuals(model, points), theta, step,
+        return difference_jacobian(lambda points: batch_residuals(model, points), theta, step,
                                    one_at_a_time=big)
     return jac
 

@@ -12,6 +12,7 @@ import numpy as np
 from massfit.errors import ModelError
 from massfit.model.orbit_model import OrbitModel
 from massfit.start.joint import best_combination
+from massfit.start.linearised import linearised_least_squares
 from massfit.start.least_squares import (
     centre_guess,
     chi2_at,
@@ -220,7 +221,15 @@ def _run_stages(models, values, limit, say, rank):
         if k:
             values = _shift_phases(values, models[k - 1], stage)
         capped = []
-        theta = solve_least_squares(stage, values, rounds=2, max_nfev=limit, capped=capped)
+        # Through the linearised departure first (a few integrations a round); the last
+        # stage, whose solution the sampler starts from, then by the exact least
+        # squares from there (few iterations from so near).
+        polished = _linearised_polish(stage, values, say)
+        theta = polished
+        if polished is None or k == len(models) - 1:
+            theta = solve_least_squares(
+                stage, values if polished is None else values_from_theta(stage, polished),
+                rounds=1 if polished is not None else 2, max_nfev=limit, capped=capped)
         if theta is None:
             say(f"candidate {rank + 1}, stage {k + 1}/{len(models)}: least squares failed")
             return None, notes
@@ -235,6 +244,19 @@ def _run_stages(models, values, limit, say, rank):
             + (" (stopped at the cap)" if capped else ""))
         values = values_from_theta(stage, theta)
     return theta, notes
+
+
+def _linearised_polish(model, values, say):
+    """The stage's least squares through the linearised departure from two-body orbits
+    (:mod:`massfit.start.linearised`), or None where it did not lower chi^2 (then the
+    exact least squares runs)."""
+    theta = _theta_of(model, values)
+    if not np.isfinite(model.log_prior(theta[None])[0]):
+        return None
+    polished, chi2, _ = linearised_least_squares(model, theta, say=say)
+    if polished is theta or not np.isfinite(chi2):
+        return None
+    return model.recentre(polished)
 
 
 def _stage_windows(model, values):

@@ -277,6 +277,13 @@ def _compare(model, theta):
 
 
 def _least_squares_chi2(model, theta):
+    if getattr(model.dynamics, "start_evaluations", None):
+        # An integrated model: least squares through its linearised departure from
+        # two-body orbits (massfit/start/linearised.py), a few integrations a round
+        # rather than one per coordinate an iteration (minutes on four moons).
+        from massfit.start.linearised import linearised_least_squares
+
+        return float(linearised_least_squares(model, np.asarray(theta, dtype=float))[1])
     from scipy.optimize import least_squares
 
     from massfit.start.least_squares import parameter_bounds, residual_function
