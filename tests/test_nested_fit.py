@@ -56,6 +56,21 @@ def test_cli_fit_with_the_nested_sampler(orbit_file, tmp_path):
     mass = summary["central_mass_solar"]
     assert mass["lower_95"] < TRUE_MASS < mass["upper_95"]
     assert "ln evidence" in proc.stdout
+    # The summary keys DEVELOPERS.md documents ("Evidence and weighed modes").
+    assert {"engine", "library", "sampler", "sample", "live_points", "runs_per_box",
+            "dlogz", "boxes", "likelihood_calls", "convergence_basis"} <= set(
+        summary["sampler"])
+    assert {"log_evidence", "log_evidence_err", "laplace_log_evidence",
+            "start_log_likelihood", "best_log_likelihood", "peak_reached",
+            "unit"} <= set(summary["evidence"])
+    (mode,) = summary["weighed_modes"]  # one solution: one box, all the probability
+    assert {"probability", "probability_err", "probability_runs", "log_z", "log_z_err",
+            "log_z_runs", "log_z_err_runs", "runs_agree", "period_boxes_days", "draws",
+            "central_mass_solar", "period"} <= set(mode)
+    assert mode["probability"] == 1.0 and mode["runs_agree"] is True
+    # A two-body fit compared with nothing: the measure is named as absent.
+    assert "comparison_measure" in summary["adequacy"]
+    assert summary["adequacy"]["comparison_measure"] is None
 
 
 def test_compare_favours_the_true_model(orbit_file):
@@ -106,3 +121,41 @@ def test_bayes_factor_of_j2_on_simulated_moons(tmp_path):
             assert "ln B" in " ".join(models["j2"]["adequacy_verdicts"])
     assert found["j2"] > 5.0  # "very strong" on Kass & Raftery's scale
     assert found["two-body"] < 0.0
+
+
+def test_bayes_factor_of_an_extra_companion(tmp_path):
+    """ln B(two companions : one) on a star's velocities with two companions (favours
+    two) and with the inner one alone (does not favour the extra one), as
+    validation/evidence_companions.py on a small scale (one seed, fewer live points).
+    The truth is the simulated companions; the scale is Kass & Raftery 1995's (from
+    memory: ln B > 5 very strong). The comparison's files and each model's summary keep
+    the documented keys (DEVELOPERS.md, "Evidence and weighed modes")."""
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "validation"))
+    from evidence_companions import bayes_factor, models, star_table
+
+    from massfit.summarise.adequacy import MEASURE_EVIDENCE
+
+    found = {}
+    for n in (2, 1):
+        obs = star_table(tmp_path / f"star_{n}.ecsv", n, 1)
+        cmp = compare_models(obs, models(), nested=NestedSettings(live_points=40, runs=1),
+                             seed=1)
+        found[n] = bayes_factor(cmp)
+        summary = cmp.results["two"].summary
+        assert summary["adequacy"]["comparison_measure"] == MEASURE_EVIDENCE
+        assert set(summary["adequacy"]["evidence"]["against"]["one"]) >= {
+            "log_bayes_factor", "log_bayes_factor_err", "favours", "strength", "measured"}
+        assert {"log_evidence", "log_evidence_err", "laplace_log_evidence",
+                "peak_reached"} <= set(summary["evidence"])
+        assert len(summary["weighed_modes"]) >= 1
+    log_b, err = found[2]
+    assert log_b > 5.0 + 3 * err, found  # very strong for the true two companions
+    log_b, err = found[1]
+    assert log_b < 3 * err, found  # the extra companion not favoured beyond its error
+    cmp.save(tmp_path / "cmp")
+    saved = json.loads((tmp_path / "cmp" / "comparison.json").read_text())
+    assert {"models", "best", "central_mass_solar_averaged", "all_converged", "basis",
+            "files_written"} <= set(saved)
+    assert {"log_evidence", "log_evidence_err", "log_bayes_factor", "log_bayes_factor_err",
+            "probability", "probability_err", "evidence_against_it"} <= set(
+        saved["models"]["one"])

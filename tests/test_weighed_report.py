@@ -153,3 +153,23 @@ def test_mirror_images_are_told_apart_by_their_node(result):
     lines = period_mode_lines(summary, name)
     assert "Omega" in lines[1] and "301.0 +/- 3.0 deg" in "\n".join(lines)
     assert "Omega(" in "\n".join(central_mode_lines(summary, "Msun"))
+
+
+def test_an_emcee_fit_names_no_comparison_and_no_evidence():
+    """A real fit's summary (the shared two-companion emcee fit of figure_helpers) has
+    the adequacy block's ``comparison_measure``: null for a two-body model compared with
+    nothing, the delta-BIC text once a comparison is there; and none of the nested
+    engine's keys (``weighed_modes``, ``evidence``, ``sampler``), which only a nested
+    fit writes (DEVELOPERS.md, "Evidence and weighed modes")."""
+    from figure_helpers import small_result
+
+    summary = small_result().summary
+    assert "comparison_measure" in summary["adequacy"]
+    assert summary["adequacy"]["comparison"] is None
+    assert summary["adequacy"]["comparison_measure"] is None
+    assert not {"weighed_modes", "evidence", "sampler"} & set(summary)
+    # Judged by the evidence, the same block names the Bayes factors instead.
+    models = {"a": {"log_evidence": 1.0, "log_evidence_err": 0.1, "converged": True},
+              "b": {"log_evidence": 0.0, "log_evidence_err": 0.1, "converged": True}}
+    assert with_evidence(summary["adequacy"], "a", models)["comparison_measure"] == \
+        MEASURE_EVIDENCE

@@ -19,8 +19,12 @@ Usage::
 
     PYTHONPATH=. python validation/sparse_calibration.py --systems 40 --live 150
 
-Appends to ``validation/results/sparse_calibration.jsonl`` one system at a time (an
-interrupted study continues) and writes ``sparse_calibration_summary.json``.
+Appends to ``validation/results/sparse_calibration.jsonl`` (``--results``) one system at
+a time (an interrupted study continues) and writes ``<results stem>_summary.json``
+beside it (``sparse_calibration_summary.json``): the 68.27 % and 95.45 % coverage with
+99 % binomial bounds, for all systems and for those with several weighed modes.
+The records made before the box about a single solution are kept in
+``sparse_calibration_before_single_box.jsonl`` (and ``_summary.json``).
 """
 
 from __future__ import annotations
@@ -128,7 +132,7 @@ def main(argv=None):
     verdict["aliased_systems"] = int(sum(r["modes"] > 1 for r in records))
     verdict["aliased_only"] = assess([r for r in records if r["modes"] > 1]) \
         if verdict["aliased_systems"] else None
-    (path.parent / "sparse_calibration_summary.json").write_text(
+    path.with_name(f"{path.stem}_summary.json").write_text(
         json.dumps(verdict, indent=2) + "\n")
     print(json.dumps(verdict, indent=2))
 
