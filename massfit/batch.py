@@ -428,9 +428,9 @@ def _execute(jobs, workers, scheduler):
     finished, workers = False, set()
     others = set(multiprocessing.active_children())
     try:
-        with _sigint_ignored():  # the workers start here, and inherit the ignoring
+        with _sigint_held():  # the workers start here, and inherit the holding
             futures = {pool.submit(fit_job, job): job for job in jobs}
-        workers = set(multiprocessing.active_children()) - others
+            workers = set(multiprocessing.active_children()) - others
         for future in as_completed(futures):
             job = futures[future]
             yield job, _outcome(job, future)
@@ -444,12 +444,25 @@ def _execute(jobs, workers, scheduler):
 
 
 @contextlib.contextmanager
-def _sigint_ignored():
-    """Ignore Ctrl-C while worker processes start: an ignored signal stays ignored in a
-    new Python process from its first line, so a Ctrl-C never lands in a worker's
-    imports (the batch itself is told, through ``stop``)."""
+def _sigint_held():
+    """Hold Ctrl-C back while worker processes start.
+
+    A process started now inherits the held (blocked) signal from its first line, so a
+    Ctrl-C never lands in a worker's imports; its setup ignores the signal and lets it
+    through (:func:`_worker_setup`); the batch is told through ``stop``. The batch
+    itself gets a Ctrl-C that came meanwhile as soon as the workers have started (a
+    blocked signal waits; an ignored one, as this once was, is lost: a Ctrl-C pressed
+    just then left the batch running). Where signals cannot be blocked (Windows), they
+    are ignored meanwhile instead."""
     if threading.current_thread() is not threading.main_thread():
         yield
+        return
+    if hasattr(signal, "pthread_sigmask"):
+        signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+        try:
+            yield
+        finally:
+            signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
         return
     previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
@@ -465,6 +478,8 @@ def _worker_setup(parent: int, stop) -> None:
     worker also leaves as soon as its parent process is gone.
     """
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "pthread_sigmask"):  # held while the batch started it
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
 
     def watch():
         while not stop.wait(0.2):
