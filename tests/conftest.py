@@ -49,3 +49,17 @@ def write_one_companion(folder, *, name="Quill", span=260.0, epochs=14, period=1
 def small_data_file(tmp_path_factory):
     """An ECSV file of one companion over about two orbits (14 epochs)."""
     return write_one_companion(tmp_path_factory.mktemp("small-data"))
+
+
+@pytest.fixture(autouse=True, scope="session")
+def _ctrl_c_reaches_child_processes():
+    """Tests that press Ctrl-C in a child process (a batch, a fit) need it to start as
+    under a terminal. A suite started in the background by a non-interactive shell
+    has SIGINT ignored, and an ignored signal stays ignored in every process it
+    starts: the child would rightly ignore the Ctrl-C and run on. A handled signal is
+    reset to its default in a new program, so this gives the children the terminal's."""
+    import signal
+
+    if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+    yield
