@@ -304,6 +304,7 @@ def test_mass_over_modes_is_the_weighted_mixture(yearly_start):
         block["lower_68"], rel=1e-3)
 
 
+@pytest.mark.slow  # a chain in each box: 20 s
 def test_an_unvisited_mode_gets_its_own_chain_in_its_box(yearly_start, yearly_file):
     from massfit.modechains import boxed_spec, weigh_modes
     from massfit.sample.chain import SamplerSettings

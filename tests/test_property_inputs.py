@@ -19,6 +19,7 @@ import sys
 import tempfile
 from pathlib import Path
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -242,6 +243,7 @@ def test_random_configs(config):
     check_run({"system.toml": config, "obs.csv": GOOD_ROWS}, ["fit", "system.toml"])
 
 
+@pytest.mark.slow  # a real process per table: 8 s
 @settings(max_examples=2, deadline=None, derandomize=True, database=None,
           suppress_health_check=list(HealthCheck))
 @given(table=tables())
