@@ -11,10 +11,10 @@ Three lines from a notebook::
 ``result.orbit_plot()`` return matplotlib Figures, and ``print(result)`` reads well.
 """
 
-# Each public name and the module it lives in, imported on first use: ``import massfit``
-# (and the ``massfit`` command, whose --help needs none of them) stays light, and
 from massfit.lazy import lazy_names
 
+# Each public name and the module it lives in, imported on first use: ``import massfit``
+# (and the ``massfit`` command, whose --help needs none of them) stays light, and
 # ``massfit.fit`` or ``from massfit import fit`` loads what that name needs.
 _WHERE = {
     "read_observations": "massfit.read.tables",

@@ -254,7 +254,7 @@ def _linearised_polish(model, values, say):
     if not np.isfinite(model.log_prior(theta[None])[0]):
         return None
     polished, chi2, _ = linearised_least_squares(model, theta, say=say)
-    if polished is theta or not np.isfinite(chi2):
+    if not np.isfinite(chi2) or np.array_equal(polished, theta):  # no round lowered it
         return None
     return model.recentre(polished)
 
