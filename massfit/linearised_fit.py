@@ -4,12 +4,13 @@ With ``[dynamics] surrogate = "linearised"`` (``--surrogate linearised``) a pert
 n-body fit samples :class:`massfit.model.surrogate.LinearisedPosterior` instead of
 integrating every walker at every step: the compiled two-body kernel plus the
 integrated model's departure from it, linearised at the start's solution (two
-integrations per coordinate). The chain is then checked against the exact model:
+integrations per coordinate) and its second order from every pair of the posterior's
+axes. The chain is then checked against the exact model:
 :data:`CHECK_DRAWS` draws of it are evaluated with the integrator and weighed by
 exp(ln p_exact - ln p_surrogate). Where the weights' effective sample size is below
 :data:`massfit.model.surrogate.MIN_ESS_FRACTION` of the draws and the chain's median
 moved more than :data:`RELINEARISE_SHIFT_SD` from the linearisation point, the
-surrogate is linearised again at the chain's median (steps of the chain's own spread)
+surrogate is linearised again at the chain's median (axes of the chain's own covariance)
 and the chain is run again from its last walkers, at most :data:`ROUNDS` times in all.
 Where the last check still falls short, the chain's draws are weighed by the
 integrator itself (:func:`importance_resampled`: enough draws for
@@ -81,13 +82,14 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
         why nothing but the exact model was sampled: see :func:`fit`).
     """
     theta0 = np.asarray(start.theta, dtype=float)
-    steps = np.sqrt(np.clip(np.diag(start.covariance), 1e-30, None))
+    spread = np.asarray(start.covariance, dtype=float)
+    steps = np.sqrt(np.clip(np.diag(spread), 1e-30, None))
     walkers = np.asarray(initial, dtype=float)
     rng = np.random.default_rng(settings.seed)
     rounds, chain = [], None
     for k in range(ROUNDS):
         cpu = time.process_time()
-        surrogate = LinearisedPosterior(model, theta0, steps)
+        surrogate = LinearisedPosterior(model, theta0, spread)
         built = time.process_time() - cpu
         sampling = copy.copy(model)
         sampling.compiled = surrogate
@@ -108,6 +110,7 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
         rounds.append({"linearised_at": "the start" if first else
                        f"the median of round {k}'s chain",
                        "integrations": surrogate.integrations,
+                       "second_order_terms": surrogate.quadratic_terms,
                        "largest_departure_sigma": surrogate.largest_departure,
                        "linearise_cpu_seconds": built, "steps": int(chain.steps),
                        "chain_converged": bool(chain.converged), **check,
@@ -121,7 +124,8 @@ def sample_linearised(model, start, initial, settings, *, checkpoint=None, resum
         if check["passed"] or not chain.converged or shift <= RELINEARISE_SHIFT_SD:
             break
         theta0 = np.median(chain.samples, axis=0)
-        steps = np.maximum(np.std(chain.samples, axis=0), 1e-12 * np.abs(theta0) + 1e-30)
+        spread = np.cov(chain.samples, rowvar=False)
+        steps = np.maximum(np.sqrt(np.diag(spread)), 1e-12 * np.abs(theta0) + 1e-30)
         walkers = chain.walker_steps[-1]
     weighed = None
     if not rounds[-1]["passed"] and chain.converged:

@@ -308,7 +308,8 @@ _NO_CHANGE = (np.zeros((0, 6), dtype=np.int64), np.zeros((0, 3)),
 
 
 _NO_LINEAR = (np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros((0, 0)),
-              np.zeros((2, 0)), np.zeros((2, 0, 0)))
+              np.zeros((2, 0)), np.zeros((2, 0, 0)), np.zeros((0, 0, 0)),
+              np.zeros((2, 0, 0)))
 
 
 def _scale_slot(column, name, prior):

@@ -23,12 +23,14 @@ likelihood's normalisation, the trend's epoch, fixed slope, fixed curvature, the
 prior's constant.
 
 ``lin_theta0`` (n_dim,), ``lin_power`` (n_dim,), ``lin_mix`` (n_dim, n_dim),
-``lin_base`` (2, rows) and ``lin_slope`` (2, rows, n_dim): where a model is sampled
+``lin_base`` (2, rows), ``lin_slope`` (2, rows, n_dim): where a model is sampled
 through the linearised surrogate (:mod:`massfit.model.surrogate`), with the step
 u(theta) - u(theta0) (u = 10^theta in the columns where ``lin_power`` is 1, theta
 elsewhere), the two-body orbits are computed at theta0 + mix step and each row's two
 predicted values (data units: east and north, or separation and position angle) get
-base + slope step; the prior stays at theta. All empty otherwise.
+base + slope step + sum_l quad[:, :, l] (step . forms[l] step), with ``lin_forms``
+(terms, n_dim, n_dim) and ``lin_quad`` (2, rows, terms) the surrogate's second-order
+terms (none: zero terms); the prior stays at theta. All empty otherwise.
 """
 
 from __future__ import annotations
@@ -304,11 +306,11 @@ def _chi2(theta, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel
 
 
 @numba.njit(**_jit)
-def _corrected(rows, theta, theta0, power, mix, base,
-               slope):  # pragma: no cover - compiled
-    # The rows with each observed pair moved by -(base + slope step), and the two-body
-    # coordinates theta0 + mix step (step: u(theta) - u(theta0), u = 10^theta where
-    # ``power`` is 1).
+def _corrected(rows, theta, theta0, power, mix, base, slope, forms,
+               quad):  # pragma: no cover - compiled
+    # The rows with each observed pair moved by -(base + slope step + sum_l quad_l
+    # step.forms_l step), and the two-body coordinates theta0 + mix step (step:
+    # u(theta) - u(theta0), u = 10^theta where ``power`` is 1).
     out = rows.copy()
     n_dim = theta0.size
     step = np.empty(n_dim)
@@ -321,11 +323,22 @@ def _corrected(rows, theta, theta0, power, mix, base,
     for i in range(n_dim):
         for k in range(n_dim):
             orbit[i] += mix[i, k] * step[k]
+    n_terms = forms.shape[0]
+    term = np.zeros(n_terms)
+    for t in range(n_terms):
+        for i in range(n_dim):
+            inner = 0.0
+            for k in range(n_dim):
+                inner += forms[t, i, k] * step[k]
+            term[t] += step[i] * inner
     for j in range(rows.shape[1]):
         first, second = base[0, j], base[1, j]
         for k in range(n_dim):
             first += slope[0, j, k] * step[k]
             second += slope[1, j, k] * step[k]
+        for t in range(n_terms):
+            first += quad[0, j, t] * term[t]
+            second += quad[1, j, t] * term[t]
         out[2, j] -= first
         out[3, j] -= second
     return out, orbit
@@ -335,8 +348,8 @@ def _corrected(rows, theta, theta0, power, mix, base,
 def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_parallax,
                   sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i,
                   var_f, lon_i, lon_f, st_i, st_f, st_comp, angular_i, mass_i, lin_theta0,
-                  lin_power, lin_mix, lin_base,
-                  lin_slope):  # pragma: no cover - compiled
+                  lin_power, lin_mix, lin_base, lin_slope, lin_forms,
+                  lin_quad):  # pragma: no cover - compiled
     """Fill ``out`` (n_walkers,) with the log-posterior of each row of ``sampled``.
 
     The walkers are shared among numba's threads (``numba.set_num_threads``).
@@ -351,7 +364,7 @@ def log_posterior(sampled, out, comp_i, comp_f, glob_i, glob_f, rows, uses_paral
             sampled[w], comp_i, comp_f, glob_i, glob_f, rows, uses_parallax, sight, vel,
             vel_i, inst_i, inst_f, low, high, discs_i, discs_f, win_i, win_f, var_i, var_f,
             lon_i, lon_f, st_i, st_f, st_comp, angular_i, mass_i, lin_theta0, lin_power,
-            lin_mix, lin_base, lin_slope)
+            lin_mix, lin_base, lin_slope, lin_forms, lin_quad)
 
 
 @numba.njit(**_jit)
@@ -359,7 +372,7 @@ def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_par
                          sight, vel, vel_i, inst_i, inst_f, low, high, discs_i, discs_f,
                          win_i, win_f, var_i, var_f, lon_i, lon_f, st_i, st_f, st_comp,
                          angular_i, mass_i, lin_theta0, lin_power, lin_mix, lin_base,
-                         lin_slope):  # pragma: no cover - compiled
+                         lin_slope, lin_forms, lin_quad):  # pragma: no cover - compiled
     """The log-posterior of one walker's coordinates ``sampled`` (n_dim,), -inf outside
     the support: :func:`log_posterior`'s work for one row, callable from other
     compiled code (the sampler's compiled steps)."""
@@ -406,7 +419,7 @@ def walker_log_posterior(sampled, comp_i, comp_f, glob_i, glob_f, rows, uses_par
         seen, orbit = rows, theta
         if lin_theta0.size > 0:
             seen, orbit = _corrected(rows, theta, lin_theta0, lin_power, lin_mix, lin_base,
-                                     lin_slope)
+                                     lin_slope, lin_forms, lin_quad)
         chi2 = _chi2(orbit, comp_i, comp_f, glob_i, glob_f, seen, uses_parallax, sight,
                      vel, vel_i, inst_i, inst_f, east, north)
         lp += -0.5 * chi2 + glob_f[GF_NORM] if math.isfinite(chi2) else -np.inf
