@@ -145,7 +145,9 @@ def shown_offsets(model, theta, name, frame):
     is placed from the primary the same way: C_row is then the model's difference of
     the two bodies and C_mean the companion's own place (on a fixed plane too, where
     C_mean is its offset from the primary at the row). A row that fits the best orbit
-    exactly therefore lies on the best track; its distance from the track is its O-C.
+    exactly therefore lies on the best track, its distance from the track being its
+    O-C (for two-body orbits: a perturbed model's track is the osculating orbit at its
+    epoch, and C_mean moves off it as the orbit turns).
 
     Parameters
     ----------
