@@ -114,6 +114,27 @@ def test_orbit_plot_data_points_follow_the_table(result):
     assert len(ellipses.get_paths()) == rows.sum()
 
 
+def test_orbit_plot_shows_fixed_plane_rows_exactly_as_observed(result):
+    # One fixed sky plane: the dots and ellipses are the observed offsets, unmoved
+    # (with a moving line of sight they are carried to the mean one: test_viewing.py).
+    from massfit.plot.sky import SkyFrame, observed_offsets, shown_offsets
+    from massfit.summarise.residuals import best_sample
+
+    model = result.model
+    theta = best_sample(result)
+    best = model.physical(theta[None])
+    for name in model.companions:
+        frame = SkyFrame(model, name, best)
+        east, north, cov, turn = shown_offsets(model, theta, name, frame)
+        raw_e, raw_n, raw_cov = observed_offsets(model.observations.astrometry, frame.index)
+        assert np.array_equal(east, raw_e * frame.row_factor)
+        assert np.array_equal(north, raw_n * frame.row_factor)
+        assert np.array_equal(cov, raw_cov * frame.row_factor[:, None, None] ** 2)
+        assert not np.any(turn)
+    fig = plots.orbit_plot(result, n_tracks=0)
+    assert not [t for ax in fig.axes for t in ax.texts if t.get_gid() == "sight-note"]
+
+
 def test_error_ellipse_carries_the_correlation():
     # A 1-sigma ellipse is the set of points at Mahalanobis distance 1.
     cov = np.array([[[4.0, 1.2], [1.2, 1.0]]])  # rho = 0.6 between east and north

@@ -242,27 +242,27 @@ def test_moving_observer_recovered_and_fixed_plane_biased_and_flagged(tmp_path):
     assert chi2_dist.sf(chi2, dof) < POOR_FIT_P_VALUE  # the summary's poor-fit verdict
 
 
-def test_offsets_from_another_moon_are_the_difference(tmp_path):
-    # The simulator's offsets of b minus those of a at the same instants (astropy's
-    # tangent-plane offsets, independent of the model's projection).
-    mass, planet, observer, moons = _invented_system()
+def _at_rest(planet):
     # A planet at rest: the model leaves out the planet's own motion during the
     # moons' differential light time (a few mas here, absorbed by the orientation in
-    # a fit; see the conventions), and this check is of the geometry alone.
-    planet = replace(planet, period=1e15)
-    t = moon_times(2461000.5, 300.0, 12, seed=4)
-    table = observe_moons({"a": t, "b": t}, moons, mass, planet, observer,
-                          error=1e-3 * u.arcsec)
+    # a fit; see the conventions), and the checks that use it are of the geometry.
+    return replace(planet, period=1e15)
+
+
+def _pair_table(table):
+    """b's rows measured from a (at the same instants), a's from the planet."""
+    from astropy.table import vstack
+
     table["reference_body"] = np.full(len(table), "", dtype="<U8")
     pair = table[table["body"] == "b"]
     pair["east"] = pair["east"] - table[table["body"] == "a"]["east"]
     pair["north"] = pair["north"] - table[table["body"] == "a"]["north"]
     pair["reference_body"] = "a"
-    from astropy.table import vstack
+    return vstack([table[table["body"] == "a"], pair])
 
-    both = vstack([table[table["body"] == "a"], pair])
-    both.write(tmp_path / "pair.ecsv", overwrite=True)
-    model = OrbitModel(read_observations(tmp_path / "pair.ecsv"), SystemSpec())
+
+def _truth_theta(model, mass, moons):
+    """The simulation's truth as the model's parameter vector, windows centred on it."""
     values = {"central_mass": mass}
     for name, moon in moons.items():
         t_ref = model.epoch_jd + model.reference_epoch(name)
@@ -270,11 +270,20 @@ def test_offsets_from_another_moon_are_the_difference(tmp_path):
                             inc=np.radians(moon.inc), node=np.radians(moon.node), mass=0.0,
                             mean_anomaly_ref=2 * np.pi * (t_ref - moon.periapsis_time)
                             / moon.period)
-    theta = model.from_physical(values)
-    for name in moons:
-        model.centres[name] = {"node": theta[model.column_of[f"{name}.node"]],
-                               "phase": theta[model.column_of[f"{name}.phase"]]}
-    theta = model.from_physical(values)
+    model.recentre(model.from_physical(values))
+    return model.from_physical(values)
+
+
+def test_offsets_from_another_moon_are_the_difference(tmp_path):
+    # The simulator's offsets of b minus those of a at the same instants (astropy's
+    # tangent-plane offsets, independent of the model's projection).
+    mass, planet, observer, moons = _invented_system()
+    t = moon_times(2461000.5, 300.0, 12, seed=4)
+    table = observe_moons({"a": t, "b": t}, moons, mass, _at_rest(planet), observer,
+                          error=1e-3 * u.arcsec)
+    _pair_table(table).write(tmp_path / "pair.ecsv", overwrite=True)
+    model = OrbitModel(read_observations(tmp_path / "pair.ecsv"), SystemSpec())
+    theta = _truth_theta(model, mass, moons)
     residuals = model.residuals(theta[None])[0]
     assert np.max(np.abs(residuals)) < 0.01  # in sigma: 10 micro-arcsec
     # Negative control: the same rows read as offsets from the planet.
@@ -283,6 +292,207 @@ def test_offsets_from_another_moon_are_the_difference(tmp_path):
     wrong = OrbitModel(plain, SystemSpec())
     wrong.centres = model.centres
     assert np.max(np.abs(wrong.residuals(theta[None])[0])) > 100
+
+
+# ----------------------------------------------------------- the orbit figure
+def test_tangent_turn_is_north_carried_along_the_great_circle():
+    # Projecting one tangent plane onto another keeps the direction normal to the
+    # great circle through both points and shortens the one along it, so the nearest
+    # rotation is the parallel transport of directions along that great circle: a
+    # direction keeps its angle to the circle. With astropy's position angles
+    # (SkyCoord.position_angle) the row's north arrives at position angle
+    # PA(mean -> row) - PA(row -> mean) - 180 deg, which is -psi.
+    from astropy.coordinates import SkyCoord
+
+    from massfit.orbits.viewing import tangent_turn
+
+    ra, dec = np.radians([62.0, 40.0, 80.0, 55.0]), np.radians([21.0, 35.0, 9.0, -30.0])
+    toward = sky_basis(np.radians(60.0), np.radians(20.0))[0][0]
+    turn = tangent_turn(sight_from_angles(ra, dec, np.ones(4)), toward)
+    mean = SkyCoord(60.0 * u.deg, 20.0 * u.deg)
+    rows = SkyCoord(np.degrees(ra) * u.deg, np.degrees(dec) * u.deg)
+    arrival = mean.position_angle(rows) - rows.position_angle(mean) - 180 * u.deg
+    expected = -np.angle(np.exp(1j * arrival.to_value(u.rad)))
+    assert np.allclose(turn, expected, atol=1e-9)
+    # Meridians converge: a step dRA at Dec d turns north by about dRA sin d (the
+    # textbook meridian convergence), here 2 deg * sin 20 deg.
+    assert np.degrees(turn[0]) == pytest.approx(2.0 * np.sin(np.radians(20.5)), rel=0.02)
+
+
+def _exact_moons(tmp_path, kind):
+    """Exact offsets of the invented moons (a planet at rest) seen from the moving
+    observer, as east/north, as separation/position angle, or b measured from a."""
+    mass, planet, observer, moons = _invented_system()
+    t = moon_times(2461000.5, 700.0, 40, seed=5)
+    table = observe_moons({"a": t, "b": t}, moons, mass, _at_rest(planet), observer,
+                          error=2e-3 * u.arcsec)
+    if kind == "pair":
+        table = _pair_table(table)
+    elif kind == "polar":
+        sep = np.hypot(table["east"], table["north"])
+        table["sep"], table["pa"] = sep, np.arctan2(table["east"], table["north"]).to(u.deg)
+        table["sep_err"] = table["east_err"]
+        table["pa_err"] = (table["east_err"] / sep).decompose() * u.rad
+        table.remove_columns(["east", "north", "east_err", "north_err"])
+    path = tmp_path / f"{kind}.ecsv"
+    table.write(path, overwrite=True)
+    model = OrbitModel(read_observations(path), SystemSpec())
+    return model, _truth_theta(model, mass, moons)
+
+
+def _off_track(east, north, track):
+    """Each point's distance from a closed polyline (the drawn track)."""
+    start = np.column_stack(track)
+    step = np.roll(start, -1, axis=0) - start
+    point = np.column_stack([east, north])[:, None, :]
+    along = np.clip(np.sum((point - start) * step, axis=2) / np.sum(step * step, axis=1),
+                    0.0, 1.0)
+    return np.min(np.linalg.norm(start + along[:, :, None] * step - point, axis=2), axis=1)
+
+
+@pytest.mark.parametrize("kind", ["plain", "polar", "pair"])
+def test_orbit_figure_puts_each_row_on_the_track_it_draws(tmp_path, kind):
+    # Exact data seen from a moving observer: each row shown (moved to the mean line
+    # of sight by the best fit's own difference) lies on the best track drawn along
+    # that mean line of sight, within a small fraction of its error; the observed
+    # rows themselves (each seen along its own line of sight) are far off it.
+    from massfit.plot.sky import SkyFrame, _track_points, observed_offsets, shown_offsets
+
+    model, theta = _exact_moons(tmp_path, kind)
+    best = model.physical(theta[None])
+    assert np.max(np.abs(model.residuals(theta[None])[0])) < 0.01  # sigma: exact data
+    for name in ("a", "b"):
+        frame = SkyFrame(model, name, best)
+        east, north, cov, turn = shown_offsets(model, theta, name, frame)
+        error = np.sqrt(np.min(np.linalg.eigvalsh(cov), axis=1))
+        track = _track_points(best["companions"][name], 0, n_points=20001, sight=model.sight)
+        assert np.max(_off_track(east, north, track) / error) < 0.02
+        raw_e, raw_n, _ = observed_offsets(model.observations.astrometry, frame.index)
+        raw = _off_track(raw_e * frame.row_factor, raw_n * frame.row_factor, track)
+        assert np.max(raw / error) > 20  # negative control: the rows as observed
+        assert 0.01 < np.max(np.abs(turn)) < 0.1  # rad: the axes turn by a degree or two
+
+
+def test_orbit_figure_on_a_fixed_plane_places_only_rows_from_another_moon(tmp_path):
+    # On one fixed sky plane the rows from the planet are shown exactly as observed;
+    # the rows of b measured from a are placed from the planet by the best fit, onto
+    # b's track (as observed they sit about a). Exact data made by the fixed-plane
+    # model itself at the truth.
+    from massfit.plot.sky import SkyFrame, _track_points, observed_offsets, shown_offsets
+
+    mass, _, _, moons = _invented_system()
+    moving, _ = _exact_moons(tmp_path, "pair")
+    plane = OrbitModel(_fixed_plane(moving.observations), SystemSpec())
+    theta = _truth_theta(plane, mass, moons)
+    data = plane.observations.astrometry
+    east, north = data.east.copy(), data.north.copy()
+    for name, rows in plane.rows.items():
+        east[rows.index], north[rows.index] = (v[0] for v in plane.predicted_offsets(
+            theta, name))
+    model = OrbitModel(replace(plane.observations, astrometry=replace(
+        data, east=east, north=north)), SystemSpec())
+    theta = _truth_theta(model, mass, moons)
+    best = model.physical(theta[None])
+    for name in ("a", "b"):
+        frame = SkyFrame(model, name, best)
+        shown_e, shown_n, cov, turn = shown_offsets(model, theta, name, frame)
+        raw_e, raw_n, raw_cov = observed_offsets(model.observations.astrometry, frame.index)
+        raw_e, raw_n = raw_e * frame.row_factor, raw_n * frame.row_factor
+        reference = model.rows[name].reference
+        moved = np.full(len(frame.index), False) if reference is None else reference == "a"
+        assert np.array_equal(shown_e[~moved], raw_e[~moved])
+        assert np.array_equal(shown_n[~moved], raw_n[~moved])
+        assert np.array_equal(cov, raw_cov * frame.row_factor[:, None, None] ** 2)
+        assert not np.any(turn)
+        assert moved.any() == (name == "b")
+        if name == "b":
+            error = np.sqrt(cov[moved, 0, 0])
+            track = _track_points(best["companions"][name], 0, n_points=20001)
+            assert np.max(_off_track(shown_e[moved], shown_n[moved], track) / error) < 0.02
+            assert np.max(_off_track(raw_e[moved], raw_n[moved], track) / error) > 20
+
+
+def _pole_models(obs, **pole):
+    """A J2 model of the invented moons whose pole is given as ``pole`` says."""
+    from massfit.orbits.perturbed import Perturbed
+    from massfit.orbits.viewing import ViewingSpec
+
+    common = dict(j2=0.05, equatorial_radius="300000 km", mutual_pulls=False)
+    equator = {key: pole[key] for key in ("equator_inclination", "equator_node")
+               if key in pole}
+    viewing = ({} if "pole_ra" not in pole else
+               {"viewing": ViewingSpec(pole_ra=pole["pole_ra"], pole_dec=pole["pole_dec"])})
+    return OrbitModel(obs, SystemSpec(dynamics=Perturbed(**common, **equator), **viewing))
+
+
+def test_the_dynamics_equator_gives_the_primarys_pole(tmp_path):
+    # The equator (i, node) in the convention of an orbit's elements: its normal is
+    # R_z(node) R_x(i) z (the textbook orbit orientation, e.g. Murray & Dermott ch.
+    # 2.8; from memory), built here with astropy's rotation matrices and read as an
+    # ICRS direction by astropy's coordinates: the pole massfit reports must be it.
+    from astropy.coordinates import CartesianRepresentation, SkyCoord
+    from astropy.coordinates.matrix_utilities import rotation_matrix
+
+    obs, _ = _simulated(tmp_path)
+    inc, node = 26.5, 3.2  # deg
+    model = _pole_models(obs, equator_inclination=f"{inc} deg",
+                         equator_node=f"{node} deg")
+    normal = (rotation_matrix(-node * u.deg, "z") @ rotation_matrix(-inc * u.deg, "x")
+              @ np.array([0.0, 0.0, 1.0]))
+    pole = SkyCoord(CartesianRepresentation(*normal), frame="icrs")
+    ra, dec = model.primary_pole()
+    assert np.degrees(ra) == pytest.approx(pole.ra.deg, abs=1e-9)
+    assert np.degrees(dec) == pytest.approx(pole.dec.deg, abs=1e-9)
+    # ... which is RA = node - 90 deg, Dec = 90 deg - i (docs/guide/moons.md).
+    assert pole.ra.deg == pytest.approx((node - 90.0) % 360.0)
+    assert pole.dec.deg == pytest.approx(90.0 - inc)
+    # Both given and alike (rounding): accepted, the dynamics' pole used.
+    both = _pole_models(obs, equator_inclination=f"{inc} deg", equator_node=f"{node} deg",
+                        pole_ra=np.radians(pole.ra.deg + 0.003),
+                        pole_dec=np.radians(pole.dec.deg - 0.003))
+    assert both.primary_pole() == pytest.approx(model.primary_pole(), abs=1e-12)
+    # Both given and apart: refused, naming both.
+    from massfit.errors import ConfigError
+
+    with pytest.raises(ConfigError, match="pole is given twice.*equator_inclination"):
+        _pole_models(obs, equator_inclination=f"{inc} deg", equator_node=f"{node} deg",
+                     pole_ra=np.radians(pole.ra.deg + 2.0), pole_dec=np.radians(pole.dec.deg))
+    # Without a moving line of sight there is no ICRS pole to speak of.
+    assert _pole_models(_fixed_plane(obs), equator_inclination=f"{inc} deg",
+                        equator_node=f"{node} deg").primary_pole() is None
+
+
+def test_equator_figure_takes_the_pole_from_the_dynamics(tmp_path):
+    # The same pole given as [viewing] pole_ra/pole_dec and as the dynamics' equator
+    # gives the same figure; with no pole at all it falls back to east and north.
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from types import SimpleNamespace
+
+    from massfit.plot import equator_residual_plot
+
+    obs = _exact_moons(tmp_path, "plain")[0].observations
+    mass, _, _, moons = _invented_system()
+    ra, dec = 250.0, 40.0
+    shown = {}
+    for label, pole in (("viewing", dict(pole_ra=np.radians(ra), pole_dec=np.radians(dec))),
+                        ("equator", dict(equator_inclination=f"{90.0 - dec} deg",
+                                         equator_node=f"{ra + 90.0} deg")),
+                        ("none", {})):
+        model = _pole_models(obs, **pole)
+        theta = _truth_theta(model, mass, moons)
+        fig = equator_residual_plot(SimpleNamespace(
+            model=model, summary={},
+            chain=SimpleNamespace(samples=theta[None], log_prob=np.zeros(1))))
+        ax = fig.axes[0]
+        shown[label] = {line.get_gid(): line.get_ydata() for line in ax.get_lines()
+                        if (line.get_gid() or "").startswith("residuals-")}
+    assert sorted(shown["equator"]) == ["residuals-along-the-equator",
+                                        "residuals-towards-the-pole"]
+    for gid, values in shown["viewing"].items():
+        np.testing.assert_allclose(shown["equator"][gid], values, rtol=1e-9, atol=1e-9)
+    assert sorted(shown["none"]) == ["residuals-east", "residuals-north"]
 
 
 # ------------------------------------------------------------- real moons
@@ -398,3 +608,18 @@ def test_short_fit_is_saved_and_reloaded_with_its_line_of_sight(tmp_path):
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert labels == ["along the equator", "towards the pole"]
     assert "O$-$C" in fig.axes[0].get_ylabel()
+    # The orbit figure draws the rows carried to the mean line of sight and says so.
+    from massfit.plot import orbit_plot
+    from massfit.plot.sky import SkyFrame, shown_offsets
+    from massfit.summarise.residuals import best_sample
+
+    fig = orbit_plot(back, companions=["a"], n_tracks=0)
+    sky = fig.axes[0]
+    note = [t.get_text() for t in sky.texts if t.get_gid() == "sight-note"][0]
+    assert "mean line of sight" in note and "moved there by the best orbit" in note
+    theta = best_sample(back)
+    frame = SkyFrame(back.model, "a", back.model.physical(theta[None]))
+    east, north, _, _ = shown_offsets(back.model, theta, "a", frame)
+    dots = np.asarray([c for c in sky.collections if c.get_gid() == "data"][0].get_offsets())
+    scale = dots[0, 0] / east[0]  # the display unit's factor
+    assert np.allclose(dots, np.column_stack([east, north]) * scale, rtol=1e-9)

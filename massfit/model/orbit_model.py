@@ -84,12 +84,17 @@ from massfit.model.specs import (
     SystemSpec,
 )
 from massfit.orbits import kepler
-from massfit.orbits.dynamics import Keplerian, observed_offsets
+from massfit.orbits.dynamics import Keplerian, observed_offsets, offsets_from_primary
 from massfit.orbits.relativity import accumulated_anomaly, omega_at, precession_per_anomaly
+from massfit.orbits.viewing import angles_of, sky_basis
 from massfit.priors import LogUniform
 from massfit.read.observations import Observations
 
-__all__ = ["OrbitModel"]
+__all__ = ["OrbitModel", "POLE_AGREEMENT_DEG"]
+
+#: How far apart (deg) the primary's pole may be where it is given twice, by the viewing
+#: settings and by the dynamics' equator: rounding of the same pole, not two poles.
+POLE_AGREEMENT_DEG = 0.01
 
 # Rows of walkers times rows of data evaluated in one piece; bounds memory for big sets.
 _CHUNK_ELEMENTS = 2_000_000
@@ -152,6 +157,8 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
                       if has_astrometry and astrometry.has_sight else None)
         if has_astrometry:
             self._check_references(astrometry)
+        if self.sight is not None:
+            self._check_pole()
         extra_terms.check(self)
         if self.sight is not None and self.has_velocities:
             raise ModelError("radial velocities with a moving line of sight (primary_ra, "
@@ -201,12 +208,46 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
         return (self.spec.viewing or ViewingSpec()).describe()
 
     def primary_pole(self):
-        """(ra, dec) of the primary's pole in radians where given with a line of
-        sight, else None."""
+        """(ra, dec) of the primary's north pole, rad (ICRS), or None.
+
+        Only with a moving line of sight (the orbits then have ICRS axes). The pole
+        is given either by the viewing settings (``pole_ra``, ``pole_dec``) or by the
+        dynamics' equator (``equator_inclination`` i and ``equator_node`` N, in the
+        convention of an orbit's elements: the equator's normal
+        (sin i sin N, -sin i cos N, cos i) points at RA = N - 90 deg,
+        Dec = 90 deg - i). Where both are given they must agree (the model refuses
+        them otherwise, :data:`POLE_AGREEMENT_DEG`) and the dynamics' one is
+        returned: it is the one the forces use.
+        """
+        if self.sight is None:
+            return None
+        stated = self.dynamics.stated_pole()
+        if stated is not None:
+            return angles_of(stated)
         viewing = self.spec.viewing
-        if self.sight is None or viewing is None or viewing.pole_ra is None:
+        if viewing is None or viewing.pole_ra is None:
             return None
         return viewing.pole_ra, viewing.pole_dec
+
+    def _check_pole(self):
+        """Refuse a pole given twice (viewing and dynamics) that disagrees."""
+        viewing = self.spec.viewing
+        stated = self.dynamics.stated_pole()
+        if viewing is None or viewing.pole_ra is None or stated is None:
+            return
+        given = sky_basis(viewing.pole_ra, viewing.pole_dec)[0][0]
+        apart = np.degrees(np.arccos(np.clip(given @ stated, -1.0, 1.0)))
+        if apart > POLE_AGREEMENT_DEG:
+            ra, dec = np.degrees(angles_of(stated))
+            raise ConfigError(
+                f"the primary's pole is given twice and the two disagree by {apart:.3g} "
+                f"deg: the viewing pole points at RA {np.degrees(viewing.pole_ra):.4f} "
+                f"deg, Dec {np.degrees(viewing.pole_dec):.4f} deg, the dynamics' equator "
+                f"(dynamics.equator_inclination/equator_node, --equator-inclination/"
+                f"--equator-node) at RA {ra:.4f} deg, Dec "
+                f"{dec:.4f} deg (RA = node - 90 deg, Dec = 90 deg - inclination); give "
+                f"one of them, or both alike within {POLE_AGREEMENT_DEG} deg",
+                key="viewing.pole_ra/pole_dec (--pole)")
 
     def reference_epoch(self, name) -> float:
         """Reference epoch of a companion's phase, days since :attr:`epoch_jd`."""
@@ -464,6 +505,16 @@ class OrbitModel(ModelData, ParameterLayout, PriorTerms):
         """
         phys = self.physical(np.atleast_2d(theta))
         east, north = observed_offsets(self, phys)[name]
+        return self._in_frame(self.rows[name], east, north, phys)
+
+    def offsets_from_primary(self, theta, name, *, along=None):
+        """:meth:`predicted_offsets` with every row taken from the primary, rows
+        measured from another companion included, and with ``along`` (a unit vector,
+        ICRS; a moving line of sight only) seen orthographically along that direction
+        instead of each row's own line of sight: the view the orbit figure draws
+        (:func:`massfit.orbits.dynamics.offsets_from_primary`). Each row's own units."""
+        phys = self.physical(np.atleast_2d(theta))
+        east, north = offsets_from_primary(self, phys, along=along)[name]
         return self._in_frame(self.rows[name], east, north, phys)
 
     def all_predicted_offsets(self, theta) -> dict:

@@ -29,7 +29,7 @@ from massfit.orbits.relativity import as_row_times, turning_periapsis
 from massfit.constants import C_AU_PER_DAY
 
 __all__ = ["Keplerian", "orbit_state", "orbit_axes", "elements_of_state", "observed_offsets",
-           "romer_factor"]
+           "offsets_from_primary", "romer_factor"]
 
 TWO_PI = 2.0 * np.pi
 LN10 = np.log(10.0)
@@ -107,6 +107,12 @@ class Keplerian:
 
     def prepare(self, model) -> None:
         """Check the model's companions against this dynamics (nothing to check here)."""
+
+    def stated_pole(self):
+        """The primary's pole as these dynamics were given it (the normal of their
+        ``equator_inclination``/``equator_node``, a unit vector (3,) in the model's
+        axes), or None: two-body orbits need none."""
+        return None
 
     def node_widths(self, model, widths) -> dict:
         """Width of each companion's node window (pi where the sky cannot tell the
@@ -204,23 +210,15 @@ def observed_offsets(model, phys) -> dict:
         name -> (east, north), arrays of shape (n_walkers, n_rows), au (angles times
         the primary's distance where a line of sight is given).
     """
-    sight = getattr(model, "sight", None)
-    if sight is None:
-        delayed = bool(getattr(model.spec, "romer_delay", False))
-    else:
-        delayed = bool(getattr(model.spec, "light_time", True))
-    states = model.dynamics.states(model, phys,
-                                   want_velocity=delayed or sight is not None)
-    out = {}
-    for name, (position, velocity) in states.items():
+    delayed = _light_time_on(model)
+    out = offsets_from_primary(model, phys)
+    for name, (east, north) in out.items():
         rows = model.rows[name]
-        factor = romer_factor(phys["central_mass"], phys["companions"][name]["mass"])
-        east, north = _seen(position, velocity, factor if delayed else None,
-                            getattr(rows, "sight", None))
         reference = getattr(rows, "reference", None)
-        if reference is not None:
-            east, north = east.copy(), north.copy()  # never write into the states
-        for other in ([] if reference is None else np.unique(reference[reference != ""])):
+        if reference is None:
+            continue
+        east, north = east.copy(), north.copy()  # never write into the states
+        for other in np.unique(reference[reference != ""]):
             index = np.flatnonzero(reference == other)
             position, velocity = model.dynamics.states_at(model, phys, other,
                                                            rows.t[index])
@@ -234,13 +232,71 @@ def observed_offsets(model, phys) -> dict:
     return out
 
 
+def offsets_from_primary(model, phys, *, along=None) -> dict:
+    """Each companion's offsets from the primary at its rows, rows measured from
+    another companion included (as if measured from the primary).
+
+    Parameters
+    ----------
+    model : OrbitModel
+    phys : dict
+        Physical parameters (:meth:`OrbitModel.physical`).
+    along : array_like, shape (3,), optional
+        With a per-row line of sight only: a unit vector (ICRS). Each companion is
+        then taken where the model places it for each row (the same light time) and
+        seen orthographically along ``along`` instead of along the row's own line of
+        sight: its position's components along the east and north of the plane
+        normal to ``along`` (the view the orbit figure draws).
+
+    Returns
+    -------
+    dict
+        name -> (east, north), each (n_walkers, n_rows), au: as
+        :func:`observed_offsets` without the subtraction of the reference bodies, or
+        the orthographic view along ``along``.
+    """
+    sight = getattr(model, "sight", None)
+    if along is not None and sight is None:
+        raise ValueError("a view along another direction needs a per-row line of sight")
+    delayed = _light_time_on(model)
+    states = model.dynamics.states(model, phys,
+                                   want_velocity=delayed or sight is not None)
+    plane = None if along is None else viewing.plane_of(along)
+    out = {}
+    for name, (position, velocity) in states.items():
+        rows = model.rows[name]
+        factor = romer_factor(phys["central_mass"], phys["companions"][name]["mass"])
+        factor = factor if delayed else None
+        if plane is None:
+            out[name] = _seen(position, velocity, factor, getattr(rows, "sight", None))
+        else:
+            position = _delayed(position, velocity, factor, rows.sight)
+            out[name] = tuple(sum(v * p for v, p in zip(axis, position)) for axis in plane)
+    return out
+
+
+def _light_time_on(model) -> bool:
+    """Whether the light time across the system is applied (Romer delay on a fixed
+    plane where asked for; each companion's own light time with a line of sight)."""
+    if getattr(model, "sight", None) is None:
+        return bool(getattr(model.spec, "romer_delay", False))
+    return bool(getattr(model.spec, "light_time", True))
+
+
 def _seen(position, velocity, factor, sight):
     """One body's (east, north) at its rows: light time (if ``factor`` is given) and
     the projection (fixed plane where ``sight`` is None)."""
-    if factor is not None:
-        depth = position[2] if sight is None else viewing.along_sight(sight, position)
-        delay = factor[:, None] * depth / C_AU_PER_DAY
-        position = tuple(p - v * delay for p, v in zip(position, velocity))
+    position = _delayed(position, velocity, factor, sight)
     if sight is None:
         return position[1], position[0]
     return viewing.project(sight, position)
+
+
+def _delayed(position, velocity, factor, sight):
+    """The position when the light seen at the row left the body: earlier by its
+    depth behind the primary over c (times ``factor``; unchanged where None)."""
+    if factor is None:
+        return position
+    depth = position[2] if sight is None else viewing.along_sight(sight, position)
+    delay = factor[:, None] * depth / C_AU_PER_DAY
+    return tuple(p - v * delay for p, v in zip(position, velocity))

@@ -268,6 +268,9 @@ class Oblate(Keplerian):
         if self.pole is not None:
             self._pole_deg = figure["pole_deg"]
 
+    def stated_pole(self):
+        return self.pole
+
     def describe(self) -> dict:
         out = {"model": self.label, "j2": self.j2, "equatorial_radius_km": self.radius_km}
         if self.pole is None:

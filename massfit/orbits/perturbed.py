@@ -27,7 +27,8 @@ With ``equator_inclination`` and ``equator_node`` (in the model's frame, in the
 convention of an orbit's i and Omega: an orbit with these elements lies in the
 equator), the pole is fixed. Without them, where the data have a moving line of sight
 (ICRS axes) and the viewing settings give the primary's pole (``pole_ra``,
-``pole_dec``), that pole is used. Otherwise the pole is the mean of the companions'
+``pole_dec``), that pole is used; where both are given they must agree
+(:meth:`massfit.model.orbit_model.OrbitModel.primary_pole`). Otherwise the pole is the mean of the companions'
 orbit normals, walker by walker (regular moons lie near their planet's equator).
 
 Versus :class:`massfit.orbits.oblate.Oblate`
@@ -166,6 +167,9 @@ class Perturbed(Keplerian):
     @property
     def has_harmonics(self) -> bool:
         return bool(self.figure["j2"] or self.figure["j4"])
+
+    def stated_pole(self):
+        return self.figure["pole"]
 
     def at_epoch(self, epoch_jd):
         """A copy whose osculating elements refer to the absolute epoch ``epoch_jd``."""

@@ -30,7 +30,8 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["Sight", "sight_from_angles", "sky_basis", "project", "along_sight",
-           "orientation_in_icrs", "mean_direction", "ephemeris_sight", "aberration_maps",
+           "orientation_in_icrs", "mean_direction", "angles_of", "plane_of", "tangent_turn",
+           "ephemeris_sight", "aberration_maps",
            "observer_velocity", "ViewingSpec", "with_ephemeris", "OFFSET_KINDS",
            "against_equator", "viewing_from_settings",
            "differential_aberration", "EPHEMERIS_DEFAULT"]
@@ -268,13 +269,9 @@ def orientation_in_icrs(inc, omega, node, toward):
     follow from W = P x Q = (sin i sin node, -sin i cos node, cos i) and
     P_z = sin w sin i, Q_z = cos w sin i.
     """
-    toward = np.asarray(toward, dtype=float)
-    toward = toward / np.linalg.norm(toward)
-    ra = np.arctan2(toward[1], toward[0])
-    dec = np.arcsin(toward[2])
     from massfit.orbits.kepler import orbit_axes
 
-    d_vec, e_vec, n_vec = (v[0] for v in sky_basis(ra, dec))
+    d_vec, e_vec, n_vec = (v[0] for v in sky_basis(*angles_of(toward)))
     p_sky, q_sky = orbit_axes(inc, omega, node)
     p_vec = p_sky[0] * n_vec + p_sky[1] * e_vec + p_sky[2] * d_vec
     q_vec = q_sky[0] * n_vec + q_sky[1] * e_vec + q_sky[2] * d_vec
@@ -289,6 +286,39 @@ def mean_direction(sight: Sight):
     """The unit vector of the rows' mean line of sight."""
     mean = np.mean(sight.toward, axis=0)
     return mean / np.linalg.norm(mean)
+
+
+def angles_of(vector):
+    """Right ascension in [0, 2 pi) and declination (rad) of a vector (3,), ICRS."""
+    vector = np.asarray(vector, dtype=float)
+    vector = vector / np.linalg.norm(vector)
+    return (float(np.mod(np.arctan2(vector[1], vector[0]), 2.0 * np.pi)),
+            float(np.arcsin(np.clip(vector[2], -1.0, 1.0))))
+
+
+def plane_of(toward):
+    """East and north unit vectors (3,) of the tangent plane at the unit vector
+    ``toward`` (ICRS), as :func:`sky_basis` gives them."""
+    _, east, north = sky_basis(*angles_of(toward))
+    return east[0], north[0]
+
+
+def tangent_turn(sight: Sight, toward):
+    """Per row, the angle (rad) by which the row's tangent-plane axes are turned
+    against those of the plane at ``toward``.
+
+    The row's (east, north) axes projected onto the other plane form a 2x2 map J
+    from the row's (east, north) components to the plane's; the angle psi is that of
+    the rotation [[cos psi, -sin psi], [sin psi, cos psi]] nearest to J,
+    psi = atan2(J_ne - J_en, J_ee + J_nn) (positive: the row's east turned towards the
+    plane's north). Turning a row's offsets and errors by it carries their
+    directions over to the other plane without changing their lengths (J itself
+    would also shorten them by the cosine of the tilt).
+    """
+    east, north = plane_of(toward)
+    j_ee, j_en = sight.east @ east, sight.north @ east
+    j_ne, j_nn = sight.east @ north, sight.north @ north
+    return np.arctan2(j_ne - j_en, j_ee + j_nn)
 
 
 def aberration_maps(sight: Sight, velocity_km_s):

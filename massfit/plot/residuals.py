@@ -87,10 +87,11 @@ def equator_residual_plot(result, *, companions=None, width=None):
     """Each moon's O-C against time, along and across its planet's equator.
 
     For fits with a moving line of sight. Where the primary's pole is given
-    (``ViewingSpec.pole_ra``/``pole_dec``) the residuals of every row are turned by
-    that row's position angle P of the pole: "along the equator" points to the
-    planet's east limb, (cos P, -sin P) in (east, north), "towards the pole" is
-    (sin P, cos P); without a pole, east and north. Residuals of the best posterior
+    (:meth:`OrbitModel.primary_pole`: the viewing settings' ``pole_ra``/``pole_dec``,
+    or the dynamics' ``equator_inclination``/``equator_node``) the residuals of every
+    row are turned by that row's position angle P of the pole: "along the equator"
+    points to the planet's east limb, (cos P, -sin P) in (east, north), "towards the
+    pole" is (sin P, cos P); without a pole, east and north. Residuals of the best posterior
     sample, in km at the planet (or the fit's own unit), with 1-sigma bars.
 
     Returns

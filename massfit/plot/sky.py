@@ -107,26 +107,91 @@ def error_ellipses(east, north, cov, *, n_sigma=1.0, **kwargs):
 
 def _track_points(orbit, k, n_points=361, sight=None):
     """One orbit's track (au) on the sky; with a moving line of sight (``sight``, the
-    model's), the ICRS orbit seen along the rows' mean line of sight."""
+    model's), the ICRS orbit seen orthographically along the rows' mean line of sight."""
     period = orbit["period"][k]
     t = np.linspace(0.0, period, n_points)
     if sight is not None:
         from massfit.orbits.dynamics import orbit_state
-        from massfit.orbits.viewing import mean_direction, sky_basis
+        from massfit.orbits.viewing import mean_direction, plane_of
 
-        toward = mean_direction(sight)
-        _, east_vec, north_vec = (v[0] for v in sky_basis(
-            np.arctan2(toward[1], toward[0]), np.arcsin(toward[2])))
         position, _ = orbit_state(
             orbit["semi_major_axis"][k], orbit["ecc"][k], orbit["inc"][k],
             orbit["omega"][k], orbit["node"][k], 2.0 * np.pi * t / period, 0.0,
             want_velocity=False)
-        return (sum(v * p for v, p in zip(east_vec, position)),
-                sum(v * p for v, p in zip(north_vec, position)))
+        return tuple(sum(v * p for v, p in zip(axis, position))
+                     for axis in plane_of(mean_direction(sight)))
     east, north, _ = kepler.relative_orbit(
         t, period, orbit["ecc"][k], 0.0, orbit["semi_major_axis"][k], orbit["inc"][k],
         orbit["omega"][k], orbit["node"][k])
     return east, north
+
+
+def shown_offsets(model, theta, name, frame):
+    """One companion's rows as the sky panel shows them.
+
+    On a fixed sky plane these are the observed offsets as they are. With a moving
+    line of sight the panel draws the orbits seen along the rows' mean line of sight,
+    while each row was seen along its own; so each row is carried over to the mean
+    line of sight by the best fit's own difference:
+
+        shown = C_mean + R(psi) (O - C_row)
+
+    with O the observed offset, C_row the model's offset at the row (along the row's
+    own line of sight, as the O-C panels use it), C_mean where the same model places
+    the companion at that row seen along the mean line of sight (orthographically,
+    as the tracks are drawn) and R(psi) the turn between the row's tangent-plane axes
+    and the mean plane's (:func:`massfit.orbits.viewing.tangent_turn`), which turns
+    the error ellipse too. A row measured from another companion (``reference_body``)
+    is placed from the primary the same way: C_row is then the model's difference of
+    the two bodies and C_mean the companion's own place (on a fixed plane too, where
+    C_mean is its offset from the primary at the row). A row that fits the best orbit
+    exactly therefore lies on the best track, its distance from the track being its
+    O-C (for two-body orbits: a perturbed model's track is the osculating orbit at its
+    epoch, and C_mean moves off it as the orbit turns).
+
+    Parameters
+    ----------
+    model : OrbitModel
+    theta : ndarray, shape (n_dim,)
+        The best fit (the black track's parameters).
+    name : str
+    frame : SkyFrame
+        The companion's units.
+
+    Returns
+    -------
+    east, north : ndarray, shape (n_rows,)
+        In the figure's base unit (``frame``), rows in the order of ``frame.index``.
+    cov : ndarray, shape (n_rows, 2, 2)
+        Their covariance.
+    turn : ndarray, shape (n_rows,)
+        psi per row, rad (zero on a fixed sky plane).
+    """
+    east, north, cov = observed_offsets(model.observations.astrometry, frame.index)
+    factor = frame.row_factor
+    east, north, cov = east * factor, north * factor, cov * factor[:, None, None] ** 2
+    turn = np.zeros(len(frame.index))
+    reference = model.rows[name].reference
+    moved = (np.ones(len(turn), dtype=bool) if model.sight is not None else
+             np.zeros(len(turn), dtype=bool) if reference is None else reference != "")
+    if not np.any(moved):
+        return east, north, cov, turn
+    from massfit.orbits.viewing import mean_direction, tangent_turn
+
+    along = None if model.sight is None else mean_direction(model.sight)
+    row_e, row_n = (v[0] * factor for v in model.predicted_offsets(theta, name))
+    place_e, place_n = (v[0] * factor
+                        for v in model.offsets_from_primary(theta, name, along=along))
+    d_e, d_n = east - row_e, north - row_n
+    if along is not None:
+        turn = tangent_turn(model.rows[name].sight, along)
+        cos, sin = np.cos(turn), np.sin(turn)
+        d_e, d_n = cos * d_e - sin * d_n, sin * d_e + cos * d_n
+        rotation = np.stack([np.stack([cos, -sin], axis=-1),
+                             np.stack([sin, cos], axis=-1)], axis=1)
+        cov = rotation @ cov @ np.transpose(rotation, (0, 2, 1))
+    return (np.where(moved, place_e + d_e, east), np.where(moved, place_n + d_n, north),
+            cov, turn)
 
 
 def _layout(n, residuals):
@@ -249,10 +314,11 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, 
     east, north, cov = observed_offsets(data, idx)
     east, north = east * frame.row_factor, north * frame.row_factor
     cov = cov * frame.row_factor[:, None, None] ** 2
+    shown_e, shown_n, shown_cov, turn = shown_offsets(model, theta_best, name, frame)
     orbit_b = best["companions"][name]
     tb_e, tb_n = (v * frame.track_factor(best, 0)
                   for v in _track_points(orbit_b, 0, sight=model.sight))
-    size = float(np.max(np.abs(np.concatenate([east, north, tb_e, tb_n]))))
+    size = float(np.max(np.abs(np.concatenate([shown_e, shown_n, tb_e, tb_n]))))
     factor, unit = SkyFrame.display(size, frame.angle)
     orbit_d = draws["companions"][name]
     for k in range(len(orbit_d["period"])):
@@ -267,10 +333,10 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, 
     colours = time_cmap()(norm(times[idx]))
     from matplotlib.collections import PatchCollection
 
-    patches = error_ellipses(east * factor, north * factor, cov * factor ** 2)
+    patches = error_ellipses(shown_e * factor, shown_n * factor, shown_cov * factor ** 2)
     sky.add_collection(PatchCollection(patches, facecolor="none", edgecolor=colours,
                                        linewidth=0.5, zorder=4, gid="error-ellipses"))
-    sky.scatter(east * factor, north * factor, s=5, c=times[idx], cmap=TIME_CMAP,
+    sky.scatter(shown_e * factor, shown_n * factor, s=5, c=times[idx], cmap=TIME_CMAP,
                 norm=norm, zorder=5, linewidths=0, gid="data")
     sky.plot([0], [0], marker="+", color="k", ms=7, mew=1.0, ls="none", zorder=6,
              gid="primary")
@@ -284,11 +350,10 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, 
         sky.set_ylabel(f"projected offset north [{unit}]")
     sky.text(0.03, 0.97, name, transform=sky.transAxes, ha="left", va="top",
              fontsize=8, fontweight="bold", gid="companion-name")
-    if model.sight is not None:
-        # Each row is seen from its own direction; the track from the mean one.
-        sky.text(0.97, 0.03, "orbit as seen along the mean line of sight",
-                 transform=sky.transAxes, ha="right", va="bottom", fontsize=6,
-                 color="0.3", gid="sight-note")
+    note = _moved_note(model, name, turn)
+    if note:
+        sky.text(0.97, 0.03, note, transform=sky.transAxes, ha="right", va="bottom",
+                 fontsize=6, color="0.3", gid="sight-note", linespacing=1.1)
     sky.massfit_unit = unit
     if res_axes:
         panels = (_polar_residuals(model, name, theta_best, frame)
@@ -297,6 +362,21 @@ def _draw_companion(sky, res_axes, model, name, draws, best, theta_best, times, 
         for ax, panel in zip(res_axes, panels):
             _draw_residual_panel(ax, times[idx], norm, *panel)
         res_axes[0].tick_params(labelbottom=False)
+
+
+def _moved_note(model, name, turn):
+    """What :func:`shown_offsets` did to the points of one companion, in words."""
+    lines = []
+    if model.sight is not None:
+        largest = float(np.degrees(np.max(np.abs(turn))))
+        lines = ["orbits as seen along the mean line of sight;",
+                 "each point moved there by the best orbit",
+                 f"(O$-$C kept, turned by up to {largest:.2g}$^\\circ$)"]
+    reference = model.rows[name].reference
+    if reference is not None and np.any(reference != ""):
+        others = ", ".join(np.unique(reference[reference != ""]))
+        lines.append(f"offsets from {others}: placed from the primary by the best orbit")
+    return "\n".join(lines)
 
 
 def _motion_arrow(ax, east, north):
