@@ -64,9 +64,10 @@ def dynamics_options(parser):
                        help="perturbed, n-body: cap on the evaluations of each "
                             "least-squares pass of the start (default 300)")
     group.add_argument("--surrogate", choices=("none", "linearised"),
-                       help="perturbed, n-body: sample through a surrogate linearised "
-                            "about the start and checked against the integrator at "
-                            "draws of the chain (default none: the integrator at every "
+                       help="perturbed, n-body: sample through a surrogate (two-body "
+                            "orbits plus the departure from them to second order about "
+                            "the start), checked against the integrator at draws of the "
+                            "chain (default linearised; none: the integrator at every "
                             "step)")
     group.add_argument("--romer-delay", action="store_true",
                        help="delay each companion by the light time across the system")

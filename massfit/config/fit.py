@@ -50,8 +50,9 @@ instead)::
     # steps_per_orbit = 24            # perturbed, n-body: fixed steps instead (faster
                                       #   where the data's errors allow; see the docs)
     start_evaluations = 300           # perturbed, n-body: cap per least-squares pass
-    surrogate = "linearised"          # perturbed, n-body: sample a linearised surrogate
-                                      #   checked against the integrator (or "none")
+    surrogate = "linearised"          # perturbed, n-body (the default): sample a surrogate
+                                      #   checked against the integrator ("none": the
+                                      #   integrator at every step)
     compare_keplerian = true          # adequacy: also fit the two-body model
 
     [frame]                           # the primary's own place and motion in the data's

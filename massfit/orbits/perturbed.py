@@ -95,11 +95,13 @@ class Perturbed(Keplerian):
     mass_prior : Prior, optional
         Prior for the masses of companions whose mass is left unstated (with mutual
         pulls); :data:`DEFAULT_MASS_PRIOR` by default.
-    surrogate : {"none", "linearised"}
-        How a fit samples the posterior: with the integrator at every step, or through
-        the linearised surrogate (the compiled two-body kernel plus this model's
-        departure from it, linear in the parameters about the start), checked against
-        the integrator at draws of the chain (:mod:`massfit.linearised_fit`).
+    surrogate : {"linearised", "none"}
+        How a fit samples the posterior: through the linearised surrogate (the
+        compiled two-body kernel plus this model's departure from it, to second order
+        in the parameters about the start), checked against the integrator at draws
+        of the chain (:mod:`massfit.linearised_fit`; the default, where the model
+        takes it: otherwise the fit samples the integrator and says why), or with the
+        integrator at every step ("none").
     compiled : bool, optional
         Which integrator (None: the compiled one where numba is installed); for checks
         and benchmarks, not a config setting.
@@ -112,7 +114,8 @@ class Perturbed(Keplerian):
 
     def __init__(self, *, j2=0.0, j4=0.0, equatorial_radius=None, equator_inclination=None,
                  equator_node=None, mutual_pulls=True, rtol=1e-12, steps_per_orbit=None,
-                 start_evaluations=300, mass_prior=None, compiled=None, surrogate="none"):
+                 start_evaluations=300, mass_prior=None, compiled=None,
+                 surrogate="linearised"):
         if surrogate not in SURROGATES:
             raise ConfigError(f"surrogate must be one of {', '.join(SURROGATES)}, got "
                               f"{surrogate!r}", key="dynamics.surrogate")
@@ -543,7 +546,7 @@ class NBody(Perturbed):
     label = "n-body"
 
     def __init__(self, rtol=1e-12, mass_prior=None, compiled=None, start_evaluations=300,
-                 steps_per_orbit=None, surrogate="none"):
+                 steps_per_orbit=None, surrogate="linearised"):
         super().__init__(mutual_pulls=True, rtol=rtol, mass_prior=mass_prior,
                          compiled=compiled, start_evaluations=start_evaluations,
                          steps_per_orbit=steps_per_orbit, surrogate=surrogate)
