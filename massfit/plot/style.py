@@ -63,7 +63,9 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
 
     The bounding box is tightened so that nothing (labels, colour bars) is clipped. It
     is found once for every format (``bbox_inches="tight"`` would lay the figure out
-    twice per file: a third of a big corner plot's writing time).
+    twice per file: a third of a big corner plot's writing time). A figure's
+    ``massfit_description`` (what it shows, e.g. how many samples are dots) goes into
+    each file's metadata.
     """
     from pathlib import Path
 
@@ -74,8 +76,13 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
     if "png" in formats:
         fig.set_dpi(STYLE["savefig.dpi"])
     engine = fig.get_layout_engine()
+    description = getattr(fig, "massfit_description", None)
     try:
-        fig.draw_without_rendering()
+        # One drawing lays the figure out (its layout engine, where it has one) and,
+        # on an Agg canvas, is the PNG itself: cut to the tight box, not drawn again.
+        image = _draw_once(fig) if "png" in formats else None
+        if image is None:
+            fig.draw_without_rendering()
         box = fig.get_tightbbox(fig.canvas.get_renderer()).padded(0.03)
         # The layout found once serves every format: a constrained layout is otherwise
         # solved again for each file (half the tick work of a many-panel figure).
@@ -84,14 +91,48 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
         paths = []
         for ext in formats:
             path = Path(f"{stem}.{ext}")
-            fig.savefig(path, bbox_inches=box,
-                        dpi=STYLE["savefig.dpi"] if ext == "png" else None)
+            metadata = ({"png": "Description", "pdf": "Subject"}.get(ext)
+                        if description else None)
+            metadata = {metadata: description} if metadata else None
+            if ext != "png" or not _write_cut(image, box, path, metadata):
+                fig.savefig(path, bbox_inches=box, metadata=metadata,
+                            dpi=STYLE["savefig.dpi"] if ext == "png" else None)
             paths.append(path)
     finally:
         if engine is not None:
             fig.set_layout_engine(engine)
         fig.set_dpi(screen_dpi)
     return paths
+
+
+def _draw_once(fig):
+    """The figure drawn at its dpi on its Agg canvas (an RGBA array), or None where its
+    canvas is not an Agg one."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    if not isinstance(fig.canvas, FigureCanvasAgg):
+        return None
+    fig.canvas.draw()
+    return np.asarray(fig.canvas.buffer_rgba())
+
+
+def _write_cut(image, box, path, metadata) -> bool:
+    """Write the part of the drawn ``image`` inside ``box`` (inches) as a PNG at the
+    savefig dpi; False where there is no image or the box reaches past it (then
+    savefig draws what lies outside)."""
+    import matplotlib.image
+
+    if image is None:
+        return False
+    dpi = STYLE["savefig.dpi"]
+    height, width = image.shape[:2]
+    x0, x1 = int(np.floor(box.x0 * dpi)), int(np.ceil(box.x1 * dpi))
+    y0, y1 = height - int(np.ceil(box.y1 * dpi)), height - int(np.floor(box.y0 * dpi))
+    if x0 < 0 or y0 < 0 or x1 > width or y1 > height:
+        return False
+    matplotlib.image.imsave(path, image[y0:y1, x0:x1], format="png", dpi=dpi,
+                            metadata=metadata)
+    return True
 
 
 def math_name(name: str) -> str:
