@@ -96,7 +96,8 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
             metadata = {metadata: description} if metadata else None
             if ext != "png" or not _write_cut(image, box, path, metadata):
                 fig.savefig(path, bbox_inches=box, metadata=metadata,
-                            dpi=STYLE["savefig.dpi"] if ext == "png" else None)
+                            dpi=STYLE["savefig.dpi"] if ext == "png" else None,
+                            **({"pil_kwargs": _PNG_OPTIONS} if ext == "png" else {}))
             paths.append(path)
     finally:
         if engine is not None:
@@ -105,12 +106,17 @@ def save_figure(fig, stem, formats=("png", "pdf")) -> list:
     return paths
 
 
+#: zlib level of the PNG files: 3 takes 60 % of the default 6's time, and the files of
+#: massfit's figures come out within 15 % of the default's size (smaller for the corner).
+_PNG_OPTIONS = {"compress_level": 3}
+
+
 def _draw_once(fig):
     """The figure drawn at its dpi on its Agg canvas (an RGBA array), or None where its
-    canvas is not an Agg one."""
+    canvas draws otherwise (a window's canvas also paints the window)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
-    if not isinstance(fig.canvas, FigureCanvasAgg):
+    if type(fig.canvas).draw is not FigureCanvasAgg.draw:
         return None
     fig.canvas.draw()
     return np.asarray(fig.canvas.buffer_rgba())
@@ -131,7 +137,7 @@ def _write_cut(image, box, path, metadata) -> bool:
     if x0 < 0 or y0 < 0 or x1 > width or y1 > height:
         return False
     matplotlib.image.imsave(path, image[y0:y1, x0:x1], format="png", dpi=dpi,
-                            metadata=metadata)
+                            metadata=metadata, pil_kwargs=dict(_PNG_OPTIONS))
     return True
 
 
