@@ -296,6 +296,43 @@ def test_narrow_posteriors_are_drawn_as_offsets():
     assert np.all(np.abs(column.plotted(column.values)) < 5)
 
 
+def test_corner_dots_are_draws_and_its_quantiles_are_the_summarys(result, tmp_path):
+    # The 2-D panels' dots are a fixed number of random samples (one rasterised layer
+    # under the panels); the dashed lines of the 1-D histograms are the summary's
+    # median and 68.27 % bounds, which come from every sample.
+    from PIL import Image
+
+    params = ["mass", "Aster.period", "Aster.eccentricity"]
+    n = len(result.samples["central_mass_solar"])
+    fig = plots.corner_plot(result, parameters=params, point_draws=50)
+    dots = [a for a in fig.artists if a.get_gid() == "sample-dots"]
+    assert len(dots) == 3  # one per 2-D panel of three columns
+    assert all(len(d.get_xdata()) == 50 and d.get_rasterized() for d in dots)
+    assert fig.massfit_point_draws == 50
+    assert f"50 of the {n} posterior samples" in fig.massfit_description
+    columns = plots.corner._shown_columns(result, params, None, None, None, None, False)
+    data = np.column_stack([c.plotted(c.values) for c in columns])
+    rows = {tuple(r) for r in data[:, [0, 1]]}
+    first = dots[0]  # the (M, P) panel: each dot is one sample's pair
+    assert all(pair in rows for pair in zip(first.get_xdata(), first.get_ydata()))
+    axes = np.array(fig.axes).reshape(3, 3)
+    for i, quantity in ((1, "period"), (2, "eccentricity")):
+        block = result.summary["companions"]["Aster"][quantity]
+        expected = columns[i].plotted([block["lower_68"], block["median"], block["upper_68"]])
+        dashed = sorted(line.get_xdata()[0] for line in axes[i, i].lines
+                        if line.get_linestyle() == "--")
+        assert dashed == pytest.approx(expected, rel=1e-9, abs=1e-12)
+        # Negative control: the same quantiles of the 50 dots alone are elsewhere.
+        own = np.percentile(dots[i - 1].get_ydata(), [15.865, 50, 84.135])
+        assert own != pytest.approx(expected, rel=1e-9, abs=1e-12)
+    # The saved files say what the dots are; by default POINT_DRAWS of them.
+    png, pdf = plots.save_figure(fig, tmp_path / "corner")
+    assert Image.open(png).info["Description"] == fig.massfit_description
+    assert f"/Subject ({fig.massfit_description})".encode() in pdf.read_bytes()
+    fig = plots.corner_plot(result, parameters=params)
+    assert fig.massfit_point_draws == min(plots.corner.POINT_DRAWS, n)
+
+
 def test_corner_plot_refuses_unknown_parameters(result):
     with pytest.raises(ConfigError, match="Zed.period"):
         plots.corner_plot(result, parameters=["mass", "Zed.period"])

@@ -4,6 +4,7 @@ median)."""
 
 from __future__ import annotations
 
+import functools
 import math
 
 import astropy.units as u
@@ -19,7 +20,7 @@ from massfit.summarise.rounding import round_interval
 
 __all__ = ["corner_plot", "full_corner_plot", "default_corner_parameters", "Column",
            "DEFAULT_COMPANION_QUANTITIES", "FULL_COMPANION_QUANTITIES",
-           "MAX_KEY_COLUMNS"]
+           "MAX_KEY_COLUMNS", "POINT_DRAWS"]
 
 _MASS_SAMPLES = MASS_UNIT_KEYS
 _MASS_ASTROPY = MASS_UNIT_ASTROPY
@@ -31,7 +32,11 @@ DEFAULT_COMPANION_QUANTITIES = ("period", "semi_major_axis", "eccentricity", "in
 #: The default corner's columns at most, where fewer quantities per companion allow it
 #: (four companions: the mass, the parallax, and each one's P and a).
 MAX_KEY_COLUMNS = 10
-
+#: Random draws shown as dots in the 2-D panels (where the chain has more samples). The
+#: dots show where the outlying samples lie; the contours, the 1-D histograms and their
+#: quantiles are made from every sample. A few thousand dots already mark the outskirts,
+#: and each one costs drawing time in every panel.
+POINT_DRAWS = 3000
 
 
 class Column:
@@ -233,7 +238,8 @@ def _copies(columns) -> list:
 
 def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
                 quantities=None, truths=None, quantiles=(0.15865, 0.5, 0.84135),
-                titles=None, width=None, full=False, groups=None, corner_kwargs=None):
+                titles=None, width=None, full=False, groups=None, point_draws=None,
+                corner_kwargs=None):
     """Corner plot of the central mass, the parallax and the companions' elements.
 
     Parameters
@@ -276,16 +282,24 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         the plot in a colour of their own, with a legend. Groups need not cover every
         sample. By default the weighed modes of a nested fit
         (:func:`massfit.plot.style.mode_groups`); ``{}`` for none.
+    point_draws : int, optional
+        How many samples, drawn at random (a fixed seed), are shown as dots in the 2-D
+        panels; :data:`POINT_DRAWS` by default, all samples where there are fewer, 0 for
+        none. The contours, the 1-D histograms and their quantiles are made from every
+        sample. The dots of all panels are one layer, rasterised in a PDF (the axes,
+        contours and text stay vector). The figure's ``massfit_point_draws`` and the
+        saved files' metadata say how many were drawn.
     corner_kwargs : dict, optional
-        Passed to :func:`corner.corner` last (overrides the choices above).
+        Passed to :func:`corner.corner` last (overrides the choices above; with
+        ``plot_datapoints`` there, corner draws its own dots of every sample instead).
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    import corner
     import matplotlib.pyplot as plt
 
+    draw_corner = _corner_drawing()
     columns = _shown_columns(result, parameters, mass_unit, companions, quantities, truths,
                              full)
     parameters = [c.key for c in columns]
@@ -301,20 +315,82 @@ def corner_plot(result, *, parameters=None, mass_unit=None, companions=None,
         options = dict(
             labels=[c.label(two_lines=k > 5) for c in columns], quantiles=list(quantiles),
             show_titles=False, max_n_ticks=3, bins=30, smooth=1.0,
-            levels=(1 - np.exp(-0.5), 1 - np.exp(-2.0)), plot_datapoints=True,
-            data_kwargs={"ms": 1.0, "alpha": 0.1}, fill_contours=True,
+            levels=(1 - np.exp(-0.5), 1 - np.exp(-2.0)), plot_datapoints=False,
+            fill_contours=True,
             label_kwargs={"fontsize": 8 if k <= 10 else 7},
             hist_kwargs={"lw": 0.8}, contour_kwargs={"linewidths": 0.6},
             truth_color="C3", fig=fig)
         if truths:
             options["truths"] = [c.truth(truths.get(c.key)) for c in columns]
         options.update(corner_kwargs or {})
-        corner.corner(data, **options)
+        draw_corner(data, **options)
+        shown = 0
+        if "plot_datapoints" not in (corner_kwargs or {}):
+            shown = _sample_dots(fig, data, POINT_DRAWS if point_draws is None
+                                 else point_draws)
         _overlay_groups(fig, data, groups, result)
         _tidy_corner(fig, columns, width, show_titles,
                      modes=len(mode_groups(result)) if groups is None else 0)
     fig.massfit_parameters = list(parameters)
+    fig.massfit_point_draws = shown
+    if shown:
+        fig.massfit_description = (
+            f"Dots: {shown} of the {len(data)} posterior samples, drawn at random; "
+            f"contours, histograms and quantiles: all {len(data)} samples.")
     return fig
+
+
+def _sample_dots(fig, data, draws, seed=0) -> int:
+    """Dots of ``draws`` random samples in every 2-D panel; returns how many.
+
+    They lie under the panels (whose backgrounds are made clear; corner's white fill
+    inside the outer contour still hides the dots there), as one layer of the figure:
+    a PDF rasterises it once, not once per panel (each time the whole page).
+    """
+    from matplotlib.lines import Line2D
+
+    n, k = data.shape
+    if draws <= 0 or k < 2:
+        return 0
+    picked = np.sort(np.random.default_rng(seed).choice(n, size=min(draws, n),
+                                                          replace=False))
+    axes = np.array(fig.axes).reshape(k, k)
+    for row in range(1, k):
+        for col in range(row):
+            ax = axes[row, col]
+            ax.set_facecolor("none")
+            dots = Line2D(data[picked, col], data[picked, row], ls="none", marker="o",
+                          ms=1.0, mec="none", color="k", alpha=0.2, zorder=-1,
+                          transform=ax.transData, rasterized=True, gid="sample-dots")
+            dots.set_clip_box(ax.bbox)
+            fig.add_artist(dots)
+    return len(picked)
+
+
+@functools.cache
+def _corner_drawing():
+    """corner's drawing of a sample array (what :func:`corner.corner` calls for one).
+
+    Importing the corner package imports arviz where that is installed, for data given
+    as InferenceData, which massfit never passes: 1.4 s, a third of a fresh process's
+    corner plot. Where neither is imported yet, corner is imported with arviz held
+    back, and its modules are dropped again afterwards, so that a later ``import
+    corner`` elsewhere in the process gets the whole package.
+    """
+    import importlib
+    import sys
+
+    if "corner" in sys.modules or "arviz" in sys.modules:
+        return importlib.import_module("corner.core").corner_impl
+    sys.modules["arviz"] = None  # an import of arviz fails while this is here
+    try:
+        drawing = importlib.import_module("corner.core").corner_impl
+    finally:
+        del sys.modules["arviz"]
+        for name in [name for name in sys.modules
+                     if name == "corner" or name.startswith("corner.")]:
+            del sys.modules[name]
+    return drawing
 
 
 def full_corner_plot(result, **options):

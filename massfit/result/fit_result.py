@@ -474,8 +474,9 @@ class FitResult:
         :mod:`massfit.write.folder`). With ``arviz=True`` the posterior is also written
         as ArviZ InferenceData in NetCDF, ``posterior.nc`` (see
         :meth:`to_inference_data`; needs arviz). With ``processes=2`` the corner plot
-        is drawn in a forked second process beside the other figures (``massfit fit``
-        does so on a machine with two cores or more).
+        is drawn in a forked second process from the start, while this one writes the
+        numbers and draws the other figures (``massfit fit`` does so on a machine with
+        two cores or more).
         """
         from massfit.write.folder import atomic_folder, write_json
         from massfit.write.saved_state import (RUN_FILE, SAMPLES_FILE, SUMMARY_FILE, model_state,
@@ -487,26 +488,33 @@ class FitResult:
         record = {**self.record, "model": model_state(self.model)}
         with atomic_folder(out, record=RUN_FILE, force=force,
                            inputs=self.model.observations.files) as tmp:
-            write_json(tmp / SUMMARY_FILE, self.summary)
-            write_ecsv(self.samples_table(), tmp / SAMPLES_FILE)
-            # What massfit.load_result needs to rebuild the model and redraw.
-            write_observations(self.model.observations, tmp)
-            self.write_tables(tmp)
-            if posterior is not None:
-                from massfit.result.inference_data import INFERENCE_DATA_FILE
+            def numbers():
+                write_json(tmp / SUMMARY_FILE, self.summary)
+                write_ecsv(self.samples_table(), tmp / SAMPLES_FILE)
+                # What massfit.load_result needs to rebuild the model and redraw.
+                write_observations(self.model.observations, tmp)
+                self.write_tables(tmp)
+                if posterior is not None:
+                    from massfit.result.inference_data import INFERENCE_DATA_FILE
 
-                posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
-            write_json(tmp / RUN_FILE, record)
-            if plots:
-                record["figures"] = self._write_figures_or_warn(tmp, formats, processes)
+                    posterior.to_netcdf(str(tmp / INFERENCE_DATA_FILE))
                 write_json(tmp / RUN_FILE, record)
+
+            if plots:
+                record["figures"] = self._write_figures_or_warn(tmp, formats, processes,
+                                                                first=numbers)
+                write_json(tmp / RUN_FILE, record)
+            else:
+                numbers()
         return out
 
-    def _write_figures_or_warn(self, folder, formats, processes=1) -> dict:
+    def _write_figures_or_warn(self, folder, formats, processes=1, first=None) -> dict:
         """Draw every figure that applies; one that fails is a warning, not a lost result.
 
-        With ``processes`` = 2 (and fork available) the corner plots are drawn in a
-        second process while this one draws the rest.
+        ``first`` (writing the numbers) is done here before any figure. With
+        ``processes`` = 2 (and fork available) the corner plots are drawn in a second
+        process meanwhile, from the start, while this one does ``first`` and draws the
+        rest.
         """
         import warnings
 
@@ -517,13 +525,20 @@ class FitResult:
         apart = [stem for stem in stems if stem.startswith("corner")]
         if processes > 1 and can_fork() and apart and len(apart) < len(stems):
             rest = [stem for stem in stems if stem not in apart]
-            first, second = beside(lambda: self._draw_each(folder, apart, formats),
-                                   lambda: self._draw_each(folder, rest, formats))
-            done = {key: sorted(first[key] + second[key],
+
+            def here():
+                if first is not None:
+                    first()
+                return self._draw_each(folder, rest, formats)
+
+            there, mine = beside(lambda: self._draw_each(folder, apart, formats), here)
+            done = {key: sorted(there[key] + mine[key],
                                 key=lambda d: stems.index(d if isinstance(d, str)
                                                           else d["figure"]))
                     for key in ("written", "failed")}
         else:
+            if first is not None:
+                first()
             done = self._draw_each(folder, stems, formats)
         for failure in done["failed"]:
             warnings.warn(f"the figure '{failure['figure']}' could not be drawn "
