@@ -417,3 +417,76 @@ def test_offsets_from_another_moon_follow_rebound(tmp_path):
     # The secular J2 model has no states of its own to take a difference of.
     with pytest.raises(ModelError, match="reference_body"):
         OrbitModel(read_observations(path), SystemSpec(dynamics=Oblate(J2, f"{RADIUS} au")))
+
+
+def _pair_measured_from_a(tmp_path, every=2):
+    """REBOUND offsets (IAS15 with REBOUNDx's J2 and J4) of two moons over 60 inner
+    periods at random times, 150 km noise; of moon b's rows, one in ``every`` is
+    measured from moon a (``reference_body``), the rest from the planet (``every`` 1:
+    all of them from a). Returns the file and the moons' masses."""
+    from astropy.table import Table
+
+    from massfit.constants import AU_KM
+    from massfit.orbits.nbody import write_offsets
+
+    rebound = pytest.importorskip("rebound")
+    reboundx = pytest.importorskip("reboundx")
+    masses = np.array([4e-8, 9e-8])
+    states = [_moon_state(a, 0.01 + 0.01 * k, 0.3 + 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
+              for k, a in enumerate((3.0, 4.77))]
+    pos = np.array([s[0] for s in states])
+    vel = np.array([s[1] for s in states])
+    t = np.sort(np.random.default_rng(4).uniform(-30.0, 30.0, 61)) * states[0][2]
+    km = _rebound_positions(rebound, reboundx, masses, pos, vel, t, True) * AU_KM
+    rng = np.random.default_rng(1)
+    measured = np.arange(t.size) % every == 0
+    east = [km[0, :, 1], km[1, :, 1] - measured * km[0, :, 1]]
+    north = [km[0, :, 0], km[1, :, 0] - measured * km[0, :, 0]]
+    path = write_offsets(tmp_path / "pair.ecsv", 2461000.5, ["a", "b"], [t, t],
+                         [e + 150.0 * rng.standard_normal(t.size) for e in east],
+                         [n + 150.0 * rng.standard_normal(t.size) for n in north],
+                         150.0, "km", "pair")
+    table = Table.read(path)
+    table["reference_body"] = np.where(
+        (table["body"] == "b") & np.concatenate([np.zeros(t.size, bool), measured]), "a", "")
+    table.write(path, overwrite=True)
+    return path, masses
+
+
+def test_start_needs_rows_from_the_primary(tmp_path):
+    # Every row of moon b measured from moon a: the start's period search has no row
+    # of b's own orbit, and says so in one line naming the file, the body and its rows.
+    from massfit import Perturbed, SystemSpec, read_observations
+    from massfit.errors import ModelError
+    from massfit.model.orbit_model import OrbitModel
+    from massfit.start.search import find_start
+
+    path, _ = _pair_measured_from_a(tmp_path, every=1)
+    model = OrbitModel(read_observations(path), SystemSpec(dynamics=Perturbed(
+        j2=J2, j4=J4, equatorial_radius=f"{RADIUS} au", equator_inclination="0 deg",
+        equator_node="0 deg")))
+    with pytest.raises(ModelError, match=r"pair.ecsv: companion 'b' has 0 epoch\(s\) "
+                                         r"measured from the primary \(its other 61 row"):
+        find_start(model)
+
+
+@pytest.mark.slow  # a whole fit: about 20 s
+def test_fit_with_rows_measured_from_another_moon(tmp_path):
+    # Half of moon b's rows measured from moon a (REBOUND's offsets, J2, J4 and the
+    # moons' pulls): the default fit (the start on the rows from the planet, then the
+    # surrogate, which carries moon a's offset in its departure) converges, its exact
+    # check passes, and the planet's mass and the moons' lie within their 95 %
+    # intervals of the simulation's.
+    from massfit import Perturbed, SystemSpec, fit, read_observations
+
+    path, masses = _pair_measured_from_a(tmp_path)
+    dynamics = Perturbed(j2=J2, j4=J4, equatorial_radius=f"{RADIUS} au",
+                         equator_inclination="0 deg", equator_node="0 deg")
+    result = fit(read_observations(path), SystemSpec(dynamics=dynamics), seed=1,
+                 progress=False)
+    assert result.converged and result.summary["surrogate"]["passed"]
+    mass = result.summary["central_mass_solar"]
+    assert mass["lower_95"] < PLANET < mass["upper_95"]
+    for name, truth in zip(("a", "b"), masses):
+        moon = result.summary["companions"][name]["mass"]
+        assert moon["unit"] == "M_sun" and moon["lower_95"] < truth < moon["upper_95"]

@@ -38,6 +38,7 @@ bounds every posterior mean's shift by 0.33 of its posterior sd (f >= 0.99: 0.10
 from __future__ import annotations
 
 import copy
+import dataclasses
 
 import numpy as np
 
@@ -72,8 +73,10 @@ def mean_shift_bound(ess_fraction):
 
 def why_not_linearised(model) -> str | None:
     """Why ``model`` cannot be sampled through :class:`LinearisedPosterior` (a short
-    phrase), or None: its two-body part must be one the compiled kernel takes."""
-    return why_not_compiled(model, any_dynamics=True)
+    phrase), or None: its two-body part must be one the compiled kernel takes. Rows
+    measured from another companion qualify: their two-body part is the companion's
+    offset from the primary and the other body's offset is in the departure."""
+    return why_not_compiled(two_body_twin(model, references=False), any_dynamics=True)
 
 
 def check_line(record) -> str:
@@ -117,10 +120,15 @@ def packed_values(model, theta) -> np.ndarray:
     return np.stack([np.concatenate(first, axis=1), np.concatenate(second, axis=1)], axis=1)
 
 
-def two_body_twin(model):
-    """The same model (rows, layout, priors) with two-body dynamics."""
+def two_body_twin(model, *, references=True):
+    """The same model (rows, layout, priors) with two-body dynamics; without
+    ``references`` every row is taken as measured from the primary (a row measured
+    from another companion then predicts the companion's offset from the primary)."""
     cheap = copy.copy(model)
     cheap.dynamics = Keplerian()
+    if not references and any(rows.reference is not None for rows in model.rows.values()):
+        cheap.rows = {name: dataclasses.replace(rows, reference=None)
+                      for name, rows in model.rows.items()}
     return cheap
 
 
@@ -166,10 +174,13 @@ class LinearisedPosterior(CompiledPosterior):
         if reason is not None:
             raise ModelError(f"the linearised surrogate cannot take {reason}; set "
                              f"[dynamics] surrogate = \"none\"")
-        super().__init__(model)
+        # The kernel's two-body part predicts every row from the primary; a row
+        # measured from another companion has that companion's offset in the
+        # departure (smooth over the posterior like the rest of it).
+        cheap = two_body_twin(model, references=False)
+        super().__init__(cheap)
         theta0 = np.asarray(theta0, dtype=float)
         n_dim = theta0.size
-        cheap = two_body_twin(model)
         polar = self._polar_rows(model)
         # Companion masses sampled as log10 enter linearly: their pulls are first order
         # in the mass, not in its logarithm (measured: in log10 the second-order error

@@ -11,12 +11,15 @@ import numpy as np
 from massfit.constants import GM_SUN
 from massfit.errors import ModelError
 from massfit.model.orbit_model import OrbitModel
+from massfit.model.parts import data_files
 from massfit.orbits import kepler
 from massfit.priors import Fixed, Normal
 from massfit.start.aliases import candidate_periods
 from massfit.start.least_squares import CHUNK_ELEMENTS, chi2_at, orbit_dict, solve_least_squares
 
 __all__ = [
+    "check_rows_from_primary",
+    "own_rows",
     "ECC_GRID",
     "PHASE_GRID",
     "POLISH",
@@ -78,9 +81,36 @@ def single_companion_modes(model, name):
     return distinct_periods(solutions)
 
 
+def own_rows(astrometry):
+    """Rows measured from the primary (a row measured from another companion needs
+    that companion's orbit, which a one-companion search does not have)."""
+    if astrometry.reference_body is None:
+        return np.ones(len(astrometry), dtype=bool)
+    return astrometry.reference_body == ""
+
+
+def check_rows_from_primary(model):
+    """Every companion with astrometry has enough rows measured from the primary for
+    its own period search (4 epochs), else a ModelError naming it and its rows."""
+    data = model.observations.astrometry
+    if data is None or data.reference_body is None:
+        return
+    own = own_rows(data)
+    for name in np.unique(data.body):
+        rows = data.body == name
+        epochs = len(np.unique(data.time[rows & own].jd))
+        if epochs < 4:
+            others = sorted(set(data.reference_body[rows & ~own]))
+            raise ModelError(
+                f"{data_files(data.file[rows])}: companion '{name}' has {epochs} epoch(s) "
+                f"measured from the primary (its other {int(np.sum(rows & ~own))} row(s) "
+                f"from {', '.join(others)}); the start searches each orbit on rows "
+                f"measured from the primary and needs at least 4 epochs of them")
+
+
 def _sub_model(model, name):
     obs = model.observations
-    mine = obs.astrometry.body == name
+    mine = (obs.astrometry.body == name) & own_rows(obs.astrometry)
     if np.sum(mine) > SEARCH_ROWS:
         # A big data set: search on a random subset, drawn with a fixed seed so the
         # start stays deterministic, and random so that no even thinning can alias a

@@ -30,7 +30,7 @@ from massfit.start.least_squares import parameter_bounds, values_from_theta
 from massfit.start.modes import laplace_log_mass, merge_same_modes
 from massfit.start.progress import start_reporter
 from massfit.start.result import COMPARABLE_DELTA_CHI2, WEIGH_DELTA_CHI2, Start
-from massfit.start.scan import single_companion_modes
+from massfit.start.scan import check_rows_from_primary, single_companion_modes
 from massfit.start.staged import perturbed_start, sight_start, staged_start
 from massfit.start.velocities import velocity_only_start
 
@@ -62,6 +62,7 @@ def find_start(model: OrbitModel, *, rng=None, progress=None) -> Start:
         say(f"periodogram and scan of the velocities for {len(model.companions)} "
             f"companion(s)")
         return velocity_only_start(model)
+    check_rows_from_primary(model)
     if getattr(model.dynamics, "start_evaluations", None):
         return staged_start(model, two_body_start(model), progress)
     if type(model.dynamics) is not Keplerian:

@@ -22,7 +22,8 @@ from massfit.start.least_squares import (
 )
 from massfit.start.progress import start_reporter
 from massfit.start.result import Start
-from massfit.start.scan import SCREEN_EVALUATIONS, prior_centre, single_companion_modes
+from massfit.start.scan import (SCREEN_EVALUATIONS, own_rows, prior_centre,
+                                single_companion_modes)
 from massfit.start.velocities import inside_support
 
 __all__ = ["perturbed_start", "sight_start", "staged_start"]
@@ -98,8 +99,7 @@ def sight_start(model):
     from massfit.orbits.viewing import mean_direction, orientation_in_icrs
 
     data = model.observations.astrometry
-    own = np.ones(len(data), dtype=bool) if data.reference_body is None else (
-        data.reference_body == "")
+    own = own_rows(data)
     plane_rows = replace(data.select(own), primary_ra=None, primary_dec=None,
                          reference_body=None)
     plane = OrbitModel(replace(model.observations, astrometry=plane_rows),
