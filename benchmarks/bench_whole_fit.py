@@ -130,12 +130,47 @@ def run(report, threads=None):
                   f"them); {figures:.1f} s CPU one after another")
     report.target("the start of a 4-companion fit in <= 3 s", start_cpu <= 3.0,
                   f"{start_cpu:.1f} s CPU")
-    # As massfit fit runs it: start, sampling and result in this process, then the
-    # output folder with the corner drawn in a second process beside the rest.
+    # The steps as massfit fit runs them, summed from this process's clocks (start,
+    # sampling and result here, then the output folder with the corner drawn in a
+    # second process beside the rest), and the command itself timed as a whole
+    # process, reading, imports and all: the target is the command's.
     steps = {r["step"]: r["wall_s"] for r in clock.rows}
     as_run = (steps["model"] + steps["start"] + steps["sampling"]
               + steps["result (summary, mode and prior checks)"] + steps["summary text"] + two)
-    report.target("a 4-companion fit, figures included, in <= 20 s", as_run <= 20,
-                  f"{as_run:.1f} s wall as massfit fit runs it (figures in two processes; "
-                  f"reading and imports not counted); {total['cpu_s']:.1f} s CPU with every "
+    command = _command_walls(obs)
+    report.table("massfit fit as a command on the Tarrant set (a whole process: imports, "
+                 "reading, start, sampling, the output folder with figures), beside the "
+                 "sum of this process's steps", [
+                     {"what": f"the command, run {k + 1}", "wall_s": w}
+                     for k, w in enumerate(command)] + [
+                     {"what": "this process's steps summed (no imports, no reading)",
+                      "wall_s": as_run}], ["what", "wall_s"])
+    wall = float(np.median(command))
+    report.target("a 4-companion fit, figures included, in <= 20 s", wall <= 20,
+                  f"{wall:.1f} s wall, median of {len(command)} runs of massfit fit as a "
+                  f"command ({min(command):.1f}-{max(command):.1f} s; the steps summed in "
+                  f"one process {as_run:.1f} s); {total['cpu_s']:.1f} s CPU with every "
                   f"step one after another")
+
+
+def _command_walls(obs, runs=3):
+    """Wall seconds of ``massfit fit`` on the Tarrant set as a command, ``runs`` times
+    (the same arguments a user would type; a fresh process each time)."""
+    import subprocess
+    import sys
+
+    from common import tarrant_table
+
+    walls = []
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "tarrant.ecsv"
+        tarrant_table().write(path)
+        value, error = TARRANT_PARALLAX
+        for k in range(runs):
+            clock = time.perf_counter()
+            subprocess.run([sys.executable, "-m", "massfit", "fit", str(path), "--parallax",
+                            value, "--parallax-err", error, "--seed", "1", "--out",
+                            str(Path(tmp) / f"out{k}"), "--quiet"], check=True,
+                           capture_output=True)
+            walls.append(time.perf_counter() - clock)
+    return walls
