@@ -334,10 +334,11 @@ def _prior_numbers(prior):
     return (0.0, 0.0, prior.low, prior.high, 0.0)
 
 
-#: Below this many walker-rows in one call, threads cost more to wake than they save
-#: (the Tarrant set, 27 walkers x 230 rows: 0.24 ms a call on one thread, no faster on
-#: two; at 10x the rows 1.9 ms against 1.0 ms; benchmarks/RESULTS.md).
-THREADS_FROM_WORK = 20_000
+#: Below this many walker-rows in one call, threads cost more than they save. With
+#: libgomp's threads spinning between calls (see massfit/__init__.py) the Tarrant set's
+#: chain (27 walkers x 230 rows a call) ran 1.6-1.7x faster on two threads than on
+#: one (benchmarks/RESULTS.md, threads); before, when they slept, 2.4x slower.
+THREADS_FROM_WORK = 5_000
 
 _requested = threading.local()
 

@@ -96,10 +96,17 @@ except ImportError:  # pragma: no cover - exercised where numba is absent
 HAVE_NUMBA = _numba is not None
 
 if HAVE_NUMBA:
-    # Threads that wait between calls sleep instead of spinning: on a machine shared
-    # with other work a spinning thread holds a core, and a call waits for every
-    # thread (a fit on two spinning threads at load 20 was 7 times slower in wall time
-    # than on one). Read by the OpenMP runtime when numba first starts its threads.
+    # Threads that wait between calls spin for a few milliseconds, then sleep: on a
+    # machine shared with other work a thread spinning without end holds a core, and a
+    # call waits for every thread (a fit on two such threads at load 20 was 7 times
+    # slower in wall time than on one); a thread that sleeps at once must be woken for
+    # each of the sampler's parallel calls, a fraction of a millisecond apart (two
+    # threads then ran the Tarrant chain 2.4x slower than one; with the spin 1.5-1.9x
+    # faster, benchmarks/RESULTS.md, threads). libgomp's own short spin is 300 000
+    # rounds (about 3 ms). Read by the OpenMP runtime when numba first starts its
+    # threads; a user's own settings are kept.
+    if "OMP_WAIT_POLICY" not in os.environ and "GOMP_SPINCOUNT" not in os.environ:
+        os.environ["GOMP_SPINCOUNT"] = "300000"
     os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
     from massfit.orbits import _kepler_numba as numba_kernel
     # The whole two-body log-posterior (massfit.model.compiled_posterior packs for it).
