@@ -313,3 +313,14 @@ def test_model_comparison_of_an_integrated_model_uses_the_linearised_least_squar
     assert comparison["perturbed"]["chi2"] <= at_truth + 1e-9
     assert at_truth - comparison["perturbed"]["chi2"] < 3 * model.n_dim
     assert 0.7 < comparison["perturbed"]["chi2"] / comparison["n_values"] < 1.3
+
+
+def test_no_surrogate_for_radial_velocities():
+    # The surrogate's departure is the astrometry's alone: a model with radial
+    # velocities is refused by name (integrated models refuse velocities today, see
+    # OrbitModel; this keeps the surrogate honest if they take them one day).
+    from types import SimpleNamespace
+
+    from massfit.model.surrogate import why_not_linearised
+
+    assert why_not_linearised(SimpleNamespace(velocity_rows=object())) == "radial velocities"

@@ -75,7 +75,10 @@ def why_not_linearised(model) -> str | None:
     """Why ``model`` cannot be sampled through :class:`LinearisedPosterior` (a short
     phrase), or None: its two-body part must be one the compiled kernel takes. Rows
     measured from another companion qualify: their two-body part is the companion's
-    offset from the primary and the other body's offset is in the departure."""
+    offset from the primary and the other body's offset is in the departure. Radial
+    velocities do not: the surrogate's departure is the astrometry's alone."""
+    if model.velocity_rows is not None:
+        return "radial velocities"
     return why_not_compiled(two_body_twin(model, references=False), any_dynamics=True)
 
 
