@@ -13,7 +13,7 @@ import numpy as np
 
 from massfit.errors import ConfigError
 
-__all__ = ["COLUMN_WIDTH", "PAGE_WIDTH", "STYLE", "TIME_CMAP", "INSTRUMENT_MARKERS", "style",
+__all__ = ["COLUMN_WIDTH", "PAGE_WIDTH", "STYLE", "TIME_CMAP", "INSTRUMENT_MARKERS", "style", "load_drawing",
            "save_figure", "math_name", "plain_log_ticks", "jyear", "time_cmap", "chosen",
            "TimeAxis", "time_axis", "by_period", "MODE_COLOURS", "mode_groups"]
 
@@ -56,6 +56,15 @@ def style():
         yield
     finally:
         mpl.rcParams.update(saved)
+
+
+def load_drawing():
+    """Import what drawing and writing the figures needs (pyplot, the Agg and PDF back
+    ends). Called before the figures' second process is forked, so that it starts
+    with them instead of importing them again (about 0.6 s in each process)."""
+    import matplotlib.backends.backend_agg  # noqa: F401
+    import matplotlib.backends.backend_pdf  # noqa: F401
+    import matplotlib.pyplot  # noqa: F401
 
 
 def save_figure(fig, stem, formats=("png", "pdf")) -> list:

@@ -531,6 +531,9 @@ class FitResult:
                     first()
                 return self._draw_each(folder, rest, formats)
 
+            from massfit.plot.style import load_drawing
+
+            load_drawing()  # once, before the fork: both processes start with it
             there, mine = beside(lambda: self._draw_each(folder, apart, formats), here)
             done = {key: sorted(there[key] + mine[key],
                                 key=lambda d: stems.index(d if isinstance(d, str)
