@@ -365,6 +365,25 @@ def test_viewing_pole_is_the_perturbed_models_pole(tmp_path):
     assert by_viewing.node_width == by_equator.node_width
 
 
+def _pair():
+    """Two invented moons of the oblate test planet: masses (M_sun), positions and
+    velocities (au, au/day) at the epoch, and the inner one's period (days)."""
+    states = [_moon_state(a, 0.01 + 0.01 * k, 0.3 + 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
+              for k, a in enumerate((3.0, 4.77))]
+    return (np.array([4e-8, 9e-8]), np.array([s[0] for s in states]),
+            np.array([s[1] for s in states]), states[0][2])
+
+
+def _pair_km(masses, pos, vel, t):
+    """The pair's planetocentric positions (km) at ``t`` by REBOUND's IAS15 with
+    REBOUNDx's J2 and J4 (skipped where they are not installed)."""
+    from massfit.constants import AU_KM
+
+    rebound = pytest.importorskip("rebound")
+    reboundx = pytest.importorskip("reboundx")
+    return _rebound_positions(rebound, reboundx, masses, pos, vel, t, True) * AU_KM
+
+
 def test_offsets_from_another_moon_follow_rebound(tmp_path):
     # Rows of moon b measured from moon a (reference_body), the rest from the planet:
     # offsets made by REBOUND's IAS15 with REBOUNDx's J2 and J4 (Rein & Liu 2012;
@@ -374,21 +393,14 @@ def test_offsets_from_another_moon_follow_rebound(tmp_path):
     from astropy.table import Table
 
     from massfit import Perturbed, SystemSpec, read_observations
-    from massfit.constants import AU_KM
     from massfit.errors import ModelError
     from massfit.model.orbit_model import OrbitModel
     from massfit.orbits.nbody import write_offsets
     from massfit.orbits.oblate import Oblate
 
-    rebound = pytest.importorskip("rebound")
-    reboundx = pytest.importorskip("reboundx")
-    masses = np.array([4e-8, 9e-8])
-    states = [_moon_state(a, 0.01 + 0.01 * k, 0.3 + 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
-              for k, a in enumerate((3.0, 4.77))]
-    pos = np.array([s[0] for s in states])
-    vel = np.array([s[1] for s in states])
-    t = np.linspace(-8.0, 8.0, 17) * states[0][2]  # symmetric: the model's epoch is 0
-    km = _rebound_positions(rebound, reboundx, masses, pos, vel, t, True) * AU_KM
+    masses, pos, vel, inner = _pair()
+    t = np.linspace(-8.0, 8.0, 17) * inner  # symmetric: the model's epoch is 0
+    km = _pair_km(masses, pos, vel, t)
     path = write_offsets(tmp_path / "pair.ecsv", 2461000.5, ["a", "b"], [t, t],
                          [km[0, :, 1], km[1, :, 1] - km[0, :, 1]],
                          [km[0, :, 0], km[1, :, 0] - km[0, :, 0]], 150.0, "km", "pair")
@@ -426,18 +438,11 @@ def _pair_measured_from_a(tmp_path, every=2):
     all of them from a). Returns the file and the moons' masses."""
     from astropy.table import Table
 
-    from massfit.constants import AU_KM
     from massfit.orbits.nbody import write_offsets
 
-    rebound = pytest.importorskip("rebound")
-    reboundx = pytest.importorskip("reboundx")
-    masses = np.array([4e-8, 9e-8])
-    states = [_moon_state(a, 0.01 + 0.01 * k, 0.3 + 0.02 * k, 0.5 * k, 1.3 * k, 2.0 * k)
-              for k, a in enumerate((3.0, 4.77))]
-    pos = np.array([s[0] for s in states])
-    vel = np.array([s[1] for s in states])
-    t = np.sort(np.random.default_rng(4).uniform(-30.0, 30.0, 61)) * states[0][2]
-    km = _rebound_positions(rebound, reboundx, masses, pos, vel, t, True) * AU_KM
+    masses, pos, vel, inner = _pair()
+    t = np.sort(np.random.default_rng(4).uniform(-30.0, 30.0, 61)) * inner
+    km = _pair_km(masses, pos, vel, t)
     rng = np.random.default_rng(1)
     measured = np.arange(t.size) % every == 0
     east = [km[0, :, 1], km[1, :, 1] - measured * km[0, :, 1]]
